@@ -1,0 +1,152 @@
+r"""The classic multi-category attributable fraction, and how far it is from
+the continuous one.
+
+With shares :math:`p_i` of the population in bands :math:`i` and relative
+risks :math:`RR_i` (Rockhill, Newman & Weinberg 1998, Am J Public Health
+88:15; Hanley 2001, J Epidemiol Community Health 55:508):
+
+.. math::
+    PAF = \frac{\sum_i p_i (RR_i - 1)}{1 + \sum_i p_i (RR_i - 1)}.
+
+Levin's (1953) single-level formula is the case of one exposed band. The
+category RRs are taken three ways: as the study reported them (only when
+the bands are the study's own), the curve at each band's midpoint, and the
+curve at each band's conditional mean exposure under the fitted
+distribution.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from doseattr.core.attribution.fractions import paf as continuous_paf
+from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class CategoricalMethod:
+    """One way of assigning band RRs, with the PAF it gives."""
+
+    method: str
+    rr: FloatArray
+    paf: float
+    difference: float
+
+
+@dataclass(frozen=True)
+class CategoricalComparison:
+    """Bands ``[0, c1), [c1, c2), ..., [cK, inf)`` and the PAF per method.
+
+    ``convergence`` holds ``(k, paf)`` for ``k`` equal-probability bands of
+    the exposed population (RR at each band's mean); the unexposed share,
+    if any, forms one more band at zero exposure.
+    """
+
+    cutpoints: FloatArray
+    shares: FloatArray
+    midpoints: FloatArray
+    band_means: FloatArray
+    methods: tuple[CategoricalMethod, ...]
+    continuous_paf: float
+    convergence: tuple[tuple[int, float], ...]
+
+    @property
+    def lower(self) -> FloatArray:
+        return np.concatenate([[0.0], self.cutpoints])
+
+    @property
+    def upper(self) -> FloatArray:
+        return np.concatenate([self.cutpoints, [np.inf]])
+
+
+def multi_category_paf(shares: ArrayLike, rr: ArrayLike) -> float:
+    r""":math:`\sum p_i(RR_i - 1) / (1 + \sum p_i(RR_i - 1))`."""
+    p, r = np.asarray(shares, dtype=float), np.asarray(rr, dtype=float)
+    assert p.shape == r.shape and np.all(p >= 0) and np.all(r > 0)
+    excess = float(np.sum(p * (r - 1.0)))
+    return excess / (1.0 + excess)
+
+
+def band_shares(exposure: Exposure, cutpoints: ArrayLike) -> FloatArray:
+    """Population share in each band, the unexposed in the first."""
+    edges = np.concatenate([[0.0], np.asarray(cutpoints, dtype=float)])
+    below = exposure.cdf(edges[1:])
+    return np.diff(np.concatenate([[0.0], below, [1.0]]))
+
+
+def band_means(exposure: Exposure, cutpoints: ArrayLike) -> FloatArray:
+    r"""Conditional mean exposure in each band,
+    :math:`E[X \mid a \le X < b] = (1-u)\,E[X; a < X \le b] / p`."""
+    cuts = np.asarray(cutpoints, dtype=float)
+    lo = np.concatenate([[0.0], cuts])
+    hi = np.concatenate([cuts, [np.inf]])
+    pm = (1 - exposure.unexposed) * exposure.family.partial_mean(lo, hi, exposure.params)
+    p = band_shares(exposure, cuts)
+    return np.where(p > 0, pm / np.where(p > 0, p, 1.0), 0.5 * (lo + np.where(np.isfinite(hi), hi, lo)))
+
+
+def band_midpoints(cutpoints: ArrayLike) -> FloatArray:
+    """Band midpoints; the open top band gets its lower limit plus half the
+    width of the band below (common practice)."""
+    cuts = np.asarray(cutpoints, dtype=float)
+    lo = np.concatenate([[0.0], cuts])
+    mids = 0.5 * (lo[:-1] + cuts)
+    width_below = cuts[-1] - lo[-2]
+    return np.concatenate([mids, [cuts[-1] + 0.5 * width_below]])
+
+
+def rr_at(curve: Curve, doses: ArrayLike, minimum_risk: float) -> FloatArray:
+    """:math:`RR_m` at the given doses."""
+    d = np.maximum(np.asarray(doses, dtype=float), minimum_risk)
+    return np.exp(curve.log_rr(d) - curve.log_rr(np.array([minimum_risk])))
+
+
+def equal_probability_paf(curve: Curve, exposure: Exposure, bands: int,
+                          minimum_risk: float) -> float:
+    """Categorical PAF with ``bands`` equal-probability bands of the exposed."""
+    q = np.arange(1, bands) / bands
+    cuts = exposure.family.ppf(q, exposure.params)
+    exposed = Exposure(exposure.family, exposure.params, 0.0)
+    p = (1 - exposure.unexposed) * band_shares(exposed, cuts)
+    rr = rr_at(curve, band_means(exposed, cuts), minimum_risk)
+    return multi_category_paf(np.append(p, exposure.unexposed), np.append(rr, 1.0))
+
+
+def categorical_comparison(curve: Curve, exposure: Exposure, *, minimum_risk: float,
+                           cutpoints: ArrayLike, reported_rr: ArrayLike | None = None,
+                           max_bands: int = 20) -> CategoricalComparison:
+    """Compare the multi-category PAF under each RR assignment with the
+    continuous PAF.
+
+    Parameters
+    ----------
+    cutpoints
+        Increasing positive band limits ``c1 < ... < cK``.
+    reported_rr
+        The study's RRs for the ``K + 1`` bands, given only when the
+        cutpoints are the study's own band limits.
+    """
+    cuts = np.asarray(cutpoints, dtype=float)
+    assert cuts.ndim == 1 and cuts.size >= 1 and np.all(np.diff(cuts) > 0) and cuts[0] > 0
+    shares = band_shares(exposure, cuts)
+    mids = band_midpoints(cuts)
+    means = band_means(exposure, cuts)
+    cont = continuous_paf(curve, exposure, minimum_risk)
+    assigned = []
+    if reported_rr is not None:
+        assigned.append(("reported", np.asarray(reported_rr, dtype=float)))
+    assigned.append(("midpoint", rr_at(curve, mids, minimum_risk)))
+    assigned.append(("band-mean", rr_at(curve, means, minimum_risk)))
+    methods = tuple(
+        CategoricalMethod(name, rr, multi_category_paf(shares, rr),
+                          multi_category_paf(shares, rr) - cont)
+        for name, rr in assigned)
+    convergence = tuple((k, equal_probability_paf(curve, exposure, k, minimum_risk))
+                        for k in range(2, max_bands + 1))
+    return CategoricalComparison(cuts, shares, mids, means, methods, cont, convergence)

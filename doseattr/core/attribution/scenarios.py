@@ -1,0 +1,123 @@
+"""Exposure-reduction scenarios: transforms g(x) of each person's exposure.
+
+Each scenario gives the transformed exposure, the doses in the original
+exposure where the transformed risk has a kink (so quadrature panels can be
+split there), and how it changes the upper-tail growth of the risk.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from doseattr.core.curves.base import Growth
+from doseattr.errors import ModelError
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """Base class; subclasses define :meth:`apply`, :meth:`preimage`."""
+
+    value: float
+    name: str = ""
+    kind: ClassVar[str] = "scenario"
+
+    def apply(self, x: FloatArray, minimum_risk: ArrayLike) -> FloatArray:
+        """Counterfactual exposure g(x)."""
+        raise NotImplementedError
+
+    def preimage(self, points: FloatArray) -> FloatArray:
+        """Original exposures x whose g(x) equals each of ``points``."""
+        raise NotImplementedError
+
+    def own_kinks(self) -> FloatArray:
+        """Kinks the transform itself adds (in the original exposure)."""
+        return np.zeros((0,))
+
+    def growth(self, growth: Growth) -> Growth:
+        """Upper-tail growth of RR(g(x)) given that of RR(x)."""
+        return growth
+
+    def describe(self, unit: str = "") -> str:
+        return f"{self.kind} {self.value:g} {unit}".strip()
+
+
+@dataclass(frozen=True)
+class Cap(Scenario):
+    """Exposure capped at a limit value: g(x) = min(x, L)."""
+
+    kind: ClassVar[str] = "cap"
+
+    def __post_init__(self) -> None:
+        if not (np.isfinite(self.value) and self.value >= 0):
+            raise ModelError(f"cap must be a non-negative number, got {self.value}")
+
+    def apply(self, x: FloatArray, minimum_risk: ArrayLike) -> FloatArray:
+        return np.minimum(x, self.value)
+
+    def preimage(self, points: FloatArray) -> FloatArray:
+        return np.where(points < self.value, points, self.value)
+
+    def own_kinks(self) -> FloatArray:
+        return np.array([self.value])
+
+    def growth(self, growth: Growth) -> Growth:
+        return Growth.bounded()
+
+    def describe(self, unit: str = "") -> str:
+        return f"exposure capped at {self.value:g} {unit}".strip()
+
+
+@dataclass(frozen=True)
+class Scale(Scenario):
+    """Everyone's exposure multiplied by s in (0, 1]: g(x) = s x."""
+
+    kind: ClassVar[str] = "scale"
+
+    def __post_init__(self) -> None:
+        if not (0 < self.value <= 1):
+            raise ModelError(f"scale must be in (0, 1], got {self.value}")
+
+    def apply(self, x: FloatArray, minimum_risk: ArrayLike) -> FloatArray:
+        return self.value * x
+
+    def preimage(self, points: FloatArray) -> FloatArray:
+        return points / self.value
+
+    def growth(self, growth: Growth) -> Growth:
+        if growth.kind == "exp":
+            return Growth("exp", growth.rate * self.value)
+        return growth
+
+    def describe(self, unit: str = "") -> str:
+        return f"exposure scaled by {self.value:g} ({(1 - self.value):.0%} cut)"
+
+
+@dataclass(frozen=True)
+class ReduceBy(Scenario):
+    """Exposure lowered by d, not below the minimum-risk level m:
+    g(x) = max(x - d, m) (people already at or below m keep their level,
+    which carries no excess risk)."""
+
+    kind: ClassVar[str] = "reduce_by"
+
+    def __post_init__(self) -> None:
+        if not (np.isfinite(self.value) and self.value >= 0):
+            raise ModelError(f"reduce_by must be a non-negative number, got {self.value}")
+
+    def apply(self, x: FloatArray, minimum_risk: ArrayLike) -> FloatArray:
+        return np.maximum(x - self.value, minimum_risk)
+
+    def preimage(self, points: FloatArray) -> FloatArray:
+        return points + self.value
+
+    def describe(self, unit: str = "") -> str:
+        return f"exposure lowered by {self.value:g} {unit}".strip()
+
+
+SCENARIO_KINDS: dict[str, type[Scenario]] = {"cap": Cap, "scale": Scale, "reduce_by": ReduceBy}

@@ -1,0 +1,205 @@
+"""The contract every exposure family follows.
+
+A family is declared by its public parameter names, a map to and from an
+unconstrained internal vector (logs of positive parameters), and a handful
+of formulas vectorised over parameter draws. The integration engine works on
+the log-exposure scale ``t = ln x``, so every family gives the log density
+of ``T = ln X``; it also gives breakpoints in ``t`` that cover the body and
+both tails, and the upper limit needed when the integrand grows.
+
+Broadcasting convention: ``params`` has shape ``(k,)`` or ``(D, k)``;
+parameter ``j`` is read as ``params[..., j, None]`` (see :func:`pcol`) and
+broadcasts against ``t`` or ``x`` of shape ``(N,)`` or ``(D, N)``.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from dataclasses import dataclass, field
+from typing import ClassVar
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from doseattr.core.curves.base import Growth
+from doseattr.errors import ModelError
+
+FloatArray = NDArray[np.float64]
+
+#: Standard-normal points used as log-scale breakpoints; the outer ones
+#: leave less than 1e-17 of probability outside.
+Z_BREAKS = np.array([-8.6, -6.5, -4.8, -3.4, -2.2, -1.1, 0.0, 1.1, 2.2, 3.4, 4.8, 6.5, 8.6])
+
+
+def pcol(params: ArrayLike, j: int) -> FloatArray:
+    """Parameter ``j`` of ``params`` shaped to broadcast against ``x``."""
+    return np.asarray(params, dtype=float)[..., j, None]
+
+
+class Family(ABC):
+    """An exposure distribution family on (0, inf).
+
+    Subclasses write the formulas; :class:`Exposure` and the fitters in
+    :mod:`doseattr.core.exposure.fit` supply everything else.
+    """
+
+    name: ClassVar[str]
+    param_names: ClassVar[tuple[str, ...]]
+
+    # -- parameterisation -------------------------------------------------
+    @abstractmethod
+    def to_internal(self, params: ArrayLike) -> FloatArray:
+        """Public parameters -> unconstrained vector (same shape)."""
+
+    @abstractmethod
+    def from_internal(self, theta: ArrayLike) -> FloatArray:
+        """Unconstrained vector -> public parameters (same shape)."""
+
+    @abstractmethod
+    def check(self, params: ArrayLike) -> None:
+        """Raise ModelError naming the parameter if ``params`` is invalid."""
+
+    # -- distribution -----------------------------------------------------
+    @abstractmethod
+    def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
+        """log density of T = ln X at ``t``."""
+
+    def logpdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        """log density of X at ``x > 0``."""
+        x = np.asarray(x, dtype=float)
+        with np.errstate(divide="ignore"):
+            lx = np.log(x)
+        return self.log_density_log(lx, params) - lx
+
+    @abstractmethod
+    def cdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def sf(self, x: ArrayLike, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def logcdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def logsf(self, x: ArrayLike, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def mean(self, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
+        """E[X; a < X <= b] (``b`` may be ``inf``)."""
+
+    @abstractmethod
+    def scipy(self, params: ArrayLike):
+        """The frozen ``scipy.stats`` distribution for one parameter vector."""
+
+    @abstractmethod
+    def from_moments(self, mean: float, sd: float) -> FloatArray:
+        """Public parameters of the member with this mean and standard
+        deviation (method of moments); ModelError if there is none."""
+
+    # -- fitting support --------------------------------------------------
+    def start(self, x: FloatArray, w: FloatArray) -> FloatArray:
+        """Starting public parameters for maximum likelihood: the moment
+        estimates from positive values ``x`` with weights ``w``."""
+        mean = float(np.average(x, weights=w))
+        sd = float(np.sqrt(np.average((x - mean) ** 2, weights=w)))
+        if not sd > 0:
+            raise ModelError(f"{self.name}: all values are equal ({mean:g}); a spread is needed to fit a distribution")
+        return self.from_moments(mean, sd)
+
+    def closed_form_mle(self, x: FloatArray, w: FloatArray) -> FloatArray | None:
+        """Weighted maximum-likelihood public parameters in closed form for
+        fully observed ``x``, or ``None`` when the family has none."""
+        return None
+
+    # -- integration support ---------------------------------------------
+    @abstractmethod
+    def log_breaks(self, params: ArrayLike) -> FloatArray:
+        """Sorted breakpoints in ``t = ln x``, shape ``(K,)`` or ``(D, K)``.
+
+        The first and last leave less than about 1e-16 of probability
+        outside; between them the log density is smooth on each panel.
+        """
+
+    @abstractmethod
+    def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
+        """Breakpoints covering the mass of ``RR(x) f(x)`` for an RR that
+        grows as ``growth`` says (power or exponential), same shape rule.
+
+        Raises :class:`doseattr.errors.DivergenceError` when
+        ``E[RR(X)]`` is infinite for some draw, saying why.
+        """
+
+
+@dataclass(frozen=True)
+class ExposureFit:
+    """How an exposure distribution was obtained from data.
+
+    ``values``/``detected``/``weights`` keep the data the fit used, for
+    plots (``detected`` false marks a value that is a detection limit).
+    ``cov_internal`` is the asymptotic covariance of the internal
+    parameters (from the observed information), or ``None``.
+    """
+
+    method: str
+    loglik: float | None = None
+    aic: float | None = None
+    n: int = 0
+    detected: int = 0
+    censored: int = 0
+    values: FloatArray | None = None
+    detected_mask: NDArray[np.bool_] | None = None
+    weights: FloatArray | None = None
+    upper: FloatArray | None = None
+    cov_internal: FloatArray | None = None
+    gof: dict = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Exposure:
+    """A population exposure distribution: a point mass ``unexposed`` at
+    zero and the family with ``params`` for the rest.
+
+    ``alternatives`` holds the other families' fits when several were tried
+    (``family = "best"``), as ``(family, params, fit)`` tuples.
+    """
+
+    family: Family
+    params: FloatArray
+    unexposed: float = 0.0
+    fit: ExposureFit | None = None
+    source: str = "entered"
+    alternatives: tuple = ()
+    notes: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        assert 0.0 <= self.unexposed < 1.0, self.unexposed
+        assert np.shape(self.params) == (len(self.family.param_names),)
+
+    @property
+    def parameters(self) -> dict[str, float]:
+        return {n: float(v) for n, v in zip(self.family.param_names, self.params)}
+
+    def cdf(self, x: ArrayLike) -> FloatArray:
+        """Population CDF including the point mass at zero."""
+        x = np.asarray(x, dtype=float)
+        body = np.where(x > 0, self.family.cdf(np.maximum(x, 1e-300), self.params), 0.0)
+        return np.where(x >= 0, self.unexposed + (1 - self.unexposed) * body, 0.0)
+
+    def sf(self, x: ArrayLike) -> FloatArray:
+        x = np.asarray(x, dtype=float)
+        body = np.where(x > 0, self.family.sf(np.maximum(x, 1e-300), self.params), 1.0)
+        return np.where(x >= 0, (1 - self.unexposed) * body, 1.0)
+
+    def pdf(self, x: ArrayLike) -> FloatArray:
+        """Density of the exposed part, scaled by ``1 - unexposed``."""
+        x = np.asarray(x, dtype=float)
+        with np.errstate(divide="ignore"):
+            lp = self.family.logpdf(np.where(x > 0, x, np.nan), self.params)
+        return np.where(x > 0, (1 - self.unexposed) * np.exp(np.nan_to_num(lp, nan=-np.inf)), 0.0)
