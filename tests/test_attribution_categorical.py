@@ -122,3 +122,20 @@ def test_burden_density_integrates_to_paf():
     upto = integrate.quad(dens, m, min(end, 40.0))[0] + (integrate.quad(dens, 40.0, end)[0] if end > 40 else 0)
     assert c.cumulative[-1] == pytest.approx(upto / total, rel=1e-7)
     assert 0 < c.median < end
+
+
+def test_empirical_path_is_weighted_mean():
+    """family = empirical: PAF = 1 - 1/E with E the weighted mean of RR_m over
+    the values (definition of expectation over a discrete distribution),
+    computed here with numpy.average."""
+    from doseattr.core.exposure.empirical import empirical
+    x = np.array([0.0, 1.5, 4.0, 9.0, 22.0])
+    w = np.array([3.0, 1.0, 2.0, 1.0, 0.5])
+    curve = Curve(LinearExcess(), np.array([0.05]), np.eye(1), max_dose=15.0)
+    m = 1.0
+    rr = (1 + 0.05 * np.minimum(np.maximum(x, m), 15.0)) / (1 + 0.05 * m)
+    e = np.average(rr, weights=w)
+    assert paf(curve, empirical(x, w), m) == pytest.approx(1 - 1 / e, rel=1e-12)
+    c = burden_density(curve, empirical(x, w), m)
+    assert c.paf == pytest.approx(1 - 1 / e, rel=1e-12)
+    assert c.cumulative[-1] == pytest.approx(1.0, rel=1e-12)

@@ -24,6 +24,7 @@ from doseattr.core.attribution.engine import expected_excess
 from doseattr.core.attribution.fractions import expected_rr
 from doseattr.core.curves.base import Curve, Growth
 from doseattr.core.exposure.base import Exposure
+from doseattr.core.exposure.empirical import EmpiricalExposure
 
 FloatArray = NDArray[np.float64]
 
@@ -46,7 +47,7 @@ def burden_density(curve: Curve, exposure: Exposure, minimum_risk: float = 0.0, 
                    points: int = 200, upper_quantile: float = 0.999) -> Contribution:
     """Density and cumulative share of the attributable burden on a grid
     from 0 to the ``upper_quantile`` of the exposed population."""
-    if getattr(exposure.family, "empirical", False):
+    if isinstance(exposure, EmpiricalExposure):
         return _empirical(curve, exposure, minimum_risk)
     top = float(exposure.family.ppf(np.array([upper_quantile]), exposure.params)[0])
     x = np.linspace(0.0, top, points)
@@ -83,13 +84,12 @@ def _median(x: FloatArray, share: FloatArray, total: float) -> float | None:
     return float(np.interp(0.5, np.maximum.accumulate(share), x))
 
 
-def _empirical(curve: Curve, exposure: Exposure, m: float) -> Contribution:
+def _empirical(curve: Curve, exposure: EmpiricalExposure, m: float) -> Contribution:
     """For the empirical path: the burden as point masses at the values,
     reported as a cumulative step function."""
-    fam = exposure.family
-    order = np.argsort(fam.values)
-    x = np.asarray(fam.values, dtype=float)[order]
-    w = np.asarray(fam.weights, dtype=float)[order]
+    order = np.argsort(exposure.values)
+    x = exposure.values[order]
+    w = exposure.weights[order]
     w = (1 - exposure.unexposed) * w / w.sum()
     ex = np.expm1(curve.log_rr(np.maximum(x, m)) - curve.log_rr(np.array([m])))
     e_total = 1.0 + float(w @ ex)

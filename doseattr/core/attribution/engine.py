@@ -46,9 +46,9 @@ FloatArray = NDArray[np.float64]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
 
 #: Gauss-Legendre nodes per panel.
-NODES = 16
+NODES = 12
 #: Largest number of (draw x node) values held in memory at once.
-CHUNK_VALUES = 2_000_000
+CHUNK_VALUES = 262_144
 #: Probability mass the panels must recover before a result is trusted.
 MASS_TOLERANCE = 1e-9
 
@@ -138,10 +138,11 @@ def _chunk(log_rr: LogRisk, family: Family, params: FloatArray, growth: Growth,
 def _edges(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray) -> FloatArray:
     """Panel edges for a chunk of draws: family breaks, tilted breaks, kinks."""
     d = params.shape[0]
-    parts = [np.broadcast_to(family.log_breaks(params), (d, _width(family.log_breaks(params))))]
     if growth.kind != "bounded" and np.any(growth.rate > 0):
-        tb = family.tilted_log_breaks(params, growth)
-        parts.append(np.broadcast_to(tb, (d, _width(tb))))
+        breaks = family.tilted_log_breaks(params, growth)   # includes the family's own
+    else:
+        breaks = family.log_breaks(params)
+    parts = [np.broadcast_to(breaks, (d, _width(breaks)))]
     allb = np.concatenate(parts, axis=1)
     lo = allb.min(axis=1, keepdims=True)
     hi = allb.max(axis=1, keepdims=True)
@@ -159,6 +160,8 @@ def _width(a: FloatArray) -> int:
 def _excess_density(lr: FloatArray, log_f: FloatArray) -> FloatArray:
     """expm1(lr) * exp(log_f) without overflow where f is negligible and
     without cancellation where lr is small."""
+    if lr.max(initial=0.0) < 600.0:
+        return np.exp(log_f) * np.expm1(lr)
     with np.errstate(over="ignore"):
         big = np.exp(log_f + lr) * -np.expm1(-np.maximum(lr, 0.5))
     small = np.exp(log_f) * np.expm1(np.minimum(lr, 0.5))

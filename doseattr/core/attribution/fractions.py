@@ -28,6 +28,7 @@ from doseattr.core.attribution.engine import expected_excess
 from doseattr.core.attribution.scenarios import Scenario
 from doseattr.core.curves.base import Curve, as_coef_draws
 from doseattr.core.exposure.base import Exposure, Family
+from doseattr.core.exposure.empirical import EmpiricalExposure
 
 FloatArray = NDArray[np.float64]
 
@@ -50,34 +51,51 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
     scenario
         Exposure transform; ``None`` for the current exposure.
     """
+    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk, np.shape(np.atleast_2d(params))[0])
+    params = np.broadcast_to(np.atleast_2d(np.asarray(params, dtype=float)), (d, np.shape(params)[-1]))
+    body = expected_excess(_log_rr_m(curve, coef, m, scenario), family, params,
+                           growth=_growth(curve, coef, scenario),
+                           kinks=_kinks(curve, coef, m, scenario))
+    return (1.0 - u) * body
+
+
+def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, weights: ArrayLike,
+                           unexposed: ArrayLike, minimum_risk: ArrayLike,
+                           scenario: Scenario | None = None) -> FloatArray:
+    r"""Expected excess for weighted exposure values (no fitted family):
+    :math:`(1-u)\sum_i w_i\,(RR_m(g(x_i)) - 1)`, with ``values`` and
+    ``weights`` of shape ``(n,)`` or per draw ``(D, n)`` (bootstrap)."""
+    values = np.atleast_2d(np.asarray(values, dtype=float))
+    weights = np.atleast_2d(np.asarray(weights, dtype=float))
+    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk, values.shape[0])
+    values = np.broadcast_to(values, (d, values.shape[1]))
+    weights = np.broadcast_to(weights, (d, weights.shape[1]))
+    excess = np.expm1(_log_rr_m(curve, coef, m, scenario)(values, slice(0, d)))
+    body = np.sum(excess * weights, axis=1) / np.sum(weights, axis=1)
+    return (1.0 - u) * body
+
+
+def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike, n_exposure: int):
+    """Broadcast coefficients, unexposed share and minimum-risk level to a
+    common number of draws ``D``."""
     coef = as_coef_draws(coef)
-    params = np.atleast_2d(np.asarray(params, dtype=float))
-    d = max(coef.shape[0], params.shape[0], np.size(unexposed), np.size(minimum_risk))
+    d = max(coef.shape[0], n_exposure, np.size(unexposed), np.size(minimum_risk))
     coef = np.broadcast_to(coef, (d, coef.shape[1]))
-    params = np.broadcast_to(params, (d, params.shape[1]))
     m = np.broadcast_to(np.asarray(minimum_risk, dtype=float), (d,))
     u = np.broadcast_to(np.asarray(unexposed, dtype=float), (d,))
     assert np.all(m >= 0) and np.all((u >= 0) & (u < 1))
+    return coef, m, u, d
+
+
+def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None):
+    """The function ``(x, rows) -> ln RR_m(g(x))`` for draws ``rows``."""
 
     def log_rr(x: FloatArray, rows: slice) -> FloatArray:
         c, mm = coef[rows], m[rows, None]
         y = x if scenario is None else scenario.apply(x, mm)
         return curve.log_rr(np.maximum(y, mm), c) - curve.log_rr(mm, c)
 
-    if getattr(family, "empirical", False):
-        body = _empirical_excess(log_rr, family, d)
-    else:
-        body = expected_excess(log_rr, family, params,
-                               growth=_growth(curve, coef, scenario),
-                               kinks=_kinks(curve, coef, m, scenario))
-    return (1.0 - u) * body
-
-
-def _empirical_excess(log_rr, family, d: int) -> FloatArray:
-    """Weighted mean of RR_m - 1 over individual values (no fitted family)."""
-    x = np.broadcast_to(np.asarray(family.values, dtype=float), (d, len(family.values)))
-    w = np.asarray(family.weights, dtype=float)
-    return np.expm1(log_rr(x, slice(0, d))) @ (w / w.sum())
+    return log_rr
 
 
 def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None):
@@ -97,11 +115,16 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     return np.concatenate([scenario.preimage(points), own], axis=1)
 
 
-def expected_rr(curve: Curve, exposure: Exposure, minimum_risk: float = 0.0,
+def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,
                 scenario: Scenario | None = None) -> float:
     """:math:`E[RR_m(g(X))]` at the point estimates."""
-    return 1.0 + float(excess_draws(curve, curve.coef, exposure.family, exposure.params,
-                                    exposure.unexposed, minimum_risk, scenario)[0])
+    if isinstance(exposure, EmpiricalExposure):
+        excess = empirical_excess_draws(curve, curve.coef, exposure.values, exposure.weights,
+                                        exposure.unexposed, minimum_risk, scenario)
+    else:
+        excess = excess_draws(curve, curve.coef, exposure.family, exposure.params,
+                              exposure.unexposed, minimum_risk, scenario)
+    return 1.0 + float(excess[0])
 
 
 def paf_from_excess(excess0: ArrayLike) -> FloatArray:

@@ -1,0 +1,2 @@
+"""Monte Carlo propagation of uncertainty: parameter draws, interval
+summaries, and attributable cases by stratum."""

@@ -1,0 +1,89 @@
+"""Draws of every uncertain input, each from a Generator passed in.
+
+* Curve coefficients: the curve's own draws when it came as sampled curves,
+  otherwise the multivariate normal approximation N(coef, cov) of the fit
+  (asymptotic normality of GLS / maximum-likelihood estimates).
+* Exposure parameters: the asymptotic normal of the maximum-likelihood fit
+  on the internal (log) scale, ``theta ~ N(theta_hat, I^-1)``, mapped back,
+  which keeps positive parameters positive. Distributions entered as
+  numbers have no sampling error and stay fixed.
+* Empirical exposure: a weighted bootstrap of the rows.
+* Minimum-risk level: uniform over ``[low, high]``.
+* Observed cases: optionally Poisson with the observed count as mean.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
+from doseattr.core.exposure.empirical import EmpiricalExposure
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class ExposureDraws:
+    """Exposure draws: ``params (D, k)`` for a family, or ``values`` and
+    ``weights (D, n)`` for the empirical path; ``varies`` says whether the
+    draws carry any sampling uncertainty."""
+
+    params: FloatArray | None = None
+    values: FloatArray | None = None
+    weights: FloatArray | None = None
+    varies: bool = False
+
+
+def curve_draws(curve: Curve, n: int, rng: np.random.Generator) -> FloatArray:
+    """Coefficient draws ``(n, p)``.
+
+    A curve supplied as sampled draws is used as it is when ``n`` equals
+    the number of draws, and resampled with replacement otherwise.
+    """
+    if curve.draws is not None:
+        k = curve.draws.shape[0]
+        idx = np.arange(n) if n == k else rng.integers(0, k, size=n)
+        return np.asarray(curve.draws[idx], dtype=float)
+    return rng.multivariate_normal(curve.coef, curve.cov, size=n, method="eigh")
+
+
+def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
+                   rng: np.random.Generator) -> ExposureDraws:
+    """Exposure parameter draws (see module docstring)."""
+    if isinstance(exposure, EmpiricalExposure):
+        values, weights = exposure.bootstrap(rng, n)
+        return ExposureDraws(values=values, weights=weights, varies=exposure.values.size > 1)
+    cov = None if exposure.fit is None else exposure.fit.cov_internal
+    if cov is None:
+        return ExposureDraws(params=np.broadcast_to(exposure.params, (n, exposure.params.size)))
+    theta = exposure.family.to_internal(exposure.params)
+    draws = rng.multivariate_normal(theta, cov, size=n, method="eigh")
+    return ExposureDraws(params=exposure.family.from_internal(draws), varies=True)
+
+
+def fixed_exposure(exposure: Exposure | EmpiricalExposure, n: int) -> ExposureDraws:
+    """The exposure at its point estimate, repeated ``n`` times."""
+    if isinstance(exposure, EmpiricalExposure):
+        return ExposureDraws(values=exposure.values[None, :], weights=exposure.weights[None, :])
+    return ExposureDraws(params=np.broadcast_to(exposure.params, (n, exposure.params.size)))
+
+
+def minimum_risk_draws(low: float, high: float, n: int, rng: np.random.Generator) -> FloatArray:
+    """Uniform draws on ``[low, high]`` (all equal when ``low == high``)."""
+    assert 0 <= low <= high
+    if low == high:
+        return np.full(n, float(low))
+    return rng.uniform(low, high, size=n)
+
+
+def case_draws(cases: FloatArray, n: int, rng: np.random.Generator, poisson: bool) -> FloatArray:
+    """Observed cases per stratum ``(S,)`` -> draws ``(S, n)``; Poisson
+    variation around the observed count when ``poisson`` is true."""
+    cases = np.asarray(cases, dtype=float)
+    if not poisson:
+        return np.broadcast_to(cases[:, None], (cases.size, n))
+    return rng.poisson(cases[:, None], size=(cases.size, n)).astype(float)
