@@ -92,3 +92,20 @@ def test_draws_equal_single_evaluations():
     for i in range(7):
         one = excess_draws(curve, coef[i], fam, params[i], 0.0, m[i], Cap(5.0))[0]
         assert together[i] == pytest.approx(one, rel=1e-13)
+
+
+@pytest.mark.parametrize("crv", ["power-3-extended", "linear-extended", "steep-loglinear-flat"])
+def test_shared_grid_equals_single_evaluations(crv):
+    """When only the curve varies across draws the engine builds one grid
+    (covering the steepest draw's tilt); each row must still equal its own
+    single evaluation, and the quad reference within 1e-8."""
+    curve = CURVES[crv]
+    ex = FAMS["gamma-small-shape"]
+    rng = np.random.default_rng(4)
+    coef = curve.coef * rng.uniform(0.5, 1.5, size=(6, 1))
+    together = excess_draws(curve, coef, ex.family, ex.params, ex.unexposed, 1.0)
+    for i in range(6):
+        one = excess_draws(curve, coef[i], ex.family, ex.params, ex.unexposed, 1.0)[0]
+        assert together[i] == pytest.approx(one, rel=1e-9)
+    c0 = Curve(curve.model, coef[0], curve.cov, max_dose=curve.max_dose)
+    assert 1 + together[0] == pytest.approx(quad_expected_rr(c0, ex, 1.0), rel=1e-8)

@@ -44,6 +44,7 @@ from doseattr.errors import ConvergenceError
 
 FloatArray = NDArray[np.float64]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
+Grid = tuple[FloatArray, FloatArray, FloatArray, FloatArray]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 12
@@ -95,31 +96,44 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
         kinks = np.broadcast_to(kinks, (d, kinks.shape[0]))
     rate = np.broadcast_to(np.asarray(growth.rate, dtype=float), (d,))
     xi, wi = _legendre(nodes)
+    if d > 1 and _same_rows(params) and _same_rows(kinks):
+        # One exposure distribution and one set of kinks for every draw
+        # (only the curve varies): build the nodes once and reuse them.
+        shared = Growth(growth.kind, rate.max(keepdims=True))
+        grid = _grid(family, params[:1], shared, kinks[:1], xi, wi)
+        step = max(1, CHUNK_VALUES // grid[0].shape[1])
+        return np.concatenate([_integrate(log_rr, grid, slice(s, min(d, s + step)))
+                               for s in range(0, d, step)])
     n_edges = _edges(family, params[:1], _sub_growth(growth, rate, slice(0, 1)),
                      kinks[:1]).shape[1]
     step = max(1, CHUNK_VALUES // max(1, (n_edges - 1) * nodes))
     out = np.empty(d)
     for start in range(0, d, step):
         rows = slice(start, min(d, start + step))
-        out[rows] = _chunk(log_rr, family, params[rows], _sub_growth(growth, rate, rows),
-                           kinks[rows], rows, xi, wi)
+        grid = _grid(family, params[rows], _sub_growth(growth, rate, rows), kinks[rows], xi, wi)
+        out[rows] = _integrate(log_rr, grid, rows)
     return out
+
+
+def _same_rows(a: FloatArray) -> bool:
+    return bool(a.shape[1] == 0 or np.all(a == a[:1]))
 
 
 def _sub_growth(growth: Growth, rate: FloatArray, rows: slice) -> Growth:
     return Growth(growth.kind, rate[rows])
 
 
-def _chunk(log_rr: LogRisk, family: Family, params: FloatArray, growth: Growth,
-           kinks: FloatArray, rows: slice, xi: FloatArray, wi: FloatArray) -> FloatArray:
+def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
+          xi: FloatArray, wi: FloatArray) -> Grid:
+    """Nodes ``x``, log densities, quadrature weights and weighted densities,
+    each ``(d, N)``; checks that they recover the distribution's probability."""
     edges = _edges(family, params, growth, kinks)
     half = 0.5 * np.diff(edges, axis=1)                      # (d, P)
     mid = 0.5 * (edges[:, 1:] + edges[:, :-1])
-    t = mid[:, :, None] + half[:, :, None] * xi              # (d, P, n)
-    d, p, n = t.shape
-    flat_t = t.reshape(d, p * n)
-    log_f = family.log_density_log(flat_t, params)
-    weight = (half[:, :, None] * wi).reshape(d, p * n)
+    d, p = half.shape
+    t = (mid[:, :, None] + half[:, :, None] * xi).reshape(d, p * xi.size)
+    log_f = family.log_density_log(t, params)
+    weight = (half[:, :, None] * wi).reshape(d, p * xi.size)
     dens = np.exp(log_f) * weight
     mass = dens.sum(axis=1)
     if np.any(np.abs(mass - 1.0) > MASS_TOLERANCE):
@@ -127,8 +141,12 @@ def _chunk(log_rr: LogRisk, family: Family, params: FloatArray, growth: Growth,
         raise ConvergenceError(
             f"quadrature recovered the {family.name} distribution's probability only to "
             f"{worst:.1e}; parameters are too extreme for the fixed rule")
-    lr = log_rr(np.exp(flat_t), rows)
-    total = (_excess_density(lr, log_f) * weight).sum(axis=1)
+    return np.exp(t), log_f, weight, dens
+
+
+def _integrate(log_rr: LogRisk, grid: Grid, rows: slice) -> FloatArray:
+    x, log_f, weight, dens = grid
+    total = _weighted_excess(log_rr(x, rows), log_f, weight, dens)
     if not np.all(np.isfinite(total)):
         raise ConvergenceError("the expectation overflowed: the relative risk is too large "
                                "over the exposure range; check the curve and its units")
@@ -157,12 +175,18 @@ def _width(a: FloatArray) -> int:
     return int(np.shape(a)[-1])
 
 
-def _excess_density(lr: FloatArray, log_f: FloatArray) -> FloatArray:
-    """expm1(lr) * exp(log_f) without overflow where f is negligible and
-    without cancellation where lr is small."""
+def _weighted_excess(lr: FloatArray, log_f: FloatArray, weight: FloatArray,
+                     dens: FloatArray) -> FloatArray:
+    """Row sums of expm1(lr) * dens, where dens = exp(log_f) * weight.
+
+    Where lr is large enough to overflow expm1 the density there is
+    negligible; those nodes are evaluated as exp(log_f + lr) instead.
+    """
     if lr.max(initial=0.0) < 600.0:
-        return np.exp(log_f) * np.expm1(lr)
-    with np.errstate(over="ignore"):
-        big = np.exp(log_f + lr) * -np.expm1(-np.maximum(lr, 0.5))
-    small = np.exp(log_f) * np.expm1(np.minimum(lr, 0.5))
-    return np.where(lr > 0.5, big, small)
+        if dens.shape[0] == 1:
+            return np.expm1(lr) @ dens[0]
+        return np.einsum("ij,ij->i", np.expm1(lr), dens)
+    with np.errstate(over="ignore", invalid="ignore"):
+        big = np.exp(log_f + lr) * -np.expm1(-np.maximum(lr, 0.5)) * weight
+    small = np.expm1(np.minimum(lr, 0.5)) * dens
+    return np.where(lr > 0.5, big, small).sum(axis=1)
