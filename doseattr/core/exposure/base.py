@@ -109,7 +109,8 @@ class Family(ABC):
         mean = float(np.average(x, weights=w))
         sd = float(np.sqrt(np.average((x - mean) ** 2, weights=w)))
         if not sd > 0:
-            raise ModelError(f"{self.name}: all values are equal ({mean:g}); a spread is needed to fit a distribution")
+            raise ModelError(f"{self.name}: all values are equal ({mean:g}); "
+                             "a spread is needed to fit a distribution")
         return self.from_moments(mean, sd)
 
     def closed_form_mle(self, x: FloatArray, w: FloatArray) -> FloatArray | None:
@@ -130,6 +131,13 @@ class Family(ABC):
     def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
         """Breakpoints covering the mass of ``RR(x) f(x)`` for an RR that
         grows as ``growth`` says (power or exponential), same shape rule.
+
+        For power or exponential growth the result is the sorted union of
+        :meth:`log_breaks` and the breakpoints of the tilted distribution
+        (density proportional to the growth bound times ``f``), so ``2K``
+        columns for every draw, broadcast over per-draw rates; a draw with
+        rate <= 0 repeats its own breakpoints (empty panels). For bounded
+        growth it is :meth:`log_breaks` itself.
 
         Raises :class:`doseattr.errors.DivergenceError` when
         ``E[RR(X)]`` is infinite for some draw, saying why.

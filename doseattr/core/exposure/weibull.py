@@ -1,0 +1,207 @@
+r"""The Weibull family with shape ``k`` and scale ``lambda`` (data's unit).
+
+With ``E = (x/\lambda)^k``, which is standard exponential:
+
+.. math::
+
+    F(x) = 1 - e^{-E}, \qquad
+    E[X; a < X \le b] = \lambda\,\Gamma(1 + 1/k)\,[P(1 + 1/k, E_b) - P(1 + 1/k, E_a)]
+
+(Johnson, Kotz & Balakrishnan 1994, ch. 21, from memory; the partial mean by the
+substitution ``E = (x/lambda)^k``). Internal parameters are
+``(ln k, ln lambda)``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+from scipy.optimize import brentq
+from scipy.special import gammaln
+
+from doseattr.core.curves.base import Growth
+from doseattr.core.exposure.base import Z_BREAKS, Family, FloatArray, pcol
+from doseattr.core.exposure.gamma import gamma_between
+from doseattr.core.exposure.incomplete_gamma import LOWER_P, UPPER_Q, log_gamma_break_quantiles
+from doseattr.core.exposure.tilt import merge, positive_rate, refuse
+from doseattr.errors import ModelError
+
+#: log of the standard-exponential quantiles at the probabilities of Z_BREAKS.
+LOG_E_BREAKS = np.log(np.concatenate([-np.log1p(-LOWER_P), -np.log(UPPER_Q)]))
+
+#: ln E[e^{cX}] above this is not representable; treated as divergent.
+_LOG_MAX_MGF = 700.0
+
+
+class Weibull(Family):
+    """Weibull with public parameters ``shape`` and ``scale`` (both > 0)."""
+
+    name = "weibull"
+    param_names = ("shape", "scale")
+
+    def to_internal(self, params: ArrayLike) -> FloatArray:
+        return np.log(np.asarray(params, dtype=float))
+
+    def from_internal(self, theta: ArrayLike) -> FloatArray:
+        return np.exp(np.asarray(theta, dtype=float))
+
+    def check(self, params: ArrayLike) -> None:
+        p = np.asarray(params, dtype=float)
+        for j, pname in enumerate(self.param_names):
+            v = p[..., j]
+            if not np.all(np.isfinite(v) & (v > 0)):
+                raise ModelError(f"weibull: {pname} must be a positive number, got {v}")
+
+    @staticmethod
+    def _u(x_or_t: ArrayLike, params: ArrayLike, *, log_scale: bool) -> tuple[FloatArray, FloatArray]:
+        """``k`` and ``u = ln E = k (ln x - ln lambda)``."""
+        k = pcol(params, 0)
+        t = np.asarray(x_or_t, dtype=float)
+        if not log_scale:
+            with np.errstate(divide="ignore"):
+                t = np.log(t)
+        u = np.subtract(t, np.log(pcol(params, 1)))
+        u *= k
+        return k, u
+
+    def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
+        r"""log density of ``T = ln X``: :math:`\ln k + u - e^u`."""
+        k, u = self._u(t, params, log_scale=True)
+        with np.errstate(over="ignore"):
+            e = np.exp(u)
+        u -= e  # in place: a hot path
+        u += np.log(k)
+        return u
+
+    def _e(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        u = self._u(x, params, log_scale=False)[1]
+        with np.errstate(over="ignore"):
+            return np.exp(u)
+
+    def cdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        return -np.expm1(-self._e(x, params))
+
+    def sf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        return np.exp(-self._e(x, params))
+
+    def logcdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        r""":math:`\ln(1 - e^{-E})`; for ``E < 1e-13`` it equals ``ln E`` to
+        double precision, which also covers ``E`` underflowing to zero."""
+        u = self._u(x, params, log_scale=False)[1]
+        with np.errstate(over="ignore", divide="ignore"):
+            direct = np.log(-np.expm1(-np.exp(u)))
+        return np.where(u < -30, u, direct)
+
+    def logsf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
+        return -self._e(x, params)
+
+    def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray:
+        e = -np.log1p(-np.asarray(q, dtype=float))
+        return pcol(params, 1) * e ** (1.0 / pcol(params, 0))
+
+    def mean(self, params: ArrayLike) -> FloatArray:
+        p = np.asarray(params, dtype=float)
+        return p[..., 1] * np.exp(gammaln(1 + 1 / p[..., 0]))
+
+    def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
+        k = pcol(params, 0)
+        ea, eb = self._e(a, params), self._e(b, params)
+        full = pcol(params, 1) * np.exp(gammaln(1 + 1 / k))
+        return full * gamma_between(1 + 1 / k, ea, eb)
+
+    def scipy(self, params: ArrayLike):
+        k, lam = np.asarray(params, dtype=float)
+        return stats.weibull_min(c=k, scale=lam)
+
+    def from_moments(self, mean: float, sd: float) -> FloatArray:
+        r"""Solve :math:`\ln(1 + CV^2) = \ln\Gamma(1 + 2/k) - 2\ln\Gamma(1 + 1/k)`
+        for ``k`` (brentq on ``ln k``), then ``scale = mean / Gamma(1 + 1/k)``."""
+        target = np.log1p((sd / mean) ** 2)
+
+        def gap(logk: float) -> float:
+            k = np.exp(logk)
+            return gammaln(1 + 2 / k) - 2 * gammaln(1 + 1 / k) - target
+
+        lo, hi = np.log(0.02), np.log(1000.0)
+        if not gap(lo) > 0 > gap(hi):
+            raise ModelError("weibull: no shape between 0.02 and 1000 gives a coefficient of "
+                             f"variation of {sd / mean:g}")
+        k = np.exp(brentq(gap, lo, hi, xtol=1e-14, rtol=1e-14))
+        return np.array([k, mean / np.exp(gammaln(1 + 1 / k))])
+
+    def log_breaks(self, params: ArrayLike) -> FloatArray:
+        k, lam = pcol(params, 0), pcol(params, 1)
+        return np.log(lam) + LOG_E_BREAKS / k
+
+    def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
+        r"""Power growth ``x^b``: in ``E = (x/lambda)^k``, ``x^b f`` is
+        proportional to the Gamma(1 + b/k, 1) density of ``E``.
+        Exponential growth ``e^{cx}``: shape < 1 diverges; shape 1 is the
+        exponential distribution (finite for :math:`c\lambda < 1`, tilted scale
+        :math:`\lambda/(1 - c\lambda)`); shape > 1 converges, see
+        :func:`_exp_tilt_breaks`."""
+        own = self.log_breaks(params)
+        if growth.kind == "bounded":
+            return own
+        rate = positive_rate(growth)
+        k, lam = pcol(params, 0), pcol(params, 1)
+        if growth.kind == "power":
+            log_e = log_gamma_break_quantiles((1 + rate / k)[..., 0])
+            return merge(own, np.log(lam) + log_e / k)
+        return merge(own, _exp_tilt_breaks(k, lam, rate))
+
+
+def _exp_tilt_breaks(k: FloatArray, lam: FloatArray, c: FloatArray) -> FloatArray:
+    r"""Breakpoints for :math:`e^{cx} f(x)`, Weibull ``f``; inputs broadcast
+    like ``(D, 1)`` columns, result ``(D, K)`` or ``(K,)``.
+
+    For shape > 1, :math:`\ln[e^{cx} f]` in ``t = ln x`` is concave with its
+    mode where :math:`E = 1 + cx/k` and curvature
+    :math:`-(k^2 + (k-1)cx)`; breakpoints are mode + Z_BREAKS / sqrt(curvature)
+    (Laplace's approximation), with the last one moved out, if needed, to
+    where :math:`E - cx = L`, :math:`L = 40 + \ln(k/(k-1))`: beyond that point
+    the mass of :math:`e^{cx} f` is below :math:`\frac{k}{k-1}e^{-L}`
+    (substitute ``u = E - cx``; derived here).
+    """
+    k, lam, c = np.broadcast_arrays(k, lam, c)
+    shape = k.shape[:-1] + (len(Z_BREAKS),)
+    k, lam, c = k.ravel(), lam.ravel(), c.ravel()
+    unit = np.abs(k - 1) < 1e-12
+    tilted = c > 0
+    refuse(tilted & (k < 1) & ~unit, "a log-linear curve extended over a Weibull tail with shape < 1 "
+           "has no finite mean: exp(c x) outgrows the tail")
+    refuse(tilted & unit & (c * lam >= 1), "a log-linear curve extended over an exponential "
+           "(Weibull shape 1) tail has no finite mean when slope x scale >= 1")
+    out = np.empty((k.size, len(Z_BREAKS)))
+    laplace = tilted & ~unit
+    out[laplace] = _laplace_breaks(k[laplace], lam[laplace], c[laplace])
+    rest = ~laplace
+    scale = np.where(unit & tilted, lam / (1 - np.where(unit & tilted, c * lam, 0.0)), lam)
+    out[rest] = np.log(scale[rest])[:, None] + LOG_E_BREAKS / k[rest][:, None]
+    return out.reshape(shape)
+
+
+def _fixed_point(u0: FloatArray, step, iterations: int = 500) -> FloatArray:
+    u = u0
+    for _ in range(iterations):
+        u = step(u)
+    return u
+
+
+def _laplace_breaks(k: FloatArray, lam: FloatArray, c: FloatArray) -> FloatArray:
+    """Rows of breakpoints for shape > 1 (1-D inputs)."""
+    loglam = np.log(lam)
+    log_peak = np.log(c) + (np.log(c * lam / k) / (k - 1) + loglam) + np.log1p(-1 / k)
+    refuse(log_peak > np.log(_LOG_MAX_MGF), "a log-linear curve extended over this Weibull tail gives an "
+           "expected relative risk beyond floating-point range (over e^700)")
+    u_asym = (np.log(c / k) + k * loglam) / (k - 1)
+    mode = _fixed_point(np.maximum(loglam, u_asym), lambda u: loglam + np.log1p(c * np.exp(u) / k) / k)
+    big = 40.0 + np.log(k / (k - 1))
+    u_asym = (np.log(c) + k * loglam) / (k - 1)
+    top = _fixed_point(np.maximum(loglam + np.log(big) / k, u_asym),
+                       lambda u: loglam + np.log(c * np.exp(u) + big) / k)
+    sd = 1.0 / np.sqrt(k * k + (k - 1) * c * np.exp(mode))
+    breaks = mode[:, None] + sd[:, None] * Z_BREAKS
+    breaks[:, -1] = np.maximum(breaks[:, -1], top)
+    return breaks

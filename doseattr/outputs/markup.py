@@ -1,0 +1,90 @@
+"""Small HTML and number-formatting helpers for the report.
+
+Every piece of text passed in is escaped with :func:`html.escape`; callers
+pass plain text, never markup.
+"""
+
+from __future__ import annotations
+
+import base64
+from html import escape
+from typing import Any, Iterable, Sequence
+
+NA = "\u2013"  # en dash for "not applicable"
+
+
+def num(value: Any, digits: int = 4) -> str:
+    """A number with ``digits`` significant figures, or a dash."""
+    if value is None:
+        return NA
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return str(value)
+    return f"{float(value):.{digits}g}"
+
+
+def pct(value: Any, digits: int = 3) -> str:
+    """A fraction as a percentage with ``digits`` significant figures."""
+    if value is None:
+        return NA
+    text = f"{100 * float(value):#.{digits}g}"
+    return text.rstrip(".") + "%"
+
+
+def interval(lower: Any, upper: Any, fmt=pct) -> str:
+    if lower is None or upper is None:
+        return NA
+    return f"{fmt(lower)} to {fmt(upper)}"
+
+
+def with_unit(value: Any, unit: str | None) -> str:
+    return f"{num(value)} {unit}" if unit and value is not None else num(value)
+
+
+def table(header: Sequence[str], rows: Iterable[Sequence[Any]], *, cls: str = "",
+          caption: str | None = None) -> str:
+    """An HTML table; every cell is escaped (cells are plain text)."""
+    head = "".join(f"<th>{escape(str(h))}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{escape(str(c))}</td>" for c in row) + "</tr>"
+                   for row in rows)
+    cap = f"<caption>{escape(caption)}</caption>" if caption else ""
+    klass = f' class="{cls}"' if cls else ""
+    return f"<table{klass}>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def definition_list(items: Iterable[tuple[str, str]]) -> str:
+    rows = "".join(f"<tr><th scope='row'>{escape(k)}</th><td>{escape(v)}</td></tr>"
+                   for k, v in items)
+    return f'<table class="facts"><tbody>{rows}</tbody></table>'
+
+
+def image(png: bytes | None, alt: str) -> str:
+    if not png:
+        return ""
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure><img alt="{escape(alt)}" src="data:image/png;base64,{data}">'
+            f"<figcaption>{escape(alt)}</figcaption></figure>")
+
+
+def section(anchor: str, title: str, body: str) -> str:
+    if not body:
+        return ""
+    return f'<section id="{anchor}"><h2>{escape(title)}</h2>{body}</section>'
+
+
+def para(text: str) -> str:
+    return f"<p>{escape(text)}</p>"
+
+
+def bullets(lines: Iterable[str]) -> str:
+    return "<ul>" + "".join(f"<li>{escape(s)}</li>" for s in lines) + "</ul>"
+
+
+def notes_list(notes: Any, heading: str | None = None) -> str:
+    """Small print on how the inputs were read, when there is any."""
+    notes = [str(n) for n in notes or [] if n]
+    if not notes:
+        return ""
+    head = f"<p>{escape(heading)}</p>" if heading else ""
+    return f'<div class="notes">{head}{bullets(notes)}</div>'

@@ -1,0 +1,131 @@
+"""Fixed wording of the report: explanations, methods and references.
+
+Kept apart from the page layout so the text can be read and revised in one
+place. The cautions shown in a report are those of the results
+(``results.cautions``); :data:`DEFAULT_CAUTIONS` is used only when a
+results object carries none.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+#: What each way of building the covariance of the study's log RRs means.
+COVARIANCE_MEANING = {
+    "counts": (
+        "The band estimates share one reference group, so they are correlated; the "
+        "correlation was reconstructed from the study's counts by the method of Greenland & "
+        "Longnecker (1992), keeping the reported variances on the diagonal."),
+    "effective-counts": (
+        "The study gave no counts; effective counts consistent with the reported RRs and "
+        "confidence intervals (Hamling et al. 2008) were used to reconstruct the correlation "
+        "between the band estimates."),
+    "independent": (
+        "The band estimates were treated as uncorrelated because no counts could be used. "
+        "They share one reference group and are in fact correlated, so the coefficient and "
+        "its standard error may be somewhat off."),
+    "entered": "The curve was entered as published; its variance comes from the published "
+               "confidence interval.",
+}
+
+#: Exposure parameters that carry the exposure unit (the others are pure numbers).
+PARAMETER_UNITS = {"gm": True, "gsd": False, "shape": False, "scale": True,
+                   "mean": True, "sd": True}
+
+DEFAULT_CAUTIONS = (
+    "A PAF counts cases as caused by the exposure only if the relative-risk curve is causal "
+    "and free of confounding. With confounder-adjusted RRs, Miettinen's case-based formula "
+    "(the sum over exposure levels of the share of cases at each level times (RR - 1)/RR) "
+    "is the consistent one.",
+    "The study's relative risks are assumed to apply to this population.",
+    "Results that depend on exposures beyond the range of the curve's data are extrapolation.",
+    "Exposure limits, and any decision taken on these numbers, belong to local regulations "
+    "and licensed professionals.",
+)
+
+METHODS_TEXT = (
+    "Relative-risk curve. A curve fitted from a study's category-level estimates uses one "
+    "assigned dose per band and regresses the log relative risks on dose by generalized "
+    "least squares through the reference band (RR = 1 at the reference dose), with the "
+    "covariance of the log RRs reconstructed from the study's counts where they are given "
+    "(Greenland & Longnecker 1992). The goodness-of-fit statistic Q = r'V\u207b\u00b9r is "
+    "compared with a chi-square distribution on (bands \u2212 coefficients) degrees of "
+    "freedom.",
+    "Exposure distribution. Measurements are fitted by weighted maximum likelihood; values "
+    "below a detection limit enter as left-censored at their limit, never replaced by a "
+    "fraction of it. Distributions may also be set from summary statistics (GM and GSD, "
+    "mean and SD by moments) or entered directly; an unexposed share is a point mass at "
+    "zero exposure.",
+    "Attributable fractions. Against a minimum-risk level m, RR_m(x) = RR(max(x, m)) / RR(m); "
+    "PAF = 1 \u2212 1/E[RR_m(X)] and, for a scenario that changes exposure x to g(x), "
+    "PIF = 1 \u2212 E[RR_m(g(X))]/E[RR_m(X)], the comparative-risk-assessment fractions "
+    "(Murray et al. 2003). Expectations are computed by numerical quadrature over the "
+    "fitted distribution; expectations that have no finite value are refused.",
+    "Categorical comparison. The multi-category formula PAF = \u03a3 p_i(RR_i \u2212 1) / "
+    "(1 + \u03a3 p_i(RR_i \u2212 1)) (Rockhill, Newman & Weinberg 1998; Hanley 2001) is the "
+    "generalisation of Levin's (1953) formula for one exposed level.",
+)
+
+BASE_REFERENCES = (
+    "Levin ML (1953). The occurrence of lung cancer in man. Acta Unio Internationalis Contra "
+    "Cancrum 9:531. \u2020",
+    "Miettinen OS (1974). Proportion of disease caused or prevented by a given exposure, "
+    "trait or intervention. Am J Epidemiol 99:325. \u2020",
+    "Greenland S, Longnecker MP (1992). Methods for trend estimation from summarized "
+    "dose-response data, with applications to meta-analysis. Am J Epidemiol 135:1301.",
+    "Rockhill B, Newman B, Weinberg C (1998). Use and misuse of population attributable "
+    "fractions. Am J Public Health 88:15.",
+    "Hanley JA (2001). A heuristic approach to the formulas for population attributable "
+    "fraction. J Epidemiol Community Health 55:508.",
+    "Murray CJL, Ezzati M, Lopez AD, Rodgers A, Vander Hoorn S (2003). Comparative "
+    "quantification of health risks: conceptual framework and methodological issues. "
+    "Popul Health Metr 1:1. \u2020",
+)
+
+EXTRA_REFERENCES = {
+    "effective-counts": "Hamling J, Lee P, Weitkunat R, Amb\u00fchl M (2008). Facilitating "
+                        "meta-analyses by deriving relative effect and precision estimates "
+                        "for alternative comparisons from a set of estimates presented by "
+                        "exposure level or disease category. Stat Med 27:954. \u2020",
+    "spline": "Harrell FE Jr. Regression Modeling Strategies (Springer): restricted cubic "
+              "splines and default knot positions.",
+}
+
+#: Kept for callers that want the fixed list.
+REFERENCES = BASE_REFERENCES
+
+
+def references(d: dict) -> list[str]:
+    """The fixed references plus those the analysis used."""
+    refs = list(BASE_REFERENCES)
+    curve = d.get("curve") or {}
+    if curve.get("covariance_method") == "effective-counts":
+        refs.append(EXTRA_REFERENCES["effective-counts"])
+    if curve.get("model") == "spline":
+        refs.append(EXTRA_REFERENCES["spline"])
+    return refs
+
+
+def computed_paragraph(d: dict) -> str:
+    """One paragraph saying what was computed, from the results dictionary."""
+    c, e = d.get("curve") or {}, d.get("exposure") or {}
+    unit = d.get("unit") or ""
+    m = d.get("minimum_risk")
+    m_text = f"{_g(m)} {unit}".strip() if m is not None else "the minimum-risk level"
+    source = "fitted to a study's category-level estimates" if c.get("source") == "fitted" \
+        else "entered as published"
+    n = len(d.get("scenarios") or [])
+    text = (f"This report combines a {c.get('model', '')} relative-risk curve ({source}) with "
+            f"the {e.get('family', '')} distribution of exposure in the population to estimate "
+            f"the share of cases attributable to exposure above the minimum-risk level of "
+            f"{m_text} (the population attributable fraction, PAF)")
+    if n:
+        text += (f", the share that each of {n} exposure-reduction scenario"
+                 f"{'s' if n != 1 else ''} would prevent (the potential impact fraction, PIF)")
+    if d.get("categorical"):
+        text += ", and how the classic multi-category formula compares with the continuous result"
+    return text + "."
+
+
+def _g(value: Any) -> str:
+    return f"{float(value):g}"

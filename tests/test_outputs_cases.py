@@ -1,0 +1,123 @@
+"""Results built from real core objects, shared by the outputs tests.
+
+The inputs (band table, measurements, scenarios) are invented; every
+expected value in the outputs tests is computed in the test from an outside
+reference (scipy, closed forms) or read back from the results object that
+the output must reproduce exactly.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+from scipy import integrate, stats
+
+from doseattr.analysis.config import analysis_from_dict
+from doseattr.analysis.results import BandTable, Estimate, Results, ScenarioResult
+from doseattr.core.attribution.categorical import categorical_comparison
+from doseattr.core.attribution.contribution import burden_density
+from doseattr.core.attribution.fractions import paf, pif
+from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
+from doseattr.core.curves.covariance import greenland_longnecker, var_log_rr_from_ci
+from doseattr.core.curves.fit import fit_curve
+from doseattr.core.curves.loglinear import LogLinear
+from doseattr.core.exposure.fit import fit_measurements
+
+UNIT = "ug/m3"
+# Invented study bands (inputs only).
+LOWER = np.array([0.0, 5.0, 10.0, 20.0])
+UPPER = np.array([5.0, 10.0, 20.0, np.inf])
+DOSE = np.array([2.5, 7.5, 15.0, 25.0])
+RR = np.array([1.0, 1.3, 1.6, 2.4])
+CI_LO = np.array([np.nan, 1.0, 1.2, 1.6])
+CI_HI = np.array([np.nan, 1.7, 2.1, 3.6])
+CASES = np.array([100.0, 80.0, 70.0, 50.0])
+CONTROLS = np.array([300.0, 200.0, 150.0, 80.0])
+MINIMUM_RISK = 2.5
+UNEXPOSED = 0.05
+LIMIT = 2.0
+SCENARIO_NAMES = ("Cap at 15 <limit> & more", "Halve \"all\"", "Lower by 3")
+
+
+def make_curve():
+    var = var_log_rr_from_ci(RR[1:], CI_LO[1:], CI_HI[1:])
+    cov = greenland_longnecker(RR, np.r_[0.0, var], CASES, CONTROLS, design="case-control", ref=0)
+    return fit_curve(LogLinear(reference_dose=DOSE[0]), DOSE[1:], np.log(RR[1:]), cov,
+                     max_dose=float(DOSE[-1]))
+
+
+def make_exposure(censored: bool = True):
+    rng = np.random.default_rng(20240611)
+    values = np.exp(rng.normal(np.log(6.0), np.log(2.0), 80))
+    detected = values > LIMIT if censored else np.ones(values.size, bool)
+    values = np.where(detected, values, LIMIT)
+    weights = rng.uniform(0.5, 2.0, values.size)
+    ex = fit_measurements("lognormal", values, detected=detected, weights=weights)
+    return dataclasses.replace(ex, unexposed=UNEXPOSED)
+
+
+def make_analysis(title: str):
+    """A real Analysis for the title, unit and settings the Results reads
+    (built from a dict without files; the numbers in it are not used)."""
+    return analysis_from_dict({
+        "title": title, "unit": UNIT,
+        "curve": {"model": "log-linear", "rr": 1.1, "per": 10.0},
+        "exposure": {"family": "lognormal", "gm": 6.0, "gsd": 2.0},
+        "attribution": {"minimum_risk": MINIMUM_RISK}})
+
+
+def make_results(*, title: str = "Test <analysis> & co", warnings=("Fit <warning> one",),
+                 cautions=("Causal only if unconfounded <caution>.",
+                           "Miettinen's case-based formula for adjusted RRs."),
+                 censored: bool = True) -> Results:
+    curve, exposure, m = make_curve(), make_exposure(censored), MINIMUM_RISK
+    kinds = (Cap(15.0), Scale(0.5), ReduceBy(3.0))
+    scenarios = tuple(ScenarioResult(name, s.kind, s.value, Estimate(pif(curve, exposure, s, m)))
+                      for name, s in zip(SCENARIO_NAMES, kinds))
+    bands = BandTable(LOWER, UPPER, DOSE, RR, CI_LO, CI_HI, np.array([True, False, False, False]),
+                      ("given",) * 4)
+    return Results(
+        analysis=make_analysis(title), curve=curve, exposure=exposure, minimum_risk=m,
+        paf=Estimate(paf(curve, exposure, m)), scenarios=scenarios,
+        categorical=categorical_comparison(curve, exposure, minimum_risk=m,
+                                           cutpoints=UPPER[:-1], reported_rr=RR),
+        contribution=burden_density(curve, exposure, m),
+        warnings=tuple(warnings), cautions=tuple(cautions), band_table=bands)
+
+
+def quad_paf(results: Results) -> float:
+    r"""PAF by scipy.integrate.quad, the outside reference.
+
+    With a log-linear curve held flat beyond ``max_dose`` = M and minimum
+    risk m: RR_m(x) = exp(b (min(max(x, m), M) - m)); E[RR_m(X)] =
+    u + (1 - u) \int RR_m(x) f(x) dx with f the lognormal density
+    (scipy.stats.lognorm(s=ln GSD, scale=GM)); PAF = 1 - 1/E.
+    """
+    c, ex, m = results.curve, results.exposure, results.minimum_risk
+    b, top = float(c.coef[0]), float(c.max_dose)
+    gm, gsd = ex.parameters["gm"], ex.parameters["gsd"]
+    f = stats.lognorm(s=np.log(gsd), scale=gm)
+
+    def g(x):
+        return np.exp(b * (min(max(x, m), top) - m)) * f.pdf(x)
+
+    body = sum(integrate.quad(g, a, z, epsabs=0, epsrel=1e-12, limit=200)[0]
+               for a, z in ((0, m), (m, top), (top, np.inf)))
+    e = ex.unexposed + (1 - ex.unexposed) * body
+    return 1 - 1 / e
+
+
+@pytest.fixture(scope="module")
+def results() -> Results:
+    return make_results()
+
+
+def test_case_paf_matches_scipy_quad(results):
+    """The shared case is a real analysis: its PAF agrees with
+    scipy.integrate.quad (reference library), so outputs are tested on
+    numbers that are right."""
+    assert results.paf.estimate == pytest.approx(quad_paf(results), rel=1e-8, abs=0)
+    assert 0.0 < results.paf.estimate < 1.0
+    assert results.exposure.fit.censored > 0  # the plots must show non-detects

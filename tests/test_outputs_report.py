@@ -1,0 +1,201 @@
+"""The HTML report: self-contained, escaped, complete, and sections that
+appear only when the results hold what they show."""
+
+from __future__ import annotations
+
+import base64
+import dataclasses
+import datetime as dt
+from html import escape
+from html.parser import HTMLParser
+
+import pytest
+from test_outputs_cases import SCENARIO_NAMES, make_results
+
+from doseattr.analysis.results import Estimate
+from doseattr.outputs import report
+from doseattr.outputs.report import render_report
+
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+
+
+class Collector(HTMLParser):
+    """Every tag and its attributes, and the visible text."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tags: list[tuple[str, dict]] = []
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def parse(html: str) -> Collector:
+    c = Collector()
+    c.feed(html)
+    return c
+
+
+@pytest.fixture(scope="module")
+def results():
+    return make_results()
+
+
+@pytest.fixture(scope="module")
+def html(results):
+    return render_report(results, date=dt.date(2024, 6, 1))
+
+
+def test_self_contained(html):
+    """No reference to anything outside the file: no http(s) or protocol-
+    relative src/href, no scripts, no external style sheets; every image is
+    a base64 PNG data URI."""
+    doc = parse(html)
+    imgs = [a for t, a in doc.tags if t == "img"]
+    assert len(imgs) == 5  # curve, exposure, Q-Q, contribution, categorical
+    for tag, attrs in doc.tags:
+        for key in ("src", "href"):
+            value = attrs.get(key)
+            if value is not None:
+                assert not value.startswith(("http://", "https://", "//")), (tag, value)
+        assert tag not in ("script", "link", "iframe", "object")
+    for a in imgs:
+        prefix = "data:image/png;base64,"
+        assert a["src"].startswith(prefix)
+        assert base64.b64decode(a["src"][len(prefix):])[:8] == PNG_MAGIC
+        assert a.get("alt")
+    assert "http://" not in html and "https://" not in html
+
+
+def test_contains_cautions_warnings_and_scenarios_escaped(html, results):
+    for caution in results.cautions:
+        assert escape(caution) in html
+    for warning in results.warnings:
+        assert escape(warning) in html
+    for name in SCENARIO_NAMES:
+        assert escape(name) in html
+    assert "<limit>" not in html  # the raw scenario text would be markup
+    assert escape("Test <analysis> & co") in html
+    assert "<analysis>" not in html
+
+
+def test_key_numbers_and_date(html, results):
+    text = "".join(parse(html).text)
+    assert "2024-06-01" in text
+    assert report.pct(results.paf.estimate) in text
+    for s in results.scenarios:
+        assert report.pct(s.pif.estimate) in text
+    assert "<th>95% interval</th>" not in html  # no uncertainty run: no interval column
+    for heading in ("Relative-risk curve", "Exposure distribution", "Cautions",
+                    "Continuous against categorical", "Methods and references"):
+        assert heading in text
+    assert "Greenland S, Longnecker MP (1992)" in text
+
+
+def test_curve_section_numbers(html, results):
+    c = results.to_dict()["curve"]
+    text = "".join(parse(html).text)
+    assert report.num(c["coefficients"][0], 5) in text
+    assert report.num(c["standard_errors"][0], 4) in text
+    assert f"Q = {report.num(c['q'], 4)} on {c['df']} degrees of freedom" in text
+    for f in c["fitted"]:
+        assert report.num(f["rr_fitted"]) in text
+
+
+def test_pct_formatting():
+    """Three significant figures, trailing zeros kept (common practice)."""
+    assert report.pct(0.1234) == "12.3%"
+    assert report.pct(0.25) == "25.0%"
+    assert report.pct(1.0) == "100%"
+    assert report.pct(None) == report.NA
+
+
+def test_cautions_never_missing():
+    r = make_results(cautions=())
+    html = render_report(r, figures=False)
+    for caution in report.DEFAULT_CAUTIONS:
+        assert escape(caution) in html
+
+
+def test_no_warnings_message():
+    html = render_report(make_results(warnings=()), figures=False)
+    assert "No warnings were raised" in html
+    assert 'class="warnings"' not in html
+
+
+def test_uncertainty_section_only_with_intervals(results):
+    assert 'id="uncertainty"' not in render_report(results, figures=False)
+    p = results.paf.estimate
+    with_ci = dataclasses.replace(results, paf=Estimate(p, 0.8 * p, 1.2 * p, 0.001))
+    html = render_report(with_ci, figures=False)
+    assert 'id="uncertainty"' in html
+    text = "".join(parse(html).text)
+    assert f"{report.pct(0.8 * p)} to {report.pct(1.2 * p)}" in text
+
+
+def test_burden_section_from_contract_keys():
+    """burden.strata / burden.total as the API notes define them."""
+    d = {"burden": {"strata": [
+        {"stratum": "North <A>", "cases": 120.0,
+         "attributable": {"estimate": 12.5, "lower": 9.0, "upper": 16.0}, "paf": 0.104},
+        {"stratum": "South", "cases": 80.0,
+         "attributable": {"estimate": 6.0, "lower": 4.0, "upper": 8.5}, "paf": 0.075}],
+        "total": {"cases": 200.0, "attributable": {"estimate": 18.5, "lower": 14.0,
+                                                   "upper": 23.0}, "paf": 0.0925}}}
+    html = report.burden_section(d, {})
+    assert escape("North <A>") in html and "<A>" not in html
+    assert "12.5" in html and "9 to 16" in html and "Total" in html and "9.25%" in html
+    assert report.burden_section({}, {}) == ""
+
+
+def test_figures_false_has_no_images(results):
+    html = render_report(results, figures=False)
+    assert "<img" not in html
+
+
+def entered_results():
+    """A published log-linear curve (RR 1.08 per 10, CI 1.06 to 1.09, invented
+    for the test) over an exposure given by GM and GSD: no bands, no fit, no data."""
+    from test_outputs_cases import make_results as _base
+
+    from doseattr.core.attribution.categorical import categorical_comparison
+    from doseattr.core.attribution.contribution import burden_density
+    from doseattr.core.attribution.fractions import paf
+    from doseattr.core.curves.published import published_curve
+    from doseattr.core.exposure.summary import from_gm_gsd
+
+    curve = published_curve("log-linear", rr=1.08, per=10.0, ci=(1.06, 1.09), max_dose=60.0)
+    exposure = from_gm_gsd(12.0, 1.8)
+    base = _base()
+    return dataclasses.replace(
+        base, curve=curve, exposure=exposure, minimum_risk=5.0,
+        paf=Estimate(paf(curve, exposure, 5.0)), scenarios=(), band_table=None,
+        categorical=categorical_comparison(curve, exposure, minimum_risk=5.0,
+                                           cutpoints=[10.0, 20.0, 40.0]),
+        contribution=burden_density(curve, exposure, 5.0))
+
+
+def test_entered_curve_and_summary_exposure():
+    r = entered_results()
+    html = render_report(r)
+    text = "".join(parse(html).text)
+    assert "entered as published" in text
+    assert "Goodness of fit" not in text and "Study bands" not in text
+    assert "<th scope='row'>Measurements</th>" not in html  # no data behind the exposure
+    imgs = [a for t, a in parse(html).tags if t == "img"]
+    assert len(imgs) == 4  # no Q-Q plot without measurements
+    assert "RR: study" not in text  # no reported RRs for the analysis's own cutpoints
+
+
+def test_same_results_give_identical_bytes(results, monkeypatch):
+    """Figures carry no time stamp and the date can be fixed with
+    SOURCE_DATE_EPOCH (86400 s after 1970-01-01 is 1970-01-02), so the
+    report is byte-identical on a rerun."""
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "86400")
+    first, second = render_report(results), render_report(results)
+    assert first == second
+    assert "1970-01-02" in first
