@@ -1,0 +1,159 @@
+"""Curves entered as published: an RR per increment, an excess relative risk,
+an exponent, or coefficients with their covariance or draws."""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy.stats import norm
+
+from doseattr.core.curves.base import Curve, CurveModel, FloatArray
+from doseattr.core.curves.covariance import var_log_rr_from_ci
+from doseattr.core.curves.fit import check_curve, dose_range
+from doseattr.core.curves.registry import make_model
+from doseattr.errors import ModelError
+
+#: Relative asymmetry of a CI about its estimate above which a note is added.
+ASYMMETRY_NOTE = 0.1
+
+
+def published_curve(model: str | CurveModel, *, rr: float | None = None,
+                    err: float | None = None, exponent: float | None = None,
+                    per: float = 1.0, ci: tuple[float, float] | None = None,
+                    reference_dose: float = 0.0, max_dose: float | None = None,
+                    offset: float = 0.0, level: float = 0.95,
+                    data_max: float | None = None) -> Curve:
+    r"""A one-parameter curve from a published estimate and its CI.
+
+    - ``"log-linear"``: :math:`b = \log(RR)/per`,
+      :math:`se = (\log hi - \log lo) / (2 z)/per` (CI of the RR).
+    - ``"linear"``: :math:`b = ERR/per`, :math:`se = (hi - lo)/(2 z)/per`
+      with the CI on the ERR scale; ``rr`` may be given instead
+      (:math:`ERR = RR - 1`, CI of the RR).
+    - ``"power"``: :math:`b` = ``exponent``, :math:`se = (hi - lo)/(2 z)`;
+      ``offset`` is the dose offset ``c`` of :class:`Power`.
+
+    :math:`z = \Phi^{-1}((1 + level)/2)`. Without ``ci`` the curve carries
+    no uncertainty (zero covariance) and a note says so. Common practice for
+    entering published estimates; the CI is assumed symmetric on the scale
+    named above.
+    """
+    if not (np.isfinite(per) and per > 0):
+        raise ModelError(f"'per' must be a positive dose increment, got {per}")
+    name = model if isinstance(model, str) else model.name
+    if name == "log-linear":
+        coef, var = _log_linear(rr, ci, level)
+    elif name == "linear":
+        coef, var = _linear(rr, err, ci, level)
+    elif name == "power":
+        if per != 1.0:
+            raise ModelError("the power model's exponent has no dose increment; leave 'per' at 1")
+        coef, var = _on_scale("exponent", exponent, ci, level)
+    else:
+        raise ModelError(f"published estimates support models 'log-linear', 'linear' and "
+                         f"'power', not {name!r}; give coefficients with entered_curve")
+    settings = {"offset": offset} if name == "power" else {}
+    obj = model if not isinstance(model, str) else make_model(
+        name, reference_dose=reference_dose, **settings)
+    notes = _notes(name, ci, rr, err, exponent)
+    return entered_curve(obj, [coef / per], cov=[[var / per**2]], max_dose=max_dose,
+                         data_max=data_max, notes=notes)
+
+
+def entered_curve(model: CurveModel, coef: ArrayLike, *, cov: ArrayLike | None = None,
+                  se: ArrayLike | None = None, draws: ArrayLike | None = None,
+                  max_dose: float | None = None, data_max: float | None = None,
+                  notes: tuple[str, ...] = ()) -> Curve:
+    """A curve with given coefficients and either their covariance, standard
+    errors (independent) or explicit draws ``(D, p)``.
+
+    With draws and no covariance, the covariance is the draws' sample
+    covariance (``numpy.cov``).
+    """
+    coef = np.atleast_1d(np.asarray(coef, dtype=float))
+    p = len(model.param_names)
+    if coef.shape != (p,):
+        raise ModelError(f"the {model.name} model takes {p} coefficients "
+                         f"{model.param_names}, got {coef.size}")
+    draws = None if draws is None else _draws(draws, p)
+    cov = _covariance(p, cov, se, draws)
+    check_curve(model, coef, dose_range(model, np.zeros(0), data_max, max_dose))
+    return Curve(model, coef, cov, max_dose=max_dose, data_max=data_max,
+                 source="entered", draws=draws, notes=tuple(notes))
+
+
+def _log_linear(rr: float | None, ci: tuple[float, float] | None,
+                level: float) -> tuple[float, float]:
+    if rr is None or not (np.isfinite(rr) and rr > 0):
+        raise ModelError(f"the log-linear model needs a positive 'rr' per increment, got {rr}")
+    if ci is None:
+        return float(np.log(rr)), 0.0
+    return float(np.log(rr)), float(var_log_rr_from_ci(rr, ci[0], ci[1], level))
+
+
+def _linear(rr: float | None, err: float | None, ci: tuple[float, float] | None,
+            level: float) -> tuple[float, float]:
+    if (rr is None) == (err is None):
+        raise ModelError("the linear model needs exactly one of 'err' (excess relative risk) "
+                         "or 'rr' per increment")
+    if rr is not None:
+        err = rr - 1.0
+        ci = None if ci is None else (ci[0] - 1.0, ci[1] - 1.0)
+    return _on_scale("excess relative risk", err, ci, level)
+
+
+def _on_scale(what: str, value: float | None, ci: tuple[float, float] | None,
+              level: float) -> tuple[float, float]:
+    r"""Estimate and variance :math:`((hi - lo)/(2 z))^2` from a symmetric CI."""
+    if value is None or not np.isfinite(value):
+        raise ModelError(f"a finite {what} is required, got {value}")
+    if ci is None:
+        return float(value), 0.0
+    lo, hi = (float(c) for c in ci)
+    if not (np.isfinite(lo) and np.isfinite(hi) and lo < hi and lo <= value <= hi):
+        raise ModelError(f"CI ({lo:g}, {hi:g}) of the {what} must have lower < upper "
+                         f"and contain the estimate {value:g}")
+    z = norm.ppf(0.5 + level / 2.0)
+    return float(value), ((hi - lo) / (2.0 * z)) ** 2
+
+
+def _notes(name: str, ci: tuple[float, float] | None, rr: float | None,
+           err: float | None, exponent: float | None) -> tuple[str, ...]:
+    if ci is None:
+        return ("no confidence interval given: the curve carries no uncertainty",)
+    lo, hi = (float(c) for c in ci)
+    if name == "log-linear":
+        lo, hi, value = np.log(lo), np.log(hi), np.log(rr)
+    else:
+        value = next(v for v in (err, rr, exponent) if v is not None)
+    if abs((hi - value) - (value - lo)) > ASYMMETRY_NOTE * (hi - lo):
+        return ("the published CI is asymmetric about the estimate; its half-width was "
+                "used as a normal standard error",)
+    return ()
+
+
+def _draws(draws: ArrayLike, p: int) -> FloatArray:
+    d = np.asarray(draws, dtype=float)
+    d = d[:, None] if d.ndim == 1 and p == 1 else d
+    if d.ndim != 2 or d.shape[1] != p or d.shape[0] < 2 or not np.all(np.isfinite(d)):
+        raise ModelError(f"draws must be a finite (D, {p}) array with D >= 2, got {d.shape}")
+    return d
+
+
+def _covariance(p: int, cov: ArrayLike | None, se: ArrayLike | None,
+                draws: FloatArray | None) -> FloatArray:
+    if cov is not None and se is not None:
+        raise ModelError("give either a covariance or standard errors, not both")
+    if se is not None:
+        se = np.atleast_1d(np.asarray(se, dtype=float))
+        cov = np.diag(se**2) if se.shape == (p,) else None
+        if cov is None:
+            raise ModelError(f"need {p} standard errors, got {se.size}")
+    elif cov is None:
+        cov = np.zeros((p, p)) if draws is None else np.atleast_2d(np.cov(draws, rowvar=False))
+    cov = np.atleast_2d(np.asarray(cov, dtype=float))
+    if cov.shape != (p, p) or not np.all(np.isfinite(cov)) or not np.allclose(cov, cov.T):
+        raise ModelError(f"covariance must be a finite symmetric ({p}, {p}) matrix")
+    if np.any(np.linalg.eigvalsh(cov) < -1e-12 * max(1.0, np.abs(cov).max())):
+        raise ModelError("covariance must be positive semi-definite")
+    return cov
