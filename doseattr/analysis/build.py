@@ -1,0 +1,353 @@
+"""From a checked :class:`~doseattr.analysis.config.Analysis` to the core's
+objects: the relative-risk curve, the exposure distribution and the
+scenarios.
+
+The core refuses values it cannot use with :class:`~doseattr.errors.ModelError`;
+here each such refusal becomes an :class:`~doseattr.errors.InputError`
+naming the file and key (or table) the values came from.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from contextlib import contextmanager
+from typing import Iterator
+
+import numpy as np
+
+from doseattr.analysis.config import Analysis, CurveSpec, ExposureSpec, ScenarioSpec
+from doseattr.analysis.results import BandTable
+from doseattr.analysis.schema import key_location
+from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
+from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
+from doseattr.core.curves.base import Curve
+from doseattr.errors import DivergenceError, InputError, ModelError
+
+
+@contextmanager
+def as_input_error(source: str | None, location: str | None,
+                   prefix: str = "") -> Iterator[None]:
+    """Turn a core :class:`ModelError` into an :class:`InputError` at
+    ``source``/``location`` (a :class:`DivergenceError` is left to the
+    caller, which knows which setting to suggest)."""
+    try:
+        yield
+    except DivergenceError:
+        raise
+    except ModelError as exc:
+        raise InputError(f"{prefix}{exc}", source=source, location=location) from None
+
+
+# -- curve ----------------------------------------------------------------------
+@dataclasses.dataclass(frozen=True, eq=False)
+class BuiltCurve:
+    """The curve, the study's bands as fitted (or ``None``) and what the
+    reader should be told about how it was obtained."""
+
+    curve: Curve
+    bands: BandTable | None
+    warnings: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+
+def build_curve(analysis: Analysis, exposure=None) -> BuiltCurve:
+    """The relative-risk curve the analysis asks for. ``exposure`` (the
+    population's fitted distribution) is needed for band-mean and
+    band-median doses."""
+    spec = analysis.curve
+    if spec.source == "table":
+        return fit_table_curve(analysis, exposure)
+    if spec.source in ("points", "draws"):
+        return _given(spec, analysis)
+    return _entered(spec, analysis)
+
+
+def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = None,
+                    dose_rule: str | None = None) -> BuiltCurve:
+    """Fit a model to the study table (``model`` and ``dose_rule`` override
+    the analysis file's, for comparisons and sensitivity tables)."""
+    from doseattr.core.curves.fit import fit_curve
+
+    spec = analysis.curve
+    t = spec.table
+    model_name = model or spec.model
+    bd = band_doses(t, dose_rule or spec.dose_rule, exposure)
+    doses, ref = bd.doses, t.reference
+    nonref = np.arange(t.n_bands) != ref
+    if not nonref.any():
+        raise InputError("the table has only the reference band; a curve needs at least one "
+                         "other band", source=t.source)
+    cov, warnings, notes = log_rr_covariance(spec, t)
+    notes = list(bd.notes) + notes
+    curve_model = _table_model(analysis, model_name, doses)
+    data_max = float(doses.max())
+    max_dose = None if spec.beyond == "extend" else (
+        spec.max_dose if spec.max_dose is not None else data_max)
+    with as_input_error(analysis.source, key_location("curve", "model"),
+                        f"the {model_name} model cannot be fitted to {t.source}: "):
+        curve = fit_curve(curve_model, doses[nonref], np.log(t.rr[nonref]), cov,
+                          max_dose=max_dose, data_max=data_max)
+    bands = BandTable(lower=t.lower, upper=t.upper, dose=doses, rr=t.rr, ci_lower=t.ci_lower,
+                      ci_upper=t.ci_upper, reference=np.arange(t.n_bands) == ref,
+                      dose_rule=tuple(bd.rule_used), source=t.source)
+    warnings.extend(curve.fit.warnings if curve.fit is not None else ())
+    return BuiltCurve(curve, bands, tuple(warnings), tuple(notes))
+
+
+def band_doses(t: StudyTable, rule: str, exposure=None):
+    """Dose of each band: given/midpoint from the table, or the band mean or
+    median of the population's fitted exposure distribution (its exposed
+    part)."""
+    from doseattr.core.curves.doses import assign_doses, distribution_doses
+
+    if rule in ("given", "midpoint"):
+        with as_input_error(t.source, "columns 'lower', 'upper', 'dose'"):
+            return assign_doses(t.lower, t.upper, t.dose if t.has_dose else None, rule=rule)
+    if exposure is None or not hasattr(exposure.family, "partial_mean"):
+        raise InputError(f"dose = \"{rule}\" needs a fitted exposure distribution (not an "
+                         "empirical one)", location=key_location("curve", "dose"))
+    fam, params = exposure.family, exposure.params
+    with as_input_error(t.source, "columns 'lower', 'upper'"):
+        bd = distribution_doses(t.lower, t.upper, rule=rule,
+                                cdf=lambda x: fam.cdf(x, params),
+                                partial_mean=lambda a, b: fam.partial_mean(a, b, params),
+                                ppf=lambda q: fam.ppf(q, params))
+    note = (f"band doses are the {rule.replace('band-', '')} exposure within each band under "
+            f"this population's fitted {fam.name} distribution (not the study population's, "
+            "which is not known)")
+    return type(bd)(bd.doses, bd.rule_used, bd.notes + (note,))
+
+
+def log_rr_covariance(spec: CurveSpec, t: StudyTable):
+    """Covariance of the non-reference log RRs, with warnings and notes."""
+    from doseattr.core.curves.covariance import (greenland_longnecker, independent_covariance,
+                                                 var_log_rr_from_ci)
+    from doseattr.core.curves.effective_counts import effective_counts
+
+    ref = t.reference
+    nonref = np.arange(t.n_bands) != ref
+    with as_input_error(t.source, "columns 'rr', 'ci_lower', 'ci_upper'"):
+        var = var_log_rr_from_ci(t.rr[nonref], t.ci_lower[nonref], t.ci_upper[nonref])
+    full_var = np.zeros(t.n_bands)
+    full_var[nonref] = var
+    warnings, notes = [], []
+    if spec.covariance == "counts":
+        totals_col = DESIGN_TOTALS[spec.design]
+        with as_input_error(t.source, f"columns 'cases', '{totals_col}'",
+                            "the covariance of the log RRs could not be rebuilt from the "
+                            "counts: "):
+            cov = greenland_longnecker(t.rr, full_var, t.counts["cases"], t.counts[totals_col],
+                                       design=spec.design, ref=ref)
+        notes.append(f"covariance of the log RRs rebuilt from the {spec.design} counts "
+                     "(Greenland & Longnecker 1992, Am J Epidemiol 135:1301)")
+        return cov, warnings, notes
+    if spec.covariance == "effective-counts":
+        with as_input_error(t.source, "columns 'rr', 'ci_lower', 'ci_upper'"):
+            cov = effective_counts(t.rr, full_var, ref=ref, design=spec.design)
+        if cov.method == "effective-counts":
+            notes.append("covariance of the log RRs from effective counts reconstructed from "
+                         "the RRs and CIs (Hamling et al. 2008, Stat Med 27:954)")
+            notes.extend(cov.notes)
+            return cov, warnings, notes
+        warnings.append(f"{'; '.join(cov.notes)}; this usually understates the uncertainty "
+                        "of the curve")
+        return cov, warnings, notes
+    cov = independent_covariance(var)
+    why = ("covariance = \"independent\" was asked for" if t.counts
+           else "the table gives no counts (cases with controls, person_time or persons) and "
+                "no design (set design to reconstruct effective counts)")
+    warnings.append(f"the study's log RRs were treated as independent because {why}; this "
+                    "ignores their shared reference band and usually understates the "
+                    "uncertainty of the curve (Greenland & Longnecker 1992)")
+    return cov, warnings, notes
+
+
+def _table_model(analysis: Analysis, name: str, doses: np.ndarray):
+    from doseattr.core.curves.registry import make_model
+    from doseattr.core.curves.spline import default_knots
+
+    spec = analysis.curve
+    ref = float(doses[spec.table.reference])
+    src = analysis.source
+    settings = {}
+    if name == "power":
+        settings["offset"] = spec.offset
+    if name == "spline":
+        if spec.knots is not None:
+            knots = np.asarray(spec.knots, dtype=float)
+            if knots[0] < doses.min() or knots[-1] > doses.max():
+                raise InputError(f"knots must lie within the assigned doses ({doses.min():g} "
+                                 f"to {doses.max():g}); got {knots[0]:g} to {knots[-1]:g}",
+                                 source=src, location=key_location("curve", "knots"))
+        else:
+            with as_input_error(src, key_location("curve", "knot_count")):
+                knots = default_knots(doses, spec.knot_count)
+        settings["knots"] = knots
+    key = "offset" if name == "power" else "model"
+    with as_input_error(src, key_location("curve", key)):
+        return make_model(name, reference_dose=ref, **settings)
+
+
+def _given(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
+    """A curve given as points or as draws (held flat beyond the last dose)."""
+    from doseattr.core.curves.points import curve_from_draws, points_curve
+
+    g = spec.given
+    top = float(g.doses[-1])
+    with as_input_error(g.source, "column 'rr'"):
+        if spec.source == "points":
+            rr, lo, hi = g.rr, g.ci_lower, g.ci_upper
+            at_ref = np.flatnonzero(g.doses == spec.reference_dose)
+            if at_ref.size and rr[at_ref[0]] != 1.0:
+                scale = rr[at_ref[0]]
+                rr, lo, hi = rr / scale, lo / scale, hi / scale
+            curve = points_curve(g.doses, rr, lo, hi, reference_dose=spec.reference_dose,
+                                 beyond="flat", max_dose=top)
+        else:
+            curve = curve_from_draws(g.doses, g.rr, reference_dose=spec.reference_dose,
+                                     beyond="flat", max_dose=top)
+    notes = [f"curve given as {spec.source} ({g.source}): log RR interpolated linearly between "
+             f"doses and held flat beyond {top:g} {analysis.unit}"]
+    if spec.source == "draws":
+        notes.append(f"the point estimate is the median of the {g.rr.shape[0]} draws at each "
+                     "dose")
+    return BuiltCurve(curve, None, (), tuple(notes) + tuple(curve.notes))
+
+
+def _entered(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
+    from doseattr.core.curves.published import published_curve
+
+    key = next(k for k in ("rr", "err", "exponent") if getattr(spec, k) is not None)
+    flat = spec.beyond == "flat"
+    with as_input_error(analysis.source, key_location("curve", key)):
+        curve = published_curve(spec.model, rr=spec.rr, err=spec.err, exponent=spec.exponent,
+                                per=spec.per, ci=spec.ci, reference_dose=spec.reference_dose,
+                                max_dose=spec.max_dose if flat else None, offset=spec.offset,
+                                data_max=spec.max_dose)
+    notes = list(curve.notes)
+    if spec.max_dose is not None and not flat:
+        notes.append(f"the curve is extended beyond max_dose = {spec.max_dose:g} "
+                     f"{analysis.unit} (beyond = \"extend\"); max_dose marks the end of the "
+                     "data range")
+    return BuiltCurve(curve, None, (), tuple(notes))
+
+
+# -- exposure -------------------------------------------------------------------
+@dataclasses.dataclass(frozen=True, eq=False)
+class BuiltExposure:
+    """The exposure distribution, per-worker totals when it came from work
+    histories, and notes on how it was obtained."""
+
+    exposure: object
+    workers: object = None
+    notes: tuple[str, ...] = ()
+
+
+def build_exposure(analysis: Analysis) -> BuiltExposure:
+    """The exposure distribution the analysis asks for (with its unexposed
+    share)."""
+    from doseattr.core.exposure import summary
+    from doseattr.core.exposure.registry import get_family
+
+    spec = analysis.exposure
+    src = analysis.source
+    with as_input_error(src, key_location("exposure", "family")):
+        family = spec.family if spec.family == "best" else get_family(spec.family)
+    if spec.source == "measurements":
+        m = spec.measurements
+        return _fit_values(spec, family, m.values, m.detected, m.weights, m.source, spec.unexposed)
+    if spec.source == "histories":
+        return _histories(spec, family)
+    if spec.source == "bins":
+        b = spec.bins
+        with as_input_error(b.source, f"column '{'share' if b.shares else 'count'}'",
+                            f"the {spec.family} distribution cannot be fitted: "):
+            exposure = summary.fit_bins(family, b.lower, b.upper, b.counts)
+    elif spec.source == "percentiles":
+        with as_input_error(src, key_location("exposure", "percentiles")):
+            exposure = summary.from_percentiles(family, dict(spec.values))
+    else:
+        exposure = _summary_exposure(spec, family, src)
+    if spec.unexposed:
+        exposure = dataclasses.replace(exposure, unexposed=spec.unexposed)
+    return BuiltExposure(exposure)
+
+
+def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: str,
+                unexposed: float, workers=None) -> BuiltExposure:
+    """Fit ``family`` to values; exact zeros give the unexposed share
+    (core :func:`~doseattr.core.exposure.unexposed.estimate_unexposed`)."""
+    from doseattr.core.exposure.fit import fit_best, fit_measurements
+    from doseattr.core.exposure.unexposed import estimate_unexposed
+
+    notes = []
+    zero = np.asarray(values) == 0
+    if zero.any():
+        with as_input_error(source, "column 'value'"):
+            unexposed, _, _ = estimate_unexposed(values, weights)
+        keep = ~zero
+        values, detected = values[keep], detected[keep]
+        weights = None if weights is None else weights[keep]
+        notes.append(f"unexposed share {unexposed:.4g} estimated from the {int(zero.sum())} "
+                     f"values of 0 in {source}")
+    det = None if detected.all() else detected
+    with as_input_error(source, "column 'value'",
+                        f"the {spec.family} distribution cannot be fitted: "):
+        if family == "best":
+            exposure = fit_best(values, detected=det, weights=weights)
+        else:
+            exposure = fit_measurements(family, values, detected=det, weights=weights)
+    if unexposed:
+        exposure = dataclasses.replace(exposure, unexposed=unexposed)
+    return BuiltExposure(exposure, workers, tuple(notes))
+
+
+def _histories(spec: ExposureSpec, family) -> BuiltExposure:
+    """Cumulative exposure per worker from job histories, then a fit to it."""
+    from doseattr.core.exposure.histories import cumulative_exposure
+
+    h = spec.histories
+    with as_input_error(h.source, "columns 'start', 'end', 'intensity'"):
+        workers = cumulative_exposure(h.worker, h.start, h.end, h.intensity,
+                                      as_of=np.datetime64(spec.as_of, "D"),
+                                      lag_years=spec.lag_years)
+    values = np.asarray(workers.cumulative, dtype=float)
+    if np.sum(values > 0) < 3:
+        raise InputError(f"only {int(np.sum(values > 0))} workers have any exposure before "
+                         f"{spec.as_of} minus the {spec.lag_years:g}-year lag; at least 3 are "
+                         "needed to fit a distribution", source=h.source)
+    built = _fit_values(spec, family, values, np.ones(values.size, bool), None, h.source, 0.0,
+                        workers)
+    note = (f"exposure is cumulative (intensity x years) for {values.size} workers, counted "
+            f"up to {spec.as_of} minus a {spec.lag_years:g}-year lag (years = days / 365.25)")
+    return dataclasses.replace(built, notes=(note,) + built.notes)
+
+
+def _summary_exposure(spec: ExposureSpec, family, src: str | None):
+    from doseattr.core.exposure import summary
+
+    v = spec.values
+    if spec.source == "gm-gsd":
+        with as_input_error(src, key_location("exposure", "gsd")):
+            return summary.from_gm_gsd(v["gm"], v["gsd"])
+    if spec.source == "shape-scale":
+        with as_input_error(src, key_location("exposure", "shape")):
+            return summary.from_parameters(family, {"shape": v["shape"], "scale": v["scale"]})
+    with as_input_error(src, key_location("exposure", "sd")):
+        return summary.from_mean_sd(family, v["mean"], v["sd"])
+
+
+# -- scenarios ------------------------------------------------------------------
+def build_scenarios(analysis: Analysis) -> tuple[tuple[ScenarioSpec, Scenario], ...]:
+    """Each ``[[scenario]]`` with its core transform."""
+    out = []
+    for spec in analysis.scenarios:
+        with as_input_error(analysis.source, key_location("scenario", spec.kind, spec.index)):
+            out.append((spec, SCENARIO_KINDS[spec.kind](spec.value, name=spec.name)))
+    return tuple(out)
+
+
+def study_cutpoints(table: StudyTable) -> np.ndarray:
+    """The study's band limits as cutpoints (each band's lower limit but the
+    first's)."""
+    return table.cutpoints

@@ -1,0 +1,256 @@
+"""The analysis file: read (TOML, with :mod:`tomllib`), checked against the
+declared schema (:mod:`doseattr.analysis.schema`), its tables read and
+checked (:mod:`doseattr.analysis.tables`), and frozen into an
+:class:`Analysis`.
+
+Everything the user typed is checked here, before any computing starts and
+long before anything is written: unknown keys (with the nearest known key
+suggested), values of the wrong type, keys that must go together, values
+out of range (a GSD of 1 or less, a scale outside (0, 1], a negative
+exposure). File paths are relative to the analysis file.
+
+Example::
+
+    unit = "ug/m3"
+    title = "Fine particles in Example Town"
+
+    [curve]
+    table = "study_bands.csv"
+    model = "log-linear"
+
+    [exposure]
+    table = "measurements.csv"
+    family = "lognormal"
+
+    [attribution]
+    minimum_risk = 2.0
+
+    [[scenario]]
+    name = "Cap at 10"
+    cap = 10
+"""
+
+from __future__ import annotations
+
+import os
+import tomllib
+from contextlib import contextmanager
+from typing import Any, Iterator, Mapping
+
+from doseattr.analysis import schema
+from doseattr.analysis.curve_section import parse_curve
+from doseattr.analysis.exposure_section import parse_exposure, require_cumulative_unit
+from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
+from doseattr.analysis.specs import (DEFAULT_SEED, MAX_DRAWS, MIN_DRAWS, Analysis,
+                                     AttributionSpec, BurdenSpec, CurveSpec, ExposureSpec,
+                                     OutcomeSpec, ScenarioSpec, UncertaintySpec)
+from doseattr.analysis.tables import read_burden
+from doseattr.errors import InputError
+
+__all__ = ["Analysis", "AttributionSpec", "BurdenSpec", "CurveSpec", "ExposureSpec",
+           "OutcomeSpec", "ScenarioSpec", "UncertaintySpec", "analysis_from_dict",
+           "load_analysis"]
+
+
+# -- entry points -----------------------------------------------------------
+def load_analysis(path: str | os.PathLike[str]) -> Analysis:
+    """Read and check an analysis file; paths in it are relative to it."""
+    source = os.fspath(path)
+    try:
+        with open(source, "rb") as fh:
+            data = tomllib.load(fh)
+    except FileNotFoundError:
+        raise InputError("analysis file not found", source=source) from None
+    except IsADirectoryError:
+        raise InputError("is a folder; give the analysis file (.toml)", source=source) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", source=source) from None
+    except UnicodeDecodeError:
+        raise InputError("cannot be read as UTF-8 text", source=source) from None
+    return _build(data, base_dir=os.path.dirname(source), source=source)
+
+
+def analysis_from_dict(d: Mapping[str, Any], base_dir: str | os.PathLike[str] = ".") -> Analysis:
+    """Check an analysis given as a dictionary shaped like the TOML file
+    (for notebooks); table paths are relative to ``base_dir``."""
+    if not isinstance(d, Mapping):
+        raise InputError(f"an analysis must be a dictionary, got {type(d).__name__}")
+    return _build(dict(d), base_dir=os.fspath(base_dir), source=None)
+
+
+# -- the whole file -----------------------------------------------------------
+def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analysis:
+    ctx = Context(source, base_dir)
+    top = {k: v for k, v in data.items() if k not in SECTIONS or k == ""}
+    _check_sections(data, ctx)
+    schema.check_section(top, "", source=source)
+    if "unit" not in data:
+        raise ctx.error('missing key \'unit\' at the top of the file (for example unit = "ug/m3")',
+                        "", "unit")
+    outcomes = _outcomes(data.get("outcome", []), ctx)
+    for needed in ("curve", "exposure"):
+        if needed not in data and not (needed == "curve" and outcomes):
+            raise InputError(f"missing section [{needed}]", source=source)
+    curve = parse_curve(data["curve"], ctx) if "curve" in data else outcomes[0].curve
+    exposure = parse_exposure(data["exposure"], ctx)
+    if exposure.source == "histories":
+        require_cumulative_unit(data["unit"], ctx)
+    attribution = _attribution(data.get("attribution", {}), ctx)
+    scenarios = _scenarios(data.get("scenario", []), ctx)
+    uncertainty = _uncertainty(data["uncertainty"], ctx) if "uncertainty" in data else None
+    burden = _burden(data["burden"], ctx) if "burden" in data else None
+    if "curve" not in data and burden is None:
+        burden = outcomes[0].burden
+    if (uncertainty is not None and uncertainty.poisson_cases and burden is None
+            and not any(o.burden for o in outcomes)):
+        raise ctx.error("poisson_cases varies the observed cases of [burden]; add a [burden] "
+                        "table or remove this key", "uncertainty", "poisson_cases")
+    return Analysis(unit=data["unit"].strip(), curve=curve, exposure=exposure,
+                    attribution=attribution, scenarios=scenarios, title=data.get("title"),
+                    uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
+                    base_dir=base_dir, settings=data)
+
+
+def _check_sections(data: dict[str, Any], ctx: Context) -> None:
+    for name, value in data.items():
+        if name not in SECTIONS or name == "":
+            if isinstance(value, dict):
+                hint = suggest(name, [s for s in SECTIONS if s])
+                raise InputError(f"unknown section [{name}]{hint}", source=ctx.source,
+                                 location=f"[{name}]")
+            continue
+        if name in ARRAY_SECTIONS:
+            if isinstance(value, dict):
+                raise InputError(f"write each {name} as [[{name}]] (double brackets), one block "
+                                 f"per {name}", source=ctx.source, location=f"[{name}]")
+            if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+                raise InputError(f"'{name}' must be [[{name}]] blocks", source=ctx.source,
+                                 location=f"[[{name}]]")
+            for i, block in enumerate(value):
+                schema.check_section(block, name, source=ctx.source, index=i)
+        else:
+            if not isinstance(value, dict):
+                raise InputError(f"'{name}' must be a section [{name}] with keys under it",
+                                 source=ctx.source, location=f"key '{name}'")
+            schema.check_section(value, name, source=ctx.source)
+
+
+def _attribution(a: dict[str, Any], ctx: Context) -> AttributionSpec:
+    m = a.get("minimum_risk", 0.0)
+    rng = None
+    if isinstance(m, list):
+        lo, hi = float(m[0]), float(m[1])
+        if lo > hi:
+            raise ctx.error(f"the range's low end {lo:g} is above its high end {hi:g}",
+                            "attribution", "minimum_risk")
+        rng, m = (lo, hi), 0.5 * (lo + hi)
+        low = lo
+    else:
+        m = low = float(m)
+    if low < 0:
+        raise ctx.error(f"negative exposure {low:g}; the minimum-risk level must be 0 or more",
+                        "attribution", "minimum_risk")
+    cuts = None
+    if "cutpoints" in a:
+        cuts = tuple(float(v) for v in a["cutpoints"])
+        if cuts[0] <= 0:
+            raise ctx.error(f"cutpoints must be above 0 (the first band starts at 0), got "
+                            f"{cuts[0]:g}", "attribution", "cutpoints")
+        if any(b <= a_ for a_, b in zip(cuts, cuts[1:])):
+            raise ctx.error("cutpoints must increase, for example [5, 10, 20]",
+                            "attribution", "cutpoints")
+    return AttributionSpec(minimum_risk=float(m), minimum_risk_range=rng, cutpoints=cuts)
+
+
+def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec, ...]:
+    out, names = [], {}
+    for i, block in enumerate(blocks):
+        if "name" not in block:
+            raise ctx.error("missing key 'name' (a short label for the scenario)", "scenario",
+                            "name", i)
+        kinds = [k for k in ("cap", "scale", "reduce_by") if k in block]
+        if len(kinds) != 1:
+            found = f"found {' and '.join(kinds)}" if kinds else "found none"
+            raise ctx.error(f"give exactly one of cap, scale or reduce_by ({found})",
+                            "scenario", kinds[1] if len(kinds) > 1 else "cap", i)
+        kind, name = kinds[0], block["name"].strip()
+        if name in names:
+            raise ctx.error(f"scenario name '{name}' is used twice (also in [[scenario]] "
+                            f"{names[name] + 1})", "scenario", "name", i)
+        names[name] = i
+        value = float(block[kind])
+        if kind == "scale" and not 0 < value <= 1:
+            raise ctx.error(f"scale multiplies everyone's exposure and must be in (0, 1] (0.8 "
+                            f"is a 20% cut), got {value:g}", "scenario", "scale", i)
+        if kind == "cap" and value <= 0:
+            raise ctx.error(f"cap is a limit value and must be above 0, got {value:g}",
+                            "scenario", "cap", i)
+        if kind == "reduce_by" and value <= 0:
+            raise ctx.error(f"reduce_by is an amount of exposure removed and must be above 0, "
+                            f"got {value:g}", "scenario", "reduce_by", i)
+        out.append(ScenarioSpec(name=name, kind=kind, value=value, index=i))
+    return tuple(out)
+
+
+def _uncertainty(u: dict[str, Any], ctx: Context) -> UncertaintySpec:
+    draws = u.get("draws", 1000)
+    if draws < MIN_DRAWS:
+        raise ctx.error(f"draws must be at least {MIN_DRAWS} for stable 2.5th and 97.5th "
+                        f"percentiles, got {draws}", "uncertainty", "draws")
+    if draws > MAX_DRAWS and not u.get("allow_many_draws", False):
+        raise ctx.error(f"{draws} draws is above {MAX_DRAWS}; add allow_many_draws = true if "
+                        "you mean it (time and memory grow with the draws)",
+                        "uncertainty", "draws")
+    seed = u.get("seed", DEFAULT_SEED)
+    if seed < 0:
+        raise ctx.error(f"seed must be 0 or more, got {seed}", "uncertainty", "seed")
+    return UncertaintySpec(draws=int(draws), seed=int(seed), seed_given="seed" in u,
+                           poisson_cases=bool(u.get("poisson_cases", False)))
+
+
+def _burden(b: dict[str, Any], ctx: Context) -> BurdenSpec:
+    if "table" not in b:
+        raise ctx.error("missing key 'table' (a CSV with columns stratum and cases)", "burden",
+                        "table")
+    path = ctx.path(b["table"], "burden", "table")
+    return BurdenSpec(read_burden(path, path))
+
+
+def _outcomes(blocks: list[dict[str, Any]], ctx: Context) -> tuple[OutcomeSpec, ...]:
+    """``[[outcome]]`` blocks, each with ``name``, ``[outcome.curve]`` (keys
+    as in [curve]) and optionally ``[outcome.burden]`` (keys as in [burden])."""
+    out, names = [], set()
+    for i, block in enumerate(blocks):
+        if "name" not in block:
+            raise ctx.error("missing key 'name'", "outcome", "name", i)
+        name = block["name"].strip()
+        if name in names:
+            raise ctx.error(f"outcome name '{name}' is used twice", "outcome", "name", i)
+        names.add(name)
+        if "curve" not in block:
+            raise ctx.error("missing [outcome.curve] (the outcome's RR curve, keys as in "
+                            "[curve])", "outcome", "curve", i)
+        with outcome_location(i, name):
+            schema.check_section(block["curve"], "curve", source=ctx.source)
+            curve = parse_curve(block["curve"], ctx)
+            burden = None
+            if "burden" in block:
+                schema.check_section(block["burden"], "burden", source=ctx.source)
+                burden = _burden(block["burden"], ctx)
+        out.append(OutcomeSpec(name, curve, burden))
+    return tuple(out)
+
+
+@contextmanager
+def outcome_location(index: int, name: str) -> Iterator[None]:
+    """Errors about ``[curve]`` or ``[burden]`` keys inside an outcome name
+    ``[outcome.curve]`` / ``[outcome.burden]`` of that outcome instead."""
+    try:
+        yield
+    except InputError as exc:
+        loc = exc.location or ""
+        for section in ("curve", "burden"):
+            if loc.startswith(f"[{section}]"):
+                loc = (f"[[outcome]] {index + 1} ('{name}') [outcome.{section}]"
+                       + loc[len(section) + 2:])
+        raise InputError(exc.message, source=exc.source, location=loc or None) from None

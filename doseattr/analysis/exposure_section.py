@@ -1,0 +1,194 @@
+"""The ``[exposure]`` section: one way of describing the exposure
+(measurements, summary statistics, percentiles, bins or work histories) and
+the keys that go with it, checked."""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Any
+
+from doseattr.analysis import schema
+from doseattr.analysis.schema import Context
+from doseattr.analysis.specs import ExposureSpec
+from doseattr.analysis.tables import read_bins, read_histories, read_measurements
+from doseattr.errors import InputError, ModelError
+
+
+EXPOSURE_MODES = {"table": ("table",), "gm-gsd": ("gm", "gsd"), "shape-scale": ("shape", "scale"),
+                  "mean-sd": ("mean", "sd"), "percentiles": ("percentiles",),
+                  "bins": ("bins",), "histories": ("histories",)}
+
+
+def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
+    unexposed = float(e.get("unexposed", 0.0))
+    if not 0 <= unexposed < 1:
+        raise ctx.error(f"unexposed is a share of the population, from 0 up to (not including) "
+                        f"1, got {unexposed:g}", "exposure", "unexposed")
+    family = e.get("family")
+    modes = EXPOSURE_MODES
+    given = [m for m, keys in modes.items() if any(k in e for k in keys)]
+    if not given:
+        raise InputError("[exposure] needs measurements (table = \"FILE.csv\" with family), "
+                         "summary statistics (gm and gsd; shape and scale; mean and sd; "
+                         "percentiles), a binned table (bins) or work histories (histories)",
+                         source=ctx.source, location="[exposure]")
+    if len(given) > 1:
+        keys = [k for m in given for k in modes[m] if k in e]
+        raise ctx.error(f"give one way of describing the exposure; found {', '.join(keys)}",
+                        "exposure", keys[-1])
+    mode = given[0]
+    for key in modes[mode]:
+        if key not in e:
+            other = [k for k in modes[mode] if k != key][0]
+            raise ctx.error(f"missing key '{key}' ({other} and {key} go together)",
+                            "exposure", key)
+    for key in ("as_of", "lag_years"):
+        if key in e and mode != "histories":
+            raise ctx.error(f"'{key}' goes with histories = \"FILE.csv\"", "exposure", key)
+    for key in ("detected", "weight"):
+        if key in e and mode != "table":
+            raise ctx.error(f"'{key}' names a column of the measurement table (table = ...)",
+                            "exposure", key)
+    if family == "empirical":
+        raise ctx.error("family = \"empirical\" is not supported yet as the main exposure in "
+                        "this version (the empirical PAF is reported beside the fitted one for "
+                        "measurement tables); use lognormal, gamma, weibull or best",
+                        "exposure", "family")
+    if family == "best" and mode not in ("table", "histories"):
+        raise ctx.error("family = \"best\" chooses among fits to measurements; it needs "
+                        "table = \"FILE.csv\" or histories", "exposure", "family")
+    if mode == "table":
+        return _measured_exposure(e, family, unexposed, ctx)
+    if mode in ("percentiles", "bins", "histories"):
+        return _other_exposure(e, mode, family, unexposed, ctx)
+    values = {k: float(e[k]) for k in modes[mode]}
+    family = _summary_family(mode, family, ctx)
+    _check_summary(values, ctx)
+    return ExposureSpec(source=mode, family=family, unexposed=unexposed, values=values)
+
+
+def _default_family(family: str | None, notes: list[str]) -> str:
+    if family is None:
+        notes.append("[exposure] family not given: a lognormal distribution was fitted")
+        return "lognormal"
+    return family
+
+
+def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
+                       ctx: Context) -> ExposureSpec:
+    notes: list[str] = []
+    family = _default_family(family, notes)
+    path = ctx.path(e["table"], "exposure", "table")
+    data = read_measurements(path, path, detected_column=e.get("detected", "detected"),
+                             weight_column=e.get("weight", "weight"))
+    if data.zeros and "unexposed" in e:
+        raise ctx.error(f"{path} has {data.zeros} values of 0, which give the unexposed share "
+                        "from the data; remove either the zeros or this key", "exposure",
+                        "unexposed")
+    return ExposureSpec(source="measurements", family=family, unexposed=unexposed,
+                        measurements=data, notes=tuple(notes) + data.notes)
+
+
+def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed: float,
+                    ctx: Context) -> ExposureSpec:
+    notes: list[str] = []
+    family = _default_family(family, notes)
+    if mode == "percentiles":
+        values = _percentiles(e["percentiles"], ctx)
+        return ExposureSpec(source=mode, family=family, unexposed=unexposed, values=values,
+                            notes=tuple(notes))
+    if mode == "bins":
+        path = ctx.path(e["bins"], "exposure", "bins")
+        bins = read_bins(path, path)
+        return ExposureSpec(source=mode, family=family, unexposed=unexposed, bins=bins,
+                            notes=tuple(notes) + bins.notes)
+    path = ctx.path(e["histories"], "exposure", "histories")
+    if "as_of" not in e:
+        raise ctx.error("missing key 'as_of' (the analysis date, e.g. as_of = \"2024-12-31\"; "
+                        "exposure after it minus the lag does not count)", "exposure", "as_of")
+    try:
+        as_of = date.fromisoformat(e["as_of"])
+    except ValueError:
+        raise ctx.error(f"'{e['as_of']}' is not an ISO date like 2024-12-31", "exposure",
+                        "as_of") from None
+    lag = float(e.get("lag_years", 0.0))
+    if lag < 0:
+        raise ctx.error(f"lag_years must be 0 or more, got {lag:g}", "exposure", "lag_years")
+    if "unexposed" in e:
+        raise ctx.error("with work histories the unexposed share comes from workers with no "
+                        "exposure before the cutoff; remove this key", "exposure", "unexposed")
+    histories = read_histories(path, path)
+    if "lag_years" not in e:
+        notes.append("lag_years not given: no lag (10 years is common practice for cancer "
+                     "outcomes)")
+    return ExposureSpec(source=mode, family=family, histories=histories, as_of=as_of,
+                        lag_years=lag, notes=tuple(notes))
+
+
+def _percentiles(table: dict[str, Any], ctx: Context) -> dict[float, float]:
+    out = {}
+    for key, value in table.items():
+        try:
+            pct = float(key)
+        except ValueError:
+            raise ctx.error(f"'{key}' is not a percentile; write percentiles = {{50 = 8.0, "
+                            "95 = 20.0}", "exposure", "percentiles") from None
+        if not 0 < pct < 100:
+            raise ctx.error(f"percentile {key} lies outside 0 to 100 (write the median as 50, "
+                            "not 0.5)", "exposure", "percentiles")
+        if not schema.is_number(value) or value <= 0:
+            raise ctx.error(f"the value of percentile {key} must be a number above 0, got "
+                            f"{schema.describe(value)}", "exposure", "percentiles")
+        out[pct] = float(value)
+    if len(out) < 2:
+        raise ctx.error("give at least two percentiles, for example {50 = 8.0, 95 = 20.0}",
+                        "exposure", "percentiles")
+    ordered = [out[p] for p in sorted(out)]
+    if any(b <= a for a, b in zip(ordered, ordered[1:])):
+        raise ctx.error("percentile values must increase with the percentile", "exposure",
+                        "percentiles")
+    return out
+
+
+def _summary_family(mode: str, family: str | None, ctx: Context) -> str:
+    if mode == "gm-gsd":
+        if family not in (None, "lognormal"):
+            raise ctx.error(f"gm and gsd describe a lognormal distribution, not {family}",
+                            "exposure", "family")
+        return "lognormal"
+    if family is None:
+        need = "gamma or weibull" if mode == "shape-scale" else "lognormal, gamma or weibull"
+        raise ctx.error(f"missing key 'family' ({need}) beside "
+                        f"{' and '.join(mode.split('-'))}", "exposure", "family")
+    if mode == "shape-scale" and family == "lognormal":
+        raise ctx.error("a lognormal distribution is given by gm and gsd, not shape and scale",
+                        "exposure", "family")
+    return family
+
+
+def _check_summary(values: dict[str, float], ctx: Context) -> None:
+    for key, v in values.items():
+        if key == "gsd":
+            if v <= 1:
+                raise ctx.error(f"GSD must be greater than 1 (a GSD of 1 means no spread), got "
+                                f"{v:g}", "exposure", "gsd")
+        elif key in ("gm", "mean"):
+            if v <= 0:
+                what = "negative exposure" if v < 0 else "zero"
+                raise ctx.error(f"{key} must be greater than 0, got {v:g} ({what})",
+                                "exposure", key)
+        elif v <= 0:
+            raise ctx.error(f"{key} must be greater than 0, got {v:g}", "exposure", key)
+
+
+def require_cumulative_unit(unit: str, ctx: Context) -> None:
+    """With work histories the exposure is cumulative (intensity x years),
+    so the file's unit, shared with the curve, must be a cumulative unit."""
+    from doseattr.core.exposure.units import cumulative_unit
+
+    try:
+        cumulative_unit(unit)
+    except ModelError:
+        raise ctx.error(f"with work histories the exposure is cumulative, so unit must be a "
+                        f"concentration unit times years such as \"mg/m3-years\" (the curve "
+                        f"must be in that unit too), got \"{unit}\"", "", "unit") from None

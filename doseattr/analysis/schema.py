@@ -1,0 +1,265 @@
+"""The declared schema of the analysis file: which keys each section takes,
+of which type, and how a value of the wrong type is reported.
+
+Each section is a table of :class:`Key` declarations. :func:`check_section`
+refuses unknown keys (suggesting the nearest known one with
+:func:`difflib.get_close_matches`) and values of the wrong type, naming the
+section and key. Which keys go together is checked in
+:mod:`doseattr.analysis.config`, section by section.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+from doseattr.errors import InputError
+
+CURVE_MODELS = ("log-linear", "linear", "power", "spline")
+DESIGNS = ("case-control", "incidence-rate", "cumulative-incidence")
+FAMILIES = ("lognormal", "gamma", "weibull", "best", "empirical")
+
+
+@dataclass(frozen=True)
+class Key:
+    """One allowed key.
+
+    ``kind`` is one of ``"text"``, ``"number"``, ``"integer"``, ``"bool"``,
+    ``"numbers"`` (a list of numbers), ``"pair"`` (two numbers),
+    ``"number-or-pair"``, ``"texts"`` (a list of text), ``"table"`` (a
+    TOML inline table of numbers keyed by number) or ``"path"`` (text naming
+    a file, relative to the analysis file). ``choices`` restricts text.
+    """
+
+    kind: str
+    choices: tuple[str, ...] = ()
+    help: str = ""
+
+
+SECTIONS: dict[str, dict[str, Key]] = {
+    "": {
+        "unit": Key("text", help="unit of exposure for the curve and the exposure data"),
+        "title": Key("text", help="a title for the report"),
+    },
+    "curve": {
+        "table": Key("path", help="CSV of the study's bands"),
+        "design": Key("text", DESIGNS),
+        "model": Key("text", CURVE_MODELS),
+        "beyond": Key("text", ("flat", "extend")),
+        "offset": Key("number"),
+        "rr": Key("number", help="RR per `per` units (log-linear)"),
+        "err": Key("number", help="excess relative risk per `per` units (linear)"),
+        "exponent": Key("number", help="power exponent (power)"),
+        "per": Key("number"),
+        "ci": Key("pair"),
+        "reference_dose": Key("number"),
+        "max_dose": Key("number"),
+        "dose": Key("text", ("given", "midpoint", "band-mean", "band-median")),
+        "covariance": Key("text", ("counts", "effective-counts", "independent")),
+        "knots": Key("numbers"),
+        "knot_count": Key("integer"),
+        "points": Key("path"),
+        "draws": Key("path"),
+        "compare_models": Key("texts"),
+    },
+    "exposure": {
+        "table": Key("path", help="CSV of measurements (column value, optional weight)"),
+        "family": Key("text", FAMILIES),
+        "gm": Key("number"),
+        "gsd": Key("number"),
+        "shape": Key("number"),
+        "scale": Key("number"),
+        "mean": Key("number"),
+        "sd": Key("number"),
+        "unexposed": Key("number"),
+        "percentiles": Key("table"),
+        "bins": Key("path"),
+        "histories": Key("path"),
+        "as_of": Key("text"),
+        "lag_years": Key("number"),
+        "detected": Key("text", help="name of the detected column"),
+        "weight": Key("text", help="name of the weight column"),
+    },
+    "attribution": {
+        "minimum_risk": Key("number-or-pair"),
+        "cutpoints": Key("numbers"),
+    },
+    "scenario": {
+        "name": Key("text"),
+        "cap": Key("number"),
+        "scale": Key("number"),
+        "reduce_by": Key("number"),
+    },
+    "uncertainty": {
+        "draws": Key("integer"),
+        "seed": Key("integer"),
+        "allow_many_draws": Key("bool", help="permit more than MAX_DRAWS draws"),
+        "poisson_cases": Key("bool", help="Poisson variation of the observed cases"),
+    },
+    "burden": {
+        "table": Key("path"),
+    },
+    "outcome": {
+        "name": Key("text"),
+        "curve": Key("table"),
+        "burden": Key("table"),
+    },
+}
+
+#: Sections written as arrays of tables (``[[scenario]]``).
+ARRAY_SECTIONS = ("scenario", "outcome")
+
+
+def section_label(section: str, index: int | None = None) -> str:
+    """``"[curve]"``, ``"[[scenario]] 2"`` or ``""`` for the top level."""
+    if not section:
+        return ""
+    if index is None:
+        return f"[{section}]"
+    return f"[[{section}]] {index + 1}"
+
+
+def key_location(section: str, key: str, index: int | None = None) -> str:
+    """``"[curve] key 'model'"``; ``"key 'unit'"`` at the top level."""
+    label = section_label(section, index)
+    return f"{label} key '{key}'" if label else f"key '{key}'"
+
+
+def suggest(word: str, options: list[str] | tuple[str, ...]) -> str:
+    """``"; did you mean 'x'?"`` for the nearest option, or ``""``."""
+    close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.6)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
+def check_section(values: dict[str, Any], section: str, *, source: str | None,
+                  index: int | None = None) -> None:
+    """Refuse unknown keys and values of the wrong type in one section."""
+    schema = SECTIONS[section]
+    for key, value in values.items():
+        if key not in schema:
+            where = section_label(section, index) or "the top level of the file"
+            known = list(schema) + (list(SECTIONS) if not section else [])
+            raise InputError(f"unknown key '{key}' in {where}{suggest(key, known)}",
+                             source=source, location=key_location(section, key, index))
+        check_value(value, schema[key], section=section, key=key, source=source, index=index)
+
+
+def check_value(value: Any, spec: Key, *, section: str, key: str, source: str | None,
+                index: int | None = None) -> None:
+    """Raise :class:`InputError` unless ``value`` has the declared kind."""
+
+    def fail(expected: str) -> None:
+        raise InputError(f"must be {expected}, got {describe(value)}", source=source,
+                         location=key_location(section, key, index))
+
+    kind = spec.kind
+    if kind in ("text", "path"):
+        if not isinstance(value, str) or not value.strip():
+            fail("text (in quotes)" if kind == "text" else "a file name (in quotes)")
+        if spec.choices and value not in spec.choices:
+            raise InputError(
+                f"'{value}' is not one of {', '.join(spec.choices)}{suggest(value, spec.choices)}",
+                source=source, location=key_location(section, key, index))
+    elif kind == "number":
+        if not is_number(value):
+            fail("a number")
+    elif kind == "integer":
+        if not (isinstance(value, int) and not isinstance(value, bool)):
+            fail("a whole number")
+    elif kind == "bool":
+        if not isinstance(value, bool):
+            fail("true or false")
+    elif kind == "numbers":
+        if not (isinstance(value, list) and value and all(is_number(v) for v in value)):
+            fail("a list of numbers like [5, 10, 20]")
+    elif kind == "pair":
+        if not (isinstance(value, list) and len(value) == 2 and all(is_number(v) for v in value)):
+            fail("two numbers like [1.02, 1.10]")
+    elif kind == "number-or-pair":
+        if not (is_number(value) or (isinstance(value, list) and len(value) == 2
+                                     and all(is_number(v) for v in value))):
+            fail("a number or a range of two numbers like [2, 5]")
+    elif kind == "texts":
+        if not (isinstance(value, list) and value and all(isinstance(v, str) for v in value)):
+            fail('a list of names like ["log-linear", "spline"]')
+    elif kind == "table":
+        if not isinstance(value, dict):
+            fail("a table like {50 = 8.0, 95 = 20.0}")
+    else:  # pragma: no cover - a schema error, not a user error
+        raise AssertionError(f"unknown kind {kind}")
+
+
+def is_number(value: Any) -> bool:
+    """A finite TOML integer or float (not a boolean, not inf or nan)."""
+    return (isinstance(value, (int, float)) and not isinstance(value, bool)
+            and math.isfinite(value))
+
+
+def describe(value: Any) -> str:
+    """How a TOML value looks, for messages."""
+    if isinstance(value, str):
+        return f"text '{value}'" + (" (remove the quotes)" if _numeric_text(value) else "")
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return f"{value}"
+    if isinstance(value, list):
+        return f"a list {value}"
+    if isinstance(value, dict):
+        return "a table"
+    return type(value).__name__
+
+
+def _numeric_text(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+# -- where values come from ------------------------------------------------------
+@dataclass(frozen=True)
+class Context:
+    """Where the values being checked come from: the analysis file (or
+    ``None`` for a dictionary) and the folder its paths are relative to."""
+
+    source: str | None
+    base_dir: str
+
+    def error(self, message: str, section: str, key: str,
+              index: int | None = None) -> InputError:
+        return InputError(message, source=self.source,
+                          location=key_location(section, key, index))
+
+    def path(self, value: str, section: str, key: str) -> str:
+        """A table path as the user can find it: joined to the analysis
+        file's folder as given (not made absolute)."""
+        path = value if os.path.isabs(value) else os.path.join(self.base_dir, value)
+        if not Path(path).is_file():
+            what = "is a folder, not a file" if Path(path).is_dir() else "file not found"
+            raise self.error(f"{what}: {path}", section, key)
+        return path
+
+
+def only_one(values: Mapping[str, Any], keys: tuple[str, ...], ctx: Context,
+              section: str) -> str | None:
+    given = [k for k in keys if k in values]
+    if len(given) > 1:
+        raise ctx.error(f"give only one of {', '.join(keys)}; found {' and '.join(given)}",
+                        section, given[1])
+    return given[0] if given else None
+
+
+def nonnegative(values: Mapping[str, Any], key: str, ctx: Context,
+                 section: str = "curve") -> float | None:
+    if key not in values:
+        return None
+    v = float(values[key])
+    if v < 0:
+        raise ctx.error(f"negative exposure {v:g}; must be 0 or more", section, key)
+    return v

@@ -1,0 +1,118 @@
+"""The text summary of a run (:meth:`Results.summary`): the PAF, the
+scenarios, the curve, the exposure and the categorical comparison as plain
+aligned tables."""
+
+from __future__ import annotations
+
+import textwrap
+from typing import TYPE_CHECKING, Sequence
+
+import numpy as np
+
+if TYPE_CHECKING:  # pragma: no cover
+    from doseattr.analysis.results import Results
+
+WIDTH = 78
+
+
+def render(r: "Results", brief: bool = False) -> str:
+    """The summary text; ``brief`` keeps only the PAF and scenario lines."""
+    unit = r.unit
+    lines = [r.title or "doseattr results", f"unit: {unit}", ""]
+    lines.append(f"PAF (minimum-risk level {r.minimum_risk:g} {unit}): {r.paf.text()}")
+    if r.scenarios:
+        lines.append("")
+        lines += table(["scenario", "change", "PIF"],
+                       [[s.name, s.description, s.pif.text()] for s in r.scenarios])
+    if brief:
+        if r.warnings:
+            lines += ["", f"{len(r.warnings)} warning(s): see results.json or the report"]
+        return "\n".join(lines)
+    lines += ["", *_curve(r), "", *_exposure(r), "", *_categorical(r)]
+    lines += _variants(r)
+    for title, items in (("Warnings", r.warnings), ("Notes", r.notes), ("Cautions", r.cautions)):
+        if items:
+            lines += ["", f"{title}:"]
+            for item in items:
+                lines += textwrap.wrap(item, WIDTH, initial_indent="- ", subsequent_indent="  ")
+    return "\n".join(lines)
+
+
+def _curve(r: "Results") -> list[str]:
+    c = r.curve
+    se = np.sqrt(np.maximum(np.diag(c.cov), 0.0))
+    out = [f"Curve: {c.model.name} ({c.model.describe()}), {c.source}"]
+    out += table(["parameter", "estimate", "SE"],
+                 [[n, f"{b:.5g}", f"{s:.3g}"] for n, b, s in zip(c.model.param_names, c.coef, se)])
+    if c.fit is not None:
+        p = "-" if c.fit.p_value is None else f"{c.fit.p_value:.3g}"
+        out.append(f"goodness of fit: Q = {c.fit.q:.3g}, df = {c.fit.df}, p = {p} "
+                   f"(covariance: {c.fit.covariance_method})")
+    if c.max_dose is not None:
+        share = r.share_beyond_max_dose
+        out.append(f"RR held flat above {c.max_dose:g} {r.unit} "
+                   f"({100 * share:.2g}% of the population above)")
+    else:
+        out.append("RR formula extended over all exposures")
+    return out
+
+
+def _exposure(r: "Results") -> list[str]:
+    ex = r.exposure
+    params = ", ".join(f"{k} = {v:.4g}" for k, v in ex.parameters.items())
+    how = ex.source
+    if ex.fit is not None and ex.fit.n:
+        how = f"fitted to {ex.fit.n} values"
+        if ex.fit.censored:
+            how += f", {ex.fit.censored} below detection"
+    out = [f"Exposure: {ex.family.name}, {params} ({how})"]
+    out.append(f"mean {r.exposure_mean:.4g} {r.unit}; unexposed {100 * ex.unexposed:.3g}%")
+    return out
+
+
+def _categorical(r: "Results") -> list[str]:
+    cat = r.categorical
+    edges = np.concatenate([[0.0], cat.cutpoints])
+    labels = [f"{a:g}-{b:g}" for a, b in zip(edges[:-1], cat.cutpoints)]
+    labels.append(f"{cat.cutpoints[-1]:g}+")
+    out = [f"Categorical comparison (continuous PAF {100 * cat.continuous_paf:.2f}%)"]
+    head = ["band", "share"] + [m.method for m in cat.methods]
+    rows = [[lab, f"{100 * p:.1f}%"] + [f"{m.rr[i]:.3g}" for m in cat.methods]
+            for i, (lab, p) in enumerate(zip(labels, cat.shares))]
+    rows.append(["PAF", ""] + [f"{100 * m.paf:.2f}%" for m in cat.methods])
+    rows.append(["difference (points)", ""] + [f"{100 * m.difference:+.2f}" for m in cat.methods])
+    out += table(head, rows)
+    return out
+
+
+def _variants(r: "Results") -> list[str]:
+    """PAF under other models, dose rules and exposure descriptions."""
+    out = []
+    for title, rows in (("PAF by curve model", r.model_comparison),
+                        ("PAF by dose assignment", r.dose_sensitivity)):
+        if rows:
+            out += ["", title]
+            out += table(["", "coefficients", "PAF"],
+                         [[v.label,
+                           "-" if v.curve is None else ", ".join(f"{b:.4g}" for b in v.curve.coef),
+                           "-" if v.paf is None else f"{100 * v.paf:.2f}%"] for v in rows])
+    if r.exposure_comparison:
+        out += ["", "PAF by exposure description"]
+        out += table(["family", "AIC", "PAF"],
+                     [[v.label, "-" if v.aic is None else f"{v.aic:.2f}",
+                       "-" if v.paf is None else f"{100 * v.paf:.2f}%"]
+                      for v in r.exposure_comparison])
+    return out
+
+
+def table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> list[str]:
+    """Left-aligned first column, right-aligned others, two spaces apart."""
+    cols = list(zip(*([header] + [list(r) for r in rows])))
+    widths = [max(len(str(v)) for v in col) for col in cols]
+
+    def fmt(row: Sequence[str]) -> str:
+        cells = [str(v).ljust(w) if i == 0 else str(v).rjust(w)
+                 for i, (v, w) in enumerate(zip(row, widths))]
+        return "  ".join(cells).rstrip()
+
+    return [fmt(header), "  ".join("-" * w for w in widths)] + [fmt(r) for r in rows]

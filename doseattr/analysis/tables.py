@@ -1,0 +1,311 @@
+"""The study's band table and exposure measurements, read and checked row by
+row (conventions in :mod:`doseattr.analysis.csvfile`: row N is line N of the
+file, the header is row 1).
+
+The other tables have their own modules and are re-exported here:
+:mod:`~doseattr.analysis.curve_tables` (points, draws),
+:mod:`~doseattr.analysis.exposure_tables` (bins, work histories) and
+:mod:`~doseattr.analysis.burden_table` (strata).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from numpy.typing import NDArray
+
+from doseattr.analysis.burden_table import BurdenTable, read_burden
+from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, check_band_order,
+                                       near_column, number, read_raw, require_columns)
+from doseattr.analysis.curve_tables import (DrawsTable, PointsTable, read_draws_table,
+                                            read_points_table)
+from doseattr.analysis.exposure_tables import (BinsTable, HistoriesTable, read_bins,
+                                               read_histories)
+from doseattr.errors import InputError
+
+__all__ = ["BinsTable", "BurdenTable", "DrawsTable", "HistoriesTable", "Measurements",
+           "PointsTable", "StudyTable", "design_from_counts", "read_bins", "read_burden",
+           "read_draws_table", "read_histories", "read_measurements", "read_points_table",
+           "read_study_table"]
+
+BAND_REQUIRED = ("lower", "upper", "rr", "ci_lower", "ci_upper")
+COUNT_COLUMNS = ("cases", "controls", "person_time", "persons")
+#: Which count column goes with ``cases`` for each study design.
+DESIGN_TOTALS = {"case-control": "controls", "incidence-rate": "person_time",
+                 "cumulative-incidence": "persons"}
+TRUE_TEXT = ("true", "yes", "y", "1", "detected")
+FALSE_TEXT = ("false", "no", "n", "0", "not detected", "nd")
+
+
+@dataclass(frozen=True, eq=False)
+class StudyTable:
+    """The study's band estimates, checked.
+
+    ``upper`` is ``inf`` for an open-ended top band; ``ci_lower`` and
+    ``ci_upper`` are NaN for the reference band; ``dose`` is NaN where the
+    table gives none. ``counts`` maps count columns present to arrays.
+    """
+
+    source: str
+    lower: FloatArray
+    upper: FloatArray
+    rr: FloatArray
+    ci_lower: FloatArray
+    ci_upper: FloatArray
+    dose: FloatArray
+    reference: int
+    counts: dict[str, FloatArray] = field(default_factory=dict)
+    lines: tuple[int, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    @property
+    def n_bands(self) -> int:
+        return len(self.rr)
+
+    @property
+    def has_dose(self) -> bool:
+        return bool(np.any(np.isfinite(self.dose)))
+
+    @property
+    def cutpoints(self) -> FloatArray:
+        """The study's band limits as cutpoints for the categorical
+        comparison: the lower limit of every band but the first."""
+        return self.lower[1:].copy()
+
+
+@dataclass(frozen=True, eq=False)
+class Measurements:
+    """Exposure measurements, checked. ``detected`` false means ``values``
+    holds the detection limit; ``weights`` is ``None`` when none given."""
+
+    source: str
+    values: FloatArray
+    detected: NDArray[np.bool_]
+    weights: FloatArray | None
+    lines: tuple[int, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    @property
+    def n(self) -> int:
+        return len(self.values)
+
+    @property
+    def zeros(self) -> int:
+        """Values of exactly 0: people with no exposure (the unexposed share)."""
+        return int(np.sum(self.values == 0))
+
+
+# -- the study's bands ------------------------------------------------------
+def read_study_table(path: str | Path, source: str | None = None, *,
+                     design: str | None = None) -> StudyTable:
+    """Read and check a table of band estimates.
+
+    Required columns: ``lower``, ``upper`` (empty for an open-ended top
+    band), ``rr``, ``ci_lower``, ``ci_upper``. Optional: ``dose`` and the
+    counts ``cases`` with ``controls`` (case-control), ``person_time``
+    (incidence-rate) or ``persons`` (cumulative-incidence).
+
+    Checks: numbers where numbers belong; limits of 0 or more; each band's
+    upper limit above its lower; bands in increasing order without overlap;
+    RR above 0; a CI that contains its RR (``ci_lower <= rr <= ci_upper``
+    with ``ci_lower < ci_upper``); exactly one reference band (``rr`` 1
+    with both CI cells empty); a given dose inside its band; counts above 0
+    on every row when a count column is present.
+    """
+    raw = read_raw(path, source)
+    require_columns(raw, BAND_REQUIRED, "a band table")
+    counts_present = [c for c in COUNT_COLUMNS if c in raw.columns]
+    parsed = [_band_row(raw, row, counts_present) for row in raw.rows]
+    n = len(parsed)
+    arr = {k: np.array([p[k] for p in parsed], dtype=float)
+           for k in ("lower", "upper", "rr", "ci_lower", "ci_upper", "dose")}
+    check_band_order(raw, arr["lower"], arr["upper"])
+    reference = _reference_index(raw, parsed)
+    counts = {c: np.array([p[c] for p in parsed], dtype=float) for c in counts_present}
+    _check_counts(raw, counts, design)
+    notes = []
+    gaps = [i for i in range(1, n) if arr["lower"][i] > arr["upper"][i - 1]]
+    if gaps:
+        i = gaps[0]
+        notes.append(f"{raw.source}: bands leave gaps (row {raw.rows[i].line} starts at "
+                     f"{arr['lower'][i]:g}, the band before ends at {arr['upper'][i - 1]:g}); "
+                     "each band's lower limit is used as the cutpoint")
+    return StudyTable(raw.source, arr["lower"], arr["upper"], arr["rr"], arr["ci_lower"],
+                      arr["ci_upper"], arr["dose"], reference, counts,
+                      tuple(r.line for r in raw.rows), tuple(notes))
+
+
+def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, float]:
+    lower = number(raw, row, "lower")
+    if lower < 0:
+        raise cell_error(raw, row, "lower", f"negative exposure {lower:g}; band limits must be 0 or more")
+    upper = number(raw, row, "upper", required=False)
+    if upper is None:
+        upper = math.inf
+    elif upper <= lower:
+        raise cell_error(raw, row, "upper", f"upper limit {upper:g} is not above the lower limit "
+                    f"{lower:g}")
+    rr = number(raw, row, "rr")
+    if rr <= 0:
+        raise cell_error(raw, row, "rr", f"RR must be greater than 0, got {rr:g}")
+    lo = number(raw, row, "ci_lower", required=False)
+    hi = number(raw, row, "ci_upper", required=False)
+    if (lo is None) != (hi is None):
+        missing = "ci_lower" if lo is None else "ci_upper"
+        raise cell_error(raw, row, missing, "one CI limit is empty; give both limits, or leave both "
+                    "empty on the reference band (rr 1)")
+    if lo is None and rr != 1:
+        raise cell_error(raw, row, "ci_lower", f"the CI is empty but the RR is {rr:g}; only the "
+                    "reference band (rr 1) has an empty CI")
+    if lo is not None:
+        if lo <= 0:
+            raise cell_error(raw, row, "ci_lower", f"CI limit must be greater than 0, got {lo:g}")
+        if not lo < hi:
+            raise cell_error(raw, row, "ci_upper", f"CI upper limit {hi:g} is not above the lower "
+                        f"limit {lo:g}")
+        if not lo <= rr <= hi:
+            col = "ci_lower" if rr < lo else "ci_upper"
+            raise cell_error(raw, row, col, f"the CI {lo:g} to {hi:g} does not contain its RR {rr:g}")
+    dose = number(raw, row, "dose", required=False) if "dose" in raw.columns else None
+    if dose is not None and not lower <= dose <= upper:
+        raise cell_error(raw, row, "dose", f"dose {dose:g} lies outside its band "
+                    f"[{lower:g}, {upper:g}]")
+    out = {"lower": lower, "upper": upper, "rr": rr,
+           "ci_lower": math.nan if lo is None else lo, "ci_upper": math.nan if hi is None else hi,
+           "dose": math.nan if dose is None else dose}
+    for c in counts_present:
+        value = number(raw, row, c)
+        if value <= 0:
+            raise cell_error(raw, row, c, f"{c} must be greater than 0, got {value:g} (the covariance "
+                        "of the log RRs needs every band's counts; remove the count columns to "
+                        "treat the estimates as independent)")
+        out[c] = value
+    return out
+
+def _reference_index(raw: RawTable, parsed: list[dict[str, float]]) -> int:
+    refs = [i for i, p in enumerate(parsed) if p["rr"] == 1 and math.isnan(p["ci_lower"])]
+    if not refs:
+        raise InputError("no reference band: one row must have rr 1 with ci_lower and ci_upper "
+                         "left empty", source=raw.source, location="column 'rr'")
+    if len(refs) > 1:
+        lines = " and ".join(str(raw.rows[i].line) for i in refs[:2])
+        raise InputError("two reference bands (rr 1 with an empty CI); keep exactly one",
+                         source=raw.source, location=f"rows {lines}, column 'rr'")
+    return refs[0]
+
+
+def _check_counts(raw: RawTable, counts: dict[str, FloatArray], design: str | None) -> None:
+    if not counts:
+        return
+    location = f"column '{next(iter(counts))}'"
+    if "cases" not in counts:
+        raise InputError("count columns need a 'cases' column beside them",
+                         source=raw.source, location="column 'cases'")
+    totals = [c for c in counts if c != "cases"]
+    if design is not None:
+        need = DESIGN_TOTALS[design]
+        if need not in counts:
+            hint = near_column(need, [c for c in raw.columns if c not in COUNT_COLUMNS])
+            raise InputError(f"missing column '{need}': with design = \"{design}\" the table "
+                             f"gives cases and {need} per band (or remove the count columns to "
+                             f"treat the estimates as independent){hint}", source=raw.source,
+                             location=f"column '{need}'")
+    elif len(totals) != 1:
+        raise InputError("with cases give exactly one of controls, person_time or persons "
+                         f"(found {', '.join(totals) or 'none'}), or set design in [curve]",
+                         source=raw.source, location=location)
+
+
+def design_from_counts(table: StudyTable) -> str | None:
+    """The study design implied by the count columns, if any."""
+    for design, total in DESIGN_TOTALS.items():
+        if "cases" in table.counts and total in table.counts:
+            return design
+    return None
+
+
+# -- exposure measurements --------------------------------------------------
+def read_measurements(path: str | Path, source: str | None = None, *,
+                      detected_column: str = "detected",
+                      weight_column: str = "weight") -> Measurements:
+    """Read and check exposure measurements.
+
+    Column ``value`` (required): a positive number, or ``<L`` for a result
+    below the detection limit ``L``. Optional ``detected`` column (true /
+    false; false means ``value`` is the detection limit) and ``weight``
+    column (0 or more, not all 0).
+    """
+    raw = read_raw(path, source)
+    require_columns(raw, ("value",), "a measurement table")
+    detected_column, weight_column = detected_column.lower(), weight_column.lower()
+    has_det = detected_column in raw.columns
+    has_w = weight_column in raw.columns
+    values, detected, weights = [], [], []
+    for row in raw.rows:
+        v, below = _measurement(raw, row)
+        if has_det:
+            flag = _flag(raw, row, detected_column)
+            if below and flag:
+                raise cell_error(raw, row, detected_column, "the value is written as below a "
+                            "detection limit ('<') but marked detected")
+            below = below or not flag
+        values.append(v)
+        detected.append(not below)
+        if has_w:
+            w = number(raw, row, weight_column)
+            if w < 0:
+                raise cell_error(raw, row, weight_column, f"weight must be 0 or more, got {w:g}")
+            weights.append(w)
+    det = np.array(detected, dtype=bool)
+    vals = np.array(values, dtype=float)
+    lines = tuple(r.line for r in raw.rows)
+    w_arr = None
+    notes = []
+    if has_w:
+        w_arr = np.array(weights, dtype=float)
+        if not np.any(w_arr > 0):
+            raise InputError("all weights are 0", source=raw.source,
+                             location=f"column '{weight_column}'")
+        keep = w_arr > 0
+        if not keep.all():
+            notes.append(f"{raw.source}: {int((~keep).sum())} rows with weight 0 were left out")
+            vals, det, w_arr = vals[keep], det[keep], w_arr[keep]
+            lines = tuple(np.asarray(lines)[keep].tolist())
+    positive = det & (vals > 0)
+    if positive.sum() < 3:
+        raise InputError(f"only {int(positive.sum())} of {len(det)} values are detected and "
+                         "above 0; at least 3 "
+                         "detected values are needed to fit a distribution", source=raw.source,
+                         location="column 'value'")
+    if not det.all():
+        notes.append(f"{raw.source}: {int((~det).sum())} of {len(det)} values are below a "
+                     "detection limit and enter the fit as left-censored")
+    if np.any(vals == 0):
+        notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
+                     "with no exposure; their weighted share is the unexposed share")
+    return Measurements(raw.source, vals, det, w_arr, lines, tuple(notes))
+
+
+def _measurement(raw: RawTable, row: Row) -> tuple[float, bool]:
+    text = row.cells["value"]
+    below = text.startswith("<")
+    if below:
+        row = Row(row.line, {**row.cells, "value": text[1:].strip()})
+    v = number(raw, row, "value")
+    if v < 0:
+        raise cell_error(raw, row, "value", f"negative exposure {v:g}; measurements must be 0 or more")
+    if v == 0 and below:
+        raise cell_error(raw, row, "value", "a detection limit must be above 0, got '<0'")
+    return v, below
+
+
+def _flag(raw: RawTable, row: Row, column: str) -> bool:
+    text = row.cells[column].lower()
+    if text in TRUE_TEXT:
+        return True
+    if text in FALSE_TEXT:
+        return False
+    raise cell_error(raw, row, column, f"'{row.cells[column]}' is not true or false")
