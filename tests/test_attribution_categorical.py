@@ -139,3 +139,25 @@ def test_empirical_path_is_weighted_mean():
     c = burden_density(curve, empirical(x, w), m)
     assert c.paf == pytest.approx(1 - 1 / e, rel=1e-12)
     assert c.cumulative[-1] == pytest.approx(1.0, rel=1e-12)
+
+
+def test_empirical_categorical_comparison():
+    """Empirical exposure: band shares and band means are weighted sums over
+    the values in each band (definition), written out with numpy here; the
+    band-mean method is exact for a linear curve (linearity of expectation)."""
+    from doseattr.core.exposure.empirical import empirical
+    x = np.array([0.5, 1.5, 4.0, 6.0, 9.0, 22.0, 40.0])
+    w = np.array([3.0, 1.0, 2.0, 1.0, 1.0, 0.5, 0.25])
+    ex = empirical(x, w, unexposed=0.1)
+    curve = Curve(LinearExcess(), np.array([0.05]), np.eye(1))
+    cmp_ = categorical_comparison(curve, ex, minimum_risk=0.0, cutpoints=[2.0, 10.0])
+    wn = w / w.sum()
+    in_band = [(x <= 2.0), (x > 2.0) & (x <= 10.0), (x > 10.0)]
+    shares = np.array([0.9 * wn[b].sum() for b in in_band])
+    shares[0] += 0.1
+    means = np.array([0.9 * (wn[b] * x[b]).sum() for b in in_band]) / shares
+    assert cmp_.shares == pytest.approx(shares, rel=1e-12)
+    assert cmp_.band_means == pytest.approx(means, rel=1e-12)
+    bm = {m.method: m for m in cmp_.methods}["band-mean"]
+    assert bm.paf == pytest.approx(cmp_.continuous_paf, rel=1e-12)
+    assert len(cmp_.convergence) == 19

@@ -17,7 +17,7 @@ distribution.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -25,6 +25,9 @@ from numpy.typing import ArrayLike, NDArray
 from doseattr.core.attribution.fractions import paf as continuous_paf
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
+from doseattr.core.exposure.empirical import EmpiricalExposure
+
+AnyExposure = Exposure | EmpiricalExposure
 
 FloatArray = NDArray[np.float64]
 
@@ -73,22 +76,41 @@ def multi_category_paf(shares: ArrayLike, rr: ArrayLike) -> float:
     return excess / (1.0 + excess)
 
 
-def band_shares(exposure: Exposure, cutpoints: ArrayLike) -> FloatArray:
+def band_shares(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     """Population share in each band, the unexposed in the first."""
     edges = np.concatenate([[0.0], np.asarray(cutpoints, dtype=float)])
     below = exposure.cdf(edges[1:])
     return np.diff(np.concatenate([[0.0], below, [1.0]]))
 
 
-def band_means(exposure: Exposure, cutpoints: ArrayLike) -> FloatArray:
+def band_means(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     r"""Conditional mean exposure in each band,
     :math:`E[X \mid a \le X < b] = (1-u)\,E[X; a < X \le b] / p`."""
     cuts = np.asarray(cutpoints, dtype=float)
     lo = np.concatenate([[0.0], cuts])
     hi = np.concatenate([cuts, [np.inf]])
-    pm = (1 - exposure.unexposed) * exposure.family.partial_mean(lo, hi, exposure.params)
+    pm = (1 - exposure.unexposed) * _partial_mean(exposure, lo, hi)
     p = band_shares(exposure, cuts)
     return np.where(p > 0, pm / np.where(p > 0, p, 1.0), 0.5 * (lo + np.where(np.isfinite(hi), hi, lo)))
+
+
+def _partial_mean(exposure: AnyExposure, lo: FloatArray, hi: FloatArray) -> FloatArray:
+    """E[X; lo < X <= hi] of the exposed part (a weighted sum for values)."""
+    if isinstance(exposure, EmpiricalExposure):
+        x, w = exposure.values, exposure.weights
+        inside = (x[None, :] > lo[:, None]) & (x[None, :] <= hi[:, None])
+        return inside.astype(float) @ (w * x)
+    return exposure.family.partial_mean(lo, hi, exposure.params)
+
+
+def _exposed_quantiles(exposure: AnyExposure, q: FloatArray) -> FloatArray:
+    """Quantiles of the exposed part (inverted weighted CDF for values)."""
+    if isinstance(exposure, EmpiricalExposure):
+        order = np.argsort(exposure.values)
+        cum = np.cumsum(exposure.weights[order])
+        idx = np.minimum(np.searchsorted(cum, q * cum[-1]), cum.size - 1)
+        return exposure.values[order][idx]
+    return exposure.family.ppf(q, exposure.params)
 
 
 def band_midpoints(cutpoints: ArrayLike) -> FloatArray:
@@ -107,18 +129,18 @@ def rr_at(curve: Curve, doses: ArrayLike, minimum_risk: float) -> FloatArray:
     return np.exp(curve.log_rr(d) - curve.log_rr(np.array([minimum_risk])))
 
 
-def equal_probability_paf(curve: Curve, exposure: Exposure, bands: int,
+def equal_probability_paf(curve: Curve, exposure: AnyExposure, bands: int,
                           minimum_risk: float) -> float:
     """Categorical PAF with ``bands`` equal-probability bands of the exposed."""
     q = np.arange(1, bands) / bands
-    cuts = exposure.family.ppf(q, exposure.params)
-    exposed = Exposure(exposure.family, exposure.params, 0.0)
+    cuts = _exposed_quantiles(exposure, q)
+    exposed = replace(exposure, unexposed=0.0)
     p = (1 - exposure.unexposed) * band_shares(exposed, cuts)
     rr = rr_at(curve, band_means(exposed, cuts), minimum_risk)
     return multi_category_paf(np.append(p, exposure.unexposed), np.append(rr, 1.0))
 
 
-def categorical_comparison(curve: Curve, exposure: Exposure, *, minimum_risk: float,
+def categorical_comparison(curve: Curve, exposure: AnyExposure, *, minimum_risk: float,
                            cutpoints: ArrayLike, reported_rr: ArrayLike | None = None,
                            max_bands: int = 20) -> CategoricalComparison:
     """Compare the multi-category PAF under each RR assignment with the
