@@ -90,10 +90,13 @@ def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike,
 def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None):
     """The function ``(x, rows) -> ln RR_m(g(x))`` for draws ``rows``."""
 
+    top = np.inf if curve.max_dose is None else curve.max_dose
+
     def log_rr(x: FloatArray, rows: slice) -> FloatArray:
-        c, mm = coef[rows], m[rows, None]
+        c, mm = coef[rows], np.minimum(m[rows, None], top)
         y = x if scenario is None else scenario.apply(x, mm)
-        return curve.log_rr(np.maximum(y, mm), c) - curve.log_rr(mm, c)
+        # one pass for both the minimum-risk floor and the flat extension
+        return curve.model.log_rr(np.clip(y, mm, top), c) - curve.model.log_rr(mm, c)
 
     return log_rr
 

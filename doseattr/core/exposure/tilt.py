@@ -33,9 +33,21 @@ def positive_rate(growth: Growth) -> FloatArray:
 
 
 def merge(own: FloatArray, tilted: FloatArray) -> FloatArray:
-    """Sorted union of two breakpoint arrays, broadcast to a common shape."""
+    """Own breakpoints plus the tilted ones that lie outside their range.
+
+    Inside the range of the family's own breakpoints the panels are already
+    narrow enough for the tilted body (it has the same width on the log
+    scale, only shifted), so only the tilted points beyond either end are
+    added. A column is kept when any draw needs it; draws that do not
+    repeat an end point there (an empty panel). The result stays
+    rectangular and sorted.
+    """
     own, tilted = np.broadcast_arrays(own, tilted)
-    return np.sort(np.concatenate([own, tilted], axis=-1), axis=-1)
+    lo, hi = own[..., :1], own[..., -1:]
+    outside = (tilted < lo) | (tilted > hi)
+    keep = np.any(outside.reshape(-1, outside.shape[-1]), axis=0)
+    extra = np.where(outside, tilted, hi)[..., keep]
+    return np.sort(np.concatenate([own, extra], axis=-1), axis=-1)
 
 
 def refuse(bad: FloatArray, what: str) -> None:
