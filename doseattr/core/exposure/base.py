@@ -144,6 +144,24 @@ class Family(ABC):
         """
 
 
+class PositiveFamily(Family):
+    """A family whose public parameters are all positive: the internal
+    vector is their logarithms."""
+
+    def to_internal(self, params: ArrayLike) -> FloatArray:
+        return np.log(np.asarray(params, dtype=float))
+
+    def from_internal(self, theta: ArrayLike) -> FloatArray:
+        return np.exp(np.asarray(theta, dtype=float))
+
+    def check(self, params: ArrayLike) -> None:
+        p = np.asarray(params, dtype=float)
+        for j, pname in enumerate(self.param_names):
+            v = p[..., j]
+            if not np.all(np.isfinite(v) & (v > 0)):
+                raise ModelError(f"{self.name}: {pname} must be a positive number, got {v}")
+
+
 @dataclass(frozen=True)
 class ExposureFit:
     """How an exposure distribution was obtained from data.

@@ -20,7 +20,7 @@ from scipy import stats
 from scipy.special import gammainc, gammaincc, gammaincinv, gammaln
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import Family, FloatArray, pcol
+from doseattr.core.exposure.base import PositiveFamily, FloatArray, pcol
 from doseattr.core.exposure.incomplete_gamma import (log_gamma_break_quantiles, log_gammainc,
                                                      log_gammaincc)
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
@@ -34,24 +34,11 @@ def gamma_between(a: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> FloatArray:
     return np.where(lo > a, gammaincc(a, lo) - gammaincc(a, hi), gammainc(a, hi) - gammainc(a, lo))
 
 
-class Gamma(Family):
+class Gamma(PositiveFamily):
     """Gamma with public parameters ``shape`` and ``scale`` (both > 0)."""
 
     name = "gamma"
     param_names = ("shape", "scale")
-
-    def to_internal(self, params: ArrayLike) -> FloatArray:
-        return np.log(np.asarray(params, dtype=float))
-
-    def from_internal(self, theta: ArrayLike) -> FloatArray:
-        return np.exp(np.asarray(theta, dtype=float))
-
-    def check(self, params: ArrayLike) -> None:
-        p = np.asarray(params, dtype=float)
-        for j, pname in enumerate(self.param_names):
-            v = p[..., j]
-            if not np.all(np.isfinite(v) & (v > 0)):
-                raise ModelError(f"gamma: {pname} must be a positive number, got {v}")
 
     def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
         r"""log density of ``T = ln X``: :math:`k u - e^u - \ln\Gamma(k)`,

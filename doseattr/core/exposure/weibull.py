@@ -21,7 +21,7 @@ from scipy.optimize import brentq
 from scipy.special import gammaln
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import Z_BREAKS, Family, FloatArray, pcol
+from doseattr.core.exposure.base import Z_BREAKS, PositiveFamily, FloatArray, pcol
 from doseattr.core.exposure.gamma import gamma_between
 from doseattr.core.exposure.incomplete_gamma import LOWER_P, UPPER_Q, log_gamma_break_quantiles
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
@@ -34,24 +34,11 @@ LOG_E_BREAKS = np.log(np.concatenate([-np.log1p(-LOWER_P), -np.log(UPPER_Q)]))
 _LOG_MAX_MGF = 700.0
 
 
-class Weibull(Family):
+class Weibull(PositiveFamily):
     """Weibull with public parameters ``shape`` and ``scale`` (both > 0)."""
 
     name = "weibull"
     param_names = ("shape", "scale")
-
-    def to_internal(self, params: ArrayLike) -> FloatArray:
-        return np.log(np.asarray(params, dtype=float))
-
-    def from_internal(self, theta: ArrayLike) -> FloatArray:
-        return np.exp(np.asarray(theta, dtype=float))
-
-    def check(self, params: ArrayLike) -> None:
-        p = np.asarray(params, dtype=float)
-        for j, pname in enumerate(self.param_names):
-            v = p[..., j]
-            if not np.all(np.isfinite(v) & (v > 0)):
-                raise ModelError(f"weibull: {pname} must be a positive number, got {v}")
 
     @staticmethod
     def _u(x_or_t: ArrayLike, params: ArrayLike, *, log_scale: bool) -> tuple[FloatArray, FloatArray]:
