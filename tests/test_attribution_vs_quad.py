@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import integrate
 
 from doseattr.core.attribution.fractions import excess_draws, expected_rr
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale

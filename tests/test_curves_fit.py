@@ -1,6 +1,5 @@
 """GLS fitting of curves to category-level log RRs (doseattr.core.curves.fit)."""
 
-import warnings
 
 import numpy as np
 import pytest

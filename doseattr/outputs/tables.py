@@ -1,8 +1,9 @@
 """CSV tables of the results.
 
-Every table is built from the results.json dictionary (the contract in
-``API.md``) plus the study's band table, so the CSV files and results.json
-can never disagree. Numbers are written at full precision (``repr`` of the
+Every table is built from the results.json dictionary (``Results.to_dict()``)
+plus the study's band table and the per-worker exposures, so the CSV files
+and results.json can never disagree. Optional tables (burden, comparisons,
+width by source, workers) are written only when the results hold them. Numbers are written at full precision (``repr`` of the
 float, which round-trips exactly); empty cells mean "not applicable". Units
 are given in the column headers, e.g. ``lower (ug/m3)``.
 """
@@ -10,7 +11,6 @@ are given in the column headers, e.g. ``lower (ug/m3)``.
 from __future__ import annotations
 
 import csv
-import dataclasses
 import math
 from pathlib import Path
 from typing import Any, Iterable
@@ -18,6 +18,8 @@ from typing import Any, Iterable
 import numpy as np
 
 from doseattr.outputs.bands import band_arrays
+from doseattr.outputs.records import (burden_blocks, estimate_of, scenario_effects, substitution,
+                                      width_by_source)
 
 Table = tuple[list[str], list[list[Any]]]
 
@@ -188,52 +190,127 @@ def records_table(records: Iterable[dict], first: str | None = None) -> Table:
 
 
 def burden_table(d: dict) -> Table | None:
-    """Attributable cases by stratum and in total (one block per outcome)."""
-    blocks = [(o.get("name"), o.get("burden", o)) for o in d.get("outcomes") or []]
-    if not blocks and d.get("burden"):
-        blocks = [(None, d["burden"])]
+    """Attributable cases by stratum and in total (one block per outcome).
+
+    The PAF of a row is written as ``paf_estimate``, ``paf_lower``, ... whether
+    the contract holds it as an estimate object or as a number with
+    ``paf_interval`` beside it; per-scenario results go to
+    :func:`burden_scenarios_table`.
+    """
     records = []
-    for outcome, burden in blocks:
-        if not burden or "strata" not in burden:
-            continue
-        for s in burden["strata"]:
-            records.append(({"outcome": outcome} if outcome else {}) | s)
-        total = burden.get("total")
-        if total:
-            records.append(({"outcome": outcome} if outcome else {}) | {"stratum": "total"} | total)
+    for outcome, burden in burden_blocks(d):
+        rows = list(burden["strata"])
+        if burden.get("total"):
+            rows.append({"stratum": "total", **burden["total"]})
+        for r in rows:
+            flat = {k: v for k, v in r.items() if k not in ("scenarios", "paf_interval")}
+            flat["paf"] = estimate_of(r, "paf")
+            records.append(({"outcome": outcome} if outcome else {}) | flat)
     return records_table(records) if records else None
 
 
-def find_workers(results: Any, d: dict) -> Any:
-    """Per-worker exposures from work histories, wherever the results keep
-    them (``results.workers``, ``results.extra["workers"]``, or the
-    ``workers`` list in the results dictionary); ``None`` without histories."""
-    for found in (getattr(results, "workers", None),
-                  (getattr(results, "extra", None) or {}).get("workers"), d.get("workers")):
-        if found is not None:
-            return found
-    return None
+def burden_scenarios_table(d: dict) -> Table | None:
+    """One row per outcome, stratum (and total) and scenario: the PIF and the
+    cases averted, each with its interval."""
+    header = ["outcome", "stratum", "scenario", *[f"pif_{c}" for c in ESTIMATE_COLUMNS],
+              *[f"averted_{c}" for c in ESTIMATE_COLUMNS]]
+    rows = []
+    for outcome, burden in burden_blocks(d):
+        records = list(burden["strata"])
+        if burden.get("total"):
+            records.append({"stratum": "total", **burden["total"]})
+        for r in records:
+            for s in scenario_effects(r):
+                rows.append([outcome, r.get("stratum"), s["name"],
+                             *estimate_cells(s["pif"] or {}), *estimate_cells(s["averted"] or {})])
+    if not any(r[0] for r in rows):
+        header, rows = header[1:], [r[1:] for r in rows]
+    return (header, rows) if rows else None
+
+
+def model_comparison_table(d: dict) -> Table | None:
+    """PAF and fit of each model in ``compare_models`` (``model_comparison``)."""
+    return _variant_table(d.get("model_comparison"), "model")
+
+
+def dose_sensitivity_table(d: dict) -> Table | None:
+    """PAF and fit under each dose-assignment rule (``dose_sensitivity``),
+    with the assigned doses ``dose_1`` ... in the unit of the analysis."""
+    return _variant_table(d.get("dose_sensitivity"), "dose_rule", unit=d.get("unit"))
+
+
+def _variant_table(variants: Any, label: str, unit: str | None = None) -> Table | None:
+    if not variants:
+        return None
+    n_coef = max(len(v.get("coefficients") or []) for v in variants)
+    n_dose = max(len(v.get("doses") or []) for v in variants) if unit is not None else 0
+    header = [label, "model", *[f"coefficient_{i + 1}" for i in range(n_coef)],
+              *[f"standard_error_{i + 1}" for i in range(n_coef)],
+              *[with_unit(f"dose_{i + 1}", unit) for i in range(n_dose)],
+              "q", "df", "p_value", "nonlinearity_p", "paf", "problem"]
+    rows = []
+    for v in variants:
+        coef = _padded(v.get("coefficients"), n_coef)
+        ses = _padded(v.get("standard_errors"), n_coef)
+        doses = _padded(v.get("doses"), n_dose)
+        rows.append([v.get("label"), v.get("model"), *coef, *ses, *doses, v.get("q"),
+                     v.get("df"), v.get("p_value"), v.get("nonlinearity_p"), v.get("paf"),
+                     v.get("problem")])
+    return header, rows
+
+
+def exposure_comparison_table(d: dict) -> Table | None:
+    """PAF under each fitted family and the empirical distribution
+    (``exposure_comparison``)."""
+    rows_in = d.get("exposure_comparison") or []
+    if not rows_in:
+        return None
+    names: list[str] = []
+    for r in rows_in:
+        names += [k for k in (r.get("parameters") or {}) if k not in names]
+    header = ["family", *names, "aic", "paf", "problem"]
+    return header, [[r.get("family"), *[(r.get("parameters") or {}).get(n) for n in names],
+                     r.get("aic"), r.get("paf"), r.get("problem")] for r in rows_in]
+
+
+def substitution_table(d: dict) -> Table | None:
+    """Non-detects replaced by a fraction of their limit (comparison only):
+    fraction, fitted parameters, PAF, difference from the analysis's PAF."""
+    rows_in = substitution(d)
+    if not rows_in:
+        return None
+    names: list[str] = []
+    for r in rows_in:
+        names += [k for k in (r.get("parameters") or {}) if k not in names]
+    header = ["fraction", *names, "paf", "difference"]
+    return header, [[r.get("fraction"), *[(r.get("parameters") or {}).get(n) for n in names],
+                     r.get("paf"), r.get("difference")] for r in rows_in]
+
+
+def width_by_source_table(d: dict) -> Table | None:
+    """The PAF interval with one source of uncertainty at a time."""
+    rows_in = width_by_source(d)
+    if not rows_in:
+        return None
+    return (["source", "lower", "upper", "width"],
+            [[r.get("source"), r.get("lower"), r.get("upper"), r.get("width")] for r in rows_in])
 
 
 def workers_table(workers: Any) -> Table | None:
-    """One row per worker: worker, cumulative, duration_years, mean_intensity."""
-    if workers is None or (isinstance(workers, (list, tuple, dict)) and not workers):
+    """One row per worker: worker, cumulative, duration_years, mean_intensity.
+
+    ``workers`` is the core ``WorkerExposure`` (``Results.workers``) or the
+    ``workers`` list of the results dictionary.
+    """
+    if workers is None or (isinstance(workers, (list, tuple)) and not workers):
         return None
     if hasattr(workers, "cumulative") and hasattr(workers, "duration_years"):
-        # a per-worker result object (core.exposure.histories.WorkerExposure)
-        workers = {"worker": list(getattr(workers, "workers")),
-                   "cumulative": workers.cumulative,
-                   "duration_years": workers.duration_years,
-                   "mean_intensity": workers.mean_intensity}
-    elif dataclasses.is_dataclass(workers) and not isinstance(workers, type):
-        workers = {f.name: getattr(workers, f.name) for f in dataclasses.fields(workers)}
-    if isinstance(workers, dict):  # column arrays
-        cols = [c for c in workers if np.ndim(workers[c]) == 1]
-        n = len(workers[cols[0]])
-        return cols, [[_plain(workers[c][i]) for c in cols] for i in range(n)]
-    records = [w if isinstance(w, dict) else (
-        {f.name: getattr(w, f.name) for f in dataclasses.fields(w)}
-        if dataclasses.is_dataclass(w) else vars(w)) for w in workers]
+        records = [{"worker": str(w), "cumulative": _plain(c), "duration_years": _plain(t),
+                    "mean_intensity": _plain(m)}
+                   for w, c, t, m in zip(workers.workers, workers.cumulative,
+                                         workers.duration_years, workers.mean_intensity)]
+    else:
+        records = list(workers)
     return records_table(records, first="worker")
 
 
@@ -250,18 +327,28 @@ def all_tables(d: dict, band_table: Any = None, workers: Any = None) -> dict[str
         tables["categorical.csv"] = categorical_table(d)
         tables["categorical_paf.csv"] = categorical_paf_table(d)
         tables["convergence.csv"] = convergence_table(d)
-    burden = burden_table(d)
-    if burden is not None:
-        tables["burden.csv"] = burden
-    w = workers_table(workers)
-    if w is not None:
-        tables["workers.csv"] = w
+    optional = {
+        "burden.csv": burden_table(d),
+        "burden_scenarios.csv": burden_scenarios_table(d),
+        "model_comparison.csv": model_comparison_table(d),
+        "dose_sensitivity.csv": dose_sensitivity_table(d),
+        "exposure_comparison.csv": exposure_comparison_table(d),
+        "substitution.csv": substitution_table(d),
+        "width_by_source.csv": width_by_source_table(d),
+        "workers.csv": workers_table(workers),
+    }
+    tables.update({name: t for name, t in optional.items() if t is not None})
     return tables
 
 
 def _plain(v: Any) -> Any:
     """numpy scalars to Python values."""
     return v.item() if isinstance(v, np.generic) else v
+
+
+def _padded(values: Any, n: int) -> list[Any]:
+    values = list(values or [])
+    return values + [None] * (n - len(values))
 
 
 def _item(seq: Any, i: int) -> Any:

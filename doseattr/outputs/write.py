@@ -19,7 +19,8 @@ from pathlib import Path
 from typing import Any
 
 from doseattr.errors import InputError
-from doseattr.outputs.tables import all_tables, find_workers, write_csv
+from doseattr.outputs.records import workers_source
+from doseattr.outputs.tables import all_tables, write_csv
 
 FIGURE_FOLDER = "figures"
 
@@ -74,7 +75,7 @@ def _produce(results: Any, folder: Path, *, figures: bool) -> list[Path]:
     written = [Path("results.json")]
     (folder / "results.json").write_text(results_json(results, data), encoding="utf-8")
     tables = all_tables(data, band_table=getattr(results, "band_table", None),
-                        workers=find_workers(results, data))
+                        workers=workers_source(results, data))
     for name, table in tables.items():
         write_csv(folder / name, table)
         written.append(Path(name))

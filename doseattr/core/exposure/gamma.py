@@ -24,7 +24,6 @@ from doseattr.core.exposure.base import PositiveFamily, FloatArray, pcol
 from doseattr.core.exposure.incomplete_gamma import (log_gamma_break_quantiles, log_gammainc,
                                                      log_gammaincc)
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
-from doseattr.errors import ModelError
 
 
 def gamma_between(a: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> FloatArray:
