@@ -31,7 +31,7 @@ def quad_expected_rr(curve, exposure, m, scenario=None):
         y = max(y, m)
         return float(np.exp(curve.log_rr(np.array([y]))[0] - curve.log_rr(np.array([m]))[0]))
 
-    pts = [m]
+    pts = [m] + [float(k) for k in np.ravel(curve.model.kinks(curve.coef))]
     if curve.max_dose is not None:
         pts.append(curve.max_dose)
     if scenario is not None:
@@ -109,3 +109,32 @@ def test_shared_grid_equals_single_evaluations(crv):
         assert together[i] == pytest.approx(one, rel=1e-9)
     c0 = Curve(curve.model, coef[0], curve.cov, max_dose=curve.max_dose)
     assert 1 + together[0] == pytest.approx(quad_expected_rr(c0, ex, 1.0), rel=1e-8)
+
+
+@pytest.mark.parametrize("delta", [0.35, 0.7, 1.0, 1.6])
+@pytest.mark.parametrize("m", [0.0, 5.0])
+def test_saturating_shape_with_threshold(delta, m):
+    """RR = 1 + a(1 - exp(-g z^d)), z = max(0, x - cf) (Burnett et al. 2014,
+    form from memory): z^d has an infinite slope at the threshold when
+    d < 1; the engine still agrees with quad within 1e-8."""
+    from doseattr.core.curves.shapes import SaturatingExponential
+    model = SaturatingExponential(threshold=2.4)
+    curve = Curve(model, np.array([1.5, 0.08, delta]), np.eye(3) * 1e-4)
+    ex = FAMS["lognormal-gsd4"]
+    assert expected_rr(curve, ex, m) == pytest.approx(quad_expected_rr(curve, ex, m, None),
+                                                      rel=1e-8)
+
+
+@pytest.mark.parametrize("rr10", [1.5, 3.0])
+@pytest.mark.parametrize("fam,p", [("lognormal", [5.0, 4.0]), ("gamma", [0.5, 40.0]),
+                                   ("weibull", [0.6, 20.0])])
+@pytest.mark.parametrize("scn", list(SCENARIOS))
+def test_extremely_steep_flat_curve(rr10, fam, p, scn):
+    """RR = rr10^(x/10) held flat beyond 500 (RR up to 1e23 there): nearly all
+    of E[RR] sits just below the flat point or far in the exposure tail.
+    The engine must still agree with quad within 1e-8."""
+    curve = Curve(LogLinear(), np.array([np.log(rr10) / 10]), np.eye(1), max_dose=500.0)
+    ex = Exposure(FAMILIES[fam], np.array(p))
+    scenario = SCENARIOS[scn]
+    ref = quad_expected_rr(curve, ex, 1.0, scenario)
+    assert expected_rr(curve, ex, 1.0, scenario) == pytest.approx(ref, rel=1e-8)

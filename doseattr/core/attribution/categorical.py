@@ -79,8 +79,9 @@ def multi_category_paf(shares: ArrayLike, rr: ArrayLike) -> float:
 def band_shares(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     """Population share in each band, the unexposed in the first."""
     edges = np.concatenate([[0.0], np.asarray(cutpoints, dtype=float)])
-    below = exposure.cdf(edges[1:])
-    return np.diff(np.concatenate([[0.0], below, [1.0]]))
+    below = np.minimum(exposure.cdf(edges[1:]), 1.0)
+    # weights normalised to 1 can sum to 1 + eps: clip rounding below zero
+    return np.maximum(np.diff(np.concatenate([[0.0], below, [1.0]])), 0.0)
 
 
 def band_means(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:

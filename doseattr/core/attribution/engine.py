@@ -31,6 +31,7 @@ fixed-rule quadrature that is vectorised over per-draw panel limits.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from functools import lru_cache
 from typing import Callable
 
@@ -44,7 +45,6 @@ from doseattr.errors import ConvergenceError
 
 FloatArray = NDArray[np.float64]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
-Grid = tuple[FloatArray, FloatArray, FloatArray, FloatArray]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 12
@@ -61,7 +61,8 @@ def _legendre(n: int) -> tuple[FloatArray, FloatArray]:
 
 
 def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
-                growth: Growth, kinks: FloatArray, nodes: int = NODES) -> FloatArray:
+                    growth: Growth, kinks: FloatArray, flat_from: FloatArray | None = None,
+                    nodes: int = NODES) -> FloatArray:
     r"""E[expm1(L(X))] = E[RR(X) - 1] for each draw of an exposure family.
 
     Parameters
@@ -76,6 +77,11 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
         Upper-tail growth of RR (rate per draw or shared).
     kinks
         Doses where ``L`` is not smooth, ``(K,)`` or ``(D, K)``.
+    flat_from
+        Dose ``x*`` per draw (or shared) beyond which ``L`` is constant, if
+        any. The panels then stop at ``x*`` and the rest is exact:
+        :math:`\mathrm{expm1}(L(x^*))\,S(x^*)`, however far into the tail
+        of the exposure distribution ``x*`` lies.
 
     Returns
     -------
@@ -95,13 +101,14 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     if kinks.ndim == 1:
         kinks = np.broadcast_to(kinks, (d, kinks.shape[0]))
     rate = np.broadcast_to(np.asarray(growth.rate, dtype=float), (d,))
+    top = np.broadcast_to(np.inf if flat_from is None else np.asarray(flat_from, float), (d,))
     xi, wi = _legendre(nodes)
-    if d > 1 and _same_rows(params) and _same_rows(kinks):
+    if d > 1 and _same_rows(params) and _same_rows(kinks) and np.all(top == top[0]):
         # One exposure distribution and one set of kinks for every draw
         # (only the curve varies): build the nodes once and reuse them.
         shared = Growth(growth.kind, rate.max(keepdims=True))
-        grid = _grid(family, params[:1], shared, kinks[:1], xi, wi)
-        step = max(1, CHUNK_VALUES // grid[0].shape[1])
+        grid = _grid(family, params[:1], shared, kinks[:1], top[:1], xi, wi)
+        step = max(1, CHUNK_VALUES // grid.x.shape[1])
         return np.concatenate([_integrate(log_rr, grid, slice(s, min(d, s + step)))
                                for s in range(0, d, step)])
     n_edges = _edges(family, params[:1], _sub_growth(growth, rate, slice(0, 1)),
@@ -110,7 +117,8 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     out = np.empty(d)
     for start in range(0, d, step):
         rows = slice(start, min(d, start + step))
-        grid = _grid(family, params[rows], _sub_growth(growth, rate, rows), kinks[rows], xi, wi)
+        grid = _grid(family, params[rows], _sub_growth(growth, rate, rows), kinks[rows],
+                     top[rows], xi, wi)
         out[rows] = _integrate(log_rr, grid, rows)
     return out
 
@@ -123,11 +131,27 @@ def _sub_growth(growth: Growth, rate: FloatArray, rows: slice) -> Growth:
     return Growth(growth.kind, rate[rows])
 
 
+@dataclass(frozen=True)
+class Grid:
+    """Quadrature nodes for a chunk of draws: doses ``x``, log densities,
+    weights and weighted densities ``(d, N)``; the flat tail's start
+    ``tail_x (d, 1)`` and its probability ``tail_p (d,)``."""
+
+    x: FloatArray
+    log_f: FloatArray
+    weight: FloatArray
+    dens: FloatArray
+    tail_x: FloatArray
+    tail_p: FloatArray
+
+
 def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
-          xi: FloatArray, wi: FloatArray) -> Grid:
-    """Nodes ``x``, log densities, quadrature weights and weighted densities,
-    each ``(d, N)``; checks that they recover the distribution's probability."""
+          top: FloatArray, xi: FloatArray, wi: FloatArray) -> Grid:
+    """Nodes up to ``top`` (the start of a flat tail, or inf); checks that
+    the weights and the tail recover the distribution's probability."""
     edges = _edges(family, params, growth, kinks)
+    with np.errstate(divide="ignore"):
+        edges = np.minimum(edges, np.log(top)[:, None])
     half = 0.5 * np.diff(edges, axis=1)                      # (d, P)
     mid = 0.5 * (edges[:, 1:] + edges[:, :-1])
     d, p = half.shape
@@ -135,18 +159,22 @@ def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
     log_f = family.log_density_log(t, params)
     weight = (half[:, :, None] * wi).reshape(d, p * xi.size)
     dens = np.exp(log_f) * weight
-    mass = dens.sum(axis=1)
+    finite = np.isfinite(top)
+    tail_x = np.where(finite, top, 1.0)[:, None]
+    tail_p = np.where(finite, family.sf(tail_x, params)[:, 0], 0.0)
+    mass = dens.sum(axis=1) + tail_p
     if np.any(np.abs(mass - 1.0) > MASS_TOLERANCE):
         worst = float(np.max(np.abs(mass - 1.0)))
         raise ConvergenceError(
             f"quadrature recovered the {family.name} distribution's probability only to "
             f"{worst:.1e}; parameters are too extreme for the fixed rule")
-    return np.exp(t), log_f, weight, dens
+    return Grid(np.exp(t), log_f, weight, dens, tail_x, tail_p)
 
 
 def _integrate(log_rr: LogRisk, grid: Grid, rows: slice) -> FloatArray:
-    x, log_f, weight, dens = grid
-    total = _weighted_excess(log_rr(x, rows), log_f, weight, dens)
+    total = _weighted_excess(log_rr(grid.x, rows), grid.log_f, grid.weight, grid.dens)
+    if np.any(grid.tail_p > 0):
+        total = total + np.expm1(log_rr(grid.tail_x, rows)[:, 0]) * grid.tail_p
     if not np.all(np.isfinite(total)):
         raise ConvergenceError("the expectation overflowed: the relative risk is too large "
                                "over the exposure range; check the curve and its units")

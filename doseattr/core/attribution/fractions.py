@@ -25,7 +25,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from doseattr.core.attribution.engine import expected_excess
-from doseattr.core.attribution.scenarios import Scenario
+from doseattr.core.attribution.scenarios import Cap, Scenario
 from doseattr.core.curves.base import Curve, as_coef_draws
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
@@ -55,7 +55,8 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
     params = np.broadcast_to(np.atleast_2d(np.asarray(params, dtype=float)), (d, np.shape(params)[-1]))
     body = expected_excess(_log_rr_m(curve, coef, m, scenario), family, params,
                            growth=_growth(curve, coef, scenario),
-                           kinks=_kinks(curve, coef, m, scenario))
+                           kinks=_kinks(curve, coef, m, scenario),
+                           flat_from=_flat_from(curve, scenario))
     return (1.0 - u) * body
 
 
@@ -111,11 +112,50 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     d = coef.shape[0]
     k = np.asarray(curve.kinks(coef), dtype=float)
     k = np.broadcast_to(k, (d, k.shape[-1]))
-    points = np.concatenate([k, m[:, None]], axis=1)
+    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef)], axis=1)
     if scenario is None:
         return points
     own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
     return np.concatenate([scenario.preimage(points), own], axis=1)
+
+
+def _flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
+    """Exposure beyond which RR_m(g(x)) no longer changes: the pre-image of
+    ``max_dose`` under the scenario, or a cap, whichever comes first."""
+    points = []
+    if curve.max_dose is not None:
+        top = np.array([curve.max_dose])
+        points.append(float((top if scenario is None else scenario.preimage(top))[0]))
+    if isinstance(scenario, Cap):
+        points.append(scenario.value)
+    return min(points) if points else None
+
+
+#: Distances below ln(max_dose), in units of 1/(c max_dose), of the graded
+#: breakpoints placed under a steep exponential curve held flat there.
+_GRADED = np.array([1.0, 2.0, 4.0, 8.0, 16.0, 32.0])
+
+
+def _graded_below_flat(curve: Curve, coef: FloatArray) -> FloatArray:
+    r"""Breakpoints graded towards ``max_dose`` from below for curves that
+    grow exponentially before being held flat.
+
+    On the log-exposure scale :math:`\ln RR(e^t)` has slope :math:`c\,x`
+    for :math:`RR \sim e^{cx}`, so with :math:`c D \gg 1` nearly all of
+    the integrand sits within a few :math:`1/(cD)` below :math:`\ln D`.
+    Breaks at :math:`\ln D - j/(cD)`, j = 1, 2, 4, ..., 32, resolve it.
+    """
+    d = coef.shape[0]
+    if curve.max_dose is None or curve.max_dose <= 0:
+        return np.zeros((d, 0))
+    g = curve.model.growth(coef)
+    if g.kind != "exp":
+        return np.zeros((d, 0))
+    cd = np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,)) * curve.max_dose
+    if np.all(cd <= 1.0):
+        return np.zeros((d, 0))
+    steps = _GRADED / np.maximum(cd, 1.0)[:, None]
+    return curve.max_dose * np.exp(-steps)
 
 
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,
