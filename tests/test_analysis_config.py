@@ -121,9 +121,12 @@ def test_family_must_be_known(tmp_path):
     assert err.location == "[exposure] key 'family'" and "did you mean 'lognormal'?" in str(err)
 
 
-def test_not_yet_supported_input_is_refused_clearly(tmp_path):
-    err, _ = _fails(tmp_path, ANALYSIS.replace('family = "lognormal"', 'family = "empirical"'))
-    assert err.location == "[exposure] key 'family'" and "not supported yet" in str(err)
+def test_empirical_needs_measured_values(tmp_path):
+    """family = "empirical" uses measured values; with a GM and GSD there are none."""
+    text = ANALYSIS.replace('table = "measurements.csv"\nfamily = "lognormal"',
+                            'family = "empirical"\ngm = 5.0\ngsd = 2.0')
+    err, _ = _fails(tmp_path, text)
+    assert err.location == "[exposure] key 'family'" and "measured values" in str(err)
 
 
 def test_entered_curve_ci_must_contain_estimate():

@@ -361,7 +361,8 @@ def test_power_curve_with_minimum_risk_closed_form():
               "exposure": {"gm": gm, "gsd": gsd}, "attribution": {"minimum_risk": m}})
     mu, s = math.log(gm), math.log(gsd)
     dist = stats.lognorm(s=s, scale=gm)
-    partial = math.exp(c * mu + c * c * s * s / 2) * stats.norm.cdf((mu + c * s * s - math.log(m)) / s)
+    partial = (math.exp(c * mu + c * c * s * s / 2)
+               * stats.norm.cdf((mu + c * s * s - math.log(m)) / s))
     e = dist.cdf(m) + m ** -c * partial
     np.testing.assert_allclose(r.paf.estimate, 1 - 1 / e, rtol=1e-8)
 

@@ -82,7 +82,8 @@ def test_bad_input_leaves_an_existing_folder_untouched(tmp_path, capsys):
 
 def test_missing_analysis_file(tmp_path, capsys):
     code, _, err = _run(["run", tmp_path / "nope.toml", "--out", tmp_path / "o"], capsys)
-    assert code == 2 and err == f"doseattr: error: {tmp_path / 'nope.toml'}: analysis file not found\n"
+    expected = f"doseattr: error: {tmp_path / 'nope.toml'}: analysis file not found\n"
+    assert code == 2 and err == expected
     assert not (tmp_path / "o").exists()
 
 
@@ -116,3 +117,62 @@ def test_module_entry_point_has_no_traceback(tmp_path):
     assert proc.returncode == 2
     assert proc.stderr.startswith("doseattr: error: ") and "no reference band" in proc.stderr
     assert "Traceback" not in proc.stderr and not (tmp_path / "out").exists()
+
+
+# -- issue 5 item 6 and the newer keys: one line, exit 2, nothing written --------
+STRATA = "stratum,cases,gm,gsd\nNorth,120,,\nSouth,80,14,2.5\nEast,45,,\n"
+WITH_BURDEN = ANALYSIS + '\n[burden]\ntable = "strata.csv"\n\n[uncertainty]\ndraws = 200\n'
+
+BAD_RUNS = {
+    "draws below 100": (WITH_BURDEN.replace("draws = 200", "draws = 99"), STRATA,
+                        "analysis.toml: [uncertainty] key 'draws': draws must be at least 100"),
+    "draws above the maximum": (WITH_BURDEN.replace("draws = 200", "draws = 100001"), STRATA,
+                                "analysis.toml: [uncertainty] key 'draws': 100001 draws is "
+                                "above 100000; add allow_many_draws = true"),
+    "negative cases": (WITH_BURDEN, STRATA.replace("East,45", "East,-3"),
+                       "strata.csv: row 4, column 'cases': cases must be 0 or more"),
+    "duplicated strata": (WITH_BURDEN, STRATA.replace("East,45", "North,45"),
+                          "strata.csv: row 4, column 'stratum': stratum 'North' appears twice"),
+    "range low above high": (WITH_BURDEN + "\n[attribution]\nminimum_risk = [6, 2]\n", STRATA,
+                             "analysis.toml: [attribution] key 'minimum_risk': the range's low "
+                             "end 6 is above its high end 2"),
+    "incomplete stratum exposure": (WITH_BURDEN, STRATA.replace("South,80,14,2.5", "South,80,14,"),
+                                    "strata.csv: row 3, column 'gsd': incomplete exposure"),
+    "no cases at all": (WITH_BURDEN, "stratum,cases\nA,0\nB,0\n",
+                        "strata.csv: column 'cases': every stratum has 0 cases"),
+    "unit without molecular weight": (
+        ANALYSIS.replace('model = "log-linear"', 'model = "log-linear"\nunit = "ppm"'), STRATA,
+        "analysis.toml: [curve] key 'unit': converting 'ppm' to 'ug/m3' needs the molecular "
+        "weight"),
+    "substitution without non-detects": (
+        ANALYSIS.replace('family = "lognormal"', 'family = "lognormal"\nsubstitution = [0.5]'),
+        STRATA, "analysis.toml: [exposure] key 'substitution': "),
+    "shape with a negative gamma": (
+        ANALYSIS.replace('table = "bands.csv"\nmodel = "log-linear"',
+                         'model = "saturating-exponential"\nalpha = 1\ngamma = -0.1\n'
+                         'delta = 1'), STRATA,
+        "analysis.toml: [curve] key 'gamma': gamma must be above 0"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_RUNS))
+def test_more_bad_input_exits_2_and_writes_nothing(tmp_path, capsys, case):
+    analysis, strata, expected = BAD_RUNS[case]
+    path = write_case(tmp_path / "case", analysis)
+    (tmp_path / "case" / "strata.csv").write_text(strata)
+    out_dir = tmp_path / "out"
+    code, out, err = _run(["run", path, "--out", out_dir], capsys)
+    assert code == 2 and out == ""
+    assert err.startswith("doseattr: error: ") and err.count("\n") == 1 and expected in err
+    assert not out_dir.exists()
+
+
+def test_many_draws_accepted_with_the_override():
+    """allow_many_draws = true lifts the maximum (checked when the file is
+    read; the run itself is not made here)."""
+    from doseattr.analysis.config import analysis_from_dict
+
+    a = analysis_from_dict({"unit": "ppm", "curve": {"model": "linear", "err": 0.1},
+                            "exposure": {"gm": 5.0, "gsd": 2.0},
+                            "uncertainty": {"draws": 200_000, "allow_many_draws": True}})
+    assert a.uncertainty.draws == 200_000

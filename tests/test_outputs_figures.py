@@ -205,10 +205,22 @@ def test_plot_draws_and_strata():
     ax = figures.plot_draws(draws, estimate=0.2, lower=lo, upper=hi)
     counts = [p.get_height() for p in ax.patches]
     assert sum(counts) == 500
-    ax = figures.plot_strata(["north", "south", "east"], [10.0, 4.0, 7.5],
-                             lower=[8.0, 3.0, 6.0], upper=[12.0, 5.0, 9.0])
-    widths = sorted(p.get_width() for p in ax.patches)
-    assert widths == [4.0, 7.5, 10.0]
+    assert sum(p.get_height() for p in ax.patches if p.get_gid() == "draws-hist") == 500
+
+
+def test_plot_strata_whiskers():
+    """Bars as long as the estimates, whiskers from lower to upper, first
+    name at the top; a stratum without limits gets no whisker."""
+    from doseattr.outputs.burden_figures import plot_strata
+
+    ax = plot_strata(["north", "south", "east"], [10.0, 4.0, 7.5],
+                     lower=[8.0, None, 6.0], upper=[12.0, None, 9.0])
+    bars = sorted((p for p in ax.patches if p.get_gid() == "strata-bars"),
+                  key=lambda p: -p.get_y())
+    assert [p.get_width() for p in bars] == [10.0, 4.0, 7.5]
+    seg = [c for c in ax.collections if c.get_gid() == "strata-whiskers"][0].get_segments()
+    assert sorted((s[0][0], s[1][0]) for s in seg) == [(6.0, 9.0), (8.0, 12.0)]
+    assert [t.get_text() for t in ax.get_yticklabels()] == ["north", "south", "east"]
 
 
 def test_render_figures_gives_pngs(results):

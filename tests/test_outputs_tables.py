@@ -13,7 +13,7 @@ from test_outputs_cases import make_curve
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.exposure.empirical import empirical
 from doseattr.core.exposure.histories import cumulative_exposure
-from doseattr.outputs import figures, report, tables
+from doseattr.outputs import figures, tables
 
 
 def as_csv(table) -> list[dict[str, str]]:
@@ -55,8 +55,12 @@ def test_workers_table_from_histories():
     assert float(rows[0]["duration_years"]) == pytest.approx(a_dur, rel=1e-12)
     assert float(rows[0]["mean_intensity"]) == pytest.approx(a_cum / a_dur, rel=1e-12)
     assert float(rows[1]["cumulative"]) == pytest.approx(365 / 365.25, rel=1e-12)
-    d = {"workers": None}
-    assert tables.find_workers(type("R", (), {"workers": w})(), d) is w
+    from doseattr.outputs.records import workers_source
+
+    records = [{k: v if k == "worker" else float(v) for k, v in r.items()} for r in rows]
+    assert as_csv(tables.workers_table(records)) == rows  # the results.json list form
+    assert workers_source(type("R", (), {"workers": w})(), {"workers": None}) is w
+    assert workers_source(object(), {"workers": records}) is records
 
 
 def test_burden_table_flattens_contract_records():
@@ -67,23 +71,18 @@ def test_burden_table_flattens_contract_records():
                                                    "upper": 12.0}, "paf": 0.1}}}
     rows = as_csv(tables.burden_table(d))
     assert [r["stratum"] for r in rows] == ["north", "total"]
-    assert rows[0]["attributable_lower"] == "8.0" and rows[1]["paf"] == "0.1"
+    assert rows[0]["attributable_lower"] == "8.0" and rows[1]["paf_estimate"] == "0.1"
+    # the PAF as a number with its interval beside it (paf_interval) reads the same
+    d2 = {"burden": {"strata": [{**d["burden"]["strata"][0], "paf": 0.1, "paf_interval": {
+        "estimate": 0.1, "lower": 0.08, "upper": 0.12, "mcse": None}}], "total": None}}
+    rows2 = as_csv(tables.burden_table(d2))
+    assert rows2[0]["paf_estimate"] == "0.1" and rows2[0]["paf_upper"] == "0.12"
+    assert "paf_interval_lower" not in rows2[0]
     outcomes = {"outcomes": [{"name": "asthma", "burden": d["burden"]},
                              {"name": "copd", "burden": d["burden"]}]}
     rows = as_csv(tables.burden_table(outcomes))
     assert [r["outcome"] for r in rows] == ["asthma", "asthma", "copd", "copd"]
     assert tables.burden_table({}) is None
-
-
-def test_comparison_section_formats_fractions():
-    d = {"model_comparison": [
-        {"model": "log-linear", "paf": {"estimate": 0.1234, "lower": 0.1, "upper": 0.15},
-         "q": 1.5},
-        {"model": "spline <rcs>", "paf": {"estimate": 0.2}, "q": 0.5}]}
-    html = report.comparison_section(d)
-    assert "12.3% (10.0% to 15.0%)" in html and "20.0%" in html
-    assert "spline &lt;rcs&gt;" in html and "1.5" in html
-    assert report.comparison_section({}) == ""
 
 
 def test_empirical_exposure_plots():

@@ -21,7 +21,7 @@ from doseattr.analysis.schema import key_location
 from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
 from doseattr.core.curves.base import Curve
-from doseattr.errors import DivergenceError, InputError, ModelError
+from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
 
 
 @contextmanager
@@ -59,6 +59,8 @@ def build_curve(analysis: Analysis, exposure=None) -> BuiltCurve:
         return fit_table_curve(analysis, exposure)
     if spec.source in ("points", "draws"):
         return _given(spec, analysis)
+    if spec.source == "shape":
+        return _shape(spec, analysis)
     return _entered(spec, analysis)
 
 
@@ -232,6 +234,49 @@ def _entered(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
     return BuiltCurve(curve, None, (), tuple(notes))
 
 
+def _shape(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
+    """A published shape with its coefficients and (diagonal, or after a
+    unit conversion delta-method) covariance: core
+    :func:`~doseattr.core.curves.published.entered_curve`."""
+    from doseattr.core.curves.published import entered_curve
+    from doseattr.core.curves.registry import make_model
+
+    if analysis.uncertainty is not None:
+        _check_shape_draws(spec, analysis)
+    flat = spec.beyond == "flat"
+    with as_input_error(analysis.source, key_location("curve", "model")):
+        model = make_model(spec.model, reference_dose=spec.reference_dose,
+                           **dict(spec.shape_settings))
+        curve = entered_curve(model, spec.shape_coef, cov=np.array(spec.shape_cov),
+                              max_dose=spec.max_dose if flat else None, data_max=spec.max_dose,
+                              notes=spec.notes)
+    notes = [f"published shape {spec.model}: {model.describe()} (doses in {analysis.unit})"]
+    return BuiltCurve(curve, None, (), tuple(notes))
+
+
+#: Lower bounds of the saturating exponential's coefficients, and how many
+#: standard errors the estimate must stay above them for normal draws.
+SHAPE_BOUNDS = {"alpha": -1.0, "gamma": 0.0, "delta": 0.0}
+SHAPE_MARGIN_SE = 5.0
+
+
+def _check_shape_draws(spec: CurveSpec, analysis: Analysis) -> None:
+    """The Monte Carlo draws of the coefficients are normal; refuse a
+    standard error so large that draws would leave the valid range (the
+    chance beyond 5 SE is 3e-7 per draw)."""
+    if spec.model != "saturating-exponential":
+        return
+    se = np.sqrt(np.diag(np.array(spec.shape_cov)))
+    for (name, low), b, s in zip(SHAPE_BOUNDS.items(), spec.shape_coef, se):
+        if b - SHAPE_MARGIN_SE * s <= low:
+            raise InputError(f"{name}_se is too large for normal Monte Carlo draws of {name}: "
+                             f"{name} - {SHAPE_MARGIN_SE:g} SE = {b - SHAPE_MARGIN_SE * s:.4g} "
+                             f"is not above {low:g}, where the curve is invalid (drop the "
+                             "[uncertainty] section or give a smaller standard error)",
+                             source=analysis.source,
+                             location=key_location("curve", f"{name}_se"))
+
+
 # -- exposure -------------------------------------------------------------------
 @dataclasses.dataclass(frozen=True, eq=False)
 class BuiltExposure:
@@ -241,6 +286,7 @@ class BuiltExposure:
     exposure: object
     workers: object = None
     notes: tuple[str, ...] = ()
+    fits: tuple = ()
 
 
 def build_exposure(analysis: Analysis) -> BuiltExposure:
@@ -252,7 +298,7 @@ def build_exposure(analysis: Analysis) -> BuiltExposure:
     spec = analysis.exposure
     src = analysis.source
     with as_input_error(src, key_location("exposure", "family")):
-        family = spec.family if spec.family == "best" else get_family(spec.family)
+        family = spec.family if spec.family in ("best", "empirical") else get_family(spec.family)
     if spec.source == "measurements":
         m = spec.measurements
         return _fit_values(spec, family, m.values, m.detected, m.weights, m.source, spec.unexposed)
@@ -280,6 +326,8 @@ def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: s
     from doseattr.core.exposure.fit import fit_best, fit_measurements
     from doseattr.core.exposure.unexposed import estimate_unexposed
 
+    if family == "empirical":
+        return _empirical(values, weights, source, unexposed, workers)
     notes = []
     zero = np.asarray(values) == 0
     if zero.any():
@@ -300,6 +348,50 @@ def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: s
     if unexposed:
         exposure = dataclasses.replace(exposure, unexposed=unexposed)
     return BuiltExposure(exposure, workers, tuple(notes))
+
+
+def _empirical(values, weights, source: str, unexposed: float, workers=None) -> BuiltExposure:
+    """The weighted values themselves (core
+    :func:`~doseattr.core.exposure.empirical.empirical`; zeros stay as
+    points at zero exposure), with the parametric families fitted to the
+    positive values beside it for comparison."""
+    from doseattr.core.exposure.empirical import empirical
+
+    with as_input_error(source, "column 'value'"):
+        exposure = empirical(values, weights, unexposed=unexposed, source="measurements")
+    notes = [f"family = \"empirical\": the PAF is the weighted mean of RR over the "
+             f"{values.size} values of {source}, with no fitted distribution"]
+    fits, why = _comparison_fits(values, weights)
+    return BuiltExposure(exposure, workers, tuple(notes + why), fits)
+
+
+def _comparison_fits(values, weights) -> tuple[tuple, list[str]]:
+    """Each parametric family fitted to the positive values (for the
+    comparison table beside the empirical PAF); a failure is a note."""
+    from doseattr.core.exposure.fit import fit_measurements
+
+    keep = np.asarray(values) > 0
+    w = None if weights is None else np.asarray(weights)[keep]
+    fits, why = [], []
+    for name in ("lognormal", "gamma", "weibull"):
+        try:
+            fits.append(fit_measurements(name, np.asarray(values)[keep], weights=w))
+        except DoseattrError as exc:
+            why.append(f"{name} not fitted for comparison: {exc}")
+    return tuple(fits), why
+
+
+def fit_substituted(analysis: Analysis, exposure, fraction: float):
+    """The main family refitted with every non-detect replaced by
+    ``fraction`` x its detection limit (comparison only; core
+    :func:`~doseattr.core.exposure.nondetects.substitute_nondetects`)."""
+    from doseattr.core.exposure.nondetects import substitute_nondetects
+
+    spec, m = analysis.exposure, analysis.exposure.measurements
+    values = substitute_nondetects(m.values, m.detected, fraction)
+    built = _fit_values(spec, exposure.family, values, np.ones(values.size, bool), m.weights,
+                        m.source, spec.unexposed)
+    return built.exposure
 
 
 def _histories(spec: ExposureSpec, family) -> BuiltExposure:

@@ -64,6 +64,10 @@ def read_burden(path: str | Path, source: str | None = None) -> BurdenTable:
                 raise cell_error(raw, row, "population", f"population must be above 0, got {pop:g}")
             population.append(pop)
         exposure.append(_stratum_exposure(raw, row, pairs))
+    if not any(cases):
+        raise InputError("every stratum has 0 cases; the overall PAF (total attributable over "
+                         "total cases) needs at least one case", source=raw.source,
+                         location="column 'cases'")
     return BurdenTable(raw.source, tuple(names), np.array(cases),
                        np.array(population) if population else None, tuple(exposure),
                        tuple(r.line for r in raw.rows))

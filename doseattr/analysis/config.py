@@ -45,6 +45,8 @@ from doseattr.analysis.specs import (DEFAULT_SEED, MAX_DRAWS, MIN_DRAWS, Analysi
                                      AttributionSpec, BurdenSpec, CurveSpec, ExposureSpec,
                                      OutcomeSpec, ScenarioSpec, UncertaintySpec)
 from doseattr.analysis.tables import read_burden
+from doseattr.analysis.units_section import (Conversion, Units, conversion, convert_burden,
+                                             convert_curve, convert_exposure, read_units)
 from doseattr.errors import InputError
 
 __all__ = ["Analysis", "AttributionSpec", "BurdenSpec", "CurveSpec", "ExposureSpec",
@@ -87,18 +89,18 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     if "unit" not in data:
         raise ctx.error('missing key \'unit\' at the top of the file (for example unit = "ug/m3")',
                         "", "unit")
-    outcomes = _outcomes(data.get("outcome", []), ctx)
-    for needed in ("curve", "exposure"):
-        if needed not in data and not (needed == "curve" and outcomes):
-            raise InputError(f"missing section [{needed}]", source=source)
-    curve = parse_curve(data["curve"], ctx) if "curve" in data else outcomes[0].curve
-    exposure = parse_exposure(data["exposure"], ctx)
-    if exposure.source == "histories":
-        require_cumulative_unit(data["unit"], ctx)
+    units = read_units(data, ctx)
+    if "exposure" not in data:
+        raise InputError("missing section [exposure]", source=source)
+    exposure, conv = _exposure(data["exposure"], ctx, units)
+    outcomes = _outcomes(data.get("outcome", []), ctx, units, conv)
+    if "curve" not in data and not outcomes:
+        raise InputError("missing section [curve]", source=source)
+    curve = _curve(data["curve"], ctx, units) if "curve" in data else outcomes[0].curve
     attribution = _attribution(data.get("attribution", {}), ctx)
     scenarios = _scenarios(data.get("scenario", []), ctx)
     uncertainty = _uncertainty(data["uncertainty"], ctx) if "uncertainty" in data else None
-    burden = _burden(data["burden"], ctx) if "burden" in data else None
+    burden = _burden(data["burden"], ctx, conv) if "burden" in data else None
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
     if (uncertainty is not None and uncertainty.poisson_cases and burden is None
@@ -108,7 +110,25 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     return Analysis(unit=data["unit"].strip(), curve=curve, exposure=exposure,
                     attribution=attribution, scenarios=scenarios, title=data.get("title"),
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
-                    base_dir=base_dir, settings=data)
+                    base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight)
+
+
+def _curve(c: dict[str, Any], ctx: Context, units: Units) -> CurveSpec:
+    """``[curve]`` checked, its doses converted to the file's unit."""
+    spec = parse_curve(c, ctx)
+    conv = conversion(units, c.get("unit"), "curve", ctx)
+    return convert_curve(spec, conv, c.get("unit"))
+
+
+def _exposure(e: dict[str, Any], ctx: Context, units: Units) -> tuple[ExposureSpec, Conversion]:
+    """``[exposure]`` checked, its values converted to the file's unit (for
+    work histories, the intensities to the concentration part of it)."""
+    spec = parse_exposure(e, ctx)
+    histories = spec.source == "histories"
+    if histories:
+        require_cumulative_unit(units.unit, ctx)
+    conv = conversion(units, e.get("unit"), "exposure", ctx, intensity=histories)
+    return convert_exposure(spec, conv, e.get("unit")), conv
 
 
 def _check_sections(data: dict[str, Any], ctx: Context) -> None:
@@ -208,15 +228,17 @@ def _uncertainty(u: dict[str, Any], ctx: Context) -> UncertaintySpec:
                            poisson_cases=bool(u.get("poisson_cases", False)))
 
 
-def _burden(b: dict[str, Any], ctx: Context) -> BurdenSpec:
+def _burden(b: dict[str, Any], ctx: Context, conv: Conversion) -> BurdenSpec:
+    """``[burden]``; per-stratum exposure columns are in the [exposure] unit."""
     if "table" not in b:
         raise ctx.error("missing key 'table' (a CSV with columns stratum and cases)", "burden",
                         "table")
     path = ctx.path(b["table"], "burden", "table")
-    return BurdenSpec(read_burden(path, path))
+    return BurdenSpec(convert_burden(read_burden(path, path), conv))
 
 
-def _outcomes(blocks: list[dict[str, Any]], ctx: Context) -> tuple[OutcomeSpec, ...]:
+def _outcomes(blocks: list[dict[str, Any]], ctx: Context, units: Units,
+              conv: Conversion) -> tuple[OutcomeSpec, ...]:
     """``[[outcome]]`` blocks, each with ``name``, ``[outcome.curve]`` (keys
     as in [curve]) and optionally ``[outcome.burden]`` (keys as in [burden])."""
     out, names = [], set()
@@ -232,11 +254,11 @@ def _outcomes(blocks: list[dict[str, Any]], ctx: Context) -> tuple[OutcomeSpec, 
                             "[curve])", "outcome", "curve", i)
         with outcome_location(i, name):
             schema.check_section(block["curve"], "curve", source=ctx.source)
-            curve = parse_curve(block["curve"], ctx)
+            curve = _curve(block["curve"], ctx, units)
             burden = None
             if "burden" in block:
                 schema.check_section(block["burden"], "burden", source=ctx.source)
-                burden = _burden(block["burden"], ctx)
+                burden = _burden(block["burden"], ctx, conv)
         out.append(OutcomeSpec(name, curve, burden))
     return tuple(out)
 

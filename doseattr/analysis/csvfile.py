@@ -150,6 +150,7 @@ def check_band_order(raw: RawTable, lower: FloatArray, upper: FloatArray) -> Non
                         f"{lower[i]:g}, the band before it (row {prev.line}) at {lower[i - 1]:g}; "
                         "list the bands from lowest to highest")
         if lower[i] < upper[i - 1]:
-            raise cell_error(raw, row, "lower", f"band [{lower[i]:g}, {upper[i]:g}] overlaps the band "
+            raise cell_error(raw, row, "lower",
+                             f"band [{lower[i]:g}, {upper[i]:g}] overlaps the band "
                         f"before it (row {prev.line}, [{lower[i - 1]:g}, {upper[i - 1]:g}]); "
                         "each band must start where the one before it ends or later")

@@ -13,16 +13,27 @@ from doseattr.analysis.tables import (StudyTable, design_from_counts, read_draws
 from doseattr.errors import InputError
 
 
+#: Published shapes: (coefficients with optional ``<name>_se``, required
+#: fixed settings); ``threshold`` is optional for both.
+SHAPE_KEYS = {"saturating-exponential": (("alpha", "gamma", "delta"), ()),
+              "log-logistic-weighted": (("theta",), ("scale", "midpoint", "spread"))}
+
+
 def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
     entered = only_one(c, ("rr", "err", "exponent"), ctx, "curve")
     given = [k for k in ("table", "points", "draws") if k in c] + ([entered] if entered else [])
     if len(given) > 1:
         raise ctx.error(f"give one source for the curve (table, points, draws or a published "
                         f"estimate); found {' and '.join(given)}", "curve", given[1])
+    _check_shape_keys(c, given, ctx)
+    if c.get("model") in SHAPE_KEYS:
+        return _shape_curve(c, ctx)
     if not given:
         raise InputError("[curve] needs table = \"FILE.csv\" (the study's bands), points or "
-                         "draws (a curve given as a CSV), or a published estimate: model with "
-                         "rr (log-linear), err (linear) or exponent (power)", source=ctx.source,
+                         "draws (a curve given as a CSV), a published estimate: model with "
+                         "rr (log-linear), err (linear) or exponent (power), or a published "
+                         "shape (model = \"saturating-exponential\" or "
+                         "\"log-logistic-weighted\" with its parameters)", source=ctx.source,
                          location="[curve]")
     for key in ("knots", "knot_count"):
         if key in c and (c.get("model") != "spline" or "table" not in c):
@@ -190,3 +201,89 @@ def _model_settings(c: dict[str, Any], model: str, ctx: Context) -> None:
                         f"{', '.join(FITTED_MODELS)}", "curve", "model")
     if "offset" in c and model != "power":
         raise ctx.error(f"offset belongs to the power model, not {model}", "curve", "offset")
+
+
+# -- published shapes -------------------------------------------------------------
+def _shape_names(model: str) -> tuple[str, ...]:
+    coef, settings = SHAPE_KEYS[model]
+    return coef + tuple(f"{k}_se" for k in coef) + settings + ("threshold",)
+
+
+def _check_shape_keys(c: dict[str, Any], given: list[str], ctx: Context) -> None:
+    """Shape keys only with their model; a shape model only on its own."""
+    model = c.get("model")
+    if model in SHAPE_KEYS and given:
+        coef = ", ".join(SHAPE_KEYS[model][0])
+        raise ctx.error(f"model = \"{model}\" is entered with its parameters ({coef}), not "
+                        f"with '{given[0]}'", "curve", given[0])
+    own = _shape_names(model) if model in SHAPE_KEYS else ()
+    for name in SHAPE_KEYS:
+        for key in _shape_names(name):
+            if key in c and key not in own:
+                raise ctx.error(f"'{key}' goes with model = \"{name}\"", "curve", key)
+
+
+def _shape_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
+    """A published shape entered with its parameters (Burnett et al. 2014,
+    Environ Health Perspect 122:397; Burnett et al. 2018, PNAS 115:9592;
+    forms in :mod:`doseattr.core.curves.shapes`)."""
+    model = c["model"]
+    coef_names, setting_names = SHAPE_KEYS[model]
+    for key in ("per", "ci", "design", "dose", "covariance", "offset"):
+        if key in c:
+            raise ctx.error(f"'{key}' does not apply to model = \"{model}\"", "curve", key)
+    for key in coef_names + setting_names:
+        if key not in c:
+            need = ", ".join(coef_names + setting_names)
+            raise ctx.error(f"missing key '{key}' (model = \"{model}\" needs {need})", "curve",
+                            key)
+    values = {k: float(c[k]) for k in coef_names + setting_names}
+    _check_shape_values(values, ctx)
+    se = {k: float(c.get(f"{k}_se", 0.0)) for k in coef_names}
+    for k, v in se.items():
+        if v < 0:
+            raise ctx.error(f"a standard error must be 0 or more, got {v:g}", "curve", f"{k}_se")
+    threshold = nonnegative(c, "threshold", ctx)
+    max_dose = nonnegative(c, "max_dose", ctx)
+    beyond = _shape_beyond(c, max_dose, ctx)
+    reference = nonnegative(c, "reference_dose", ctx)
+    settings = {"threshold": threshold or 0.0, **{k: values[k] for k in setting_names}}
+    return CurveSpec(source="shape", model=model, beyond=beyond, max_dose=max_dose,
+                     reference_dose=reference or 0.0,
+                     shape_coef=tuple(values[k] for k in coef_names),
+                     shape_cov=tuple(tuple(se[a] ** 2 if a == b else 0.0 for b in coef_names)
+                                     for a in coef_names),
+                     shape_settings=settings, notes=_shape_notes(c, se, threshold))
+
+
+def _check_shape_values(values: dict[str, float], ctx: Context) -> None:
+    rules = {"alpha": (-1.0, "alpha must be above -1 (1 + alpha is the RR at saturation and "
+                             "must stay above 0)"),
+             "gamma": (0.0, "gamma must be above 0"), "delta": (0.0, "delta must be above 0"),
+             "scale": (0.0, "scale must be above 0 (a dose)"),
+             "spread": (0.0, "spread must be above 0 (a dose)")}
+    for key, (low, message) in rules.items():
+        if key in values and values[key] <= low:
+            raise ctx.error(f"{message}, got {values[key]:g}", "curve", key)
+
+
+def _shape_beyond(c: dict[str, Any], max_dose: float | None, ctx: Context) -> str:
+    beyond = c.get("beyond", "flat" if max_dose is not None else "extend")
+    if beyond == "flat" and max_dose is None:
+        raise ctx.error("beyond = \"flat\" needs max_dose (the dose above which the RR is held "
+                        "flat)", "curve", "beyond")
+    return beyond
+
+
+def _shape_notes(c: dict[str, Any], se: dict[str, float],
+                 threshold: float | None) -> tuple[str, ...]:
+    notes = []
+    if threshold is None:
+        notes.append("[curve] threshold not given: 0, so RR rises from zero exposure")
+    fixed = [k for k, v in se.items() if v == 0]
+    if len(fixed) == len(se):
+        notes.append("no standard errors given: the curve carries no uncertainty")
+    elif fixed:
+        notes.append(f"{', '.join(fixed)} held fixed (no standard error given); the other "
+                     "parameters vary independently in the Monte Carlo draws")
+    return tuple(notes)

@@ -49,14 +49,14 @@ def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
         if key in e and mode != "table":
             raise ctx.error(f"'{key}' names a column of the measurement table (table = ...)",
                             "exposure", key)
-    if family == "empirical":
-        raise ctx.error("family = \"empirical\" is not supported yet as the main exposure in "
-                        "this version (the empirical PAF is reported beside the fitted one for "
-                        "measurement tables); use lognormal, gamma, weibull or best",
-                        "exposure", "family")
-    if family == "best" and mode not in ("table", "histories"):
-        raise ctx.error("family = \"best\" chooses among fits to measurements; it needs "
-                        "table = \"FILE.csv\" or histories", "exposure", "family")
+    if family in ("best", "empirical") and mode not in ("table", "histories"):
+        what = ("chooses among fits to measurements" if family == "best"
+                else "uses the measured values themselves")
+        raise ctx.error(f"family = \"{family}\" {what}; it needs table = \"FILE.csv\" or "
+                        "histories", "exposure", "family")
+    if "substitution" in e and mode != "table":
+        raise ctx.error("substitution replaces values below a detection limit in a measurement "
+                        "table (table = \"FILE.csv\")", "exposure", "substitution")
     if mode == "table":
         return _measured_exposure(e, family, unexposed, ctx)
     if mode in ("percentiles", "bins", "histories"):
@@ -85,8 +85,40 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
         raise ctx.error(f"{path} has {data.zeros} values of 0, which give the unexposed share "
                         "from the data; remove either the zeros or this key", "exposure",
                         "unexposed")
+    censored = int((~data.detected).sum())
+    if family == "empirical" and censored:
+        raise InputError(f"family = \"empirical\" uses the values as measured and cannot use "
+                         f"the {censored} values below a detection limit ('<' values or "
+                         "detected = false; it substitutes nothing); fit lognormal, gamma, "
+                         "weibull or best, which treat them as censored", source=path,
+                         location="column 'value'")
+    fractions = _substitution(e, censored, path, ctx)
     return ExposureSpec(source="measurements", family=family, unexposed=unexposed,
-                        measurements=data, notes=tuple(notes) + data.notes)
+                        measurements=data, substitution=fractions,
+                        notes=tuple(notes) + data.notes)
+
+
+def _substitution(e: dict[str, Any], censored: int, path: str,
+                  ctx: Context) -> tuple[float, ...]:
+    """Fractions of the detection limit for the substitution comparison
+    (e.g. 0.5 for LOD/2); each in (0, 1], each once."""
+    if "substitution" not in e:
+        return ()
+    fractions = tuple(float(v) for v in e["substitution"])
+    for f in fractions:
+        if not 0 < f <= 1:
+            raise ctx.error(f"each fraction of the detection limit must be above 0 and at most "
+                            f"1 (0.5 for LOD/2, 0.7071 for LOD/sqrt(2)), got {f:g}", "exposure",
+                            "substitution")
+    if len(set(fractions)) < len(fractions):
+        raise ctx.error("a fraction is listed twice", "exposure", "substitution")
+    if e.get("family") == "empirical":
+        raise ctx.error("substitution refits the family to substituted values; it does not go "
+                        "with family = \"empirical\"", "exposure", "substitution")
+    if not censored:
+        raise ctx.error(f"{path} has no values below a detection limit, so there is nothing to "
+                        "substitute; remove this key", "exposure", "substitution")
+    return fractions
 
 
 def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed: float,

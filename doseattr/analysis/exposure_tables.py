@@ -52,7 +52,8 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
     for row in raw.rows:
         lo = number(raw, row, "lower")
         if lo < 0:
-            raise cell_error(raw, row, "lower", f"negative exposure {lo:g}; limits must be 0 or more")
+            raise cell_error(raw, row, "lower",
+                             f"negative exposure {lo:g}; limits must be 0 or more")
         up = number(raw, row, "upper", required=False)
         up = math.inf if up is None else up
         if up <= lo:

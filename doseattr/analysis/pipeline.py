@@ -16,20 +16,22 @@ Nothing is written here: the caller decides what to do with the results.
 from __future__ import annotations
 
 import dataclasses
-import math
-import sys
-from contextlib import contextmanager
-from typing import Callable, Iterator
 
 import numpy as np
 
 from doseattr.analysis.build import (BuiltCurve, as_input_error, build_curve, build_exposure,
-                                     build_scenarios, fit_table_curve)
+                                     build_scenarios)
+from doseattr.analysis.burden_run import burden_strata, run_burden
+from doseattr.analysis.comparisons import (curve_variants, exposure_variants,
+                                           substitution_results)
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.results import (BurdenResult, CurveVariant, Estimate, ExposureVariant,
-                                       Results, ScenarioResult, StratumResult)
+from doseattr.analysis.intervals import (finite, population_intervals, source_width,
+                                         uncertainty_notes, width_by_source)
+from doseattr.analysis.results import (BurdenResult, Estimate, Results, ScenarioResult,
+                                       SourceWidth)
 from doseattr.analysis.schema import key_location
-from doseattr.errors import DivergenceError, DoseattrError, InputError
+from doseattr.core.uncertainty.propagate import Stratum
+from doseattr.errors import DivergenceError, InputError
 
 #: A population share above the data range larger than this gets a warning
 #: (smaller shares are stated in the notes).
@@ -70,10 +72,6 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
         When the inputs give no valid curve or exposure, or an expectation
         that diverges (with the setting to change).
     """
-    from doseattr.core.attribution.categorical import categorical_comparison
-    from doseattr.core.attribution.contribution import burden_density
-    from doseattr.core.attribution.fractions import paf, pif
-
     if analysis.outcomes:
         return _with_outcomes(analysis, progress)
     built_exposure = build_exposure(analysis)
@@ -81,53 +79,107 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
     built = build_curve(analysis, exposure)
     curve = built.curve
     scenarios = build_scenarios(analysis)
-    m = analysis.attribution.minimum_risk
     warnings = list(built.warnings)
     notes = list(analysis.notes) + list(built_exposure.notes) + list(built.notes)
     _check_minimum_risk(analysis, built, warnings)
-    if exposure.fit is not None:
-        warnings.extend(exposure.fit.warnings)
+    warnings.extend(exposure.fit.warnings if exposure.fit is not None else ())
     notes.extend(exposure.notes)
-
     with _divergence(analysis):
-        paf_value = _finite(paf(curve, exposure, m), "PAF")
-        scenario_results = tuple(
-            ScenarioResult(spec.name, spec.kind, spec.value,
-                           Estimate(_finite(pif(curve, exposure, sc, m), f"PIF of {spec.name}")),
-                           sc.describe(analysis.unit))
-            for spec, sc in scenarios)
-        cuts, reported, cut_notes = _cutpoints(analysis, built, exposure)
-        categorical = categorical_comparison(curve, exposure, minimum_risk=m, cutpoints=cuts,
-                                             reported_rr=reported)
-        contribution = burden_density(curve, exposure, m)
-    notes.extend(cut_notes)
+        point = _point_results(analysis, built, exposure, scenarios)
+    notes.extend(point.notes)
     warnings.extend(_extrapolation(analysis, curve, exposure, notes))
-    comparison, sensitivity = _variants(analysis, exposure, built, paf_value)
-    exposure_variants = _exposure_variants(analysis, curve, exposure, built_exposure, paf_value)
-    propagation = None
-    if analysis.uncertainty is not None:
-        with _divergence(analysis):
-            propagation, paf_estimate, scenario_results = _intervals(
-                analysis, curve, exposure, scenarios, paf_value, scenario_results, progress)
-        notes.extend(_uncertainty_notes(analysis, curve, exposure))
-    else:
-        paf_estimate = Estimate(paf_value)
-    burden = None
-    if analysis.burden is not None:
-        with _divergence(analysis):
-            burden = _burden(analysis, curve, exposure, scenarios, progress)
-    if analysis.attribution.minimum_risk_range is not None:
-        lo, hi = analysis.attribution.minimum_risk_range
-        notes.append(f"minimum_risk given as the range {lo:g} to {hi:g} {analysis.unit}: the "
-                     f"point estimates use its middle, {m:g} {analysis.unit}")
-    return Results(analysis=analysis, curve=curve, exposure=exposure, minimum_risk=m,
-                   paf=paf_estimate, scenarios=scenario_results,
-                   categorical=categorical, contribution=contribution,
-                   warnings=tuple(_unique(warnings)), cautions=CAUTIONS,
-                   band_table=built.bands, notes=tuple(_unique(notes)),
-                   propagation=propagation, model_comparison=comparison,
+    comparison, sensitivity = curve_variants(analysis, exposure, built, point.paf)
+    with _divergence(analysis):
+        mc = _monte_carlo(analysis, curve, exposure, scenarios, point, progress)
+    notes.extend(mc.notes + _range_note(analysis))
+    return Results(analysis=analysis, curve=curve, exposure=exposure,
+                   minimum_risk=analysis.attribution.minimum_risk, paf=mc.paf,
+                   scenarios=mc.scenarios, categorical=point.categorical,
+                   contribution=point.contribution, warnings=tuple(_unique(warnings)),
+                   cautions=CAUTIONS, band_table=built.bands, notes=tuple(_unique(notes)),
+                   propagation=mc.propagation, model_comparison=comparison,
                    dose_sensitivity=sensitivity, workers=built_exposure.workers,
-                   exposure_comparison=exposure_variants, burden=burden)
+                   exposure_comparison=exposure_variants(analysis, curve, exposure,
+                                                         built_exposure, point.paf),
+                   burden=mc.burden, substitution=substitution_results(
+                       analysis, curve, exposure, point.paf),
+                   width_by_source=mc.widths, width_all=mc.width_all,
+                   parametric_fits=built_exposure.fits)
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class _Point:
+    """Results at the point estimates of every input."""
+
+    paf: float
+    scenarios: tuple[ScenarioResult, ...]
+    categorical: object
+    contribution: object
+    notes: tuple[str, ...] = ()
+
+
+def _point_results(analysis: Analysis, built: BuiltCurve, exposure, scenarios) -> _Point:
+    """PAF, each scenario's PIF, the categorical comparison and the burden
+    density, at the point estimates."""
+    from doseattr.core.attribution.categorical import categorical_comparison
+    from doseattr.core.attribution.contribution import burden_density
+    from doseattr.core.attribution.fractions import paf, pif
+
+    curve, m = built.curve, analysis.attribution.minimum_risk
+    paf_value = finite(paf(curve, exposure, m), "PAF")
+    scenario_results = tuple(
+        ScenarioResult(spec.name, spec.kind, spec.value,
+                       Estimate(finite(pif(curve, exposure, sc, m), f"PIF of {spec.name}")),
+                       sc.describe(analysis.unit))
+        for spec, sc in scenarios)
+    cuts, reported, cut_notes = _cutpoints(analysis, built, exposure)
+    categorical = categorical_comparison(curve, exposure, minimum_risk=m,
+                                         cutpoints=cuts, reported_rr=reported)
+    return _Point(paf_value, scenario_results, categorical, burden_density(curve, exposure, m),
+                  tuple(cut_notes))
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class _MonteCarlo:
+    """Intervals (when [uncertainty] is given) and the burden."""
+
+    paf: Estimate
+    scenarios: tuple[ScenarioResult, ...]
+    propagation: object = None
+    burden: BurdenResult | None = None
+    widths: tuple[SourceWidth, ...] = ()
+    width_all: SourceWidth | None = None
+    notes: list[str] = dataclasses.field(default_factory=list)
+
+
+def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
+                 progress: bool) -> _MonteCarlo:
+    """PAF and PIF intervals, attributable cases, and which input drives
+    the width of the overall PAF's interval."""
+    strata = None if analysis.burden is None else burden_strata(analysis, exposure)
+    burden, burden_draws = (None, None) if strata is None else run_burden(
+        analysis, curve, strata, scenarios, progress)
+    if analysis.uncertainty is None:
+        return _MonteCarlo(Estimate(point.paf), point.scenarios, burden=burden)
+    prop, paf, scenario_results = population_intervals(
+        analysis, curve, exposure, scenarios, point.paf, point.scenarios, progress)
+    if strata is None:
+        strata, overall, draws = [Stratum("population", 1.0, exposure)], point.paf, prop
+    else:
+        overall, draws = burden.total.paf.estimate, burden_draws
+    widths = width_by_source(analysis, curve, strata, overall, progress)
+    return _MonteCarlo(paf, scenario_results, prop, burden, widths,
+                       source_width(analysis, "all", overall, draws),
+                       uncertainty_notes(analysis, curve, exposure))
+
+
+def _range_note(analysis: Analysis) -> list[str]:
+    if analysis.attribution.minimum_risk_range is None:
+        return []
+    lo, hi = analysis.attribution.minimum_risk_range
+    m, unit = analysis.attribution.minimum_risk, analysis.unit
+    return [f"minimum_risk given as the range {lo:g} to {hi:g} {unit}: the point estimates use "
+            f"its middle, {m:g} {unit}"]
 
 
 class _divergence:
@@ -147,16 +199,10 @@ class _divergence:
         how = ("beyond = \"flat\"" if a.curve.source == "table"
                else "max_dose with beyond = \"flat\"")
         raise InputError(
-            f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} (in the analysis file: {how} "
+            f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
+            f"(in the analysis file: {how} "
             "holds the curve flat above the data)", source=a.source,
             location=key_location("curve", "beyond")) from None
-
-
-def _finite(value: float, what: str) -> float:
-    if not math.isfinite(value):
-        raise DoseattrError(f"internal error: the {what} came out as {value}; please report "
-                            "this with the analysis file")
-    return float(value)
 
 
 def _check_minimum_risk(analysis: Analysis, built: BuiltCurve, warnings: list[str]) -> None:
@@ -194,10 +240,11 @@ def _cutpoints(analysis: Analysis, built: BuiltCurve, exposure):
                          f"{table.lower[0]:g} {analysis.unit}; it is taken down to 0 so that "
                          "the bands cover everyone")
     else:
-        q = np.array([0.25, 0.5, 0.75])
-        cuts = np.asarray(exposure.family.ppf(q, exposure.params), dtype=float).reshape(-1)
+        cuts = _quartiles(exposure)
+        what = ("weighted values" if exposure.family.name == "empirical"
+                else "fitted distribution")
         notes.append("categorical comparison: no study bands and no cutpoints given, so the "
-                     "quartiles of the exposed population's fitted distribution were used "
+                     f"quartiles of the exposed population's {what} were used "
                      "(set [attribution] cutpoints to choose them)")
     reported = None
     if study is not None and cuts.shape == study.shape and np.allclose(cuts, study):
@@ -210,6 +257,21 @@ def _cutpoints(analysis: Analysis, built: BuiltCurve, exposure):
         notes.append("categorical comparison: the cutpoints are not the study's bands, so the "
                      "study's reported RRs are not compared")
     return cuts, reported, notes
+
+
+def _quartiles(exposure) -> np.ndarray:
+    """Quartiles of the exposed population: the fitted family's, or for
+    weighted values the smallest positive value whose weighted CDF reaches
+    each quartile (repeated values give fewer cutpoints)."""
+    q = np.array([0.25, 0.5, 0.75])
+    if exposure.family.name != "empirical":
+        return np.asarray(exposure.family.ppf(q, exposure.params), dtype=float).reshape(-1)
+    keep = exposure.values > 0
+    order = np.argsort(exposure.values[keep], kind="stable")
+    x = exposure.values[keep][order]
+    cum = np.cumsum(exposure.weights[keep][order])
+    idx = np.minimum(np.searchsorted(cum / cum[-1], q), x.size - 1)
+    return np.unique(x[idx])
 
 
 def _reference_holds_minimum(analysis: Analysis, built: BuiltCurve) -> bool:
@@ -250,250 +312,6 @@ def _unique(items: list[str]) -> list[str]:
             seen.add(s)
             out.append(s)
     return out
-
-
-#: Inputs whose uncertainty is propagated (the core's names).
-SOURCES = ("curve", "exposure", "minimum_risk")
-
-
-def _intervals(analysis: Analysis, curve, exposure, scenarios, paf_value: float,
-               scenario_results: tuple[ScenarioResult, ...], progress: bool):
-    """Monte Carlo intervals for the PAF and every PIF (core
-    :func:`~doseattr.core.uncertainty.propagate.propagate`, one stratum)."""
-    from doseattr.core.uncertainty.propagate import Stratum, propagate
-    from doseattr.core.uncertainty.summary import summarise
-
-    u = analysis.uncertainty
-    m = analysis.attribution.minimum_risk
-    low, high = analysis.attribution.minimum_risk_range or (m, m)
-    rng = np.random.default_rng(u.seed)
-    total = u.draws * (1 + len(scenarios))
-    with _progress_bar(total, progress) as tick:
-        prop = propagate(curve, [Stratum("population", 1.0, exposure)],
-                         [sc for _, sc in scenarios], draws=u.draws, rng=rng,
-                         minimum_risk=(low, high), sources=SOURCES, progress=tick)
-    paf = _estimate(summarise(paf_value, _checked(prop.paf[0], "PAF")))
-    results = tuple(
-        dataclasses.replace(r, pif=_estimate(summarise(
-            r.pif.estimate, _checked(prop.pif[r.name][0], f"PIF of {r.name}"))))
-        for r in scenario_results)
-    return prop, paf, results
-
-
-def _estimate(interval) -> Estimate:
-    return Estimate(interval.estimate, interval.lower, interval.upper, interval.mcse)
-
-
-def _checked(draws: np.ndarray, what: str) -> np.ndarray:
-    if not np.all(np.isfinite(draws)):
-        raise DoseattrError(f"internal error: some Monte Carlo draws of the {what} are not "
-                            "finite; please report this with the analysis file")
-    return draws
-
-
-@contextmanager
-def _progress_bar(total: int, enabled: bool) -> Iterator[Callable[[int], None] | None]:
-    """A tqdm bar on standard error, shown only on a terminal and only
-    after a second (tqdm's ``disable=None`` and ``delay``)."""
-    if not enabled:
-        yield None
-        return
-    from tqdm import tqdm
-
-    with tqdm(total=total, unit="draw", disable=None, delay=1.0, leave=False,
-              file=sys.stderr, desc="uncertainty") as bar:
-        yield bar.update
-
-
-def _uncertainty_notes(analysis: Analysis, curve, exposure) -> list[str]:
-    u = analysis.uncertainty
-    seed = f"seed {u.seed}" + ("" if u.seed_given else " (the default; set [uncertainty] seed "
-                                                      "to choose another)")
-    varied = []
-    if curve.draws is not None:
-        varied.append("the curve's own draws")
-    elif np.any(curve.cov):
-        varied.append("curve coefficients from their fitted normal distribution")
-    if exposure.fit is not None and getattr(exposure.fit, "cov_internal", None) is not None:
-        varied.append("exposure parameters from the asymptotic normal of the fit (log scale)")
-    if analysis.attribution.minimum_risk_range is not None:
-        varied.append("the minimum-risk level, uniform over its range")
-    what = "; ".join(varied) if varied else "nothing (every input was entered without error)"
-    return [f"uncertainty: {u.draws} Monte Carlo draws, {seed}; 2.5th and 97.5th percentiles. "
-            f"Varied: {what}"]
-
-
-DOSE_RULES = ("midpoint", "band-mean", "band-median")
-
-
-def _variants(analysis: Analysis, exposure, built: BuiltCurve, paf_value: float):
-    """PAF under each model of ``compare_models`` and under each dose rule
-    (curves fitted to a study table only). A variant that cannot be
-    computed is kept with the reason, so the main result still stands."""
-    spec = analysis.curve
-    if spec.source != "table":
-        return (), ()
-    main_doses = built.bands.dose
-    models = [spec.model] + [m for m in spec.compare_models if m != spec.model]
-    comparison = ()
-    if spec.compare_models:
-        comparison = tuple(
-            CurveVariant(spec.model, built.curve, paf_value, main_doses) if name == spec.model
-            else _variant(analysis, exposure, name, model=name) for name in models)
-    rules = (("given",) if spec.table.has_dose else ()) + DOSE_RULES
-    sensitivity = tuple(
-        CurveVariant(rule, built.curve, paf_value, main_doses) if rule == spec.dose_rule
-        else _variant(analysis, exposure, rule, dose_rule=rule) for rule in rules)
-    return comparison, sensitivity
-
-
-def _variant(analysis: Analysis, exposure, label: str, **override) -> CurveVariant:
-    from doseattr.core.attribution.fractions import paf
-
-    try:
-        other = fit_table_curve(analysis, exposure, **override)
-        value = _finite(paf(other.curve, exposure, analysis.attribution.minimum_risk), "PAF")
-    except DoseattrError as exc:
-        text = exc.line() if isinstance(exc, InputError) else str(exc)
-        return CurveVariant(label, None, None, None, text)
-    return CurveVariant(label, other.curve, value, other.bands.dose)
-
-
-def _exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
-                       paf_value: float) -> tuple[ExposureVariant, ...]:
-    """PAF under each fitted family and under the empirical distribution of
-    the data (weighted mean of RR over the values: core
-    :func:`~doseattr.core.exposure.empirical.empirical`)."""
-    from doseattr.core.attribution.fractions import paf
-    from doseattr.core.exposure.base import Exposure
-    from doseattr.core.exposure.empirical import empirical
-
-    spec = analysis.exposure
-    if spec.source not in ("measurements", "histories"):
-        return ()
-    m = analysis.attribution.minimum_risk
-    fit = exposure.fit
-    out = [ExposureVariant(exposure.family.name, exposure.parameters,
-                           None if fit is None else fit.aic, paf_value)]
-    for fam, params, alt in exposure.alternatives:
-        other = Exposure(fam, np.asarray(params, dtype=float), exposure.unexposed)
-        out.append(_exposure_variant(fam.name, other.parameters, getattr(alt, "aic", None),
-                                     lambda: paf(curve, other, m)))
-    if spec.source == "histories":
-        values, weights, detected = built_exposure.workers.cumulative, None, None
-        unexposed = 0.0
-    else:
-        data = spec.measurements
-        values, weights, detected = data.values, data.weights, data.detected
-        unexposed = spec.unexposed
-    if detected is not None and not detected.all():
-        out.append(ExposureVariant("empirical", {}, None, None,
-                                   "not computed: the data have values below a detection "
-                                   "limit, and the empirical path substitutes nothing"))
-    else:
-        out.append(_exposure_variant(
-            "empirical", {}, None,
-            lambda: paf(curve, empirical(values, weights, unexposed=unexposed), m)))
-    return tuple(out)
-
-
-def _exposure_variant(label: str, params: dict, aic, compute) -> ExposureVariant:
-    try:
-        return ExposureVariant(label, params, aic, _finite(compute(), "PAF"))
-    except DoseattrError as exc:
-        return ExposureVariant(label, params, aic, None, str(exc))
-
-
-def _burden(analysis: Analysis, curve, exposure, scenarios, progress: bool) -> BurdenResult:
-    """Attributable cases per stratum and in total: PAF x observed cases
-    (core :func:`~doseattr.core.uncertainty.propagate.point_values`, and
-    :func:`~doseattr.core.uncertainty.propagate.propagate` for intervals)."""
-    from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate
-
-    table = analysis.burden.table
-    strata = [Stratum(name, float(n), _stratum_exposure(analysis, exposure, override, line))
-              for name, n, override, line in zip(table.strata, table.cases, table.exposure,
-                                                  table.lines)]
-    transforms = [sc for _, sc in scenarios]
-    m = analysis.attribution.minimum_risk
-    point = point_values(curve, strata, transforms, m)
-    draws = None
-    u = analysis.uncertainty
-    if u is not None:
-        low, high = analysis.attribution.minimum_risk_range or (m, m)
-        sources = SOURCES + (("cases",) if u.poisson_cases else ())
-        total = u.draws * len({id(s.exposure) for s in strata}) * (1 + len(transforms))
-        with _progress_bar(total, progress) as tick:
-            draws = propagate(curve, strata, transforms, draws=u.draws,
-                              rng=np.random.default_rng([u.seed, 1]), minimum_risk=(low, high),
-                              sources=sources, progress=tick)
-    names = [sc.name for sc in transforms]
-
-    def est(value_point, value_draws) -> Estimate:
-        if value_draws is None:
-            return Estimate(float(np.ravel(value_point)[0]))
-        from doseattr.core.uncertainty.summary import summarise
-
-        i = summarise(float(np.ravel(value_point)[0]), _checked(value_draws, "burden"))
-        return Estimate(i.estimate, i.lower, i.upper, i.mcse)
-
-    def pick(prop, attr, s=None, name=None):
-        if prop is None:
-            return None
-        if s is None:  # totals
-            if attr == "paf":
-                return prop.total_paf
-            if attr == "attributable":
-                return prop.total_attributable
-            return prop.total_pif(name) if attr == "pif" else prop.total_averted(name)
-        value = getattr(prop, attr)
-        return (value[name] if name is not None else value)[s]
-
-    rows = []
-    pop = table.population
-    for s, name in enumerate(table.strata):
-        rows.append(StratumResult(
-            name, float(table.cases[s]), est(pick(point, "paf", s), pick(draws, "paf", s)),
-            est(pick(point, "attributable", s), pick(draws, "attributable", s)),
-            tuple((n, est(pick(point, "pif", s, n), pick(draws, "pif", s, n)),
-                   est(pick(point, "averted", s, n), pick(draws, "averted", s, n)))
-                  for n in names),
-            None if pop is None else float(pop[s])))
-    total = StratumResult(
-        "total", float(table.cases.sum()), est(pick(point, "paf"), pick(draws, "paf")),
-        est(pick(point, "attributable"), pick(draws, "attributable")),
-        tuple((n, est(pick(point, "pif", name=n), pick(draws, "pif", name=n)),
-               est(pick(point, "averted", name=n), pick(draws, "averted", name=n)))
-              for n in names),
-        None if pop is None else float(pop.sum()))
-    return BurdenResult(tuple(rows), total)
-
-
-def _stratum_exposure(analysis: Analysis, shared, override: dict | None, line: int):
-    """The shared exposure, or the stratum's own from its exposure columns
-    (same family; the [exposure] unexposed share applies)."""
-    if override is None:
-        return shared
-    from doseattr.core.exposure import summary
-
-    source = analysis.burden.table.source
-    family = shared.family.name
-    keys = tuple(override)
-    location = f"row {line}, column '{keys[1]}'"
-    with as_input_error(source, location):
-        if keys == ("gm", "gsd"):
-            ex = summary.from_gm_gsd(override["gm"], override["gsd"])
-        elif keys == ("mean", "sd"):
-            ex = summary.from_mean_sd(family if family != "empirical" else "lognormal",
-                                      override["mean"], override["sd"])
-        else:
-            if family not in ("gamma", "weibull"):
-                raise InputError(f"shape and scale describe a gamma or Weibull distribution, "
-                                 f"but the shared exposure is {family}", source=source,
-                                 location=location)
-            ex = summary.from_parameters(family, override)
-    unexposed = analysis.exposure.unexposed
-    return dataclasses.replace(ex, unexposed=unexposed) if unexposed else ex
 
 
 def _with_outcomes(analysis: Analysis, progress: bool) -> Results:

@@ -140,6 +140,51 @@ class ExposureVariant:
 
 
 @dataclass(frozen=True)
+class SubstitutionResult:
+    """The main family refitted with each non-detect replaced by
+    ``fraction`` x its detection limit, for comparison only: its
+    parameters, the PAF it gives and ``difference`` = that PAF minus the
+    main (censored-likelihood) PAF. ``problem`` says why a fit failed."""
+
+    fraction: float
+    parameters: dict
+    paf: float | None
+    difference: float | None
+    problem: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"fraction": _num(self.fraction), "parameters": _params(self.parameters),
+                "paf": _num(self.paf), "difference": _num(self.difference),
+                "problem": self.problem}
+
+
+@dataclass(frozen=True)
+class SourceWidth:
+    """The 95% interval of the overall PAF when only ``source`` varies
+    (``"all"`` for every source together); with ``[burden]`` also the
+    interval of the total attributable cases, ``attributable = (lower,
+    upper)`` (Poisson variation of the cases moves these, and the overall
+    PAF only when the strata's PAFs differ)."""
+
+    source: str
+    lower: float
+    upper: float
+    attributable: tuple[float, float] | None = None
+
+    @property
+    def width(self) -> float:
+        return self.upper - self.lower
+
+    def to_dict(self) -> dict[str, Any]:
+        cases = None
+        if self.attributable is not None:
+            lo, hi = self.attributable
+            cases = {"lower": _num(lo), "upper": _num(hi), "width": _num(hi - lo)}
+        return {"source": self.source, "lower": _num(self.lower), "upper": _num(self.upper),
+                "width": _num(self.width), "attributable": cases}
+
+
+@dataclass(frozen=True)
 class StratumResult:
     """Attributable cases in one stratum (or the total): observed cases,
     PAF, attributable cases, and per scenario ``(name, pif, averted)``."""
@@ -152,8 +197,11 @@ class StratumResult:
     population: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
+        """``paf`` is the point estimate (a plain number); its interval is
+        under ``paf_interval``; ``attributable`` is an interval object."""
         return {"stratum": self.stratum, "cases": _num(self.cases),
-                "population": _num(self.population), "paf": self.paf.to_dict(),
+                "population": _num(self.population), "paf": _num(self.paf.estimate),
+                "paf_interval": self.paf.to_dict(),
                 "attributable": self.attributable.to_dict(),
                 "scenarios": [{"name": n, "pif": p.to_dict(), "averted": a.to_dict()}
                               for n, p, a in self.scenarios]}
@@ -223,6 +271,18 @@ class Results:
         given, else ``None``.
     outcomes
         ``(name, Results)`` for each ``[[outcome]]``, side by side.
+    substitution
+        One :class:`SubstitutionResult` per fraction in ``[exposure]
+        substitution`` (comparison only; never the main result).
+    width_by_source
+        One :class:`SourceWidth` per uncertain input that varies: the
+        overall PAF's interval with only that input varying (the burden's
+        total PAF when ``[burden]`` is given, else the PAF).
+    width_all
+        The same interval with every source varying, or ``None``.
+    parametric_fits
+        With ``family = "empirical"``: the parametric families fitted to
+        the same values for comparison (core ``Exposure`` objects).
     """
 
     analysis: Any
@@ -244,6 +304,10 @@ class Results:
     exposure_comparison: tuple[ExposureVariant, ...] = ()
     burden: BurdenResult | None = None
     outcomes: tuple[tuple[str, "Results"], ...] = ()
+    substitution: tuple[SubstitutionResult, ...] = ()
+    width_by_source: tuple[SourceWidth, ...] = ()
+    width_all: SourceWidth | None = None
+    parametric_fits: tuple[Exposure, ...] = ()
     extra: dict = field(default_factory=dict)
 
     # -- derived values -------------------------------------------------
@@ -275,10 +339,37 @@ class Results:
         return _scalar(self.exposure.sf(np.array([self.curve.data_max])))
 
     @property
+    def is_empirical(self) -> bool:
+        """True when the exposure is the weighted values themselves."""
+        return self.exposure.family.name == "empirical"
+
+    @property
     def exposure_mean(self) -> float:
         """Population mean exposure, the unexposed counted at zero."""
         ex = self.exposure
+        if self.is_empirical:
+            return float(ex.mean())
         return (1.0 - ex.unexposed) * _scalar(ex.family.mean(ex.params))
+
+    @property
+    def zero_share(self) -> float:
+        """Population share at zero exposure: the unexposed share, plus the
+        weighted share of zeros among the values on the empirical path."""
+        ex = self.exposure
+        return float(ex.zero_share) if self.is_empirical else float(ex.unexposed)
+
+    @property
+    def model_curves(self) -> dict[str, Curve]:
+        """``{model name: curve}`` for every model of ``compare_models``
+        that could be fitted (the analysis's own model included)."""
+        return {v.label: v.curve for v in self.model_comparison if v.curve is not None}
+
+    def scenario_averted(self, name: str) -> Estimate | None:
+        """Total averted cases of scenario ``name`` (``None`` without
+        ``[burden]``)."""
+        if self.burden is None:
+            return None
+        return next((a for n, _, a in self.burden.total.scenarios if n == name), None)
 
     # -- renderings -----------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -294,9 +385,7 @@ class Results:
             "minimum_risk": _num(self.minimum_risk),
             "minimum_risk_range": (None if self.minimum_risk_range is None
                                    else [_num(v) for v in self.minimum_risk_range]),
-            "scenarios": [{"name": s.name, "kind": s.kind, "value": _num(s.value),
-                           "description": s.description, "pif": s.pif.to_dict()}
-                          for s in self.scenarios],
+            "scenarios": [self._scenario_dict(s) for s in self.scenarios],
             "curve": self._curve_dict(),
             "exposure": self._exposure_dict(),
             "categorical": self._categorical_dict(),
@@ -318,12 +407,20 @@ class Results:
         }
         return json_safe(d)
 
+    def _scenario_dict(self, s: ScenarioResult) -> dict[str, Any]:
+        """One scenario; ``averted`` is the burden's total averted cases."""
+        averted = self.scenario_averted(s.name)
+        return {"name": s.name, "kind": s.kind, "value": _num(s.value),
+                "description": s.description, "pif": s.pif.to_dict(),
+                "averted": None if averted is None else averted.to_dict()}
+
     @staticmethod
     def _outcome_dict(name: str, r: "Results") -> dict[str, Any]:
         """One outcome's results: the same keys as the top level."""
         d = r.to_dict()
         keep = ("paf", "minimum_risk", "scenarios", "curve", "categorical", "burden",
-                "model_comparison", "dose_sensitivity", "bands", "warnings", "notes")
+                "uncertainty", "model_comparison", "dose_sensitivity", "bands", "warnings",
+                "notes")
         return {"name": name, **{k: d[k] for k in keep}}
 
     def _workers_list(self) -> list[dict[str, Any]] | None:
@@ -340,7 +437,9 @@ class Results:
         if u is None or self.propagation is None:
             return None
         return {"draws": int(u.draws), "seed": int(u.seed), "level": 0.95,
-                "sources": list(self.propagation.sources)}
+                "sources": [w.source for w in self.width_by_source],
+                "width_by_source": [w.to_dict() for w in self.width_by_source],
+                "width_all": None if self.width_all is None else self.width_all.to_dict()}
 
     def _curve_dict(self) -> dict[str, Any]:
         c = self.curve
@@ -372,25 +471,27 @@ class Results:
             "notes": list(c.notes),
         }
 
+    def _fits_list(self) -> list[dict[str, Any]]:
+        """Every parametric fit tried: the main one, the alternatives of
+        ``family = "best"``, or the comparison fits of the empirical path."""
+        ex = self.exposure
+        tried = [(e.family, e.params, e.fit) for e in self.parametric_fits]
+        if ex.fit is not None and ex.fit.loglik is not None:
+            tried.insert(0, (ex.family, ex.params, ex.fit))
+        tried += list(ex.alternatives)
+        return [{"family": fam.name,
+                 "parameters": _params(dict(zip(fam.param_names, np.asarray(params, float)))),
+                 "loglik": _num(getattr(fit, "loglik", None)),
+                 "aic": _num(getattr(fit, "aic", None))} for fam, params, fit in tried]
+
     def _exposure_dict(self) -> dict[str, Any]:
         ex = self.exposure
         fit = ex.fit
-        fits = []
-        if fit is not None and fit.loglik is not None:
-            fits.append({"family": ex.family.name, "parameters": _params(ex.parameters),
-                         "loglik": _num(fit.loglik), "aic": _num(fit.aic)})
-        for fam, params, alt in ex.alternatives:
-            name = getattr(fam, "name", str(fam))
-            names = getattr(fam, "param_names", ())
-            fits.append({"family": name,
-                         "parameters": _params(dict(zip(names, np.asarray(params, float)))),
-                         "loglik": _num(getattr(alt, "loglik", None)),
-                         "aic": _num(getattr(alt, "aic", None))})
         has_data = fit is not None and fit.n > 0
         return {
             "family": ex.family.name,
             "parameters": _params(ex.parameters),
-            "unexposed": _num(ex.unexposed),
+            "unexposed": _num(self.zero_share),
             "share_beyond_max_dose": _num(self.share_beyond_max_dose),
             "share_beyond_data": _num(self.share_beyond_data),
             "mean": _num(self.exposure_mean),
@@ -400,7 +501,8 @@ class Results:
             "censored": int(fit.censored) if has_data else None,
             "loglik": None if fit is None else _num(fit.loglik),
             "aic": None if fit is None else _num(fit.aic),
-            "fits": fits,
+            "fits": self._fits_list(),
+            "substitution": [v.to_dict() for v in self.substitution],
             "notes": list(ex.notes),
         }
 

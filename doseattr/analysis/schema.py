@@ -19,7 +19,9 @@ from typing import Any, Mapping
 
 from doseattr.errors import InputError
 
-CURVE_MODELS = ("log-linear", "linear", "power", "spline")
+#: Published shapes entered with their parameters (names of our own).
+SHAPE_MODELS = ("saturating-exponential", "log-logistic-weighted")
+CURVE_MODELS = ("log-linear", "linear", "power", "spline") + SHAPE_MODELS
 DESIGNS = ("case-control", "incidence-rate", "cumulative-incidence")
 FAMILIES = ("lognormal", "gamma", "weibull", "best", "empirical")
 
@@ -44,6 +46,8 @@ SECTIONS: dict[str, dict[str, Key]] = {
     "": {
         "unit": Key("text", help="unit of exposure for the curve and the exposure data"),
         "title": Key("text", help="a title for the report"),
+        "molecular_weight": Key("number", help="g/mol, to convert ppm or ppb to mass per "
+                                               "volume"),
     },
     "curve": {
         "table": Key("path", help="CSV of the study's bands"),
@@ -65,6 +69,12 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "points": Key("path"),
         "draws": Key("path"),
         "compare_models": Key("texts"),
+        "unit": Key("text", help="unit of the curve's doses (default: the file's unit)"),
+        "threshold": Key("number", help="dose below which RR is 1 (published shapes)"),
+        "alpha": Key("number"), "gamma": Key("number"), "delta": Key("number"),
+        "alpha_se": Key("number"), "gamma_se": Key("number"), "delta_se": Key("number"),
+        "theta": Key("number"), "theta_se": Key("number"),
+        "scale": Key("number"), "midpoint": Key("number"), "spread": Key("number"),
     },
     "exposure": {
         "table": Key("path", help="CSV of measurements (column value, optional weight)"),
@@ -83,6 +93,9 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "lag_years": Key("number"),
         "detected": Key("text", help="name of the detected column"),
         "weight": Key("text", help="name of the weight column"),
+        "unit": Key("text", help="unit of the exposure values (default: the file's unit)"),
+        "substitution": Key("numbers", help="fractions of the detection limit to substitute "
+                                            "for comparison, e.g. [0.5]"),
     },
     "attribution": {
         "minimum_risk": Key("number-or-pair"),

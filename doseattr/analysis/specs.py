@@ -28,10 +28,15 @@ EFFECTIVE_COUNT_DESIGNS = ("case-control", "incidence-rate")
 class CurveSpec:
     """What ``[curve]`` asks for.
 
-    ``source`` is ``"table"`` (fitted to the study's bands in ``table``) or
-    ``"entered"`` (a published estimate: ``rr``, ``err`` or ``exponent``).
+    ``source`` is ``"table"`` (fitted to the study's bands in ``table``),
+    ``"entered"`` (a published estimate: ``rr``, ``err`` or ``exponent``),
+    ``"points"``/``"draws"`` (a curve given as a CSV) or ``"shape"`` (a
+    published shape with coefficients ``shape_coef``, their covariance
+    ``shape_cov`` and fixed settings ``shape_settings``).
     ``beyond`` is ``"flat"`` or ``"extend"``; ``max_dose`` is ``None``
     unless given (a fitted curve then uses its highest assigned dose).
+    Every dose is in the analysis file's unit once the spec is built
+    (converted from ``unit``, the unit the file gave the curve in).
     """
 
     source: str
@@ -53,6 +58,10 @@ class CurveSpec:
     knot_count: int = 3
     compare_models: tuple[str, ...] = ()
     given: PointsTable | DrawsTable | None = None
+    shape_coef: tuple[float, ...] = ()
+    shape_cov: tuple[tuple[float, ...], ...] = ()
+    shape_settings: Mapping[str, float] | None = None
+    unit: str | None = None
     notes: tuple[str, ...] = ()
 
 
@@ -61,8 +70,11 @@ class ExposureSpec:
     """What ``[exposure]`` asks for.
 
     ``source`` is ``"measurements"`` (fit ``family`` to ``measurements``),
-    ``"gm-gsd"``, ``"shape-scale"`` or ``"mean-sd"``; ``values`` holds the
-    typed parameters.
+    ``"gm-gsd"``, ``"shape-scale"``, ``"mean-sd"``, ``"percentiles"``,
+    ``"bins"`` or ``"histories"``; ``values`` holds the typed parameters.
+    ``substitution`` lists fractions of the detection limit to substitute
+    for a comparison fit. Values are in the analysis file's unit once the
+    spec is built (converted from ``unit``).
     """
 
     source: str
@@ -74,6 +86,8 @@ class ExposureSpec:
     histories: HistoriesTable | None = None
     as_of: date | None = None
     lag_years: float = 0.0
+    substitution: tuple[float, ...] = ()
+    unit: str | None = None
     notes: tuple[str, ...] = ()
 
 
@@ -146,6 +160,7 @@ class Analysis:
     source: str | None = None
     base_dir: str = "."
     settings: Mapping[str, Any] | None = None
+    molecular_weight: float | None = None
 
     @property
     def notes(self) -> tuple[str, ...]:

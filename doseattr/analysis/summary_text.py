@@ -29,7 +29,7 @@ def render(r: "Results", brief: bool = False) -> str:
             lines += ["", f"{len(r.warnings)} warning(s): see results.json or the report"]
         return "\n".join(lines)
     lines += ["", *_curve(r), "", *_exposure(r), "", *_categorical(r)]
-    lines += _variants(r)
+    lines += _variants(r) + _widths(r)
     for title, items in (("Warnings", r.warnings), ("Notes", r.notes), ("Cautions", r.cautions)):
         if items:
             lines += ["", f"{title}:"]
@@ -59,15 +59,33 @@ def _curve(r: "Results") -> list[str]:
 
 def _exposure(r: "Results") -> list[str]:
     ex = r.exposure
-    params = ", ".join(f"{k} = {v:.4g}" for k, v in ex.parameters.items())
-    how = ex.source
-    if ex.fit is not None and ex.fit.n:
-        how = f"fitted to {ex.fit.n} values"
-        if ex.fit.censored:
-            how += f", {ex.fit.censored} below detection"
-    out = [f"Exposure: {ex.family.name}, {params} ({how})"]
-    out.append(f"mean {r.exposure_mean:.4g} {r.unit}; unexposed {100 * ex.unexposed:.3g}%")
+    if r.is_empirical:
+        out = [f"Exposure: empirical ({ex.fit.n} weighted values, no fitted distribution)"]
+    else:
+        params = ", ".join(f"{k} = {v:.4g}" for k, v in ex.parameters.items())
+        how = ex.source
+        if ex.fit is not None and ex.fit.n:
+            how = f"fitted to {ex.fit.n} values"
+            if ex.fit.censored:
+                how += f", {ex.fit.censored} below detection"
+        out = [f"Exposure: {ex.family.name}, {params} ({how})"]
+    out.append(f"mean {r.exposure_mean:.4g} {r.unit}; unexposed {100 * r.zero_share:.3g}%")
+    out += _substitution(r)
     return out
+
+
+def _substitution(r: "Results") -> list[str]:
+    """Substitution of non-detects, compared with the censored fit."""
+    if not r.substitution:
+        return []
+    rows = [[f"{v.fraction:.4g} x limit",
+             ", ".join(f"{k} = {x:.4g}" for k, x in v.parameters.items()) or "-",
+             "-" if v.paf is None else f"{100 * v.paf:.2f}%",
+             "-" if v.difference is None else f"{100 * v.difference:+.2f}"]
+            for v in r.substitution]
+    return ["", "Non-detects substituted (comparison only; the PAF above uses censored "
+                "likelihood)"] + table(["substitution", "parameters", "PAF",
+                                        "difference (points)"], rows)
 
 
 def _categorical(r: "Results") -> list[str]:
@@ -103,6 +121,16 @@ def _variants(r: "Results") -> list[str]:
                        "-" if v.paf is None else f"{100 * v.paf:.2f}%"]
                       for v in r.exposure_comparison])
     return out
+
+
+def _widths(r: "Results") -> list[str]:
+    """The overall PAF's 95% interval with one source varying at a time."""
+    if not r.width_by_source:
+        return []
+    rows = [[w.source, f"{100 * w.lower:.2f}% to {100 * w.upper:.2f}%", f"{100 * w.width:.2f}"]
+            for w in r.width_by_source + ((r.width_all,) if r.width_all else ())]
+    return ["", "Width of the PAF's 95% interval by source of uncertainty"] + table(
+        ["varying", "interval", "width (points)"], rows)
 
 
 def table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> list[str]:

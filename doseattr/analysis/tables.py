@@ -141,7 +141,8 @@ def read_study_table(path: str | Path, source: str | None = None, *,
 def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, float]:
     lower = number(raw, row, "lower")
     if lower < 0:
-        raise cell_error(raw, row, "lower", f"negative exposure {lower:g}; band limits must be 0 or more")
+        raise cell_error(raw, row, "lower",
+                         f"negative exposure {lower:g}; band limits must be 0 or more")
     upper = number(raw, row, "upper", required=False)
     if upper is None:
         upper = math.inf
@@ -155,8 +156,8 @@ def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, f
     hi = number(raw, row, "ci_upper", required=False)
     if (lo is None) != (hi is None):
         missing = "ci_lower" if lo is None else "ci_upper"
-        raise cell_error(raw, row, missing, "one CI limit is empty; give both limits, or leave both "
-                    "empty on the reference band (rr 1)")
+        raise cell_error(raw, row, missing, "one CI limit is empty; give both limits, or leave "
+                         "both empty on the reference band (rr 1)")
     if lo is None and rr != 1:
         raise cell_error(raw, row, "ci_lower", f"the CI is empty but the RR is {rr:g}; only the "
                     "reference band (rr 1) has an empty CI")
@@ -168,7 +169,8 @@ def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, f
                         f"limit {lo:g}")
         if not lo <= rr <= hi:
             col = "ci_lower" if rr < lo else "ci_upper"
-            raise cell_error(raw, row, col, f"the CI {lo:g} to {hi:g} does not contain its RR {rr:g}")
+            raise cell_error(raw, row, col,
+                             f"the CI {lo:g} to {hi:g} does not contain its RR {rr:g}")
     dose = number(raw, row, "dose", required=False) if "dose" in raw.columns else None
     if dose is not None and not lower <= dose <= upper:
         raise cell_error(raw, row, "dose", f"dose {dose:g} lies outside its band "
@@ -179,9 +181,9 @@ def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, f
     for c in counts_present:
         value = number(raw, row, c)
         if value <= 0:
-            raise cell_error(raw, row, c, f"{c} must be greater than 0, got {value:g} (the covariance "
-                        "of the log RRs needs every band's counts; remove the count columns to "
-                        "treat the estimates as independent)")
+            raise cell_error(raw, row, c, f"{c} must be greater than 0, got {value:g} (the "
+                             "covariance of the log RRs needs every band's counts; remove the "
+                             "count columns to treat the estimates as independent)")
         out[c] = value
     return out
 
@@ -252,6 +254,9 @@ def read_measurements(path: str | Path, source: str | None = None, *,
                 raise cell_error(raw, row, detected_column, "the value is written as below a "
                             "detection limit ('<') but marked detected")
             below = below or not flag
+            if below and v == 0:
+                raise cell_error(raw, row, "value", "a detection limit must be above 0, but this "
+                                 f"non-detect ({detected_column} = false) has the value 0")
         values.append(v)
         detected.append(not below)
         if has_w:
@@ -296,7 +301,8 @@ def _measurement(raw: RawTable, row: Row) -> tuple[float, bool]:
         row = Row(row.line, {**row.cells, "value": text[1:].strip()})
     v = number(raw, row, "value")
     if v < 0:
-        raise cell_error(raw, row, "value", f"negative exposure {v:g}; measurements must be 0 or more")
+        raise cell_error(raw, row, "value",
+                         f"negative exposure {v:g}; measurements must be 0 or more")
     if v == 0 and below:
         raise cell_error(raw, row, "value", "a detection limit must be above 0, got '<0'")
     return v, below

@@ -67,14 +67,16 @@ def _scalar(value) -> float:
 
 
 def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None = None, *,
-               x_max: float | None = None, level: float = 0.95, label: str | None = None):
+               x_max: float | None = None, level: float = 0.95, label: str | None = None,
+               title: str = "Relative risk by exposure", legend: bool = True):
     """Fitted RR curve with its pointwise band and the study's band estimates.
 
     Draws RR(x) (``gid="fitted-rr"``), the pointwise ``level`` interval from
     :meth:`Curve.rr_interval` (``gid="rr-band"``), the band estimates at
     their assigned doses with their CIs (``gid="study-bands"``), and dotted
     vertical lines at ``max_dose`` (``gid="max-dose"``) and, when different,
-    at ``data_max`` (``gid="data-max"``).
+    at ``data_max`` (``gid="data-max"``). ``legend=False`` leaves the
+    legend out (small panels).
     """
     with styled():
         ax = new_axes(ax)
@@ -92,8 +94,9 @@ def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None =
         ax.set_xlim(0.0, top)
         ax.set_xlabel(axis_label("Exposure", unit))
         ax.set_ylabel("Relative risk (RR)")
-        ax.set_title("Relative risk by exposure")
-        outside_legend(ax)
+        ax.set_title(title)
+        if legend:
+            outside_legend(ax)
     return ax
 
 
@@ -121,8 +124,8 @@ def _curve_values(curve: Curve, x: np.ndarray, level: float):
 def add_curve(ax, curve: Curve, *, color: str, label: str, x_max: float | None = None):
     """Add another curve's RR line to an existing curve plot (model comparison)."""
     x = dose_grid(curve, x_max if x_max is not None else ax.get_xlim()[1])
-    ax.plot(x, _curve_values(curve, x, 0.95)[0], color=color, linewidth=1.6, linestyle="--", label=label,
-            gid=f"model-{label}")
+    ax.plot(x, _curve_values(curve, x, 0.95)[0], color=color, linewidth=1.6, linestyle="--",
+            label=label, gid=f"model-{label}")
     outside_legend(ax)
     return ax
 
@@ -161,7 +164,8 @@ def is_empirical(exposure) -> bool:
 
 
 def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
-                  x_max: float | None = None, bins: int = 30, alternatives: bool = True):
+                  x_max: float | None = None, bins: int = 30, alternatives: bool = True,
+                  compare: Sequence[Exposure] = (), data_label: str = "measurements"):
     """Exposure data (weighted histogram) against the fitted density.
 
     The histogram (``gid="data-hist"``) covers the detected values; bar
@@ -172,24 +176,44 @@ def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
     family's density for the exposed part of the population; with
     ``alternatives`` the other families fitted are drawn dashed
     (``gid="density-<family>"``). An empirical exposure has no density:
-    only its weighted histogram is drawn.
+    only its weighted histogram is drawn, with a legend line saying that
+    the PAF is a weighted mean over the values; the parametric fits in
+    ``compare`` (fitted to the same values for comparison only) are drawn
+    dotted (``gid="compare-<family>"``). ``data_label`` names the data in
+    the legend (workers' cumulative exposures rather than measurements).
     """
     with styled():
         ax = new_axes(ax)
         data = _exposure_data(exposure.fit)
         top = x_max if x_max is not None else _exposure_extent(exposure, data)
-        if data is not None:
-            _draw_data(ax, data, top, bins)
+        if data is not None and "upper" in data:
+            _draw_banded(ax, data, top)
+        elif data is not None:
+            _draw_data(ax, data, top, bins, data_label)
+        others = exposure.alternatives if alternatives else ()
         if not is_empirical(exposure):
             x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
             density = np.exp(exposure.family.logpdf(x, exposure.params))
-            ax.plot(x, density, color=COLORS["density"], linewidth=2,
-                    label=f"fitted {exposure.family.name} density (used)", gid="fitted-density")
-            others = exposure.alternatives if alternatives else ()
-            for i, (family, params, _fit) in enumerate(others):
+            used = f"fitted {exposure.family.name} density (used"
+            used += f", AIC {exposure.fit.aic:.1f})" if others and _aic(exposure.fit) else ")"
+            ax.plot(x, density, color=COLORS["density"], linewidth=2, label=used,
+                    gid="fitted-density")
+            for i, (family, params, fit) in enumerate(others):
+                aic = f" (AIC {fit.aic:.1f})" if _aic(fit) else ""
                 ax.plot(x, np.exp(family.logpdf(x, params)), color=CYCLE[i % 3],
-                        linestyle="--", linewidth=1.4, label=f"{family.name} density",
+                        linestyle="--", linewidth=1.4, label=f"{family.name} density{aic}",
                         gid=f"density-{family.name}")
+        else:
+            if data is not None:
+                ax.plot([], [], " ", label="no fitted density: the PAF is a weighted\n"
+                                           "mean over these values")
+            x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
+            for i, other in enumerate(compare):
+                aic = f", AIC {other.fit.aic:.1f}" if _aic(other.fit) else ""
+                ax.plot(x, np.exp(other.family.logpdf(x, other.params)), color=CYCLE[i % 3],
+                        linestyle=":", linewidth=1.6,
+                        label=f"{other.family.name} fit (comparison only{aic})",
+                        gid=f"compare-{other.family.name}")
         if exposure.unexposed > 0:
             ax.plot([], [], " ", label=f"plus {exposure.unexposed:.1%} unexposed (not drawn)")
         ax.set_xlim(0.0, top)
@@ -201,7 +225,8 @@ def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
     return ax
 
 
-def plot_qq(exposure: Exposure, ax=None, unit: str | None = None):
+def plot_qq(exposure: Exposure, ax=None, unit: str | None = None, *, family: Any = None,
+            params: Any = None, legend: bool = True):
     """Quantile-quantile plot of the measurements against the fitted family.
 
     Plotting positions are those of regression on order statistics for
@@ -211,20 +236,24 @@ def plot_qq(exposure: Exposure, ax=None, unit: str | None = None):
     at their value; a non-detect (``gid="qq-censored"``) at its detection
     limit with a downward marker, since its true value lies below. The line
     ``y = x`` (``gid="qq-line"``) is where points fall when the family fits.
-    Both axes are logarithmic.
+    Both axes are logarithmic. ``family`` and ``params`` draw the same
+    measurements against another family fitted to them (the alternatives
+    tried when the analysis picks the family by AIC).
     """
     from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
     from doseattr.core.exposure.nondetects import ros_plotting_positions
 
     data = _exposure_data(exposure.fit)
-    if data is None or is_empirical(exposure):
-        raise ValueError("a Q-Q plot needs measurements fitted by a family")
+    if data is None or is_empirical(exposure) or "upper" in data:
+        raise ValueError("a Q-Q plot needs measurements (not bands) fitted by a family")
     with styled():
         ax = new_axes(ax, size=(5.2, 4.4))
         values, det = data["values"], data["detected"]
         pos = ros_plotting_positions(values, det)
-        theory = np.asarray(exposure.family.ppf(pos, exposure.params), float).reshape(-1)
+        family = exposure.family if family is None else family
+        params = exposure.params if params is None else params
+        theory = np.asarray(family.ppf(pos, params), float).reshape(-1)
         ax.plot(theory[det], values[det], "o", color=COLORS["curve"], markersize=4,
                 alpha=0.8, label="measured", gid="qq-detected")
         if (~det).any():
@@ -242,11 +271,17 @@ def plot_qq(exposure: Exposure, ax=None, unit: str | None = None):
             axis.set_minor_formatter(NullFormatter())
         ax.set_xlim(lo, hi)
         ax.set_ylim(lo, hi)
-        ax.set_xlabel(axis_label(f"Fitted {exposure.family.name} quantile", unit))
+        ax.set_xlabel(axis_label(f"Fitted {family.name} quantile", unit))
         ax.set_ylabel(axis_label("Measured value", unit))
-        ax.set_title("Measurements against the fitted distribution")
-        ax.legend(loc="upper left")
+        ax.set_title("Measurements against the fitted distribution" if legend
+                     else f"{family.name}")
+        if legend:
+            ax.legend(loc="upper left")
     return ax
+
+
+def _aic(fit) -> bool:
+    return getattr(fit, "aic", None) is not None
 
 
 def _exposure_data(fit) -> dict | None:
@@ -258,7 +293,15 @@ def _exposure_data(fit) -> dict | None:
     mask = fit.detected_mask
     detected = np.ones(values.shape, bool) if mask is None else np.asarray(mask, bool)
     weights = np.ones(values.shape) if fit.weights is None else np.asarray(fit.weights, float)
-    return {"values": values, "detected": detected, "weights": weights}
+    data = {"values": values, "detected": detected, "weights": weights}
+    if getattr(fit, "upper", None) is not None:  # banded data: (values, upper] per count
+        data["upper"] = np.asarray(fit.upper, dtype=float)
+    return data
+
+
+def is_banded(fit) -> bool:
+    """True when the exposure was fitted to counts in bands (grouped data)."""
+    return fit is not None and getattr(fit, "upper", None) is not None
 
 
 def _exposure_extent(exposure: Exposure, data: dict | None) -> float:
@@ -267,16 +310,44 @@ def _exposure_extent(exposure: Exposure, data: dict | None) -> float:
     top = _scalar(exposure.family.ppf(np.array([0.995]), exposure.params))
     if data is not None:
         top = max(top, float(np.max(data["values"])) * 1.02)
+    if data is not None and "upper" in data:
+        finite = data["upper"][np.isfinite(data["upper"])]
+        top = max(top, float(finite.max()) * 1.02 if finite.size else top)
     return top
 
 
-def _draw_data(ax, data: dict, top: float, bins: int) -> None:
+def banded_heights(lower: np.ndarray, upper: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Bar heights of counts in bands on the density scale (NaN for an
+    open-ended band, which has no width).
+
+    .. math:: h_i = \\frac{n_i}{N (u_i - l_i)}
+    """
+    width = upper - lower
+    with np.errstate(invalid="ignore"):
+        return np.where(np.isfinite(width), counts / (counts.sum() * width), np.nan)
+
+
+def _draw_banded(ax, data: dict, top: float) -> None:
+    """Counts in bands as bars over each band (``gid="band-bars"``); an
+    open-ended top band is named in the legend with its share."""
+    lo, hi, n = data["values"], data["upper"], data["weights"]
+    h = banded_heights(lo, hi, n)
+    closed = np.isfinite(h)
+    ax.bar(lo[closed], h[closed], width=(hi - lo)[closed], align="edge", color=COLORS["data"],
+           alpha=0.6, edgecolor="white", linewidth=0.5, gid="band-bars",
+           label=f"counts in bands (N = {n.sum():g}), as density")
+    for a, share in zip(lo[~closed], n[~closed] / n.sum()):
+        ax.plot([], [], " ", label=f"open band above {a:g}: {share:.1%} (not drawn)")
+
+
+def _draw_data(ax, data: dict, top: float, bins: int, what: str = "measurements") -> None:
     values, det, w = data["values"], data["detected"], data["weights"]
     edges = np.linspace(0.0, top, bins + 1)
     heights = data_histogram(values[det], w[det], edges, total_weight=float(w.sum()))
     ax.bar(edges[:-1], heights, width=np.diff(edges), align="edge", color=COLORS["data"],
            alpha=0.6, edgecolor="white", linewidth=0.5,
-           label=f"measurements, detected (n = {int(det.sum())})", gid="data-hist")
+           label=f"{what}, detected (n = {int(det.sum())})" if (~det).any()
+           else f"{what} (n = {int(det.sum())})", gid="data-hist")
     if (~det).any():
         ax.plot(values[~det], np.zeros(int((~det).sum())), linestyle="none", marker="v",
                 markersize=7, color=COLORS["censored"], clip_on=False, zorder=5,
@@ -413,33 +484,6 @@ def plot_draws(draws: Sequence[float], ax=None, *, estimate: float | None = None
         ax.set_ylabel("Number of draws")
         ax.set_title(f"Uncertainty in the {what}")
         outside_legend(ax)
-    return ax
-
-
-def plot_strata(names: Sequence[str], estimate: Sequence[float], ax=None, *,
-                lower: Sequence[float | None] | None = None,
-                upper: Sequence[float | None] | None = None,
-                xlabel: str = "Attributable cases"):
-    """Horizontal bars per stratum (``gid="strata-bars"``) with interval
-    whiskers where limits are given."""
-    with styled():
-        n = len(names)
-        ax = new_axes(ax, size=(6.0, max(2.0, 0.32 * n + 1.0)))
-        est = np.asarray(estimate, float)
-        pos = np.arange(n)[::-1]
-        xerr = None
-        if lower is not None and upper is not None:
-            lo = np.array([np.nan if v is None else v for v in lower], float)
-            hi = np.array([np.nan if v is None else v for v in upper], float)
-            if np.all(np.isfinite(lo)) and np.all(np.isfinite(hi)):
-                xerr = np.vstack([est - lo, hi - est])
-        ax.barh(pos, est, xerr=xerr, color=COLORS["burden"], alpha=0.8, height=0.6,
-                error_kw={"ecolor": "#333333", "capsize": 3, "linewidth": 1},
-                gid="strata-bars")
-        ax.set_yticks(pos, list(names))
-        ax.set_xlabel(xlabel)
-        ax.grid(axis="y", visible=False)
-        ax.set_title("By stratum")
     return ax
 
 

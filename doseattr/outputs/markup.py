@@ -88,3 +88,30 @@ def notes_list(notes: Any, heading: str | None = None) -> str:
         return ""
     head = f"<p>{escape(heading)}</p>" if heading else ""
     return f'<div class="notes">{head}{bullets(notes)}</div>'
+
+
+def estimate_text(est: Any, fmt=pct) -> str:
+    """``"9.46% (4.42% to 17.0%)"`` from an estimate dict; the estimate
+    alone without limits; a dash for ``None``."""
+    if not isinstance(est, dict):
+        return fmt(est)
+    text = fmt(est.get("estimate"))
+    if est.get("lower") is not None and est.get("upper") is not None:
+        text += f" ({interval(est['lower'], est['upper'], fmt)})"
+    return text
+
+
+def warning_box(lines: Iterable[str], heading: str = "Warning:") -> str:
+    """A highlighted box of warnings next to the numbers they concern."""
+    lines = [str(s) for s in lines if s]
+    if not lines:
+        return ""
+    return (f'<div class="warnings"><p><strong>{escape(heading)}</strong></p>'
+            + bullets(lines) + "</div>")
+
+
+def signed_points(v: Any) -> str:
+    """A difference of two fractions in percentage points, with its sign."""
+    if v is None:
+        return NA
+    return ("+" if v > 0 else "") + f"{100 * v:.3g} points"

@@ -3,9 +3,10 @@
 Every table is built from the results.json dictionary (``Results.to_dict()``)
 plus the study's band table and the per-worker exposures, so the CSV files
 and results.json can never disagree. Optional tables (burden, comparisons,
-width by source, workers) are written only when the results hold them. Numbers are written at full precision (``repr`` of the
-float, which round-trips exactly); empty cells mean "not applicable". Units
-are given in the column headers, e.g. ``lower (ug/m3)``.
+width by source, workers) are written only when the results hold them.
+Numbers are written at full precision (``repr`` of the float, which
+round-trips exactly); empty cells mean "not applicable". Units are given in
+the column headers, e.g. ``lower (ug/m3)``.
 """
 
 from __future__ import annotations
@@ -18,8 +19,13 @@ from typing import Any, Iterable
 import numpy as np
 
 from doseattr.outputs.bands import band_arrays
-from doseattr.outputs.records import (burden_blocks, estimate_of, scenario_effects, substitution,
-                                      width_by_source)
+from doseattr.outputs.records import (
+    burden_blocks,
+    estimate_of,
+    scenario_effects,
+    substitution,
+    width_by_source,
+)
 
 Table = tuple[list[str], list[list[Any]]]
 
@@ -131,9 +137,9 @@ def curve_fit_table(d: dict, band_table: Any = None) -> Table:
     rows_in = d.get("bands")
     if not rows_in:
         bands = band_arrays(band_table)
+        keys = ("lower", "upper", "dose", "rr", "ci_lower", "ci_upper")
         rows_in = None if bands is None else [
-            {k: _num(bands[k][i]) for k in ("lower", "upper", "dose", "rr", "ci_lower",
-                                            "ci_upper")} | {"reference": bool(bands["reference"][i])}
+            {k: _num(bands[k][i]) for k in keys} | {"reference": bool(bands["reference"][i])}
             for i in range(len(bands["rr"]))]
     if not rows_in:
         header = [with_unit("dose", unit), "rr_reported", "rr_fitted"]
@@ -347,7 +353,7 @@ def _plain(v: Any) -> Any:
 
 
 def _padded(values: Any, n: int) -> list[Any]:
-    values = list(values or [])
+    values = list(values or [])[:n]
     return values + [None] * (n - len(values))
 
 

@@ -89,6 +89,10 @@ EXTRA_REFERENCES = {
                         "exposure level or disease category. Stat Med 27:954. \u2020",
     "spline": "Harrell FE Jr. Regression Modeling Strategies (Springer): restricted cubic "
               "splines and default knot positions.",
+    "censored": "Helsel DR (2012). Statistics for Censored Environmental Data Using Minitab "
+                "and R, 2nd ed. Wiley. \u2020",
+    "aic": "Akaike H (1974). A new look at the statistical model identification. IEEE Trans "
+           "Automat Control 19:716. \u2020",
 }
 
 #: Kept for callers that want the fixed list.
@@ -101,8 +105,14 @@ def references(d: dict) -> list[str]:
     curve = d.get("curve") or {}
     if curve.get("covariance_method") == "effective-counts":
         refs.append(EXTRA_REFERENCES["effective-counts"])
-    if curve.get("model") == "spline":
+    models = [curve.get("model")] + [v.get("model") for v in d.get("model_comparison") or []]
+    if "spline" in models:
         refs.append(EXTRA_REFERENCES["spline"])
+    exposure = d.get("exposure") or {}
+    if exposure.get("censored") or exposure.get("substitution"):
+        refs.append(EXTRA_REFERENCES["censored"])
+    if len(exposure.get("fits") or []) > 1:
+        refs.append(EXTRA_REFERENCES["aic"])
     return refs
 
 

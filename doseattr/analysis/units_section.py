@@ -1,0 +1,217 @@
+r"""Units in the analysis file: the top-level ``unit`` (the unit of every
+result), optional ``unit`` keys in ``[curve]`` and ``[exposure]`` (the
+unit their numbers are written in), and ``molecular_weight`` (g/mol).
+
+Curve and exposure values given in another unit are converted to the
+top-level unit here, before anything is computed, with the core's unit
+table (:mod:`doseattr.core.exposure.units`): a factor :math:`f` with
+value in the analysis unit = :math:`f` x value as given, and for ppm to
+mass per volume at 25 C and 1 atm
+
+.. math:: \mathrm{mg/m^3} = \mathrm{ppm} \times MW / 24.45
+
+(common practice in occupational hygiene, as in the core's unit table).
+Doses scale by :math:`f`; RRs and dimensionless settings (a GSD, a gamma
+shape, a power exponent) do not. Units that measure different things (a
+concentration and a cumulative exposure, mass and activity) are refused,
+as is ppm against mass per volume without ``molecular_weight``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Any, Mapping
+
+import numpy as np
+
+from doseattr.analysis.schema import Context
+from doseattr.analysis.specs import CurveSpec, ExposureSpec
+from doseattr.analysis.tables import BurdenTable
+from doseattr.errors import ModelError
+
+
+@dataclasses.dataclass(frozen=True)
+class Units:
+    """The analysis unit and the molecular weight (``None`` if not given)."""
+
+    unit: str
+    molecular_weight: float | None = None
+
+
+@dataclasses.dataclass(frozen=True)
+class Conversion:
+    """Factor from the unit a section was given in to the analysis unit."""
+
+    factor: float = 1.0
+    note: str | None = None
+
+
+def read_units(data: Mapping[str, Any], ctx: Context) -> Units:
+    """The top-level ``unit`` and ``molecular_weight``, checked."""
+    mw = data.get("molecular_weight")
+    if mw is not None and mw <= 0:
+        raise ctx.error(f"molecular_weight is in g/mol and must be above 0, got {mw:g}", "",
+                        "molecular_weight")
+    return Units(data["unit"].strip(), None if mw is None else float(mw))
+
+
+def _kind(text: str) -> tuple[str, str] | None:
+    """``("concentration", "ppm")``, ``("cumulative", "ppm-years")`` or ``None``."""
+    from doseattr.core.exposure.units import concentration_unit, cumulative_unit
+
+    for kind, parse in (("cumulative", cumulative_unit), ("concentration", concentration_unit)):
+        try:
+            return kind, parse(text)
+        except ModelError:
+            continue
+    return None
+
+
+def conversion(units: Units, given: str | None, section: str, ctx: Context, *,
+               intensity: bool = False) -> Conversion:
+    """The factor from ``given`` (the ``unit`` key of ``section``) to the
+    analysis unit. ``intensity`` compares a concentration with the
+    concentration part of a cumulative analysis unit (work histories)."""
+    from doseattr.core.exposure.units import conversion_factor
+
+    target = units.unit
+    if intensity:
+        kind = _kind(target)
+        target = kind[1][: -len("-years")] if kind and kind[0] == "cumulative" else target
+    if given is None or given.strip() == target:
+        return Conversion()
+    to, frm = _kind(target), _kind(given)
+    _check_kinds(frm, to, given, target, section, ctx, intensity)
+    uses_mw = _groups_differ(frm[1], to[1])
+    try:
+        f = conversion_factor(_conc(frm[1]), _conc(to[1]),
+                              molecular_weight=units.molecular_weight if uses_mw else None)
+    except ModelError as exc:
+        hint = (" (add molecular_weight = ... in g/mol at the top of the file)"
+                if "molecular weight" in str(exc) else "")
+        raise ctx.error(f"{exc}{hint}", section, "unit") from None
+    if f == 1.0:
+        return Conversion()
+    how = (f", molecular weight {units.molecular_weight:g} g/mol, 24.45 L/mol at 25 C and 1 atm"
+           if uses_mw else "")
+    what = "intensities" if intensity else "values"
+    return Conversion(f, f"[{section}] {what} converted from {given.strip()} to {target} "
+                         f"(x {f:.6g}{how})")
+
+
+def _conc(canonical: str) -> str:
+    return canonical[: -len("-years")] if canonical.endswith("-years") else canonical
+
+
+def _groups_differ(a: str, b: str) -> bool:
+    from doseattr.core.exposure.units import CONCENTRATION_UNITS
+
+    return CONCENTRATION_UNITS[_conc(a)][0] != CONCENTRATION_UNITS[_conc(b)][0]
+
+
+def _check_kinds(frm, to, given: str, target: str, section: str, ctx: Context,
+                 intensity: bool) -> None:
+    from doseattr.core.exposure.units import CONCENTRATION_UNITS
+
+    known = ", ".join(CONCENTRATION_UNITS)
+    if frm is None:
+        raise ctx.error(f"unknown unit '{given}'; known: {known}, and any of them followed by "
+                        "'-years' for cumulative exposure", section, "unit")
+    if to is None:
+        raise ctx.error(f"cannot convert '{given}' to the file's unit '{target}', which is not "
+                        f"a unit this tool knows ({known}, or '-years' after one); give "
+                        f"[{section}] in '{target}' or change the file's unit", section, "unit")
+    if intensity and frm[0] != "concentration":
+        raise ctx.error(f"with work histories [exposure] unit is the unit of the intensity "
+                        f"column, a concentration such as 'ppm', not '{given}'", section, "unit")
+    if frm[0] != to[0]:
+        raise ctx.error(f"'{given}' is a {frm[0]} unit but the file's unit '{target}' is a "
+                        f"{to[0]} unit (concentration x years); they cannot be converted",
+                        section, "unit")
+
+
+# -- applying a factor ---------------------------------------------------------------
+def _scaled(obj: Any, f: float, *fields: str) -> Any:
+    """``obj`` with each named array field multiplied by ``f``."""
+    return dataclasses.replace(obj, **{k: np.asarray(getattr(obj, k), float) * f
+                                       for k in fields})
+
+
+def convert_curve(spec: CurveSpec, conv: Conversion, unit: str | None) -> CurveSpec:
+    """Every dose of ``spec`` in the analysis unit (doses x f)."""
+    if conv.factor == 1.0:
+        return dataclasses.replace(spec, unit=unit)
+    f = conv.factor
+    changes: dict[str, Any] = {"unit": unit, "notes": spec.notes + (conv.note,),
+                               "offset": spec.offset * f, "per": spec.per * f,
+                               "reference_dose": spec.reference_dose * f,
+                               "max_dose": None if spec.max_dose is None else spec.max_dose * f}
+    if spec.knots is not None:
+        changes["knots"] = tuple(k * f for k in spec.knots)
+    if spec.table is not None:
+        changes["table"] = _scaled(spec.table, f, "lower", "upper", "dose")
+    if spec.given is not None:
+        changes["given"] = dataclasses.replace(_scaled(spec.given, f, "doses"),
+                                               reference_dose=spec.given.reference_dose * f)
+    if spec.source == "shape":
+        changes.update(_shape_in_unit(spec, f))
+    return dataclasses.replace(spec, **changes)
+
+
+def _shape_in_unit(spec: CurveSpec, f: float) -> dict[str, Any]:
+    r"""Shape settings and coefficients on the new dose scale.
+
+    Doses (threshold, scale, midpoint, spread) scale by f. In the saturating
+    exponential :math:`\gamma z^\delta` with :math:`z = z'/f` gives
+    :math:`\gamma' = \gamma f^{-\delta}`; its covariance is carried by the
+    delta method, :math:`J \Sigma J^T` with
+    :math:`\partial\gamma'/\partial\gamma = f^{-\delta}`,
+    :math:`\partial\gamma'/\partial\delta = -\gamma f^{-\delta}\ln f`.
+    """
+    settings = {k: v * f if k in ("threshold", "scale", "midpoint", "spread") else v
+                for k, v in spec.shape_settings.items()}
+    coef, cov = np.array(spec.shape_coef), np.array(spec.shape_cov)
+    if spec.model == "saturating-exponential":
+        _, g, d = coef
+        jac = np.eye(3)
+        jac[1, 1] = f ** -d
+        jac[1, 2] = -g * f ** -d * math.log(f)
+        coef = np.array([coef[0], g * f ** -d, d])
+        cov = jac @ cov @ jac.T
+    return {"shape_settings": settings, "shape_coef": tuple(float(v) for v in coef),
+            "shape_cov": tuple(tuple(float(v) for v in row) for row in cov)}
+
+
+#: Exposure parameters that are doses (the rest are dimensionless).
+DOSE_PARAMETERS = ("gm", "mean", "sd", "scale")
+
+
+def convert_exposure(spec: ExposureSpec, conv: Conversion, unit: str | None) -> ExposureSpec:
+    """Every exposure value of ``spec`` in the analysis unit."""
+    if conv.factor == 1.0:
+        return dataclasses.replace(spec, unit=unit)
+    f = conv.factor
+    changes: dict[str, Any] = {"unit": unit, "notes": spec.notes + (conv.note,)}
+    if spec.measurements is not None:
+        changes["measurements"] = _scaled(spec.measurements, f, "values")
+    if spec.bins is not None:
+        changes["bins"] = _scaled(spec.bins, f, "lower", "upper")
+    if spec.histories is not None:
+        changes["histories"] = _scaled(spec.histories, f, "intensity")
+    if spec.values is not None:
+        every = spec.source == "percentiles"
+        changes["values"] = {k: v * f if every or k in DOSE_PARAMETERS else v
+                             for k, v in spec.values.items()}
+    return dataclasses.replace(spec, **changes)
+
+
+def convert_burden(table: BurdenTable, conv: Conversion) -> BurdenTable:
+    """Per-stratum exposure columns in the analysis unit (they are written
+    in the unit of ``[exposure]``)."""
+    if conv.factor == 1.0:
+        return table
+    exposure = tuple(None if e is None else
+                     {k: v * conv.factor if k in DOSE_PARAMETERS else v for k, v in e.items()}
+                     for e in table.exposure)
+    return dataclasses.replace(table, exposure=exposure)

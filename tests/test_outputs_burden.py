@@ -1,0 +1,313 @@
+"""Report, figures and CSV for uncertainty, attributable cases by stratum
+and scenario, the width of the interval by source, and several outcomes
+side by side (issue 5).
+
+Results come from the real pipeline on invented inputs. What is drawn and
+printed must equal the numbers in the results object; the percentile
+interval and the histogram are recomputed from the draws with numpy
+(reference library), and the totals are checked against their definitions
+in the issue (total PAF = total attributable / total cases).
+"""
+
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+from test_outputs_cases import (  # noqa: E402
+    STRATA,
+    STRATA_2,
+    STUDY,
+    UNIT,
+    html_tables,
+    measurements_csv,
+    run_pipeline,
+    table_with,
+)
+from test_outputs_tables import as_csv  # noqa: E402
+
+from doseattr.outputs import gallery, tables  # noqa: E402
+from doseattr.outputs.burden_report import cases  # noqa: E402
+from doseattr.outputs.markup import estimate_text, interval, pct  # noqa: E402
+from doseattr.outputs.records import estimate_of  # noqa: E402
+from doseattr.outputs.report import render_report  # noqa: E402
+
+DRAWS = 200
+SCENARIOS = [{"name": "Cap 40", "cap": 40.0}, {"name": "Cut <25%>", "scale": 0.75}]
+STUDY_2 = """\
+lower,upper,rr,ci_lower,ci_upper,cases,controls
+0,10,1,,,80,400
+10,20,1.30,0.95,1.78,70,250
+20,40,1.75,1.25,2.45,66,180
+40,,2.60,1.70,3.98,40,70
+"""
+
+
+def base(**more) -> dict:
+    return {"unit": UNIT, "exposure": {"table": "values.csv", "family": "lognormal"},
+            "attribution": {"minimum_risk": [3.0, 7.0]}, "scenario": SCENARIOS,
+            "uncertainty": {"draws": DRAWS, "seed": 7}, **more}
+
+
+CURVE = {"table": "study.csv", "design": "case-control", "model": "log-linear"}
+
+
+@pytest.fixture(scope="module")
+def single(tmp_path_factory):
+    """One curve, strata with cases (two with their own exposure)."""
+    folder = tmp_path_factory.mktemp("single")
+    return run_pipeline(folder, base(curve=CURVE, burden={"table": "strata.csv"}),
+                        {"study.csv": STUDY, "values.csv": measurements_csv(),
+                         "strata.csv": STRATA})
+
+
+@pytest.fixture(scope="module")
+def outcomes(tmp_path_factory):
+    """Two outcomes, each with its own curve and strata."""
+    folder = tmp_path_factory.mktemp("outcomes")
+    return run_pipeline(folder, base(outcome=[
+        {"name": "Bronchitis", "curve": CURVE, "burden": {"table": "strata.csv"}},
+        {"name": "Asthma & wheeze", "curve": {**CURVE, "table": "study2.csv"},
+         "burden": {"table": "strata2.csv"}}]),
+        {"study.csv": STUDY, "study2.csv": STUDY_2, "values.csv": measurements_csv(),
+         "strata.csv": STRATA, "strata2.csv": STRATA_2})
+
+
+@pytest.fixture(autouse=True)
+def _close_figures():
+    yield
+    plt.close("all")
+
+
+def test_estimate_of_reads_both_layouts():
+    """A fraction as an estimate object, or as a number with its interval
+    beside it (``paf`` and ``paf_interval``)."""
+    est = {"estimate": 0.1, "lower": 0.05, "upper": 0.2, "mcse": 0.001}
+    assert estimate_of({"paf": est}, "paf") == est
+    assert estimate_of({"paf": 0.1, "paf_interval": est}, "paf") == est
+    assert estimate_of({"paf": 0.1}, "paf") == {"estimate": 0.1}
+    assert estimate_of({}, "paf") is None
+
+
+def test_paf_draws_histogram(single):
+    """The histogram holds every draw of results.propagation (40 bins, as
+    numpy.histogram of the same draws in percent gives them); the marked
+    limits are the 2.5th and 97.5th percentiles, which numpy.percentile of
+    the draws reproduces."""
+    draws = np.asarray(single.propagation.paf[0], float)
+    assert draws.shape == (DRAWS,)
+    ax = gallery._paf_draws(single).axes[0]
+    bars = [p for p in ax.patches if p.get_gid() == "draws-hist"]
+    counts, _ = np.histogram(100 * draws, bins=40)
+    np.testing.assert_array_equal([p.get_height() for p in bars], counts)
+    lo, hi = np.percentile(draws, [2.5, 97.5])
+    assert single.paf.lower == pytest.approx(lo, rel=1e-12)
+    assert single.paf.upper == pytest.approx(hi, rel=1e-12)
+    vlines = sorted(ln.get_xdata()[0] for ln in ax.get_lines())
+    np.testing.assert_allclose(vlines, sorted(100 * np.array([lo, single.paf.estimate, hi])),
+                               rtol=1e-12)
+
+
+def whiskers(ax, prefix):
+    """``[(lower, upper)]`` of the interval whiskers, top bar first."""
+    coll = [c for c in ax.collections if c.get_gid() == f"{prefix}-whiskers"]
+    assert len(coll) == 1
+    segs = sorted(coll[0].get_segments(), key=lambda s: -s[0][1])
+    return [(s[0][0], s[1][0]) for s in segs]
+
+
+def bar_widths(ax, prefix):
+    bars = sorted((p for p in ax.patches if p.get_gid() == f"{prefix}-bars"),
+                  key=lambda p: -p.get_y())
+    return [p.get_width() for p in bars]
+
+
+def test_burden_figure_bars_and_whiskers(outcomes):
+    """One row per outcome: attributable cases per stratum with their
+    interval (left); all attributable and each scenario's averted cases in
+    total with intervals (right). Every number is the results'."""
+    d = outcomes.to_dict()
+    figure = gallery._burden(d)
+    axes = [ax for ax in figure.axes if ax.get_visible()]
+    assert len(axes) == 4
+    for (left, right), o in zip(zip(axes[::2], axes[1::2]), d["outcomes"]):
+        strata = o["burden"]["strata"]
+        assert o["name"] in left.get_title()
+        assert [t.get_text() for t in left.get_yticklabels()] == [s["stratum"] for s in strata]
+        assert bar_widths(left, "strata") == [s["attributable"]["estimate"] for s in strata]
+        assert whiskers(left, "strata") == [(s["attributable"]["lower"],
+                                             s["attributable"]["upper"]) for s in strata]
+        total = o["burden"]["total"]
+        expected = [total["attributable"]] + [s["averted"] for s in total["scenarios"]]
+        assert bar_widths(right, "scenario") == [e["estimate"] for e in expected]
+        assert whiskers(right, "scenario") == [(e["lower"], e["upper"]) for e in expected]
+        assert [t.get_text() for t in right.get_yticklabels()][1:] == [
+            s["name"] for s in SCENARIOS]
+
+
+def test_strata_table_with_intervals(single):
+    """Cases, attributable cases and PAF with their intervals, per stratum
+    and in total; the total PAF is the total attributable over the total
+    cases (definition in the issue), and the totals' point estimates are the
+    sums of the strata's."""
+    d = single.to_dict()
+    b = d["burden"]
+    html = render_report(single, figures=False)
+    header, rows = table_with(html, "attributable cases by stratum")
+    assert header == ["Stratum", "Cases", "Attributable cases", "95% interval", "PAF",
+                      "95% interval"]
+    for row, s in zip(rows, b["strata"] + [{**b["total"], "stratum": "Total"}]):
+        att, paf = s["attributable"], estimate_of(s, "paf")
+        assert row == [s["stratum"], cases(s["cases"]), cases(att["estimate"]),
+                       interval(att["lower"], att["upper"], cases), pct(paf["estimate"]),
+                       interval(paf["lower"], paf["upper"])]
+        assert paf["lower"] < paf["estimate"] < paf["upper"]
+    t = b["total"]
+    assert t["attributable"]["estimate"] == pytest.approx(
+        sum(s["attributable"]["estimate"] for s in b["strata"]), rel=1e-12)
+    assert estimate_of(t, "paf")["estimate"] == pytest.approx(
+        t["attributable"]["estimate"] / t["cases"], rel=1e-12)
+
+
+def test_scenario_table_by_stratum(single):
+    """Every stratum's PIF and cases averted per scenario, with intervals,
+    exactly as in the results; user text is escaped."""
+    d = single.to_dict()
+    html = render_report(single, figures=False)
+    header, rows = table_with(html, "cases averted by each scenario")
+    names = [s["name"] for s in SCENARIOS]
+    assert header == ["Stratum"] + [f"{n}: {w}" for n in names for w in ("PIF",
+                                                                          "cases averted")]
+    records = d["burden"]["strata"] + [{**d["burden"]["total"], "stratum": "Total"}]
+    for row, r in zip(rows, records):
+        expected = [r["stratum"]]
+        for s in r["scenarios"]:
+            expected += [estimate_text(s["pif"]), estimate_text(s["averted"], cases)]
+        assert row == expected
+    assert "Cut &lt;25%&gt;" in html and "Cut <25%>" not in html
+
+
+def test_every_fraction_table_has_intervals(single):
+    """Key numbers, the scenarios of the attribution section, the
+    uncertainty table and the continuous row of the categorical comparison
+    all carry the 95% interval of the results."""
+    d = single.to_dict()
+    html = render_report(single, figures=False)
+    paf = interval(d["paf"]["lower"], d["paf"]["upper"])
+    found = html_tables(html)
+    key = next(r for c, h, r in found if h[:2] == ["Quantity", "Estimate"])
+    assert key[0][2] == paf
+    for row, s in zip(key[1:], d["scenarios"]):
+        assert row[2] == interval(s["pif"]["lower"], s["pif"]["upper"])
+    _, rows = table_with(html, "Scenarios")
+    assert [r[3] for r in rows] == [interval(s["pif"]["lower"], s["pif"]["upper"])
+                                    for s in d["scenarios"]]
+    _, rows = table_with(html, "Categorical against continuous PAF")
+    assert rows[-1][1] == estimate_text(d["paf"])
+
+
+def test_width_by_source_table(single):
+    """One row per source varied alone, widest first, then all sources
+    together; the share is width / full width; with strata the interval of
+    the total attributable cases is beside it."""
+    d = single.to_dict()
+    unc = d["uncertainty"]
+    widths = sorted(unc["width_by_source"], key=lambda r: -r["width"])
+    assert {r["source"] for r in widths} == {"curve", "exposure", "minimum_risk"}
+    html = render_report(single, figures=False)
+    header, rows = table_with(html, "which input drives the width")
+    full = unc["width_all"]
+    for row, r in zip(rows, widths + [full]):
+        cells = dict(zip(header, row))
+        assert cells["95% interval of the PAF"] == interval(r["lower"], r["upper"])
+        assert cells["Share of the full width"] == f"{100 * r['width'] / full['width']:.0f}%"
+        assert cells["Attributable cases, 95% interval"] == interval(
+            r["attributable"]["lower"], r["attributable"]["upper"], cases)
+    assert rows[-1][0] == "all sources together"
+    # the full interval is the total PAF's (strata given), as in the burden table
+    total = estimate_of(d["burden"]["total"], "paf")
+    assert (full["lower"], full["upper"]) == pytest.approx((total["lower"], total["upper"]),
+                                                           rel=1e-12)
+    csv_rows = as_csv(tables.width_by_source_table(d))
+    assert [float(r["width"]) for r in csv_rows] == [r["width"] for r in unc["width_by_source"]]
+
+
+def test_outcomes_side_by_side(outcomes):
+    """One column per outcome holding that outcome's PAF, PIFs, cases and
+    attributable cases with intervals, exactly as in the results."""
+    d = outcomes.to_dict()
+    names = [o["name"] for o in d["outcomes"]]
+    html = render_report(outcomes, figures=False)
+    header, rows = table_with(html, "PAF, PIF and cases per outcome")
+    assert header == ["", *names]
+    row = {r[0]: r[1:] for r in rows}
+    assert row["PAF"] == [estimate_text(o["paf"]) for o in d["outcomes"]]
+    for s in SCENARIOS:
+        assert row[f"PIF, {s['name']}"] == [
+            estimate_text(next(x["pif"] for x in o["scenarios"] if x["name"] == s["name"]))
+            for o in d["outcomes"]]
+    totals = [o["burden"]["total"] for o in d["outcomes"]]
+    assert row["Attributable cases"] == [estimate_text(t["attributable"], cases) for t in totals]
+    assert row["Cases (all strata)"] == [cases(t["cases"]) for t in totals]
+    # one stratum table per outcome
+    for n in names:
+        table_with(html, f"{n}: attributable cases by stratum")
+    # each outcome's own width-by-source table
+    assert len([c for c, _, _ in html_tables(html) if "which input drives" in c]) == 2
+
+
+def test_outcome_curves_side_by_side(outcomes):
+    """Each panel's line is that outcome's RR(x) (the curve object itself)."""
+    figure = gallery._outcome_curves(outcomes, UNIT)
+    axes = [ax for ax in figure.axes if ax.get_visible()]
+    assert len(axes) == len(outcomes.outcomes) == 2
+    for ax, (name, r) in zip(axes, outcomes.outcomes):
+        line = [ln for ln in ax.get_lines() if ln.get_gid() == "fitted-rr"][0]
+        np.testing.assert_allclose(line.get_ydata(), r.curve.rr(line.get_xdata()), rtol=1e-12)
+        assert name in ax.get_title() and pct(r.paf.estimate) in ax.get_title()
+
+
+def test_burden_csv_files(outcomes):
+    """burden.csv: one row per outcome and stratum plus the totals, the PAF
+    as estimate and limits; burden_scenarios.csv: one row per outcome,
+    stratum (and total) and scenario. Values are the results' exactly."""
+    d = outcomes.to_dict()
+    rows = as_csv(tables.burden_table(d))
+    n_rows = sum(len(o["burden"]["strata"]) + 1 for o in d["outcomes"])
+    assert len(rows) == n_rows
+    first = d["outcomes"][0]["burden"]["strata"][0]
+    paf = estimate_of(first, "paf")
+    assert float(rows[0]["paf_lower"]) == paf["lower"]
+    assert float(rows[0]["paf_estimate"]) == paf["estimate"]
+    assert float(rows[0]["attributable_upper"]) == first["attributable"]["upper"]
+    assert "scenarios" not in rows[0]
+    scen = as_csv(tables.burden_scenarios_table(d))
+    assert len(scen) == n_rows * len(SCENARIOS)
+    last = d["outcomes"][-1]["burden"]["total"]["scenarios"][-1]
+    assert scen[-1]["stratum"] == "total" and scen[-1]["scenario"] == last["name"]
+    assert float(scen[-1]["averted_estimate"]) == last["averted"]["estimate"]
+
+
+def test_each_outcomes_warnings_are_shown(outcomes):
+    """The top-level warnings are the first outcome's; every other
+    outcome's warnings must still reach the report's warning box, named by
+    outcome (and "no warnings" must not be claimed)."""
+    import dataclasses
+    from html import escape
+
+    name, second = outcomes.outcomes[1]
+    flagged = dataclasses.replace(second, warnings=second.warnings + ("fit <poor> here",))
+    r = dataclasses.replace(outcomes, outcomes=(outcomes.outcomes[0], (name, flagged)))
+    html = render_report(r, figures=False)
+    assert "No warnings were raised" not in html
+    box = html[html.index('<div class="warnings">'):]
+    box = box[:box.index("</div>")]
+    for w in flagged.warnings:
+        assert w not in outcomes.warnings
+        assert escape(f"{name}: {w}") in box
+    for w in outcomes.outcomes[0][1].warnings:  # already the top-level ones
+        assert escape(f"{outcomes.outcomes[0][0]}: {w}") not in html
