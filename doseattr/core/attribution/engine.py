@@ -49,7 +49,7 @@ LogRisk = Callable[[FloatArray, slice], FloatArray]
 #: Gauss-Legendre nodes per panel.
 NODES = 12
 #: Largest number of (draw x node) values held in memory at once.
-CHUNK_VALUES = 262_144
+CHUNK_VALUES = 32_768
 #: Probability mass the panels must recover before a result is trusted.
 MASS_TOLERANCE = 1e-9
 
