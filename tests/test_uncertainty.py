@@ -124,3 +124,15 @@ def test_empirical_bootstrap_interval_contains_point():
                      rng=np.random.default_rng(1), minimum_risk=(0.0, 0.0), sources=("exposure",))
     s = summarise(paf(curve, ex), prop.paf[0])
     assert s.lower < s.estimate < s.upper
+
+
+def test_poisson_draws_with_no_cases_keep_the_total_paf_finite():
+    """With tiny expected counts some Poisson draws have zero cases in every
+    stratum; the total PAF there is not a ratio of cases and falls back to
+    the stratum PAFs weighted by mean cases (here one stratum: its PAF)."""
+    curve = Curve(LinearExcess(), np.array([0.05]), np.array([[0.0001]]))
+    prop = propagate(curve, [Stratum("a", 0.3, gamma_exposure())], [], draws=300,
+                     rng=np.random.default_rng(2), minimum_risk=(0.0, 0.0), sources=("cases",))
+    assert np.any(prop.total_cases == 0)
+    assert np.all(np.isfinite(prop.total_paf))
+    assert prop.total_paf == pytest.approx(prop.paf[0], rel=1e-12)

@@ -76,13 +76,22 @@ class Propagation:
 
     @property
     def total_paf(self) -> FloatArray:
-        return self.total_attributable / self.total_cases
+        """Total attributable over total cases per draw. A draw whose
+        Poisson case counts are all zero has no such ratio; it gets the
+        stratum PAFs weighted by the mean case counts instead."""
+        return self._ratio(self.total_attributable, self.paf)
 
     def total_averted(self, name: str) -> FloatArray:
         return self.averted[name].sum(axis=0)
 
     def total_pif(self, name: str) -> FloatArray:
-        return self.total_averted(name) / self.total_cases
+        return self._ratio(self.total_averted(name), self.pif[name])
+
+    def _ratio(self, total: FloatArray, fraction: FloatArray) -> FloatArray:
+        cases = self.total_cases
+        mean = self.cases.mean(axis=1)
+        fallback = (fraction * mean[:, None]).sum(axis=0) / max(float(mean.sum()), 1e-300)
+        return np.where(cases > 0, total / np.where(cases > 0, cases, 1.0), fallback)
 
 
 def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scenario], *,
