@@ -10,6 +10,7 @@ from typing import Any
 from doseattr.analysis import schema
 from doseattr.analysis.schema import Context
 from doseattr.analysis.specs import ExposureSpec
+from doseattr.analysis.exposure_tables import read_tasks
 from doseattr.analysis.tables import read_bins, read_histories, read_measurements
 from doseattr.errors import InputError, ModelError
 
@@ -42,7 +43,7 @@ def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
             other = [k for k in modes[mode] if k != key][0]
             raise ctx.error(f"missing key '{key}' ({other} and {key} go together)",
                             "exposure", key)
-    for key in ("as_of", "lag_years"):
+    for key in ("as_of", "lag_years", "tasks"):
         if key in e and mode != "histories":
             raise ctx.error(f"'{key}' goes with histories = \"FILE.csv\"", "exposure", key)
     for key in ("detected", "weight"):
@@ -149,7 +150,13 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
     if "unexposed" in e:
         raise ctx.error("with work histories the unexposed share comes from workers with no "
                         "exposure before the cutoff; remove this key", "exposure", "unexposed")
-    histories = read_histories(path, path)
+    tasks = None
+    if "tasks" in e:
+        tasks_path = ctx.path(e["tasks"], "exposure", "tasks")
+        tasks = read_tasks(tasks_path, tasks_path)
+        notes.append(f"jobs with an empty intensity take the 8-hour TWA of their task samples "
+                     f"(sum of concentration x minutes / 480; {len(tasks.twa)} jobs sampled)")
+    histories = read_histories(path, path, tasks=tasks)
     if "lag_years" not in e:
         notes.append("lag_years not given: no lag (10 years is common practice for cancer "
                      "outcomes)")

@@ -77,11 +77,13 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
     return BinsTable(raw.source, lo_a, up_a, n_a, kind == "share")
 
 
-def read_histories(path: str | Path, source: str | None = None) -> HistoriesTable:
+def read_histories(path: str | Path, source: str | None = None, *,
+                   tasks: "TasksTable | None" = None) -> HistoriesTable:
     """Read work histories: columns ``worker``, ``start``, ``end`` (ISO dates;
     ``end`` is the first day no longer in the job) and ``intensity`` (an
     8-hour TWA, 0 or more). Refuses an end before its start and two jobs of
-    one worker that overlap."""
+    one worker that overlap. With ``tasks``, a job whose intensity cell is
+    empty takes the 8-hour TWA of its task samples."""
     raw = read_raw(path, source)
     require_columns(raw, ("worker", "start", "end", "intensity"), "a work-history table")
     workers, starts, ends, levels = [], [], [], []
@@ -93,7 +95,7 @@ def read_histories(path: str | Path, source: str | None = None) -> HistoriesTabl
         if end < start:
             raise cell_error(raw, row, "end", f"the job ends ({end}) before it starts ({start}); "
                         "dates are out of order")
-        c = number(raw, row, "intensity")
+        c = _intensity(raw, row, worker, start, tasks)
         if c < 0:
             raise cell_error(raw, row, "intensity", f"negative exposure {c:g}")
         workers.append(worker)
@@ -101,9 +103,70 @@ def read_histories(path: str | Path, source: str | None = None) -> HistoriesTabl
         ends.append(end)
         levels.append(c)
     _check_overlaps(raw, workers, starts, ends)
+    if tasks is not None:
+        _check_tasks_used(tasks, set(zip(workers, starts)))
     return HistoriesTable(raw.source, np.array(workers), np.array(starts, dtype="datetime64[D]"),
                           np.array(ends, dtype="datetime64[D]"), np.array(levels),
                           tuple(r.line for r in raw.rows))
+
+
+@dataclass(frozen=True, eq=False)
+class TasksTable:
+    """Task samples per job: the 8-hour TWA of each (worker, job start)
+    and the line of the first sample of each job."""
+
+    source: str
+    twa: dict
+    lines: dict
+
+
+def read_tasks(path: str | Path, source: str | None = None) -> TasksTable:
+    r"""Read task samples: columns ``worker``, ``start`` (the start date of
+    the job the samples describe), ``concentration`` and ``minutes`` (both
+    0 or more). Each job's intensity is the 8-hour TWA
+    :math:`\sum_i C_i t_i / 480` (core ``twa_8h``; common practice in
+    occupational hygiene, e.g. HSE EH40, from memory)."""
+    from doseattr.core.exposure.histories import twa_8h
+
+    raw = read_raw(path, source)
+    require_columns(raw, ("worker", "start", "concentration", "minutes"), "a task-sample table")
+    samples: dict = {}
+    lines: dict = {}
+    for row in raw.rows:
+        worker = row.cells["worker"]
+        if not worker:
+            raise cell_error(raw, row, "worker", "empty worker id")
+        key = (worker, _date(raw, row, "start"))
+        values = [number(raw, row, c) for c in ("concentration", "minutes")]
+        for column, v in zip(("concentration", "minutes"), values):
+            if v < 0:
+                raise cell_error(raw, row, column, f"{column} must be 0 or more, got {v:g}")
+        samples.setdefault(key, []).append(values)
+        lines.setdefault(key, row.line)
+    twa = {k: twa_8h([c for c, _ in v], [t for _, t in v]) for k, v in samples.items()}
+    return TasksTable(raw.source, twa, lines)
+
+
+def _intensity(raw: RawTable, row: Row, worker: str, start, tasks: TasksTable | None) -> float:
+    """The job's intensity: its cell, or the TWA of its task samples."""
+    given = number(raw, row, "intensity", required=tasks is None)
+    from_tasks = None if tasks is None else tasks.twa.get((worker, start))
+    if given is not None and from_tasks is not None:
+        raise cell_error(raw, row, "intensity", f"worker '{worker}', job from {start}: both an "
+                         f"intensity and task samples ({tasks.source}) are given; leave the "
+                         "cell empty to use the samples, or remove the samples")
+    if given is None and from_tasks is None:
+        raise cell_error(raw, row, "intensity", f"empty intensity and no task samples for "
+                         f"worker '{worker}', job from {start}")
+    return given if given is not None else from_tasks
+
+
+def _check_tasks_used(tasks: TasksTable, jobs: set) -> None:
+    for key, line in tasks.lines.items():
+        if key not in jobs:
+            raise InputError(f"task samples for worker '{key[0]}' and a job starting {key[1]}, "
+                             "but the work histories have no such job", source=tasks.source,
+                             location=f"row {line}, column 'start'")
 
 
 def _date(raw: RawTable, row: Row, column: str):

@@ -89,6 +89,7 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "percentiles": Key("table"),
         "bins": Key("path"),
         "histories": Key("path"),
+        "tasks": Key("path", help="task samples giving jobs' 8-hour TWA (with histories)"),
         "as_of": Key("text"),
         "lag_years": Key("number"),
         "detected": Key("text", help="name of the detected column"),
