@@ -309,6 +309,14 @@ def build_exposure(analysis: Analysis) -> BuiltExposure:
         with as_input_error(b.source, f"column '{'share' if b.shares else 'count'}'",
                             f"the {spec.family} distribution cannot be fitted: "):
             exposure = summary.fit_bins(family, b.lower, b.upper, b.counts)
+        if b.zero > 0:
+            if spec.unexposed:
+                raise InputError("the binned table has a row of people with no exposure; "
+                                 "remove the unexposed key (or that row)",
+                                 source=src, location=key_location("exposure", "unexposed"))
+            share = b.zero / (b.zero + float(b.counts.sum()))
+            return BuiltExposure(dataclasses.replace(exposure, unexposed=share), notes=(
+                f"unexposed share {share:.4g} from the table's no-exposure row (lower = upper = 0)",))
     elif spec.source == "percentiles":
         with as_input_error(src, key_location("exposure", "percentiles")):
             exposure = summary.from_percentiles(family, dict(spec.values))

@@ -24,6 +24,7 @@ class BinsTable:
     counts: FloatArray
     shares: bool
     notes: tuple[str, ...] = ()
+    zero: float = 0.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -41,7 +42,9 @@ class HistoriesTable:
 def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
     """Read exposure bands: columns ``lower``, ``upper`` (empty for an open
     top band) and ``count`` or ``share``; bands in order without overlap;
-    counts 0 or more; shares summing to 1 within 1e-6."""
+    counts 0 or more; shares summing to 1 within 1e-6. A row with lower and
+    upper both 0 counts the people with no exposure at all (the unexposed
+    share); it must come first."""
     raw = read_raw(path, source)
     require_columns(raw, ("lower", "upper"), "a binned exposure table")
     kind = next((c for c in ("count", "share") if c in raw.columns), None)
@@ -49,13 +52,22 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
         raise InputError("missing column 'count' or 'share' (a binned exposure table needs one "
                          "of them)", source=raw.source, location="column 'count'")
     lower, upper, n = [], [], []
-    for row in raw.rows:
+    zero = 0.0
+    for i, row in enumerate(raw.rows):
         lo = number(raw, row, "lower")
         if lo < 0:
             raise cell_error(raw, row, "lower",
                              f"negative exposure {lo:g}; limits must be 0 or more")
         up = number(raw, row, "upper", required=False)
         up = math.inf if up is None else up
+        if lo == 0 and up == 0:
+            if i > 0:
+                raise cell_error(raw, row, "upper", "the row of people with no exposure "
+                                 "(lower and upper 0) must be the first row")
+            zero = number(raw, row, kind)
+            if zero < 0:
+                raise cell_error(raw, row, kind, f"{kind} must be 0 or more, got {zero:g}")
+            continue
         if up <= lo:
             raise cell_error(raw, row, "upper", f"upper limit {up:g} is not above the lower limit "
                         f"{lo:g}")
@@ -67,14 +79,17 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
         n.append(v)
     lo_a, up_a, n_a = np.array(lower), np.array(upper), np.array(n)
     check_band_order(raw, lo_a, up_a)
-    if kind == "share" and abs(n_a.sum() - 1.0) > 1e-6:
-        raise InputError(f"shares sum to {n_a.sum():.8g}, not 1 (within 1e-6); give shares as "
+    if kind == "share" and abs(n_a.sum() + zero - 1.0) > 1e-6:
+        raise InputError(f"shares sum to {n_a.sum() + zero:.8g}, not 1 (within 1e-6); give shares as "
                          "fractions that add up to 1, or counts in a 'count' column",
                          source=raw.source, location="column 'share'")
     if np.sum(n_a > 0) < 3:
         raise InputError(f"only {int(np.sum(n_a > 0))} bands hold anyone; at least 3 are needed "
                          "to fit a distribution", source=raw.source, location=f"column '{kind}'")
-    return BinsTable(raw.source, lo_a, up_a, n_a, kind == "share")
+    if zero >= zero + n_a.sum():
+        raise InputError("everyone is in the no-exposure row; nothing to fit", source=raw.source,
+                         location=f"column '{kind}'")
+    return BinsTable(raw.source, lo_a, up_a, n_a, kind == "share", zero=zero)
 
 
 def read_histories(path: str | Path, source: str | None = None, *,
