@@ -101,13 +101,21 @@ def test_ks_with_one_detection_limit_uses_the_conditional_distribution():
     assert gof["n"] == int(d.sum())
 
 
-def test_gof_skipped_with_several_limits_or_weights():
-    """Source: documented limitation (no standard KS test applies)."""
+def test_gof_falls_back_to_ppcc_with_several_limits_or_weights():
+    """No standard KS test applies with several limits or unequal weights
+    (documented); the PPCC is reported instead, without a p-value; for
+    weights it equals numpy.corrcoef of ln x with ln scipy ppf at the
+    Weibull positions rank/(n + 1) (no censoring)."""
     values, detected = DATASETS[1]
-    assert goodness_of_fit(fit_measurements("lognormal", values, detected=detected))["test"] is None
+    several = goodness_of_fit(fit_measurements("lognormal", values, detected=detected))
+    assert several["test"] == "probability plot correlation" and several["p_value"] is None
     x = np.array([1.0, 2.0, 3.5, 5.0, 8.0])
     weighted = fit_measurements("lognormal", x, weights=[1, 2, 1, 2, 1])
-    assert "weighted" in goodness_of_fit(weighted)["note"]
+    res = goodness_of_fit(weighted)
+    assert "weighted" in res["note"]
+    q = weighted.family.scipy(weighted.params).ppf(np.arange(1, 6) / 6)
+    np.testing.assert_allclose(res["statistic"], np.corrcoef(np.log(q), np.log(x))[0, 1],
+                               rtol=1e-10)
     with pytest.raises(ModelError, match="not fitted to measurements"):
         goodness_of_fit(from_gm_gsd(2.0, 2.0))
 
@@ -123,3 +131,24 @@ def test_qq_points():
     np.testing.assert_allclose(theo, e.family.scipy(e.params).ppf(ref[order, 2]), rtol=1e-10)
     np.testing.assert_allclose(np.sort(obs[mask]), np.sort(values[detected]))
     assert np.all(np.diff(theo) >= 0) and mask.sum() == detected.sum()
+
+
+def test_ppcc_with_several_limits_matches_statsmodels_positions():
+    """With several detection limits the goodness of fit is the probability
+    plot correlation coefficient (Filliben 1975, from memory): the Pearson
+    correlation (numpy.corrcoef) of ln(detected values) with ln of the
+    fitted quantiles (scipy.stats ppf) at their ROS plotting positions,
+    the positions here from statsmodels.imputation.ros."""
+    from doseattr.core.exposure.fit import fit_measurements
+    from doseattr.core.exposure.gof import goodness_of_fit
+    from doseattr.core.exposure.registry import FAMILIES
+
+    values, detected = DATASETS[1]
+    ex = fit_measurements(FAMILIES["lognormal"], values, detected=detected)
+    res = goodness_of_fit(ex)
+    rows = statsmodels_positions(values, ~detected)
+    det = rows[:, 1] == 0
+    q = ex.family.scipy(ex.params).ppf(rows[det, 2])
+    expected = np.corrcoef(np.log(q), np.log(rows[det, 0]))[0, 1]
+    assert res["test"] == "probability plot correlation" and res["p_value"] is None
+    np.testing.assert_allclose(res["statistic"], expected, rtol=1e-10)

@@ -482,7 +482,8 @@ class Results:
         return [{"family": fam.name,
                  "parameters": _params(dict(zip(fam.param_names, np.asarray(params, float)))),
                  "loglik": _num(getattr(fit, "loglik", None)),
-                 "aic": _num(getattr(fit, "aic", None))} for fam, params, fit in tried]
+                 "aic": _num(getattr(fit, "aic", None)),
+                 "goodness_of_fit": _gof(fit)} for fam, params, fit in tried]
 
     def _exposure_dict(self) -> dict[str, Any]:
         ex = self.exposure
@@ -501,6 +502,7 @@ class Results:
             "censored": int(fit.censored) if has_data else None,
             "loglik": None if fit is None else _num(fit.loglik),
             "aic": None if fit is None else _num(fit.aic),
+            "goodness_of_fit": _gof(fit),
             "fits": self._fits_list(),
             "substitution": [v.to_dict() for v in self.substitution],
             "notes": list(ex.notes),
@@ -608,3 +610,14 @@ def _pct(v: float | None) -> str:
 
 def _g(v: float | None) -> str:
     return "-" if v is None else f"{v:.4g}"
+
+
+def _gof(fit: Any) -> dict[str, Any] | None:
+    """The fit's goodness-of-fit record (test, statistic, p_value, n, note),
+    or ``None`` when the distribution was not fitted to measurements."""
+    gof = getattr(fit, "gof", None)
+    if not gof:
+        return None
+    return {"test": gof.get("test"), "statistic": _num(gof.get("statistic")),
+            "p_value": _num(gof.get("p_value")), "n": int(gof.get("n") or 0),
+            "note": gof.get("note")}

@@ -50,6 +50,8 @@ def exposure_section(d: dict, images: dict) -> str:
                                       f"{e.get('censored', NA)} below a detection limit)"))
     if e.get("loglik") is not None:
         facts.append(("Log-likelihood / AIC", f"{num(e['loglik'], 6)} / {num(e.get('aic'), 6)}"))
+    if gof_text(e.get("goodness_of_fit")):
+        facts.append(("Goodness of fit (detected values)", gof_text(e["goodness_of_fit"])))
     parts = [definition_list(facts)]
     if empirical:
         parts.append(para(EMPIRICAL_TEXT))
@@ -126,7 +128,7 @@ def families_table(d: dict) -> str:
         used = name == e["family"]
         rows.append([name + (" (used)" if used else ""),
                      params_inline(f.get("parameters") or c.get("parameters"), unit),
-                     num(f.get("loglik"), 6), num(aic, 6),
+                     num(f.get("loglik"), 6), num(aic, 6), gof_text(f.get("goodness_of_fit")) or NA,
                      NA if aic is None or best is None else num(aic - best, 3),
                      pct(paf), NA if used or paf is None else signed_points(paf - main),
                      c.get("problem") or ""])
@@ -138,7 +140,7 @@ def families_table(d: dict) -> str:
                    "under each (point estimates)")
     else:
         caption = "PAF under each description of the measurements (point estimates)"
-    header = ["Family", "Parameters", "Log-likelihood", "AIC", "\u0394AIC", "PAF",
+    header = ["Family", "Parameters", "Log-likelihood", "AIC", "Goodness of fit", "\u0394AIC", "PAF",
               "Difference from the PAF used", "Note"]
     if not any(r[-1] for r in rows):
         header, rows = header[:-1], [r[:-1] for r in rows]
@@ -192,3 +194,13 @@ def workers_block(d: dict, images: dict) -> str:
             f"workers.csv): from {with_unit(values[0], unit)} to {with_unit(values[-1], unit)}.")
     return para(text) + image(images.get("workers"),
                               "Histogram of the workers' cumulative exposure.")
+
+
+def gof_text(g: dict | None) -> str:
+    """``"Kolmogorov-Smirnov D = 0.081 (p = 0.62, approximate)"`` or
+    ``"probability plot correlation r = 0.983"``; empty when not computed."""
+    if not g or not g.get("test") or g.get("statistic") is None:
+        return ""
+    if g["test"] == "Kolmogorov-Smirnov":
+        return f"Kolmogorov-Smirnov D = {g['statistic']:.3g} (p = {g['p_value']:.2g}, approximate)"
+    return f"{g['test']} r = {g['statistic']:.4g}"
