@@ -177,7 +177,10 @@ def categorical_section(d: dict, images: dict) -> str:
                   "(1 + \u03a3 p_i (RR_i \u2212 1)) treats everyone in a band as sharing one RR. "
                   "Below, the band RRs are taken from the study where its own bands are used, "
                   "from the curve at each band's midpoint, and from the curve at each band's "
-                  "mean exposure under the fitted distribution."),
+                  "mean exposure under the fitted distribution. Band means here are over the "
+                  "whole population, so the first band's mean counts the unexposed at zero; "
+                  "the study-dose rule band-mean (if used for the curve) averages over the "
+                  "exposed only."),
              table(header, rows, caption="Bands"),
              table(["Method", "PAF", "Difference from continuous"],
                    [[METHOD_NAMES.get(m["method"], m["method"]), pct(m["paf"]),
