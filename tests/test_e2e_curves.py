@@ -11,46 +11,16 @@ scipy.stats densities, and scipy.stats.chi2.
 
 from __future__ import annotations
 
-import json
 import math
 import textwrap
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from doseattr.cli import main
+from e2e_helpers import run_api, run_cli
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats
-
-
-def run_cli(folder: Path, toml: str, tables: dict[str, str]) -> dict:
-    """Write the analysis and tables, run ``doseattr run --quiet``, return results.json."""
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in tables.items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    assert main(["run", str(path), "--out", str(folder / "out"), "--quiet"]) == 0
-    return json.loads((folder / "out" / "results.json").read_text())
-
-
-def run_api(folder: Path, toml: str, tables: dict[str, str]) -> dict:
-    """The same analysis through the Python API the command line wraps
-    (load_analysis -> run_analysis -> to_dict, JSON round trip), without
-    rendering figures: test_e2e_determinism.py checks that results.json
-    written by ``doseattr run`` equals this dictionary, and this keeps the
-    suite's run time down."""
-    from doseattr.analysis.config import load_analysis
-    from doseattr.analysis.pipeline import run_analysis
-
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in tables.items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    return json.loads(json.dumps(run_analysis(load_analysis(path)).to_dict()))
 
 
 def paf_by_quad(rr_m, dist, kinks) -> float:

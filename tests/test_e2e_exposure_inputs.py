@@ -10,54 +10,15 @@ scipy.integrate.quad.
 from __future__ import annotations
 
 import csv
-import json
 import math
-import textwrap
 import warnings
 from datetime import date, timedelta
-from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import stats
 
-from doseattr.cli import main
-
-
-def run_cli(folder: Path, toml: str, tables: dict[str, str]) -> dict:
-    """Write the analysis and tables, run ``doseattr run --quiet``, return results.json."""
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in tables.items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    assert main(["run", str(path), "--out", str(folder / "out"), "--quiet"]) == 0
-    return json.loads((folder / "out" / "results.json").read_text())
-
-
-def run_api(folder: Path, toml: str, tables: dict[str, str]) -> dict:
-    """The same analysis through the Python API the command line wraps
-    (load_analysis -> run_analysis -> to_dict, JSON round trip), without
-    rendering figures: test_e2e_determinism.py checks that results.json
-    written by ``doseattr run`` equals this dictionary, and this keeps the
-    suite's run time down."""
-    from doseattr.analysis.config import load_analysis
-    from doseattr.analysis.pipeline import run_analysis
-
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in tables.items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    return json.loads(json.dumps(run_analysis(load_analysis(path)).to_dict()))
-
-
-def expect_excess(excess, dist, kinks) -> float:
-    """E[excess(X)] by scipy.integrate.quad, split at the kinks."""
-    pts = sorted({0.0, *kinks})
-    return sum(integrate.quad(lambda x: excess(x) * dist.pdf(x), a, b, epsabs=0,
-                              epsrel=1e-12, limit=400)[0]
-               for a, b in zip(pts, pts[1:] + [math.inf]))
+from e2e_helpers import expect_excess, run_api, run_cli
 
 
 # ======================================================================================

@@ -19,37 +19,20 @@ an entered curve beyond ``max_dose``.
 
 from __future__ import annotations
 
-import json
 import math
-import textwrap
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
 
-from doseattr.cli import main
+from e2e_helpers import run_cli
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats: the 97.5th normal percentile used by 95% CIs
 QUAD_RTOL = 1e-7  # the engine vs scipy.integrate.quad (issue 2 promises 1e-8; quad's own error is ~1e-11)
 
 
 # -- running the command line -------------------------------------------------------
-def run_cli(folder: Path, toml: str, tables: dict[str, str] | None = None) -> dict:
-    """Write ``analysis.toml`` and the tables into ``folder``, run
-    ``doseattr run ... --out folder/out --quiet`` and return results.json."""
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in (tables or {}).items():
-        (folder / name).write_text(text)
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    out = folder / "out"
-    code = main(["run", str(path), "--out", str(out), "--quiet"])
-    assert code == 0, f"doseattr run exited {code}"
-    return json.loads((out / "results.json").read_text())
-
-
 def csv_text(header: list[str], rows: list[list]) -> str:
     lines = [",".join(header)]
     for row in rows:

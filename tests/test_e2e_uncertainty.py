@@ -8,55 +8,15 @@ scipy.stats densities, from the normal distribution's percentiles
 
 from __future__ import annotations
 
-import json
 import math
-import textwrap
-from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import stats
 
-from doseattr.cli import main
+from e2e_helpers import expect_excess, run_api, run_cli
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats
-
-
-def run_cli(folder: Path, toml: str, tables: dict[str, str] | None = None) -> dict:
-    """Write the analysis and tables, run ``doseattr run --quiet``, return results.json."""
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in (tables or {}).items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    code = main(["run", str(path), "--out", str(folder / "out"), "--quiet"])
-    assert code == 0
-    return json.loads((folder / "out" / "results.json").read_text())
-
-
-def run_api(folder: Path, toml: str, tables: dict[str, str]) -> dict:
-    """The same analysis through the Python API the command line wraps
-    (load_analysis -> run_analysis -> to_dict, JSON round trip), without
-    rendering figures: test_e2e_determinism.py checks that results.json
-    written by ``doseattr run`` equals this dictionary, and this keeps the
-    suite's run time down."""
-    from doseattr.analysis.config import load_analysis
-    from doseattr.analysis.pipeline import run_analysis
-
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in tables.items():
-        (folder / name).write_text(textwrap.dedent(text))
-    path = folder / "analysis.toml"
-    path.write_text(textwrap.dedent(toml))
-    return json.loads(json.dumps(run_analysis(load_analysis(path)).to_dict()))
-
-
-def expect_excess(excess, dist, kinks) -> float:
-    """E[excess(X)] by scipy.integrate.quad, split at the kinks."""
-    pts = sorted({0.0, *kinks})
-    return sum(integrate.quad(lambda x: excess(x) * dist.pdf(x), a, b, epsabs=0,
-                              epsrel=1e-12, limit=400)[0]
-               for a, b in zip(pts, pts[1:] + [math.inf]))
 
 
 def estimate(v):
