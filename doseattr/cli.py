@@ -3,31 +3,49 @@
 ::
 
     doseattr run ANALYSIS.toml --out DIR [--quiet]
+    doseattr check ANALYSIS.toml
     doseattr demo --out DIR [--quiet]
 
 Every error this package raises on purpose is caught in :func:`main`, and
 only there: it prints ``doseattr: error: <file>: <location>: <message>`` on
-standard error and returns 2. The analysis is read, checked and computed in
-full before anything is written, and the writer moves its files into place
-only when all of them exist, so a failed run leaves ``DIR`` untouched.
+standard error and returns 2. ``DIR`` is checked before anything is
+computed (it must be new, empty or hold a previous doseattr run; see
+:mod:`doseattr.outputs.write`), and the writer swaps a complete run in only
+at the end, so a failed or interrupted run leaves ``DIR`` as it was.
+SIGINT and SIGTERM print one line and return 130 and 143 (128 + signal
+number, the shell convention); any other exception is a bug and prints one
+``internal error`` line, status 1.
 """
 
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
-from contextlib import ExitStack, nullcontext
+import threading
+from contextlib import ExitStack, contextmanager, nullcontext
 from importlib import resources
 from pathlib import Path
-from typing import Sequence
+from typing import Iterator, Sequence
 
 from doseattr import __version__
 from doseattr.errors import DoseattrError, InputError
 
 EXIT_OK = 0
+EXIT_BUG = 1
 EXIT_ERROR = 2
 DEMO_PACKAGE = "doseattr.demo"
 DEMO_FILE = "analysis.toml"
+STOP_SIGNALS = ("SIGINT", "SIGTERM")
+
+
+class Stopped(BaseException):
+    """Raised by the signal handlers: a BaseException so that no ``except
+    Exception`` on the way swallows it, and every writer cleans up."""
+
+    def __init__(self, signum: int) -> None:
+        self.signum = signum
+        super().__init__(signal.Signals(signum).name)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -43,6 +61,10 @@ def build_parser() -> argparse.ArgumentParser:
                                      "tables and report.html into the folder --out.")
     run.add_argument("analysis", metavar="ANALYSIS.toml", help="the analysis file")
     _common(run)
+    check = sub.add_parser("check", help="check an analysis file without computing",
+                           description="Read and check ANALYSIS and its tables as run would, "
+                                       "print what each section will compute, write nothing.")
+    check.add_argument("analysis", metavar="ANALYSIS.toml", help="the analysis file")
     demo = sub.add_parser("demo", help="run the bundled demo analysis (invented numbers)",
                           description="Run the bundled demo analysis, a fictional town and "
                                       "study with invented numbers, and write its outputs.")
@@ -52,32 +74,49 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", required=True, metavar="DIR",
-                   help="output folder (created if missing; nothing is written on error)")
+                   help="output folder: new, empty, or holding a previous doseattr run "
+                        "(replaced as a whole); nothing is written on error")
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; return the exit status (0 ok, 2 error)."""
+    """Run the command line; return the exit status (0 ok, 2 error, 1 bug,
+    130/143 stopped by SIGINT/SIGTERM)."""
+    argv = list(sys.argv[1:] if argv is None else argv)
     args = build_parser().parse_args(argv)
     try:
-        with ExitStack() as stack:
+        with _stop_on_signals(), ExitStack() as stack:
+            if args.command == "check":
+                return _check(args.analysis)
             path = (args.analysis if args.command == "run"
                     else str(stack.enter_context(_demo_file())))
-            return _run(path, args.out, quiet=args.quiet)
+            return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv])
     except DoseattrError as exc:
         print(f"doseattr: error: {_line(exc)}", file=sys.stderr)
         return EXIT_ERROR
+    except (Stopped, KeyboardInterrupt) as exc:
+        signum = exc.signum if isinstance(exc, Stopped) else signal.SIGINT
+        name = signal.Signals(signum).name
+        print(f"doseattr: stopped by {name}; no partial outputs were left", file=sys.stderr)
+        return 128 + int(signum)
+    except Exception as exc:  # a bug: one line instead of a traceback
+        message = " ".join(str(exc).split())
+        print(f"doseattr: internal error: {type(exc).__name__}: {message} (please report "
+              "this)", file=sys.stderr)
+        return EXIT_BUG
 
 
-def _run(path: str, out: str, *, quiet: bool) -> int:
+def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     from doseattr.analysis.config import load_analysis
     from doseattr.analysis.pipeline import run_analysis
-    from doseattr.outputs.write import write_outputs
+    from doseattr.analysis.provenance import protected_paths
+    from doseattr.outputs.write import check_destination, write_outputs
 
     analysis = load_analysis(path)
+    check_destination(out, protected_paths(analysis))  # before minutes of computing
     results = run_analysis(analysis, progress=not quiet)
     try:
-        written = write_outputs(results, out)
+        written = write_outputs(results, out, command=command)
     except OSError as exc:
         raise InputError(f"cannot write the outputs: {exc.strerror or exc}", source=out,
                          location="--out") from None
@@ -85,6 +124,37 @@ def _run(path: str, out: str, *, quiet: bool) -> int:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")
     return EXIT_OK
+
+
+def _check(path: str) -> int:
+    from doseattr.analysis.check import check_analysis
+    from doseattr.analysis.config import load_analysis
+
+    for line in check_analysis(load_analysis(path)):
+        print(line)
+    return EXIT_OK
+
+
+@contextmanager
+def _stop_on_signals() -> Iterator[None]:
+    """SIGINT and SIGTERM raise :class:`Stopped` for the block's duration
+    (only in the main thread, where Python runs handlers)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = {}
+    for name in STOP_SIGNALS:
+        signum = getattr(signal, name)
+        previous[signum] = signal.signal(signum, _raise_stopped)
+    try:
+        yield
+    finally:
+        for signum, handler in previous.items():
+            signal.signal(signum, handler)
+
+
+def _raise_stopped(signum: int, frame: object) -> None:
+    raise Stopped(signum)
 
 
 def _demo_file():

@@ -183,11 +183,11 @@ def test_failure_midway_leaves_nothing(results, tmp_path, monkeypatch):
     assert list(tmp_path.iterdir()) == []
 
 
-def test_failure_midway_leaves_existing_folder_unchanged(results, tmp_path, monkeypatch):
+def test_failure_midway_leaves_previous_run_unchanged(results, tmp_path, monkeypatch):
+    """A previous run in the folder stays byte for byte when the next run
+    fails while drawing; no temporary or backup folder is left."""
     out = tmp_path / "out"
-    out.mkdir()
-    (out / "notes.txt").write_text("mine")
-    (out / "results.json").write_text("{\"old\": true}")
+    write_outputs(results, out, figures=False)
     before = _snapshot(out)
     monkeypatch.setattr(figure_module, "plot_categorical", _fail)
     with pytest.raises(RuntimeError):
@@ -207,15 +207,18 @@ def test_failure_in_report_leaves_nothing(results, tmp_path, monkeypatch):
     assert not out.exists() and list(tmp_path.iterdir()) == []
 
 
-def test_existing_folder_keeps_user_files(results, tmp_path):
+def test_existing_folder_with_user_files_is_refused(results, tmp_path):
+    """A folder holding files doseattr did not write is refused, naming the
+    first such file, and nothing in it changes (issue 8: no overwriting a
+    user's results.json)."""
     out = tmp_path / "out"
     out.mkdir()
     (out / "notes.txt").write_text("mine")
     (out / "results.json").write_text("{\"old\": true}")
-    paths = write_outputs(results, out, figures=False)
-    assert (out / "notes.txt").read_text() == "mine"
-    assert strict_json(out / "results.json") == results.to_dict()
-    assert out / "notes.txt" not in paths
+    before = _snapshot(out)
+    with pytest.raises(InputError, match="'notes.txt' was not written by doseattr"):
+        write_outputs(results, out, figures=False)
+    assert _snapshot(out) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
 
 

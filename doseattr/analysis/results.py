@@ -11,7 +11,10 @@ bug, and :func:`json_safe` refuses it rather than writing it.
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field
+from functools import cached_property
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -404,8 +407,41 @@ class Results:
             "warnings": list(self.warnings),
             "cautions": list(self.cautions),
             "notes": list(self.notes),
+            "provenance": self.provenance,
         }
         return json_safe(d)
+
+    @cached_property
+    def analysis_copy(self) -> tuple[str, bytes]:
+        """``(kind, bytes)`` of the analysis as read once for this result:
+        the file's bytes (``"file"``), or the canonical JSON of a dictionary
+        analysis (``"python-dict"``); hashed in ``provenance``."""
+        from doseattr.analysis.provenance import analysis_bytes
+
+        return analysis_bytes(self.analysis)
+
+    @cached_property
+    def provenance(self) -> dict[str, Any]:
+        """Versions, command (``"python-api"``), seed and the SHA-256 of the
+        analysis and its tables (:mod:`doseattr.analysis.provenance`)."""
+        from doseattr.analysis.provenance import provenance
+
+        return provenance(self.analysis, source=self.analysis_copy)
+
+    def write(self, out_dir: str | os.PathLike[str], *, figures: bool = True) -> list[Path]:
+        """Write results.json, the CSV tables, figures, report.html, a copy
+        of the analysis and manifest.json into ``out_dir``; return the files.
+
+        Same folder rules as ``doseattr run --out``: ``out_dir`` must be new,
+        empty, or hold only a previous doseattr run (checked against its
+        manifest.json), which is then replaced as a whole; a folder holding
+        any other file, the analysis file or one of its tables, the root or
+        the home folder is refused (:class:`~doseattr.errors.InputError`).
+        Nothing is changed when writing fails.
+        """
+        from doseattr.outputs.write import write_outputs  # the layer above, on use only
+
+        return write_outputs(self, out_dir, figures=figures)
 
     def _scenario_dict(self, s: ScenarioResult) -> dict[str, Any]:
         """One scenario; ``averted`` is the burden's total averted cases."""

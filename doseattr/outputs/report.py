@@ -242,6 +242,16 @@ def report_date() -> _dt.date:
     return _dt.date.today()
 
 
+def _analysis_hash(d: dict) -> str:
+    """`` · analysis SHA-256 1a2b3c4d5e6f`` (first 12 hex digits; the full
+    hash in the tooltip), or ``""`` without provenance."""
+    sha = (d.get("provenance") or {}).get("analysis_sha256")
+    if not sha:
+        return ""
+    return (f" \u00b7 analysis SHA-256 <code title='{escape(sha)}'>"
+            f"{escape(sha[:12])}</code>")
+
+
 def render_report(results: Any, *, images: dict[str, bytes] | None = None,
                   figures: bool = True, date: _dt.date | None = None,
                   data: dict | None = None) -> str:
@@ -294,5 +304,6 @@ def render_report(results: Any, *, images: dict[str, bytes] | None = None,
     return ("<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
             f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
             f"<title>{escape(title)}</title><style>{CSS}</style></head><body><main>"
-            f"<header><h1>{escape(title)}</h1><p class='meta'>{escape(meta)}</p></header>"
+            f"<header><h1>{escape(title)}</h1><p class='meta'>{escape(meta)}"
+            f"{_analysis_hash(d)}</p></header>"
             + "".join(sections) + "</main></body></html>\n")

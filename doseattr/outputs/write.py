@@ -1,12 +1,22 @@
-"""Write every output of an analysis into a folder, all or nothing.
+"""Write every output of an analysis into a folder doseattr owns, all or
+nothing.
 
-Everything (results.json, the CSV tables, the figures, report.html) is first
-produced in a hidden temporary folder next to ``out_dir``. Only when all of
-it exists is it moved into place: by renaming the temporary folder when
-``out_dir`` does not exist or is empty, or file by file (``os.replace``,
-atomic per file) into an existing folder, leaving files there that this
-function did not write untouched. On any failure the temporary folder is
-removed and ``out_dir`` is left as it was.
+A folder is doseattr's when it does not exist, is empty, or holds exactly
+the files of a previous run as listed in its ``manifest.json``
+(:mod:`doseattr.outputs.manifest`). Any other folder is refused with one
+line naming the first file doseattr did not write; no option overrides
+this. Also refused: an empty name, the file system's root, the home
+folder, an existing file, and a folder holding (at any depth) the analysis
+file or one of its tables.
+
+The run is produced in full in a hidden sibling folder
+``.NAME.partial-XXXXXXXX`` (results.json, CSV tables, figures, report.html,
+a copy of the analysis, and last the manifest). Only then is it swapped
+in: the previous run's entries are moved to a sibling backup, the new ones
+moved into the folder, and the backup removed; SIGINT and SIGTERM are held
+back during the swap, and a failure in it moves everything back. So the
+folder always holds exactly one complete run, and any failure or
+interruption leaves the previous run as it was and no temporary folder.
 """
 
 from __future__ import annotations
@@ -15,14 +25,19 @@ import json
 import os
 import secrets
 import shutil
+import signal
+from contextlib import contextmanager
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterable, Iterator, Sequence
 
+from doseattr.analysis.provenance import analysis_bytes, protected_paths
 from doseattr.errors import InputError
+from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
 from doseattr.outputs.records import workers_source
 from doseattr.outputs.tables import all_tables, write_csv
 
 FIGURE_FOLDER = "figures"
+HINT = "give a folder of its own, for example --out results"
 
 
 def results_json(results: Any, data: dict | None = None) -> str:
@@ -31,8 +46,11 @@ def results_json(results: Any, data: dict | None = None) -> str:
     return json.dumps(data, indent=2, allow_nan=False) + "\n"
 
 
-def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = True) -> list[Path]:
-    """Write results.json, CSV tables, figures and report.html to ``out_dir``.
+def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = True,
+                  command: Sequence[str] | None = None) -> list[Path]:
+    """Write results.json, CSV tables, figures, report.html, the analysis
+    copy and manifest.json to ``out_dir`` (see the module notes for which
+    folders are accepted).
 
     Parameters
     ----------
@@ -42,22 +60,30 @@ def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = T
         Destination folder; created if missing (with missing parents).
     figures
         ``False`` skips the figures (faster; the report has no images).
+    command
+        The command line as run, recorded in ``provenance.command``
+        (default: ``"python-api"``).
 
     Returns
     -------
     list of Path
         The files written, in ``out_dir``.
+
+    Raises
+    ------
+    InputError
+        When ``out_dir`` is not a folder doseattr may write into.
     """
-    out = Path(out_dir).absolute()
-    if out.exists() and not out.is_dir():
-        raise InputError(f"'{out}' exists and is not a folder; give another output folder",
-                         location="--out")
+    out = check_destination(out_dir, protected_paths(results.analysis))
     made_parents = _make_parents(out.parent)
     tmp = out.parent / f".{out.name}.partial-{secrets.token_hex(4)}"
     try:
         os.mkdir(tmp)
-        relative = _produce(results, tmp, figures=figures)
-        _move_into_place(tmp, out, relative)
+        relative = _produce(results, tmp, figures=figures, command=command)
+        (tmp / MANIFEST).write_text(manifest_text(tmp, relative), encoding="utf-8")
+        relative.append(Path(MANIFEST))
+        with _signals_held():
+            _swap_in(tmp, out, os.fspath(out_dir))
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         for p in reversed(made_parents):
@@ -66,12 +92,57 @@ def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = T
     return [out / r for r in relative]
 
 
-def _produce(results: Any, folder: Path, *, figures: bool) -> list[Path]:
+def check_destination(out_dir: str | os.PathLike, protected: Iterable[str] = ()) -> Path:
+    """Refuse an output folder doseattr must not write into; return it
+    (absolute). ``protected`` are the input files the folder must not hold.
+
+    Raises
+    ------
+    InputError
+        One line, naming ``--out`` and what to do instead.
+    """
+    text = os.fspath(out_dir)
+    if not text.strip():
+        raise InputError(f"the output folder is empty; {HINT}", location="--out")
+    out = Path(text).absolute()
+    real = Path(os.path.realpath(out))
+
+    def refuse(message: str) -> InputError:
+        return InputError(message, source=text, location="--out")
+
+    if real == Path(real.anchor):
+        raise refuse(f"is the file system's root; {HINT}")
+    if real == Path(os.path.realpath(Path.home())):
+        raise refuse(f"is your home folder; {HINT}")
+    if out.exists() and not out.is_dir():
+        raise refuse("exists and is not a folder; give another output folder")
+    for p in protected:
+        inside = Path(os.path.realpath(p))
+        if inside == real or real in inside.parents:
+            raise refuse(f"holds the input {p}, which outputs must never replace; {HINT}")
+    if out.is_dir():
+        _refuse_foreign(out, text)
+    return out
+
+
+def _refuse_foreign(out: Path, text: str) -> None:
+    foreign = first_foreign(out)
+    if foreign is not None:
+        rel, why = foreign
+        raise InputError(f"'{rel}' {why}; doseattr writes only into a new folder or one "
+                         "holding its previous run: choose a new output folder or remove that "
+                         "file", source=text, location="--out")
+
+
+def _produce(results: Any, folder: Path, *, figures: bool,
+             command: Sequence[str] | None) -> list[Path]:
     """Write every output into ``folder``; return paths relative to it."""
     from doseattr.outputs.gallery import render_figures
     from doseattr.outputs.report import render_report
 
     data = results.to_dict()
+    if command is not None and isinstance(data.get("provenance"), dict):
+        data["provenance"]["command"] = [str(a) for a in command]
     written = [Path("results.json")]
     (folder / "results.json").write_text(results_json(results, data), encoding="utf-8")
     tables = all_tables(data, band_table=getattr(results, "band_table", None),
@@ -93,22 +164,60 @@ def _produce(results: Any, folder: Path, *, figures: bool) -> list[Path]:
     html = render_report(results, images=images, data=data)
     (folder / "report.html").write_text(html, encoding="utf-8")
     written.append(Path("report.html"))
+    written.append(_analysis_copy(results, folder))
     return written
 
 
-def _move_into_place(tmp: Path, out: Path, relative: list[Path]) -> None:
-    if not out.exists() or (out.is_dir() and not any(out.iterdir())):
-        os.replace(tmp, out)  # atomic rename; replaces an empty folder on POSIX
+def _analysis_copy(results: Any, folder: Path) -> Path:
+    """The analysis as read: ``analysis.toml`` (the file's bytes) or, for
+    an analysis given as a dictionary, ``analysis.json`` (the canonical
+    JSON whose SHA-256 is ``provenance.analysis_sha256``)."""
+    copy = getattr(results, "analysis_copy", None)
+    kind, data = copy if copy is not None else analysis_bytes(results.analysis)
+    rel = Path("analysis.toml" if kind == "file" else "analysis.json")
+    (folder / rel).write_bytes(data)
+    return rel
+
+
+def _swap_in(tmp: Path, out: Path, text: str) -> None:
+    """Replace the contents of ``out`` by those of ``tmp``; on failure put
+    the previous contents back."""
+    if not out.exists():
+        os.rename(tmp, out)
         return
-    for rel in relative:
-        target = out / rel
-        if target.exists() and target.is_dir():
-            raise InputError(f"'{target}' is a folder; cannot replace it with an output file",
-                             location="--out")
-    for rel in relative:
-        (out / rel).parent.mkdir(parents=True, exist_ok=True)
-        os.replace(tmp / rel, out / rel)
-    shutil.rmtree(tmp, ignore_errors=True)
+    _refuse_foreign(out, text)  # again: the folder may have changed while computing
+    backup = out.parent / f".{out.name}.previous-{secrets.token_hex(4)}"
+    os.mkdir(backup)
+    old, new = [], []
+    try:
+        for name in sorted(os.listdir(out)):
+            os.rename(out / name, backup / name)
+            old.append(name)
+        for name in sorted(os.listdir(tmp)):
+            os.rename(tmp / name, out / name)
+            new.append(name)
+    except BaseException:
+        for name in new:
+            os.rename(out / name, tmp / name)
+        for name in old:
+            os.rename(backup / name, out / name)
+        os.rmdir(backup)
+        raise
+    shutil.rmtree(backup, ignore_errors=True)
+    os.rmdir(tmp)
+
+
+@contextmanager
+def _signals_held() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM back (they arrive after the block)."""
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
 
 
 def _make_parents(folder: Path) -> list[Path]:

@@ -1,0 +1,150 @@
+"""Where a run's numbers came from: software versions, the command, the
+seed, and the SHA-256 of the analysis file and of every table it read.
+
+The record holds no time stamps, so that the same inputs and seed give a
+byte-identical ``results.json``. Paths of tables are given relative to the
+analysis file's folder (POSIX separators) so the record does not depend on
+where the project folder sits.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+from dataclasses import dataclass
+from typing import Any, Iterator, Mapping
+
+from doseattr.analysis.schema import SECTIONS, key_location
+
+#: ``command`` when the run did not come from the command line.
+PYTHON_API = "python-api"
+#: Sections whose "path" keys name tables (``[[outcome]]`` holds curve and burden).
+TABLE_SECTIONS = ("curve", "exposure", "burden")
+
+
+@dataclass(frozen=True)
+class InputTable:
+    """One table the analysis read: where it was named, its path as
+    resolved (relative to the analysis file's folder, or absolute as
+    given) and its bytes' SHA-256."""
+
+    key: str
+    path: str
+    relative: str
+    sha256: str
+
+
+def sha256_bytes(data: bytes) -> str:
+    """Hex SHA-256 of ``data`` (FIPS 180-4, via :mod:`hashlib`)."""
+    return hashlib.sha256(data).hexdigest()
+
+
+def sha256_file(path: str | os.PathLike[str]) -> str:
+    """Hex SHA-256 of a file's bytes, read in 1 MiB blocks."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def canonical_json(settings: Mapping[str, Any]) -> bytes:
+    """The analysis dictionary as canonical JSON (sorted keys, no spaces,
+    UTF-8): what is hashed, and copied, for an analysis built from a dict."""
+    text = json.dumps(settings, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      default=str)
+    return text.encode("utf-8")
+
+
+def analysis_bytes(analysis: Any) -> tuple[str, bytes]:
+    """``("file", bytes of the analysis file)`` or, for an analysis built
+    by ``analysis_from_dict``, ``("python-dict", canonical JSON)``."""
+    source = getattr(analysis, "source", None)
+    if source:
+        with open(source, "rb") as fh:
+            return "file", fh.read()
+    return "python-dict", canonical_json(getattr(analysis, "settings", None) or {})
+
+
+def input_tables(analysis: Any) -> list[InputTable]:
+    """Every table named in the analysis, in file order, with its hash."""
+    base = getattr(analysis, "base_dir", None) or "."
+    tables = []
+    for key, value in _path_keys(getattr(analysis, "settings", None) or {}):
+        path = value if os.path.isabs(value) else os.path.join(base, value)
+        relative = os.path.relpath(path, base) if not os.path.isabs(value) else value
+        tables.append(InputTable(key, path, relative.replace(os.sep, "/"), sha256_file(path)))
+    return tables
+
+
+def protected_paths(analysis: Any) -> list[str]:
+    """The analysis file and every table it reads (what an output folder
+    must never hold)."""
+    source = getattr(analysis, "source", None)
+    base = getattr(analysis, "base_dir", None) or "."
+    paths = [source] if source else []
+    for _, value in _path_keys(getattr(analysis, "settings", None) or {}):
+        paths.append(value if os.path.isabs(value) else os.path.join(base, value))
+    return paths
+
+
+def provenance(analysis: Any, command: list[str] | str | None = None, *,
+               source: tuple[str, bytes] | None = None) -> dict[str, Any]:
+    """The ``provenance`` record of ``results.json``.
+
+    Keys: ``doseattr_version``, ``python``, ``numpy``, ``scipy``,
+    ``command`` (argv as run, or ``"python-api"``), ``seed`` (``None``
+    without ``[uncertainty]``), ``analysis_source`` (``"file"`` or
+    ``"python-dict"``), ``analysis_file`` (its name, or ``None``),
+    ``analysis_sha256`` (of the file's bytes, or of the dictionary's
+    canonical JSON) and ``input_tables`` (key, path relative to the analysis
+    file, SHA-256). ``source`` is :func:`analysis_bytes` when the caller
+    already read it.
+    """
+    import numpy
+    import scipy
+
+    from doseattr import __version__
+
+    kind, data = analysis_bytes(analysis) if source is None else source
+    source = getattr(analysis, "source", None)
+    uncertainty = getattr(analysis, "uncertainty", None)
+    return {
+        "doseattr_version": __version__,
+        "python": platform.python_version(),
+        "numpy": numpy.__version__,
+        "scipy": scipy.__version__,
+        "command": PYTHON_API if command is None else command,
+        "seed": None if uncertainty is None else int(uncertainty.seed),
+        "analysis_source": kind,
+        "analysis_file": os.path.basename(source) if source else None,
+        "analysis_sha256": sha256_bytes(data),
+        "input_tables": [{"key": t.key, "path": t.relative, "sha256": t.sha256}
+                         for t in input_tables(analysis)],
+    }
+
+
+def _path_keys(settings: Mapping[str, Any]) -> Iterator[tuple[str, str]]:
+    """``(key location, value)`` of every key of kind "path", in file order
+    (inside an outcome: ``"[[outcome]] 1 [outcome.burden] key 'table'"``)."""
+    for section in TABLE_SECTIONS:
+        for key, value in _section_paths(settings.get(section), section):
+            yield key_location(section, key), value
+    outcomes = settings.get("outcome")
+    for i, block in enumerate(outcomes if isinstance(outcomes, list) else []):
+        for section in ("curve", "burden"):
+            values = block.get(section) if isinstance(block, Mapping) else None
+            for key, value in _section_paths(values, section):
+                yield f"[[outcome]] {i + 1} [outcome.{section}] key '{key}'", value
+
+
+def _section_paths(values: Any, section: str) -> Iterator[tuple[str, str]]:
+    """``(key, value)`` of the "path" keys of one section's values."""
+    if not isinstance(values, Mapping):
+        return
+    for key, value in values.items():
+        spec = SECTIONS[section].get(key)
+        if spec is not None and spec.kind == "path" and isinstance(value, str):
+            yield key, value
