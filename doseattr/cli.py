@@ -110,7 +110,7 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     from doseattr.analysis.config import load_analysis
     from doseattr.analysis.pipeline import run_analysis
     from doseattr.analysis.provenance import protected_paths
-    from doseattr.outputs.write import check_destination, write_outputs
+    from doseattr.outputs.write import check_destination, out_location, write_outputs
 
     analysis = load_analysis(path)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
@@ -118,8 +118,8 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     try:
         written = write_outputs(results, out, command=command)
     except OSError as exc:
-        raise InputError(f"cannot write the outputs: {exc.strerror or exc}", source=out,
-                         location="--out") from None
+        raise InputError(f"cannot write the outputs: {exc.strerror or exc}",
+                         location=out_location(out)) from None
     if not quiet:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")

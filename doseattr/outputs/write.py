@@ -85,9 +85,10 @@ def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = T
         with _signals_held():
             _swap_in(tmp, out, os.fspath(out_dir))
     except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        for p in reversed(made_parents):
-            _try_rmdir(p)
+        with _signals_held():  # a second Ctrl-C must not stop the clean-up
+            shutil.rmtree(tmp, ignore_errors=True)
+            for p in reversed(made_parents):
+                _try_rmdir(p)
         raise
     return [out / r for r in relative]
 
@@ -108,7 +109,7 @@ def check_destination(out_dir: str | os.PathLike, protected: Iterable[str] = ())
     real = Path(os.path.realpath(out))
 
     def refuse(message: str) -> InputError:
-        return InputError(message, source=text, location="--out")
+        return InputError(message, location=out_location(text))
 
     if real == Path(real.anchor):
         raise refuse(f"is the file system's root; {HINT}")
@@ -125,13 +126,18 @@ def check_destination(out_dir: str | os.PathLike, protected: Iterable[str] = ())
     return out
 
 
+def out_location(text: str) -> str:
+    """``"--out 'DIR'"``: where an output-folder error is, for its one line."""
+    return f"--out '{text}'"
+
+
 def _refuse_foreign(out: Path, text: str) -> None:
     foreign = first_foreign(out)
     if foreign is not None:
         rel, why = foreign
         raise InputError(f"'{rel}' {why}; doseattr writes only into a new folder or one "
                          "holding its previous run: choose a new output folder or remove that "
-                         "file", source=text, location="--out")
+                         "file", location=out_location(text))
 
 
 def _produce(results: Any, folder: Path, *, figures: bool,
