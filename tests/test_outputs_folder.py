@@ -101,6 +101,18 @@ def test_out_above_the_inputs_is_refused(tmp_path, capsys):
     assert _snapshot(tmp_path / "project") == before
 
 
+def test_link_to_the_input_folder_is_refused(tmp_path, capsys):
+    """A symbolic link to the inputs' folder is the same folder."""
+    case = tmp_path / "case"
+    path = write_case(case)
+    link = tmp_path / "link"
+    link.symlink_to(case, target_is_directory=True)
+    before = _snapshot(case)
+    code, _, err = _run(["run", path, "--out", link], capsys)
+    assert code == 2 and "holds the input" in _one_error_line(err)
+    assert _snapshot(case) == before
+
+
 def test_table_elsewhere_in_the_out_folder_is_refused(tmp_path, capsys):
     """An input table outside the analysis file's folder, inside --out."""
     out = tmp_path / "out"
