@@ -109,12 +109,14 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     from doseattr.analysis.config import load_analysis
     from doseattr.analysis.pipeline import run_analysis
-    from doseattr.analysis.provenance import protected_paths
+    from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
     analysis = load_analysis(path)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
+    read = provenance(analysis)
     results = run_analysis(analysis, progress=not quiet)
+    _same_inputs(read, results.provenance, path)
     try:
         written = write_outputs(results, out, command=command)
     except OSError as exc:
@@ -124,6 +126,17 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")
     return EXIT_OK
+
+
+def _same_inputs(read: dict, now: dict, path: str) -> None:
+    """Refuse to write when the analysis file or a table changed while the
+    run was computing (the hashes would not describe the data used)."""
+    if read["analysis_sha256"] != now["analysis_sha256"]:
+        raise InputError("changed while the run was computing; run again", source=path)
+    for before, after in zip(read["input_tables"], now["input_tables"]):
+        if before["sha256"] != after["sha256"]:
+            raise InputError(f"{before['path']} changed while the run was computing; run again",
+                             source=path, location=before["key"])
 
 
 def _check(path: str) -> int:

@@ -314,6 +314,27 @@ def test_interrupt_while_writing_leaves_previous_run(tmp_path, capsys, monkeypat
     assert signal.getsignal(signal.SIGTERM) == signal.SIG_DFL  # main put it back
 
 
+def test_table_changed_during_the_run_is_refused(tmp_path, capsys, monkeypatch):
+    """A table edited while computing: its hash would not describe the data
+    used, so nothing is written and the line names the table's key."""
+    import doseattr.analysis.pipeline as pipeline
+
+    path = write_case(tmp_path / "case")
+    real = pipeline.run_analysis
+
+    def edits_a_table(analysis, **kwargs):
+        results = real(analysis, **kwargs)
+        with open(tmp_path / "case" / "measurements.csv", "a") as fh:
+            fh.write("30.0,1\n")
+        return results
+
+    monkeypatch.setattr(pipeline, "run_analysis", edits_a_table)
+    code, _, err = _run(["run", path, "--out", tmp_path / "out"], capsys)
+    assert code == 2
+    assert "[exposure] key 'table': measurements.csv changed" in _one_error_line(err)
+    assert not (tmp_path / "out").exists()
+
+
 # -- internal errors ---------------------------------------------------------------------
 def test_unexpected_exception_is_one_line(tmp_path, capsys, monkeypatch):
     import doseattr.analysis.pipeline as pipeline
