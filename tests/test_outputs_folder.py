@@ -397,3 +397,20 @@ def test_check_refuses_invalid_input_in_one_line(tmp_path, capsys):
     assert code == 2 and out == ""
     assert "analysis.toml: [curve] key 'modle'" in _one_error_line(err)
     assert _snapshot(tmp_path) == before
+
+
+def test_unreadable_folder_is_refused(tmp_path, monkeypatch):
+    """A subfolder that cannot be listed might hide the user's files: the
+    folder is refused rather than treated as doseattr's (os.walk's error
+    simulated, since tests may run as root)."""
+    from doseattr.outputs import manifest
+
+    out = tmp_path / "out"
+    (out / "locked").mkdir(parents=True)
+
+    def walk(top, onerror=None):
+        onerror(PermissionError(13, "Permission denied", str(out / "locked")))
+        yield from ()
+
+    monkeypatch.setattr(manifest.os, "walk", walk)
+    assert manifest.first_foreign(out) == ("locked", "cannot be read (Permission denied)")

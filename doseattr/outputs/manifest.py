@@ -59,7 +59,12 @@ def first_foreign(folder: Path) -> tuple[str, str] | None:
     """The first entry of ``folder`` (sorted, at any depth) that doseattr
     did not write, as ``(relative path, why)``; ``None`` when the folder is
     empty or holds exactly a previous run's files."""
-    entries = _entries(folder)
+    try:
+        entries = _entries(folder)
+    except OSError as exc:  # an unreadable folder may hide the user's files
+        where = Path(exc.filename or folder)
+        rel = where.relative_to(folder).as_posix() if where != folder else "."
+        return rel, f"cannot be read ({exc.strerror or exc})"
     if not entries:
         return None
     listed = read_manifest(folder)
@@ -90,10 +95,14 @@ def _entries(folder: Path) -> list[str]:
     """Every file and folder under ``folder`` (POSIX relative paths, sorted;
     symbolic links are listed, not followed)."""
     out = []
-    for root, dirs, files in os.walk(folder):
+    for root, dirs, files in os.walk(folder, onerror=_raise):
         for name in dirs + files:
             out.append(Path(root, name).relative_to(folder).as_posix())
     return sorted(out)
+
+
+def _raise(error: OSError) -> None:
+    raise error
 
 
 def _parents(rel: str) -> list[str]:
