@@ -377,12 +377,12 @@ def test_results_write_follows_the_same_rules(tmp_path):
 def test_check_prints_lines_and_writes_nothing(tmp_path, capsys):
     """``doseattr check``: the lines of check_analysis, status 0, no file
     written anywhere in the case folder."""
-    check = pytest.importorskip("doseattr.analysis.check")
+    from doseattr.analysis.check import check_analysis
     from doseattr.analysis.config import load_analysis
 
     path = write_case(tmp_path / "case")
     before = _snapshot(tmp_path)
-    expected = check.check_analysis(load_analysis(path))
+    expected = check_analysis(load_analysis(path))
     code, out, err = _run(["check", path], capsys)
     assert code == 0 and err == ""
     assert out.splitlines() == list(expected) and expected
@@ -390,7 +390,6 @@ def test_check_prints_lines_and_writes_nothing(tmp_path, capsys):
 
 
 def test_check_refuses_invalid_input_in_one_line(tmp_path, capsys):
-    pytest.importorskip("doseattr.analysis.check")
     path = write_case(tmp_path / "case", ANALYSIS.replace("model =", "modle ="))
     before = _snapshot(tmp_path)
     code, out, err = _run(["check", path], capsys)
