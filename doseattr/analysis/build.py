@@ -73,7 +73,7 @@ def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = No
     spec = analysis.curve
     t = spec.table
     model_name = model or spec.model
-    bd = band_doses(t, dose_rule or spec.dose_rule, exposure)
+    bd = band_doses(t, dose_rule or spec.dose_rule, exposure, source=analysis.source)
     doses, ref = bd.doses, t.reference
     nonref = np.arange(t.n_bands) != ref
     if not nonref.any():
@@ -96,10 +96,11 @@ def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = No
     return BuiltCurve(curve, bands, tuple(warnings), tuple(notes))
 
 
-def band_doses(t: StudyTable, rule: str, exposure=None):
+def band_doses(t: StudyTable, rule: str, exposure=None, *, source: str | None = None):
     """Dose of each band: given/midpoint from the table, or the band mean or
     median of the population's fitted exposure distribution (its exposed
-    part)."""
+    part). ``source`` is the analysis file, named when the rule cannot be
+    used."""
     from doseattr.core.curves.doses import assign_doses, distribution_doses
 
     if rule in ("given", "midpoint"):
@@ -107,7 +108,8 @@ def band_doses(t: StudyTable, rule: str, exposure=None):
             return assign_doses(t.lower, t.upper, t.dose if t.has_dose else None, rule=rule)
     if exposure is None or not hasattr(exposure.family, "partial_mean"):
         raise InputError(f"dose = \"{rule}\" needs a fitted exposure distribution (not an "
-                         "empirical one)", location=key_location("curve", "dose"))
+                         "empirical one): use dose = \"midpoint\" or a fitted family",
+                         source=source, location=key_location("curve", "dose"))
     fam, params = exposure.family, exposure.params
     with as_input_error(t.source, "columns 'lower', 'upper'"):
         bd = distribution_doses(t.lower, t.upper, rule=rule,

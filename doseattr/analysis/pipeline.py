@@ -19,19 +19,17 @@ import dataclasses
 
 import numpy as np
 
-from doseattr.analysis.build import (BuiltCurve, as_input_error, build_curve, build_exposure,
-                                     build_scenarios)
-from doseattr.analysis.burden_run import burden_strata, run_burden
+from doseattr.analysis.build import BuiltCurve
+from doseattr.analysis.burden_run import run_burden
+from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_all
 from doseattr.analysis.comparisons import (curve_variants, exposure_variants,
                                            substitution_results)
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.intervals import (finite, population_intervals, source_width,
+from doseattr.analysis.intervals import (population_intervals, source_width,
                                          uncertainty_notes, width_by_source)
 from doseattr.analysis.results import (BurdenResult, Estimate, Results, ScenarioResult,
                                        SourceWidth)
-from doseattr.analysis.schema import key_location
 from doseattr.core.uncertainty.propagate import Stratum
-from doseattr.errors import DivergenceError, InputError
 
 #: A population share above the data range larger than this gets a warning
 #: (smaller shares are stated in the notes).
@@ -72,25 +70,31 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
         When the inputs give no valid curve or exposure, or an expectation
         that diverges (with the setting to change).
     """
+    prepared = prepare_all(analysis)  # every check, before any Monte Carlo draw
     if analysis.outcomes:
-        return _with_outcomes(analysis, progress)
-    built_exposure = build_exposure(analysis)
+        return _with_outcomes(analysis, prepared, progress)
+    return _run_prepared(prepared.top, progress)
+
+
+def _run_prepared(p: Prepared, progress: bool) -> Results:
+    """Compute every result of one checked analysis (no ``[[outcome]]``)."""
+    analysis = p.analysis
+    built_exposure = p.built_exposure
     exposure = built_exposure.exposure
-    built = build_curve(analysis, exposure)
+    built = p.built
     curve = built.curve
-    scenarios = build_scenarios(analysis)
-    warnings = list(built.warnings)
+    scenarios = p.scenarios
+    warnings = list(built.warnings) + list(p.warnings)
     notes = list(analysis.notes) + list(built_exposure.notes) + list(built.notes)
-    _check_minimum_risk(analysis, built, warnings)
     warnings.extend(exposure.fit.warnings if exposure.fit is not None else ())
     notes.extend(exposure.notes)
-    with _divergence(analysis):
-        point = _point_results(analysis, built, exposure, scenarios)
+    with divergence(analysis):
+        point = _point_results(p)
     notes.extend(point.notes)
     warnings.extend(_extrapolation(analysis, curve, exposure, notes))
     comparison, sensitivity = curve_variants(analysis, exposure, built, point.paf)
-    with _divergence(analysis):
-        mc = _monte_carlo(analysis, curve, exposure, scenarios, point, progress)
+    with divergence(analysis):
+        mc = _monte_carlo(analysis, curve, exposure, scenarios, point, p.strata, progress)
     notes.extend(mc.notes + _range_note(analysis))
     return Results(analysis=analysis, curve=curve, exposure=exposure,
                    minimum_risk=analysis.attribution.minimum_risk, paf=mc.paf,
@@ -118,24 +122,22 @@ class _Point:
     notes: tuple[str, ...] = ()
 
 
-def _point_results(analysis: Analysis, built: BuiltCurve, exposure, scenarios) -> _Point:
-    """PAF, each scenario's PIF, the categorical comparison and the burden
-    density, at the point estimates."""
+def _point_results(p: Prepared) -> _Point:
+    """PAF, each scenario's PIF (computed by the checks), the categorical
+    comparison and the burden density, at the point estimates."""
     from doseattr.core.attribution.categorical import categorical_comparison
     from doseattr.core.attribution.contribution import burden_density
-    from doseattr.core.attribution.fractions import paf, pif
 
+    analysis, built, exposure = p.analysis, p.built, p.built_exposure.exposure
     curve, m = built.curve, analysis.attribution.minimum_risk
-    paf_value = finite(paf(curve, exposure, m), "PAF")
     scenario_results = tuple(
-        ScenarioResult(spec.name, spec.kind, spec.value,
-                       Estimate(finite(pif(curve, exposure, sc, m), f"PIF of {spec.name}")),
+        ScenarioResult(spec.name, spec.kind, spec.value, Estimate(value),
                        sc.describe(analysis.unit))
-        for spec, sc in scenarios)
+        for (spec, sc), value in zip(p.scenarios, p.pifs))
     cuts, reported, cut_notes = _cutpoints(analysis, built, exposure)
     categorical = categorical_comparison(curve, exposure, minimum_risk=m,
                                          cutpoints=cuts, reported_rr=reported)
-    return _Point(paf_value, scenario_results, categorical, burden_density(curve, exposure, m),
+    return _Point(p.paf, scenario_results, categorical, burden_density(curve, exposure, m),
                   tuple(cut_notes))
 
 
@@ -153,10 +155,9 @@ class _MonteCarlo:
 
 
 def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
-                 progress: bool) -> _MonteCarlo:
+                 strata: list | None, progress: bool) -> _MonteCarlo:
     """PAF and PIF intervals, attributable cases, and which input drives
-    the width of the overall PAF's interval."""
-    strata = None if analysis.burden is None else burden_strata(analysis, exposure)
+    the width of the overall PAF's interval (``strata`` from the checks)."""
     burden, burden_draws = (None, None) if strata is None else run_burden(
         analysis, curve, strata, scenarios, progress)
     if analysis.uncertainty is None:
@@ -180,48 +181,6 @@ def _range_note(analysis: Analysis) -> list[str]:
     m, unit = analysis.attribution.minimum_risk, analysis.unit
     return [f"minimum_risk given as the range {lo:g} to {hi:g} {unit}: the point estimates use "
             f"its middle, {m:g} {unit}"]
-
-
-class _divergence:
-    """Context manager: a diverging expectation becomes an InputError that
-    says which setting to change."""
-
-    def __init__(self, analysis: Analysis) -> None:
-        self.analysis = analysis
-
-    def __enter__(self) -> None:
-        return None
-
-    def __exit__(self, kind, exc, tb) -> bool:
-        if kind is None or not issubclass(kind, DivergenceError):
-            return False
-        a = self.analysis
-        how = ("beyond = \"flat\"" if a.curve.source == "table"
-               else "max_dose with beyond = \"flat\"")
-        raise InputError(
-            f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
-            f"(in the analysis file: {how} "
-            "holds the curve flat above the data)", source=a.source,
-            location=key_location("curve", "beyond")) from None
-
-
-def _check_minimum_risk(analysis: Analysis, built: BuiltCurve, warnings: list[str]) -> None:
-    """The curve must have a valid RR at the minimum-risk level, and a
-    level at or above ``max_dose`` makes every fraction zero."""
-    curve, m = built.curve, analysis.attribution.minimum_risk
-    low = (analysis.attribution.minimum_risk_range or (m, m))[0]
-    check = getattr(curve.model, "check_doses", None)
-    loc = key_location("attribution", "minimum_risk")
-    if check is not None:
-        with as_input_error(analysis.source, loc, "at the minimum-risk level: "):
-            check(curve.coef, np.array([low, m]))
-    if curve.max_dose is not None and m >= curve.max_dose:
-        warnings.append(f"the minimum-risk level {m:g} {analysis.unit} is at or above the dose "
-                        f"where the curve is held flat ({curve.max_dose:g} {analysis.unit}), so "
-                        "every attributable fraction is 0")
-    elif curve.data_max is not None and m > curve.data_max:
-        warnings.append(f"the minimum-risk level {m:g} {analysis.unit} is above the highest "
-                        f"dose with data ({curve.data_max:g} {analysis.unit})")
 
 
 def _cutpoints(analysis: Analysis, built: BuiltCurve, exposure):
@@ -314,20 +273,18 @@ def _unique(items: list[str]) -> list[str]:
     return out
 
 
-def _with_outcomes(analysis: Analysis, progress: bool) -> Results:
+def _with_outcomes(analysis: Analysis, prepared: PreparedAll, progress: bool) -> Results:
     """Run every ``[[outcome]]`` with the shared exposure, scenarios and
-    settings. The top-level results are those of the file's own [curve], or
-    of the first outcome when the file has none."""
+    settings (all checked beforehand). The top-level results are those of
+    the file's own [curve], or of the first outcome when the file has none."""
     from doseattr.analysis.config import outcome_location
 
     runs = []
-    for i, outcome in enumerate(analysis.outcomes):
-        sub = dataclasses.replace(analysis, curve=outcome.curve, burden=outcome.burden,
-                                  outcomes=())
-        with outcome_location(i, outcome.name):
-            runs.append((outcome.name, run_analysis(sub, progress=progress)))
-    if "curve" in (analysis.settings or {}):
-        top = run_analysis(dataclasses.replace(analysis, outcomes=()), progress=progress)
+    for i, (name, p) in enumerate(prepared.outcomes):
+        with outcome_location(i, name):
+            runs.append((name, _run_prepared(p, progress)))
+    if prepared.top is not None:
+        top = _run_prepared(prepared.top, progress)
     else:
         first = runs[0][1]
         note = (f"the file has no [curve] of its own: the results above the outcomes are those "

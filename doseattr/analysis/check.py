@@ -1,0 +1,272 @@
+"""Every check a run makes, done before any Monte Carlo draw: build the
+exposure, the curve, the scenarios and the burden strata, and compute the
+point PAF and PIFs (which is where an infinite expected RR shows).
+
+:func:`prepare` returns what was built so that
+:func:`~doseattr.analysis.pipeline.run_analysis` computes from it without
+building anything twice; :func:`check_analysis` says in one line per
+section what a run would compute. Nothing here draws or writes.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from doseattr.analysis.build import (BuiltCurve, BuiltExposure, as_input_error, build_curve,
+                                     build_exposure, build_scenarios)
+from doseattr.analysis.burden_run import burden_strata
+from doseattr.analysis.config import Analysis
+from doseattr.analysis.intervals import finite
+from doseattr.analysis.schema import key_location
+from doseattr.errors import DivergenceError, InputError
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Prepared:
+    """One analysis (without ``[[outcome]]``) built and checked: its
+    exposure, curve, scenarios, burden strata (``None`` without
+    ``[burden]``), point PAF and PIFs, and the minimum-risk warnings."""
+
+    analysis: Analysis
+    built_exposure: BuiltExposure
+    built: BuiltCurve
+    scenarios: tuple
+    strata: list | None
+    paf: float
+    pifs: tuple[float, ...]
+    warnings: tuple[str, ...] = ()
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class PreparedAll:
+    """Every part of an analysis file: the file's own analysis (``None``
+    when the file has ``[[outcome]]`` but no ``[curve]``) and each outcome's."""
+
+    top: Prepared | None
+    outcomes: tuple[tuple[str, Prepared], ...] = ()
+
+
+def check_analysis(analysis: Analysis) -> list[str]:
+    """Make every check that :func:`~doseattr.analysis.pipeline.run_analysis`
+    makes, and say what it would compute.
+
+    The exposure and curve are fitted at their point estimates (cheap);
+    no Monte Carlo draw is made and nothing is written.
+
+    Returns
+    -------
+    list of str
+        One line per section (curve, exposure, attribution, uncertainty,
+        burden), prefixed by the outcome's name for ``[[outcome]]``.
+
+    Raises
+    ------
+    InputError
+        The first problem found, as the run would report it.
+    """
+    done = prepare_all(analysis)
+    if not done.outcomes:
+        return describe(done.top)
+    per_outcome = ("curve:", "attribution:", "burden:")
+    lines = describe(done.top) if done.top is not None else [
+        line for line in describe(done.outcomes[0][1]) if not line.startswith(per_outcome)]
+    for name, prepared in done.outcomes:
+        lines += [f"outcome '{name}': {line}" for line in describe(prepared)
+                  if line.startswith(per_outcome)]
+    return lines
+
+
+def prepare_all(analysis: Analysis) -> PreparedAll:
+    """:func:`prepare` for the file's own analysis and for every outcome,
+    so that a problem in the last outcome stops the run before the first
+    is computed."""
+    from doseattr.analysis.config import outcome_location
+
+    if not analysis.outcomes:
+        return PreparedAll(prepare(analysis))
+    runs = []
+    for i, outcome in enumerate(analysis.outcomes):
+        sub = dataclasses.replace(analysis, curve=outcome.curve, burden=outcome.burden,
+                                  outcomes=())
+        with outcome_location(i, outcome.name):
+            runs.append((outcome.name, prepare(sub)))
+    top = None
+    if "curve" in (analysis.settings or {}):
+        top = prepare(dataclasses.replace(analysis, outcomes=()))
+    return PreparedAll(top, tuple(runs))
+
+
+def prepare(analysis: Analysis) -> Prepared:
+    """Build and check one analysis (no ``[[outcome]]``): exposure, curve
+    (knots, dose rules that need the fitted exposure, shape standard
+    errors), scenarios, the minimum-risk level, the burden strata's own
+    exposures, and a finite point PAF and PIF (for the population and
+    each stratum with its own exposure)."""
+    from doseattr.core.attribution.fractions import paf, pif
+
+    built_exposure = build_exposure(analysis)
+    exposure = built_exposure.exposure
+    built = build_curve(analysis, exposure)
+    scenarios = build_scenarios(analysis)
+    warnings: list[str] = []
+    check_minimum_risk(analysis, built, warnings)
+    curve, m = built.curve, analysis.attribution.minimum_risk
+    with divergence(analysis):
+        paf_value = finite(paf(curve, exposure, m), "PAF")
+        pifs = tuple(finite(pif(curve, exposure, sc, m), f"PIF of {spec.name}")
+                     for spec, sc in scenarios)
+    strata = None
+    if analysis.burden is not None:
+        strata = burden_strata(analysis, exposure)
+        _check_strata(analysis, curve, exposure, strata)
+    return Prepared(analysis, built_exposure, built, scenarios, strata, paf_value, pifs,
+                    tuple(warnings))
+
+
+def _check_strata(analysis: Analysis, curve, shared, strata: list) -> None:
+    """A stratum with its own exposure must give a finite expected RR; the
+    error names its row of the burden table."""
+    from doseattr.core.attribution.fractions import paf
+
+    table = analysis.burden.table
+    m = analysis.attribution.minimum_risk
+    for stratum, line in zip(strata, table.lines):
+        if stratum.exposure is shared:
+            continue
+        try:
+            paf(curve, stratum.exposure, m)
+        except DivergenceError as exc:
+            raise InputError(f"this stratum's exposure gives an infinite expected RR, so there "
+                             f"is no PAF: {str(exc).rstrip('.')} (set [curve] beyond = "
+                             "\"flat\", or give this stratum a narrower exposure)",
+                             source=table.source, location=f"row {line}") from None
+
+
+class divergence:
+    """Context manager: a diverging expectation becomes an InputError that
+    says which setting to change."""
+
+    def __init__(self, analysis: Analysis) -> None:
+        self.analysis = analysis
+
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, kind, exc, tb) -> bool:
+        if kind is None or not issubclass(kind, DivergenceError):
+            return False
+        a = self.analysis
+        how = ("beyond = \"flat\"" if a.curve.source == "table"
+               else "max_dose with beyond = \"flat\"")
+        raise InputError(
+            f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
+            f"(in the analysis file: {how} "
+            "holds the curve flat above the data)", source=a.source,
+            location=key_location("curve", "beyond")) from None
+
+
+def check_minimum_risk(analysis: Analysis, built: BuiltCurve, warnings: list[str]) -> None:
+    """The curve must have a valid RR at the minimum-risk level, and a
+    level at or above ``max_dose`` makes every fraction zero."""
+    curve, m = built.curve, analysis.attribution.minimum_risk
+    low = (analysis.attribution.minimum_risk_range or (m, m))[0]
+    check = getattr(curve.model, "check_doses", None)
+    loc = key_location("attribution", "minimum_risk")
+    if check is not None:
+        with as_input_error(analysis.source, loc, "at the minimum-risk level: "):
+            check(curve.coef, np.array([low, m]))
+    if curve.max_dose is not None and m >= curve.max_dose:
+        warnings.append(f"the minimum-risk level {m:g} {analysis.unit} is at or above the dose "
+                        f"where the curve is held flat ({curve.max_dose:g} {analysis.unit}), so "
+                        "every attributable fraction is 0")
+    elif curve.data_max is not None and m > curve.data_max:
+        warnings.append(f"the minimum-risk level {m:g} {analysis.unit} is above the highest "
+                        f"dose with data ({curve.data_max:g} {analysis.unit})")
+
+
+# -- what will be computed ------------------------------------------------------------
+def describe(p: Prepared) -> list[str]:
+    """One line per section of a prepared analysis."""
+    a = p.analysis
+    lines = [_curve_line(a, p.built), _exposure_line(a, p.built_exposure),
+             _attribution_line(a, p), _uncertainty_line(a)]
+    if p.strata is not None:
+        lines.append(_burden_line(a, p))
+    return lines
+
+
+COVARIANCE_WORDS = {"counts": "Greenland-Longnecker covariance from the counts",
+                    "effective-counts": "covariance from effective counts",
+                    "independent": "log RRs treated as independent"}
+
+
+def _curve_line(a: Analysis, built: BuiltCurve) -> str:
+    spec = a.curve
+    held = ("held flat above " + f"{built.curve.max_dose:g} {a.unit}"
+            if built.curve.max_dose is not None else "extended above the data")
+    if spec.source == "table":
+        t = spec.table
+        cov = COVARIANCE_WORDS.get(spec.covariance or "independent", spec.covariance)
+        return (f"curve: {spec.model} fitted by GLS to {t.n_bands} bands of {t.source} "
+                f"({cov}; band doses by '{spec.dose_rule}'), {held}")
+    if spec.source in ("points", "draws"):
+        g = spec.given
+        return (f"curve: given as {spec.source} at {g.doses.size} doses in {g.source}, log RR "
+                f"interpolated linearly, {held}")
+    if spec.source == "shape":
+        return f"curve: published {spec.model} shape with its coefficients' standard errors, {held}"
+    key = next(k for k in ("rr", "err", "exponent") if getattr(spec, k) is not None)
+    return (f"curve: {spec.model} from a published {key} = {getattr(spec, key):g} per "
+            f"{spec.per:g} {a.unit}, {held}")
+
+
+def _exposure_line(a: Analysis, built: BuiltExposure) -> str:
+    spec, ex = a.exposure, built.exposure
+    family = ex.family.name
+    unexposed = getattr(ex, "zero_share", None) if family == "empirical" else ex.unexposed
+    share = f"; unexposed share {unexposed:.4g}" if unexposed else ""
+    if spec.source == "measurements":
+        m = spec.measurements
+        nd = int(np.sum(~np.asarray(m.detected, bool)))
+        how = "the weighted values themselves" if family == "empirical" else f"{family} fitted"
+        chosen = " (lowest AIC of the families)" if spec.family == "best" else ""
+        return (f"exposure: {how}{chosen} to {m.values.size} measurements of {m.source} "
+                f"({nd} non-detects){share}")
+    if spec.source == "histories":
+        w = built.workers
+        return (f"exposure: {family} over the cumulative exposure of "
+                f"{np.asarray(w.cumulative).size} workers from {spec.histories.source} "
+                f"(as of {spec.as_of}, lag {spec.lag_years:g} years){share}")
+    if spec.source == "bins":
+        return f"exposure: {family} fitted to the binned counts of {spec.bins.source}{share}"
+    return f"exposure: {family} from the given {spec.source}{share}"
+
+
+def _attribution_line(a: Analysis, p: Prepared) -> str:
+    at = a.attribution
+    level = (f"{at.minimum_risk:g} {a.unit}" if at.minimum_risk_range is None else
+             f"{at.minimum_risk:g} {a.unit} (middle of {at.minimum_risk_range[0]:g} to "
+             f"{at.minimum_risk_range[1]:g})")
+    n = len(p.scenarios)
+    return (f"attribution: PAF against the minimum-risk level {level}; {n} scenario"
+            f"{'' if n == 1 else 's'} (PIF each); point PAF {p.paf:.4g}")
+
+
+def _uncertainty_line(a: Analysis) -> str:
+    u = a.uncertainty
+    if u is None:
+        return "uncertainty: none ([uncertainty] not given): point estimates only"
+    seed = f"seed {u.seed}" + ("" if u.seed_given else " (default)")
+    cases = "; Poisson variation of the cases" if u.poisson_cases else ""
+    return f"uncertainty: {u.draws} Monte Carlo draws, {seed}{cases}"
+
+
+def _burden_line(a: Analysis, p: Prepared) -> str:
+    table = a.burden.table
+    own = sum(1 for s in p.strata if s.exposure is not p.built_exposure.exposure)
+    n = len(p.strata)
+    return (f"burden: {n} strat{'um' if n == 1 else 'a'} of {table.source}, "
+            f"{float(np.sum(table.cases)):g} observed cases in total ({own} with their own "
+            "exposure)")
