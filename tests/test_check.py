@@ -18,6 +18,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import shutil
+import tomllib
 from pathlib import Path
 
 import pytest
@@ -193,8 +194,11 @@ def test_demo_has_one_line_per_section():
     cases = sum(float(r["cases"]) for r in strata)
     assert f"{len(strata)} strata" in lines[4] and f"{cases:g} observed cases" in lines[4]
     assert f"({own} with their own exposure)" in lines[4]
-    assert "1000 Monte Carlo draws, seed 2024" in lines[3]
-    assert "3 scenarios" in lines[2]
+    settings = tomllib.loads((DEMO / "analysis.toml").read_text())
+    u = settings["uncertainty"]
+    assert f"{u['draws']} Monte Carlo draws, seed {u['seed']}" in lines[3]
+    assert f"{len(settings['scenario'])} scenarios" in lines[2]
+    assert f"minimum-risk level {settings['attribution']['minimum_risk']:g} ug/m3" in lines[2]
 
 
 def test_outcomes_name_each_outcome(tmp_path):

@@ -204,11 +204,14 @@ COVARIANCE_WORDS = {"counts": "Greenland-Longnecker covariance from the counts",
 
 def _curve_line(a: Analysis, built: BuiltCurve) -> str:
     spec = a.curve
-    held = ("held flat above " + f"{built.curve.max_dose:g} {a.unit}"
-            if built.curve.max_dose is not None else "extended above the data")
+    held = (f"held flat above {built.curve.max_dose:g} {a.unit}"
+            if built.curve.max_dose is not None else "extended over all doses")
     if spec.source == "table":
         t = spec.table
         cov = COVARIANCE_WORDS.get(spec.covariance or "independent", spec.covariance)
+        if spec.covariance == "effective-counts" and not any(
+                "effective counts reconstructed" in n for n in built.notes):
+            cov = "effective counts not reconstructed, so log RRs treated as independent"
         return (f"curve: {spec.model} fitted by GLS to {t.n_bands} bands of {t.source} "
                 f"({cov}; band doses by '{spec.dose_rule}'), {held}")
     if spec.source in ("points", "draws"):
@@ -216,7 +219,9 @@ def _curve_line(a: Analysis, built: BuiltCurve) -> str:
         return (f"curve: given as {spec.source} at {g.doses.size} doses in {g.source}, log RR "
                 f"interpolated linearly, {held}")
     if spec.source == "shape":
-        return f"curve: published {spec.model} shape with its coefficients' standard errors, {held}"
+        se = ("with its coefficients' standard errors" if np.any(np.array(spec.shape_cov))
+              else "with fixed coefficients")
+        return f"curve: published {spec.model} shape {se}, {held}"
     key = next(k for k in ("rr", "err", "exponent") if getattr(spec, k) is not None)
     return (f"curve: {spec.model} from a published {key} = {getattr(spec, key):g} per "
             f"{spec.per:g} {a.unit}, {held}")
@@ -230,10 +235,11 @@ def _exposure_line(a: Analysis, built: BuiltExposure) -> str:
     if spec.source == "measurements":
         m = spec.measurements
         nd = int(np.sum(~np.asarray(m.detected, bool)))
-        how = "the weighted values themselves" if family == "empirical" else f"{family} fitted"
+        what = f"{m.values.size} measurements of {m.source} ({nd} non-detects)"
+        if family == "empirical":
+            return f"exposure: empirical, the {what} themselves, weighted{share}"
         chosen = " (lowest AIC of the families)" if spec.family == "best" else ""
-        return (f"exposure: {how}{chosen} to {m.values.size} measurements of {m.source} "
-                f"({nd} non-detects){share}")
+        return f"exposure: {family}{chosen} fitted to {what}{share}"
     if spec.source == "histories":
         w = built.workers
         return (f"exposure: {family} over the cumulative exposure of "
@@ -250,8 +256,10 @@ def _attribution_line(a: Analysis, p: Prepared) -> str:
              f"{at.minimum_risk:g} {a.unit} (middle of {at.minimum_risk_range[0]:g} to "
              f"{at.minimum_risk_range[1]:g})")
     n = len(p.scenarios)
-    return (f"attribution: PAF against the minimum-risk level {level}; {n} scenario"
-            f"{'' if n == 1 else 's'} (PIF each); point PAF {p.paf:.4g}")
+    scenarios = ("no scenarios" if n == 0 else
+                 f"{n} scenario{'' if n == 1 else 's'} (a PIF for each)")
+    return (f"attribution: PAF against the minimum-risk level {level}; {scenarios}; "
+            f"point PAF {p.paf:.4g}")
 
 
 def _uncertainty_line(a: Analysis) -> str:
