@@ -159,6 +159,18 @@ def test_shape_standard_error_in_a_later_outcome(no_draws):
                    r"\[\[outcome\]\] 2 \('B'\) \[outcome.curve\] key 'gamma_se'")
 
 
+def test_minimum_risk_where_a_later_outcome_has_no_valid_rr(no_draws):
+    """RR = 1 - 0.05 x is 1 - 0.05 x 30 = -0.5 at the minimum-risk level 30
+    (the formula); the second outcome is refused before the first's draws."""
+    d = {"unit": "ug/m3", "exposure": {"gm": 8.0, "gsd": 2.0},
+         "attribution": {"minimum_risk": 30.0}, "uncertainty": {"draws": 200, "seed": 3},
+         "outcome": [_valid_outcome(),
+                     {"name": "B", "curve": {"model": "linear", "err": -0.05,
+                                             "max_dose": 10.0}}]}
+    line = _refused_alike(analysis_from_dict(d), r"\[attribution\] key 'minimum_risk'")
+    assert "reaches 0 at 20" in line
+
+
 def test_band_mean_doses_need_a_fitted_exposure(tmp_path, no_draws):
     d = {"unit": "ug/m3",
          "curve": {"table": "bands.csv", "model": "log-linear", "dose": "band-mean"},
