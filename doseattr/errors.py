@@ -62,6 +62,12 @@ class ConvergenceError(DoseattrError, RuntimeError):
     """An optimiser or root finder that did not converge."""
 
 
+class FitError(ModelError, ConvergenceError):
+    """A distribution that could not be fitted to the user's data: found by
+    a numerical search, but an input problem, which the analysis layer names
+    by file and column like any :class:`ModelError`."""
+
+
 class DoseattrWarning(UserWarning):
     """Something the user should read: a poor fit, heavy censoring,
     extrapolation beyond the data."""

@@ -414,10 +414,13 @@ def _histories(spec: ExposureSpec, family) -> BuiltExposure:
                                       as_of=np.datetime64(spec.as_of, "D"),
                                       lag_years=spec.lag_years)
     values = np.asarray(workers.cumulative, dtype=float)
-    if np.sum(values > 0) < 3:
+    need, why = (1, "for the empirical distribution") if family == "empirical" else (
+        3, "to fit a distribution")
+    if np.sum(values > 0) < need:
         raise InputError(f"only {int(np.sum(values > 0))} workers have any exposure before "
-                         f"{spec.as_of} minus the {spec.lag_years:g}-year lag; at least 3 are "
-                         "needed to fit a distribution", source=h.source)
+                         f"{spec.as_of} minus the {spec.lag_years:g}-year lag; at least {need} "
+                         f"{'is' if need == 1 else 'are'} needed {why}", source=h.source,
+                         location="columns 'start', 'end', 'intensity'")
     built = _fit_values(spec, family, values, np.ones(values.size, bool), None, h.source, 0.0,
                         workers)
     note = (f"exposure is cumulative (intensity x years) for {values.size} workers, counted "

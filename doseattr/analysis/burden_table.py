@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -68,6 +70,7 @@ def read_burden(path: str | Path, source: str | None = None) -> BurdenTable:
         raise InputError("every stratum has 0 cases; the overall PAF (total attributable over "
                          "total cases) needs at least one case", source=raw.source,
                          location="column 'cases'")
+    _check_totals(raw, cases, population)
     return BurdenTable(raw.source, tuple(names), np.array(cases),
                        np.array(population) if population else None, tuple(exposure),
                        tuple(r.line for r in raw.rows))
@@ -94,3 +97,18 @@ def _stratum_exposure(raw: RawTable, row: Row, pairs) -> dict[str, float] | None
     if vb <= 0:
         raise cell_error(raw, row, b, f"{b} must be above 0, got {vb:g}")
     return {a: va, b: vb}
+
+
+def _check_totals(raw: RawTable, cases: list[float], population: list[float]) -> None:
+    """Totals and rates must be floats: refuse cases or populations that
+    add up past the float range (about 1.8e308), and a rate per 100,000
+    that overflows."""
+    for column, values in (("cases", cases), ("population", population)):
+        if values and not math.isfinite(sum(values)):
+            raise InputError(f"the {column} add up past the float range (about 1.8e308); "
+                             f"give {column} below {sys.float_info.max / len(values):.3g} each",
+                             source=raw.source, location=f"column '{column}'")
+    for row, n, pop in zip(raw.rows, cases, population):
+        if not math.isfinite(n / pop * 1e5):
+            raise cell_error(raw, row, "population", f"cases {n:g} per population {pop:g} "
+                             "gives a rate beyond the float range; check the population")

@@ -33,6 +33,7 @@ Example::
 from __future__ import annotations
 
 import os
+import re
 import tomllib
 from contextlib import contextmanager
 from typing import Any, Iterator, Mapping
@@ -58,18 +59,40 @@ __all__ = ["Analysis", "AttributionSpec", "BurdenSpec", "CurveSpec", "ExposureSp
 def load_analysis(path: str | os.PathLike[str]) -> Analysis:
     """Read and check an analysis file; paths in it are relative to it."""
     source = os.fspath(path)
+    text, raw = "", b""
     try:
         with open(source, "rb") as fh:
-            data = tomllib.load(fh)
+            raw = fh.read()
+        text = raw.decode("utf-8-sig")  # a byte-order mark is dropped
+        data = tomllib.loads(text)
     except FileNotFoundError:
         raise InputError("analysis file not found", source=source) from None
     except IsADirectoryError:
         raise InputError("is a folder; give the analysis file (.toml)", source=source) from None
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", source=source) from None
-    except UnicodeDecodeError:
-        raise InputError("cannot be read as UTF-8 text", source=source) from None
+        raise InputError(f"not valid TOML: {_one_line(str(exc))}", source=source,
+                         location=_toml_line(str(exc), text)) from None
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        raise InputError("cannot be read as UTF-8 text (a byte that is not UTF-8); save the "
+                         "file as UTF-8", source=source, location=f"line {line}") from None
+    except ValueError as exc:  # e.g. an integer longer than Python converts (4300 digits)
+        raise InputError(f"not valid TOML: {_one_line(str(exc))}", source=source) from None
+    except OSError as exc:
+        raise InputError(f"cannot be read: {exc.strerror or exc}", source=source) from None
     return _build(data, base_dir=os.path.dirname(source), source=source)
+
+
+def _toml_line(message: str, text: str) -> str:
+    """``"line N"`` of a TOML error (tomllib says it only in its message)."""
+    found = re.search(r"at line (\d+)", message)
+    return f"line {found.group(1)}" if found else f"line {text.count(chr(10)) + 1} (end of file)"
+
+
+def _one_line(text: str, limit: int = 200) -> str:
+    """``text`` on one line, cut to ``limit`` characters."""
+    text = " ".join(text.split())
+    return text if len(text) <= limit else text[:limit - 3] + "..."
 
 
 def analysis_from_dict(d: Mapping[str, Any], base_dir: str | os.PathLike[str] = ".") -> Analysis:

@@ -21,6 +21,7 @@ from __future__ import annotations
 import csv
 import difflib
 import math
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence
@@ -31,6 +32,10 @@ from numpy.typing import NDArray
 from doseattr.errors import InputError
 
 FloatArray = NDArray[np.float64]
+
+#: The largest number whose square is still a float (about 1.34e154):
+#: values that enter sums of squares (fits, summaries, weights) stay below it.
+SQRT_MAX = math.sqrt(sys.float_info.max)
 
 
 @dataclass(frozen=True)
@@ -52,21 +57,27 @@ class RawTable:
 def read_raw(path: str | Path, source: str | None = None) -> RawTable:
     """Read a CSV file into rows of text cells, keeping line numbers."""
     source = str(path) if source is None else source
+    data = b""
     try:
-        text = Path(path).read_text(encoding="utf-8-sig")
+        data = Path(path).read_bytes()
+        text = data.decode("utf-8-sig")
     except FileNotFoundError:
         raise InputError("file not found", source=source) from None
     except IsADirectoryError:
         raise InputError("is a folder, not a CSV file", source=source) from None
-    except UnicodeDecodeError:
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
         raise InputError("cannot be read as UTF-8 text; save it as CSV (UTF-8)",
-                         source=source) from None
+                         source=source, location=f"row {line}") from None
+    except OSError as exc:
+        raise InputError(f"cannot be read: {exc.strerror or exc}", source=source) from None
     header: list[str] | None = None
     rows: list[Row] = []
-    for line_no, line in enumerate(text.splitlines(), start=1):
+    lines = text.splitlines()
+    for line_no, line in enumerate(lines, start=1):
         if not line.strip() or line.lstrip().startswith("#"):
             continue
-        cells = [c.strip() for c in next(csv.reader([line]))]
+        cells = _cells(line, source, line_no)
         if header is None:
             header = _header(cells, line, source, line_no)
             continue
@@ -75,10 +86,31 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
                              "columns", source=source, location=f"row {line_no}")
         rows.append(Row(line_no, dict(zip(header, cells))))
     if header is None:
-        raise InputError("the file is empty (no header row)", source=source)
+        raise InputError("the file is empty (no header row)", source=source, location="row 1")
     if not rows:
-        raise InputError("the file has a header but no data rows", source=source)
+        raise InputError("the file has a header but no data rows", source=source,
+                         location=f"row {len(lines) + 1}")
     return RawTable(source, tuple(header), tuple(rows))
+
+
+def _cells(line: str, source: str, line_no: int) -> list[str]:
+    """One line's cells. A cell can be as long as its line: the csv
+    module's field size limit (128k characters by default) is raised for
+    the call and restored after."""
+    previous = csv.field_size_limit()
+    csv.field_size_limit(max(previous, len(line) + 1))
+    try:
+        return [c.strip() for c in next(csv.reader([line]), [])]
+    except csv.Error as exc:
+        raise InputError(f"cannot be read as CSV: {exc}", source=source,
+                         location=f"row {line_no}") from None
+    finally:
+        csv.field_size_limit(previous)
+
+
+def shown(text: str, limit: int = 40) -> str:
+    """A cell's text for a message, cut to ``limit`` characters."""
+    return text if len(text) <= limit else f"{text[:limit]}... ({len(text)} characters)"
 
 
 def _header(cells: list[str], line: str, source: str, line_no: int) -> list[str]:
@@ -127,10 +159,11 @@ def number(raw: RawTable, row: Row, column: str, *, required: bool = True) -> fl
         value = float(text)
     except ValueError:
         hint = " (use '.' as decimal point)" if "," in text else ""
-        raise InputError(f"text '{text}' where a number belongs{hint}", source=raw.source,
-                         location=where) from None
+        raise InputError(f"text '{shown(text)}' where a number belongs{hint}",
+                         source=raw.source, location=where) from None
     if not math.isfinite(value):
-        raise InputError(f"'{text}' is not a finite number", source=raw.source, location=where)
+        raise InputError(f"'{shown(text)}' is not a finite number (numbers must lie within "
+                         "about +-1.8e308)", source=raw.source, location=where)
     return value
 
 
@@ -154,3 +187,11 @@ def check_band_order(raw: RawTable, lower: FloatArray, upper: FloatArray) -> Non
                              f"band [{lower[i]:g}, {upper[i]:g}] overlaps the band "
                         f"before it (row {prev.line}, [{lower[i - 1]:g}, {upper[i - 1]:g}]); "
                         "each band must start where the one before it ends or later")
+
+
+def below_sqrt_max(raw: RawTable, row: Row, column: str, value: float, why: str) -> None:
+    """Refuse ``value`` at or above :data:`SQRT_MAX`, whose square overflows."""
+    if abs(value) >= SQRT_MAX:
+        raise cell_error(raw, row, column, f"{value:g} is too large: {why} use its square, "
+                         f"which overflows beyond {SQRT_MAX:.3g}; give a value below that "
+                         "(check the unit)")

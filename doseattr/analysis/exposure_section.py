@@ -81,7 +81,8 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
     family = _default_family(family, notes)
     path = ctx.path(e["table"], "exposure", "table")
     data = read_measurements(path, path, detected_column=e.get("detected", "detected"),
-                             weight_column=e.get("weight", "weight"))
+                             weight_column=e.get("weight", "weight"),
+                             min_positive=1 if family == "empirical" else 3)
     if data.zeros and "unexposed" in e:
         raise ctx.error(f"{path} has {data.zeros} values of 0, which give the unexposed share "
                         "from the data; remove either the zeros or this key", "exposure",

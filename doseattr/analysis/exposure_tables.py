@@ -10,7 +10,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, check_band_order,
-                                       number, read_raw, require_columns)
+                                       number, read_raw, require_columns, shown)
 from doseattr.errors import InputError
 
 
@@ -191,7 +191,7 @@ def _date(raw: RawTable, row: Row, column: str):
     try:
         return date.fromisoformat(text)
     except ValueError:
-        raise cell_error(raw, row, column, f"'{text}' is not an ISO date like 2019-03-31") from None
+        raise cell_error(raw, row, column, f"'{shown(text)}' is not an ISO date like 2019-03-31") from None
 
 
 def _check_overlaps(raw: RawTable, workers, starts, ends) -> None:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import difflib
 import math
 import os
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
@@ -23,6 +24,9 @@ from doseattr.errors import InputError
 SHAPE_MODELS = ("saturating-exponential", "log-logistic-weighted")
 CURVE_MODELS = ("log-linear", "linear", "power", "spline") + SHAPE_MODELS
 DESIGNS = ("case-control", "incidence-rate", "cumulative-incidence")
+#: The largest finite float; TOML integers beyond it are not numbers here.
+MAX_FLOAT = sys.float_info.max
+
 FAMILIES = ("lognormal", "gamma", "weibull", "best", "empirical")
 
 
@@ -209,20 +213,28 @@ def check_value(value: Any, spec: Key, *, section: str, key: str, source: str | 
 
 def is_number(value: Any) -> bool:
     """A finite TOML integer or float (not a boolean, not inf or nan)."""
-    return (isinstance(value, (int, float)) and not isinstance(value, bool)
-            and math.isfinite(value))
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    if isinstance(value, int):  # TOML integers are unbounded; float() overflows past 1.8e308
+        return abs(value) <= MAX_FLOAT
+    return math.isfinite(value)
 
 
 def describe(value: Any) -> str:
     """How a TOML value looks, for messages."""
     if isinstance(value, str):
+        if len(value) > 60:
+            return f"text '{value[:40]}...' ({len(value)} characters)"
         return f"text '{value}'" + (" (remove the quotes)" if _numeric_text(value) else "")
     if isinstance(value, bool):
         return "true" if value else "false"
+    if isinstance(value, int) and abs(value) > MAX_FLOAT:
+        return f"an integer of {len(str(abs(value)))} digits (beyond the float range, about 1.8e308)"
     if isinstance(value, (int, float)):
         return f"{value}"
     if isinstance(value, list):
-        return f"a list {value}"
+        text = f"a list {value}"
+        return text if len(text) <= 80 else text[:77] + "..."
     if isinstance(value, dict):
         return "a table"
     return type(value).__name__

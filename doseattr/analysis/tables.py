@@ -19,7 +19,8 @@ from numpy.typing import NDArray
 
 from doseattr.analysis.burden_table import BurdenTable, read_burden
 from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, check_band_order,
-                                       near_column, number, read_raw, require_columns)
+                                       near_column, number, read_raw, require_columns, shown,
+                                       below_sqrt_max)
 from doseattr.analysis.curve_tables import (DrawsTable, PointsTable, read_draws_table,
                                             read_points_table)
 from doseattr.analysis.exposure_tables import (BinsTable, HistoriesTable, read_bins,
@@ -232,13 +233,15 @@ def design_from_counts(table: StudyTable) -> str | None:
 # -- exposure measurements --------------------------------------------------
 def read_measurements(path: str | Path, source: str | None = None, *,
                       detected_column: str = "detected",
-                      weight_column: str = "weight") -> Measurements:
+                      weight_column: str = "weight", min_positive: int = 3) -> Measurements:
     """Read and check exposure measurements.
 
     Column ``value`` (required): a positive number, or ``<L`` for a result
     below the detection limit ``L``. Optional ``detected`` column (true /
     false; false means ``value`` is the detection limit) and ``weight``
-    column (0 or more, not all 0).
+    column (0 or more, not all 0). At least ``min_positive`` values must be
+    detected and above 0: 3 to fit a two-parameter family, 1 for the
+    empirical distribution, which fits nothing.
     """
     raw = read_raw(path, source)
     require_columns(raw, ("value",), "a measurement table")
@@ -257,12 +260,15 @@ def read_measurements(path: str | Path, source: str | None = None, *,
             if below and v == 0:
                 raise cell_error(raw, row, "value", "a detection limit must be above 0, but this "
                                  f"non-detect ({detected_column} = false) has the value 0")
+        below_sqrt_max(raw, row, "value", v, "the fits and summaries of the measurements")
         values.append(v)
         detected.append(not below)
         if has_w:
             w = number(raw, row, weight_column)
             if w < 0:
                 raise cell_error(raw, row, weight_column, f"weight must be 0 or more, got {w:g}")
+            below_sqrt_max(raw, row, weight_column, w, "weighted fits (only the weights' "
+                           "ratios matter, so they can all be divided by one factor)")
             weights.append(w)
     det = np.array(detected, dtype=bool)
     vals = np.array(values, dtype=float)
@@ -280,11 +286,11 @@ def read_measurements(path: str | Path, source: str | None = None, *,
             vals, det, w_arr = vals[keep], det[keep], w_arr[keep]
             lines = tuple(np.asarray(lines)[keep].tolist())
     positive = det & (vals > 0)
-    if positive.sum() < 3:
+    if positive.sum() < min_positive:
+        why = "to fit a distribution" if min_positive > 1 else "for the empirical distribution"
         raise InputError(f"only {int(positive.sum())} of {len(det)} values are detected and "
-                         "above 0; at least 3 "
-                         "detected values are needed to fit a distribution", source=raw.source,
-                         location="column 'value'")
+                         f"above 0; at least {min_positive} detected values are needed {why}",
+                         source=raw.source, location="column 'value'")
     if not det.all():
         notes.append(f"{raw.source}: {int((~det).sum())} of {len(det)} values are below a "
                      "detection limit and enter the fit as left-censored")
@@ -314,4 +320,4 @@ def _flag(raw: RawTable, row: Row, column: str) -> bool:
         return True
     if text in FALSE_TEXT:
         return False
-    raise cell_error(raw, row, column, f"'{row.cells[column]}' is not true or false")
+    raise cell_error(raw, row, column, f"'{shown(row.cells[column])}' is not true or false")

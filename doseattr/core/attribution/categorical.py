@@ -141,6 +141,15 @@ def equal_probability_paf(curve: Curve, exposure: AnyExposure, bands: int,
     return multi_category_paf(np.append(p, exposure.unexposed), np.append(rr, 1.0))
 
 
+def _usable_cuts(cuts: FloatArray) -> FloatArray:
+    """Cutpoints that bound bands: positive, finite, each once. Quantiles of
+    a distribution with nearly all its mass at 0 (a gamma shape near 0)
+    underflow to 0 or coincide; the smallest positive float stands in when
+    none is left, so the lowest band still holds the mass near 0."""
+    kept = np.unique(cuts[np.isfinite(cuts) & (cuts > 0)])
+    return kept if kept.size else np.array([np.finfo(float).tiny])
+
+
 def categorical_comparison(curve: Curve, exposure: AnyExposure, *, minimum_risk: float,
                            cutpoints: ArrayLike, reported_rr: ArrayLike | None = None,
                            max_bands: int = 20) -> CategoricalComparison:
@@ -155,8 +164,7 @@ def categorical_comparison(curve: Curve, exposure: AnyExposure, *, minimum_risk:
         The study's RRs for the ``K + 1`` bands, given only when the
         cutpoints are the study's own band limits.
     """
-    cuts = np.asarray(cutpoints, dtype=float)
-    assert cuts.ndim == 1 and cuts.size >= 1 and np.all(np.diff(cuts) > 0) and cuts[0] > 0
+    cuts = _usable_cuts(np.asarray(cutpoints, dtype=float).reshape(-1))
     shares = band_shares(exposure, cuts)
     mids = band_midpoints(cuts)
     means = band_means(exposure, cuts)

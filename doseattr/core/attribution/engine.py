@@ -41,7 +41,7 @@ from scipy.special import roots_legendre
 
 from doseattr.core.curves.base import Growth
 from doseattr.core.exposure.base import Family
-from doseattr.errors import ConvergenceError
+from doseattr.errors import ConvergenceError, DivergenceError
 
 FloatArray = NDArray[np.float64]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
@@ -151,7 +151,10 @@ def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
     the weights and the tail recover the distribution's probability."""
     edges = _edges(family, params, growth, kinks)
     with np.errstate(divide="ignore"):
-        edges = np.minimum(edges, np.log(top)[:, None])
+        # A flat tail from 0 (max_dose = 0) leaves no panels: every panel
+        # is squeezed onto the lowest edge and the tail holds all the mass.
+        cap = np.where(top > 0, np.log(top), edges.min(axis=1))
+        edges = np.minimum(edges, cap[:, None])
     half = 0.5 * np.diff(edges, axis=1)                      # (d, P)
     mid = 0.5 * (edges[:, 1:] + edges[:, :-1])
     d, p = half.shape
@@ -172,12 +175,16 @@ def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
 
 
 def _integrate(log_rr: LogRisk, grid: Grid, rows: slice) -> FloatArray:
-    total = _weighted_excess(log_rr(grid.x, rows), grid.log_f, grid.weight, grid.dens)
-    if np.any(grid.tail_p > 0):
-        total = total + np.expm1(log_rr(grid.tail_x, rows)[:, 0]) * grid.tail_p
+    # RR past the float range gives inf (and inf - inf nan) here; both are
+    # refused below, so the warnings on the way say nothing new.
+    with np.errstate(over="ignore", invalid="ignore"):
+        total = _weighted_excess(log_rr(grid.x, rows), grid.log_f, grid.weight, grid.dens)
+        if np.any(grid.tail_p > 0):
+            total = total + np.expm1(log_rr(grid.tail_x, rows)[:, 0]) * grid.tail_p
     if not np.all(np.isfinite(total)):
-        raise ConvergenceError("the expectation overflowed: the relative risk is too large "
-                               "over the exposure range; check the curve and its units")
+        raise DivergenceError("the expected RR overflows the float range (about 1.8e308): "
+                              "the relative risk is too large over the exposure range; check "
+                              "the curve's coefficients and units")
     return total
 
 

@@ -126,7 +126,12 @@ def _inverse_information(model: CurveModel, x: FloatArray, jw: FloatArray) -> Fl
         raise ModelError(
             f"the {model.name} model's parameters are not identified by doses {x}; "
             f"use a model with fewer parameters (or fewer knots)")
-    cov = np.linalg.inv(jw.T @ jw)
+    with np.errstate(over="ignore", invalid="ignore"):
+        info = jw.T @ jw
+    if not np.all(np.isfinite(info)):
+        raise ModelError(f"the {model.name} model's information matrix overflows the float "
+                         f"range at doses {x}; the doses are too large for this model")
+    cov = np.linalg.inv(info)
     return (cov + cov.T) / 2.0
 
 

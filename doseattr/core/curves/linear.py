@@ -32,8 +32,10 @@ class LinearExcess(CurveModel):
     param_names = ("slope",)
 
     def excess(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
-        """``RR(x) - 1 = b (x - x_ref)`` (unclipped)."""
-        return param(coef, 0) * (np.asarray(x, dtype=float) - self.reference_dose)
+        """``RR(x) - 1 = b (x - x_ref)`` (unclipped; ``inf`` where it passes
+        the float range, which the expectations refuse)."""
+        with np.errstate(over="ignore"):
+            return param(coef, 0) * (np.asarray(x, dtype=float) - self.reference_dose)
 
     def log_rr(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
         return np.log1p(np.maximum(self.excess(x, coef), RR_FLOOR - 1.0))
@@ -51,7 +53,8 @@ class LinearExcess(CurveModel):
         """
         b = float(np.ravel(coef)[0])
         x = np.atleast_1d(np.asarray(doses, dtype=float)) - self.reference_dose
-        lowest_excess = b * x.max() if b < 0 else b * x.min() if b > 0 else 0.0
+        with np.errstate(over="ignore", invalid="ignore"):
+            lowest_excess = b * x.max() if b < 0 else b * x.min() if b > 0 else 0.0
         if 1.0 + lowest_excess <= RR_FLOOR:
             raise ModelError(
                 f"linear model: RR = 1 + {b:.4g} (x - {self.reference_dose:g}) is not positive "

@@ -56,7 +56,16 @@ def published_curve(model: str | CurveModel, *, rr: float | None = None,
     obj = model if not isinstance(model, str) else make_model(
         name, reference_dose=reference_dose, **settings)
     notes = _notes(name, ci, rr, err, exponent)
-    return entered_curve(obj, [coef / per], cov=[[var / per**2]], max_dose=max_dose,
+    slope, slope_se = coef / per, np.sqrt(var) / per
+    if not np.isfinite(slope):
+        raise ModelError(f"the estimate per unit dose ({coef:g} / per {per:g}) overflows the "
+                         "float range (about 1.8e308); give the estimate per a larger dose "
+                         "increment or check its units")
+    if not np.isfinite(slope_se * slope_se):
+        raise ModelError(f"the standard error from ci ({slope_se:.3g} per unit dose) has a "
+                         f"square beyond the float range; it must be below "
+                         f"{np.sqrt(np.finfo(float).max):.3g}: check ci and per")
+    return entered_curve(obj, [slope], cov=[[slope_se * slope_se]], max_dose=max_dose,
                          data_max=data_max, notes=notes)
 
 
@@ -114,7 +123,12 @@ def _on_scale(what: str, value: float | None, ci: tuple[float, float] | None,
         raise ModelError(f"CI ({lo:g}, {hi:g}) of the {what} must have lower < upper "
                          f"and contain the estimate {value:g}")
     z = norm.ppf(0.5 + level / 2.0)
-    return float(value), ((hi - lo) / (2.0 * z)) ** 2
+    se = (hi - lo) / (2.0 * z)
+    if not np.isfinite(se) or se >= np.sqrt(np.finfo(float).max):
+        raise ModelError(f"the standard error from the CI ({se:.3g}) has a square beyond the "
+                         f"float range; it must be below {np.sqrt(np.finfo(float).max):.3g}: "
+                         "check ci")
+    return float(value), se * se
 
 
 def _notes(name: str, ci: tuple[float, float] | None, rr: float | None,

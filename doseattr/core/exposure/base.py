@@ -31,6 +31,47 @@ FloatArray = NDArray[np.float64]
 Z_BREAKS = np.array([-8.6, -6.5, -4.8, -3.4, -2.2, -1.1, 0.0, 1.1, 2.2, 3.4, 4.8, 6.5, 8.6])
 
 
+def log1p_square(x: float) -> float:
+    r""":math:`\ln(1 + x^2)` without overflow of :math:`x^2` (for ``x`` past
+    about 1.3e154): :math:`2 \ln x + \ln(1 + x^{-2})` there."""
+    x = abs(float(x))
+    if x < 1e150:
+        return float(np.log1p(x * x))
+    return float(2.0 * np.log(x) + np.log1p((1.0 / x) ** 2))
+
+
+#: Narrowest log-scale spread (as a multiple of |ln median|) the fixed
+#: quadrature resolves: nodes on t = ln x carry rounding of about
+#: 2.2e-16 |ln median|, which must stay far below the spread (the engine
+#: checks the recovered probability to 1e-9).
+MIN_RELATIVE_LOG_SPREAD = 1e-6
+
+
+def check_usable(fam: "Family", params: FloatArray,
+                 hint: str = "give a smaller spread or a smaller scale") -> None:
+    """Refuse parameters the numerics cannot carry: a mean beyond the float
+    range (about 1.8e308), or a lognormal spread too narrow to resolve in
+    double precision (``ln gsd < 1e-6 |ln gm|``)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        mean = float(np.asarray(fam.mean(params)))
+    if not np.isfinite(mean):
+        shown = ", ".join(f"{n} {v:.6g}" for n, v in zip(fam.param_names, params))
+        raise ModelError(f"{fam.name} with {shown} has a mean beyond the float range (about "
+                         f"1.8e308); {hint}")
+    if fam.name == "lognormal":
+        gm, gsd = (float(v) for v in params)
+        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(gm))
+        if np.log(gsd) < need:
+            raise ModelError(f"gsd {gsd!r} is too close to 1 for gm {gm:g}: a log-scale spread "
+                             f"below 1e-6 x |ln gm| cannot be resolved in double precision; give "
+                             f"gsd >= {np.exp(need) * (1 + 1e-12):.10g}")
+
+
+def from_gm_gsd(gm: float, gsd: float) -> Exposure:
+    """Lognormal with geometric mean ``gm`` and geometric SD ``gsd`` (> 1)."""
+    return from_parameters("lognormal", {"gm": gm, "gsd": gsd}, source="gm-gsd")
+
+
 def pcol(params: ArrayLike, j: int) -> FloatArray:
     """Parameter ``j`` of ``params`` shaped to broadcast against ``x``."""
     return np.asarray(params, dtype=float)[..., j, None]
@@ -65,11 +106,13 @@ class Family(ABC):
         """log density of T = ln X at ``t``."""
 
     def logpdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        """log density of X at ``x > 0``."""
+        """log density of X at ``x > 0``; ``-inf`` at ``x <= 0`` (the
+        families put no mass on a point)."""
         x = np.asarray(x, dtype=float)
-        with np.errstate(divide="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore"):
             lx = np.log(x)
-        return self.log_density_log(lx, params) - lx
+            out = self.log_density_log(lx, params) - lx
+        return np.where(x > 0, out, -np.inf)
 
     @abstractmethod
     def cdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray: ...

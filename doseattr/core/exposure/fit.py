@@ -23,11 +23,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray
+from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray, check_usable
 from doseattr.core.exposure.gof import goodness_of_fit
 from doseattr.core.exposure.mle import Maximum, covariance, maximise
 from doseattr.core.exposure.registry import get_family
-from doseattr.errors import ConvergenceError, ModelError
+from doseattr.errors import ConvergenceError, FitError, ModelError
 
 
 @dataclass(frozen=True)
@@ -135,9 +135,14 @@ def fit_measurements(family: str | Family, values: ArrayLike, *, detected: Array
     """
     fam = get_family(family)
     data = prepare(values, detected, weights)
-    best = _maximum(fam, data)
+    try:
+        best = _maximum(fam, data)
+    except ConvergenceError as exc:
+        raise FitError(str(exc)) from None
     params = fam.from_internal(best.theta)
     fam.check(params)
+    check_usable(fam, params, "check the largest values (and their unit) or use "
+                 "family = \"empirical\"")
     fit = ExposureFit(
         method=_method(data), loglik=best.loglik, aic=2 * len(params) - 2 * best.loglik,
         n=data.x.size, detected=int(data.detected.sum()), censored=data.n_censored,
@@ -158,10 +163,10 @@ def fit_best(values: ArrayLike, *, detected: ArrayLike | None = None, weights: A
     for name in families:
         try:
             fits.append(fit_measurements(name, values, detected=detected, weights=weights))
-        except ConvergenceError as err:
+        except (ConvergenceError, ModelError) as err:
             failed.append(f"{name} not fitted: {err}")
     if not fits:
-        raise ConvergenceError("no exposure family could be fitted: " + "; ".join(failed))
+        raise FitError("no exposure family could be fitted: " + "; ".join(failed))
     fits.sort(key=lambda e: e.fit.aic)
     best, rest = fits[0], fits[1:]
     table = ", ".join(f"{e.family.name} {e.fit.aic:.2f}" for e in fits)

@@ -26,6 +26,24 @@ from doseattr.core.exposure.incomplete_gamma import (log_gamma_break_quantiles, 
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
 
 
+_HALF_LOG_2PI = 0.5 * np.log(2 * np.pi)
+
+
+def stirling_correction(k: ArrayLike) -> FloatArray:
+    r""":math:`\ln\Gamma(k) - (k - \tfrac12)\ln k + k - \tfrac12\ln 2\pi`;
+    for ``k > 10`` by its asymptotic series :math:`1/(12k) - 1/(360k^3) +
+    1/(1260k^5) - 1/(1680k^7)` (Abramowitz & Stegun 1964, 6.1.41, from
+    memory; the next term is below 4e-13 there), which avoids the cancellation of the direct
+    difference."""
+    k = np.asarray(k, dtype=float)
+    big = k > 10
+    kb = np.where(big, k, 11.0)
+    series = 1 / (12 * kb) - 1 / (360 * kb**3) + 1 / (1260 * kb**5) - 1 / (1680 * kb**7)
+    ks = np.where(big, 1.0, k)
+    direct = gammaln(ks) - (ks - 0.5) * np.log(ks) + ks - _HALF_LOG_2PI
+    return np.where(big, series, direct)
+
+
 def gamma_between(a: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> FloatArray:
     """P(a, hi) - P(a, lo) for lo <= hi, on the survival side above the mean
     ``a`` to keep precision in the upper tail."""
@@ -41,15 +59,23 @@ class Gamma(PositiveFamily):
 
     def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
         r"""log density of ``T = ln X``: :math:`k u - e^u - \ln\Gamma(k)`,
-        ``u = t - ln theta``."""
+        ``u = t - ln theta``, written about the mode ``u = ln k`` as
+
+        .. math:: -k\,(\mathrm{expm1}(v) - v) + \tfrac12 \ln k
+                  - \tfrac12 \ln 2\pi - c(k), \qquad v = u - \ln k,
+
+        with :math:`c(k) = \ln\Gamma(k) - (k - \tfrac12)\ln k + k -
+        \tfrac12 \ln 2\pi` (Stirling's correction). The terms ``k u``,
+        ``e^u`` and ``ln Gamma(k)`` each grow like ``k ln k`` and cancel; this
+        form keeps full precision for a large shape (a narrow distribution)."""
         k = pcol(params, 0)
-        u = np.subtract(t, np.log(pcol(params, 1)), dtype=float)  # in place from here: a hot path
-        with np.errstate(over="ignore"):
-            e = np.exp(u)
-        u *= k
-        u -= e
-        u -= gammaln(k)
-        return u
+        v = np.subtract(t, np.log(pcol(params, 1)) + np.log(k), dtype=float)  # in place: hot path
+        with np.errstate(over="ignore", invalid="ignore"):
+            e = np.expm1(v)
+            e -= v
+        e *= -k
+        e += 0.5 * np.log(k) - _HALF_LOG_2PI - stirling_correction(k)
+        return e
 
     @staticmethod
     def _ky(x: ArrayLike, params: ArrayLike) -> tuple[FloatArray, FloatArray]:

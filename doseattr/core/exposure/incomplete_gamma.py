@@ -111,6 +111,16 @@ def _log_lower_quantile(a: FloatArray, p: FloatArray) -> FloatArray:
         return np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound)
 
 
+def _log_upper_quantile(a: FloatArray, q: FloatArray) -> FloatArray:
+    """log of the quantile with survival probability ``q``; for a shape
+    near 0 it can underflow (most of the mass lies below 1e-300), and then
+    the lower-side bound of :func:`_log_lower_quantile` at ``1 - q`` is used."""
+    y = gammainccinv(a, q)
+    bound = (np.log1p(-q) + gammaln(a + 1)) / a
+    with np.errstate(divide="ignore"):
+        return np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound)
+
+
 def log_gamma_break_quantiles(shape: ArrayLike) -> FloatArray:
     """log quantiles of Gamma(shape, 1) at the probabilities of Z_BREAKS.
 
@@ -122,6 +132,6 @@ def log_gamma_break_quantiles(shape: ArrayLike) -> FloatArray:
     uniq, inverse = np.unique(shape, return_inverse=True)
     a = uniq[:, None]
     lower = _log_lower_quantile(a, LOWER_P[None, :])
-    upper = np.log(gammainccinv(a, UPPER_Q[None, :]))
+    upper = _log_upper_quantile(a, UPPER_Q[None, :])
     table = np.concatenate([lower, upper], axis=1)
     return table[inverse.reshape(shape.shape)]

@@ -22,7 +22,7 @@ from scipy import stats
 from scipy.special import log_ndtr, ndtr, ndtri
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import Z_BREAKS, Family, FloatArray, pcol
+from doseattr.core.exposure.base import log1p_square, Z_BREAKS, Family, FloatArray, pcol
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
 from doseattr.errors import ModelError
 
@@ -113,7 +113,7 @@ class LogNormal(Family):
 
     def from_moments(self, mean: float, sd: float) -> FloatArray:
         r""":math:`s^2 = \ln(1 + CV^2)`, :math:`\mu = \ln m - s^2/2`."""
-        s2 = np.log1p((sd / mean) ** 2)
+        s2 = log1p_square(sd / mean)
         return np.array([mean * np.exp(-0.5 * s2), np.exp(np.sqrt(s2))])
 
     def start(self, x: FloatArray, w: FloatArray) -> FloatArray:

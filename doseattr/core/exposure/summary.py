@@ -21,7 +21,7 @@ from numpy.typing import ArrayLike
 from scipy.optimize import least_squares
 from scipy.special import ndtri
 
-from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray
+from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray, check_usable
 from doseattr.core.exposure.mle import maximise
 from doseattr.core.exposure.registry import get_family
 from doseattr.errors import ModelError
@@ -36,6 +36,7 @@ def from_parameters(family: str | Family, params: Mapping[str, float], *, source
                          f"got {', '.join(map(str, params)) or 'none'}")
     vector = np.array([float(params[n]) for n in fam.param_names])
     fam.check(vector)
+    check_usable(fam, vector)
     return Exposure(fam, vector, source=source)
 
 
@@ -55,7 +56,12 @@ def from_mean_sd(family: str | Family, mean: float, sd: float) -> Exposure:
     (formulas in each family's ``from_moments``)."""
     fam = get_family(family)
     params = fam.from_moments(_positive(mean, "mean"), _positive(sd, "sd"))
+    if not np.all(np.isfinite(params) & (params > 0)):
+        shown = ", ".join(f"{n} {v:.6g}" for n, v in zip(fam.param_names, params))
+        raise ModelError(f"sd / mean = {sd / mean:.3g} gives {fam.name} parameters outside the "
+                         f"float range ({shown}); give an sd nearer the mean")
     fam.check(params)
+    check_usable(fam, params)
     return Exposure(fam, params, source="mean-sd")
 
 

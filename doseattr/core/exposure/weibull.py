@@ -21,7 +21,7 @@ from scipy.optimize import brentq
 from scipy.special import gammaln
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import Z_BREAKS, PositiveFamily, FloatArray, pcol
+from doseattr.core.exposure.base import log1p_square, Z_BREAKS, PositiveFamily, FloatArray, pcol
 from doseattr.core.exposure.gamma import gamma_between
 from doseattr.core.exposure.incomplete_gamma import LOWER_P, UPPER_Q, log_gamma_break_quantiles
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
@@ -104,7 +104,7 @@ class Weibull(PositiveFamily):
     def from_moments(self, mean: float, sd: float) -> FloatArray:
         r"""Solve :math:`\ln(1 + CV^2) = \ln\Gamma(1 + 2/k) - 2\ln\Gamma(1 + 1/k)`
         for ``k`` (brentq on ``ln k``), then ``scale = mean / Gamma(1 + 1/k)``."""
-        target = np.log1p((sd / mean) ** 2)
+        target = log1p_square(sd / mean)
 
         def gap(logk: float) -> float:
             k = np.exp(logk)
