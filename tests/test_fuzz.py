@@ -44,6 +44,26 @@ TABLES = {
                 "D,4.1,1\nE,7.7,2\nF,3.3,1\n",
     "burden.csv": "# invented cases\nstratum,cases,population\nNorth,40,9000\nSouth,25,6000\n",
 }
+#: Other valid starting points: an entered curve over summary statistics
+#: (with a few uncertainty draws), and work histories.
+ENTERED: dict[str, Any] = {
+    "unit": "mg/m3",
+    "curve": {"model": "linear", "err": 0.05, "per": 1.0, "ci": [0.01, 0.09]},
+    "exposure": {"family": "gamma", "mean": 4.0, "sd": 3.0},
+    "attribution": {"minimum_risk": 0.5},
+    "scenario": [{"name": "minus 20%", "scale": 0.8}],
+    "uncertainty": {"draws": 100, "seed": 7},
+}
+HISTORIES: dict[str, Any] = {
+    "unit": "mg/m3-years",
+    "curve": {"model": "log-linear", "rr": 1.1, "per": 1.0, "max_dose": 30.0, "beyond": "flat"},
+    "exposure": {"histories": "jobs.csv", "as_of": "2024-01-01", "lag_years": 2.0,
+                 "family": "empirical"},
+}
+TABLES["jobs.csv"] = ("# invented jobs\nworker,start,end,intensity\nw1,2010-01-01,2015-07-01,0.2\n"
+                      "w2,2005-03-15,2012-03-15,0.5\nw3,2019-01-01,2023-06-30,0.1\n")
+BASES = (BASE, ENTERED, HISTORIES)
+NUMERIC = {"lognormal": ("gm", "gsd"), "gamma": ("shape", "scale"), "weibull": ("shape", "scale")}
 FILES = ("analysis.toml",) + tuple(TABLES)
 
 EXTREMES = [0, -0.0, 1e-308, 5e-324, 1e308, -1e308, 10**30, -(10**19), 2**63, 1.0000000001,
@@ -100,7 +120,15 @@ def places(d: dict[str, Any]) -> list[tuple[dict[str, Any], str]]:
 def toml_mutation(draw, d: dict[str, Any]):
     spots = places(d)
     table, key = draw(st.sampled_from(spots))
-    kind = draw(st.sampled_from(["delete", "rename", "extreme", "wrong-type", "add"]))
+    kind = draw(st.sampled_from(["delete", "rename", "extreme", "extreme", "wrong-type",
+                                 "add", "number"]))
+    if kind == "number":  # a number anywhere in float range, where a number was
+        numeric = [(t, k) for t, k in spots if isinstance(t[k], (int, float))
+                   and not isinstance(t[k], bool)]
+        if numeric:
+            table, key = draw(st.sampled_from(numeric))
+            table[key] = draw(st.floats(allow_nan=False, allow_infinity=False, width=64))
+            return
     if kind == "delete":
         del table[key]
     elif kind == "rename":
@@ -160,7 +188,13 @@ def csv_damage(draw, text: str):
 
 @st.composite
 def cases(draw):
-    d = json.loads(json.dumps(BASE))
+    d = json.loads(json.dumps(draw(st.sampled_from(BASES))))
+    if "mean" in d["exposure"] and draw(st.booleans()):  # another summary description
+        family = draw(st.sampled_from(sorted(NUMERIC)))
+        a, b = NUMERIC[family]
+        d["exposure"] = {"family": family, a: 3.0, b: 1.5 if family != "gamma" else 2.0}
+    if d["exposure"].get("table") and draw(st.booleans()):
+        d["exposure"]["family"] = draw(st.sampled_from(["gamma", "weibull", "best"]))
     tables = {k: v.encode() for k, v in TABLES.items()}
     for _ in range(draw(st.integers(0, 2))):
         draw(toml_mutation(d))
@@ -225,8 +259,9 @@ def test_mutated_analyses_end_in_results_or_one_line(case, capsys):
         shutil.rmtree(folder, ignore_errors=True)
 
 
-def test_the_base_analysis_runs(capsys, tmp_path):
-    """The unmutated base must run, or the fuzzing above tests refusals only."""
-    check_one(tmp_path, to_toml(BASE).encode(), {k: v.encode() for k, v in TABLES.items()},
+@pytest.mark.parametrize("base", BASES, ids=["tables", "entered", "histories"])
+def test_the_base_analysis_runs(capsys, tmp_path, base):
+    """Each unmutated base must run, or the fuzzing above tests refusals only."""
+    check_one(tmp_path, to_toml(base).encode(), {k: v.encode() for k, v in TABLES.items()},
               capsys)
     assert (tmp_path / "out" / "results.json").is_file()

@@ -29,6 +29,7 @@ from doseattr.core.attribution.scenarios import Cap, Scenario
 from doseattr.core.curves.base import Curve, as_coef_draws
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
+from doseattr.errors import DivergenceError
 
 FloatArray = NDArray[np.float64]
 
@@ -71,8 +72,13 @@ def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, wei
     coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk, values.shape[0])
     values = np.broadcast_to(values, (d, values.shape[1]))
     weights = np.broadcast_to(weights, (d, weights.shape[1]))
-    excess = np.expm1(_log_rr_m(curve, coef, m, scenario)(values, slice(0, d)))
-    body = np.sum(excess * weights, axis=1) / np.sum(weights, axis=1)
+    with np.errstate(over="ignore", invalid="ignore"):
+        excess = np.expm1(_log_rr_m(curve, coef, m, scenario)(values, slice(0, d)))
+        body = np.sum(excess * weights, axis=1) / np.sum(weights, axis=1)
+    if not np.all(np.isfinite(body)):
+        raise DivergenceError("the expected RR overflows the float range (about 1.8e308): the "
+                              "relative risk is too large over the exposure values; check the "
+                              "curve's coefficients and units")
     return (1.0 - u) * body
 
 
@@ -161,13 +167,20 @@ def _graded_below_flat(curve: Curve, coef: FloatArray) -> FloatArray:
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,
                 scenario: Scenario | None = None) -> float:
     """:math:`E[RR_m(g(X))]` at the point estimates."""
+    return 1.0 + _point_excess(curve, exposure, minimum_risk, scenario)
+
+
+def _point_excess(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float,
+                  scenario: Scenario | None = None) -> float:
+    """:math:`E[RR_m(g(X))] - 1` at the point estimates, kept as an excess
+    so that a tiny PAF keeps its relative precision."""
     if isinstance(exposure, EmpiricalExposure):
         excess = empirical_excess_draws(curve, curve.coef, exposure.values, exposure.weights,
                                         exposure.unexposed, minimum_risk, scenario)
     else:
         excess = excess_draws(curve, curve.coef, exposure.family, exposure.params,
                               exposure.unexposed, minimum_risk, scenario)
-    return 1.0 + float(excess[0])
+    return float(excess[0])
 
 
 def paf_from_excess(excess0: ArrayLike) -> FloatArray:
@@ -185,12 +198,12 @@ def pif_from_excess(excess0: ArrayLike, excess_g: ArrayLike) -> FloatArray:
 def paf(curve: Curve, exposure: Exposure, minimum_risk: float = 0.0) -> float:
     """Population attributable fraction of the current exposure distribution
     against everyone at the minimum-risk level."""
-    return float(paf_from_excess(expected_rr(curve, exposure, minimum_risk) - 1.0))
+    return float(paf_from_excess(_point_excess(curve, exposure, minimum_risk)))
 
 
 def pif(curve: Curve, exposure: Exposure, scenario: Scenario,
         minimum_risk: float = 0.0) -> float:
     """Potential impact fraction of an exposure-reduction scenario."""
-    e0 = expected_rr(curve, exposure, minimum_risk) - 1.0
-    eg = expected_rr(curve, exposure, minimum_risk, scenario) - 1.0
+    e0 = _point_excess(curve, exposure, minimum_risk)
+    eg = _point_excess(curve, exposure, minimum_risk, scenario)
     return float(pif_from_excess(e0, eg))

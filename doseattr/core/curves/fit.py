@@ -15,7 +15,7 @@ from scipy.stats import chi2
 
 from doseattr.core.curves.base import Curve, CurveFit, CurveModel, FloatArray
 from doseattr.core.curves.covariance import LogRRCovariance
-from doseattr.errors import ConvergenceError, ModelError
+from doseattr.errors import FitError, ModelError
 
 #: p-value of the goodness-of-fit Q statistic below which the fit is flagged.
 POOR_FIT_P = 0.05
@@ -113,7 +113,7 @@ def _fit_nonlinear(model: CurveModel, x: FloatArray, y: FloatArray,
     res = least_squares(residual, start, x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12,
                         max_nfev=2000 * start.size, **options)
     if not res.success or not np.all(np.isfinite(res.x)):
-        raise ConvergenceError(
+        raise FitError(
             f"{model.name} model fit did not converge ({res.message}); the data may not "
             f"identify all its parameters: try a model with fewer")
     return res.x, _inverse_information(model, x, res.jac)

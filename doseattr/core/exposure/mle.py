@@ -17,7 +17,7 @@ from scipy.optimize import minimize
 from statsmodels.tools.numdiff import approx_fprime, approx_hess3
 
 from doseattr.core.exposure.base import FloatArray
-from doseattr.errors import ConvergenceError
+from doseattr.errors import FitError
 
 LogLik = Callable[[FloatArray], float]
 
@@ -79,13 +79,13 @@ def covariance(loglik: LogLik, theta: FloatArray) -> tuple[FloatArray | None, tu
 
 
 def maximise(loglik: LogLik, theta0: FloatArray, *, what: str) -> Maximum:
-    """Maximise ``loglik`` from ``theta0``; ConvergenceError naming ``what``
+    """Maximise ``loglik`` from ``theta0``; FitError (a ConvergenceError) naming ``what``
     if no stationary point is found."""
     neg = _negative(loglik)
     theta = _search(neg, np.asarray(theta0, dtype=float))
     if not _stationary(neg, theta):
-        raise ConvergenceError(f"{what}: the maximum-likelihood search did not converge "
-                               f"(stopped at internal parameters {np.round(theta, 4).tolist()}); "
-                               "check the data for outliers or try another family")
+        raise FitError(f"{what}: the maximum-likelihood search did not converge "
+                       f"(stopped at internal parameters {np.round(theta, 4).tolist()}); "
+                       "check the data for outliers or try another family")
     cov, warnings = covariance(loglik, theta)
     return Maximum(theta, -neg(theta), cov, warnings)
