@@ -291,3 +291,21 @@ def test_empirical_histories_with_no_exposed_worker_are_refused(capsys, tmp_path
     refused(capsys, tmp_path, toml, {"jobs.csv": "worker,start,end,intensity\n"
                                                  "w3,2021-01-01,2023-01-01,0.8\n"},
             file="jobs.csv", where="column", says="at least 1 is needed")
+
+
+# -- a gamma so narrow that double precision cannot resolve it (found by the fuzzer) ----------
+def test_gamma_too_narrow_to_resolve_is_refused_at_key_sd(capsys, tmp_path):
+    toml = entered('family = "gamma"\nmean = 5.5e16\nsd = 3.0', "err = 0.05\nper = 1"
+                   ).replace('"log-linear"', '"linear"')
+    refused(capsys, tmp_path, toml, file="analysis.toml", where="[exposure] key 'sd'",
+            says="too narrow")
+
+
+def test_narrow_gamma_within_the_bound_matches_the_closed_form(capsys, tmp_path):
+    # CV 1e-4 at mean 1e6: the SD of ln X (about 1e-4) is above 1e-6 x ln(1e6) = 1.4e-5.
+    toml = entered('family = "gamma"\nmean = 1e6\nsd = 100', "err = 1e-6\nper = 1"
+                   ).replace('"log-linear"', '"linear"')
+    code, err, res = outcome(capsys, tmp_path, toml)
+    assert code == 0, err
+    b_mean = 1e-6 * 1e6  # RR = 1 + b x: PAF = b E[X] / (1 + b E[X]) (closed form)
+    assert res["paf"]["estimate"] == pytest.approx(b_mean / (1 + b_mean), rel=1e-9)

@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 from typing import ClassVar
 
 import numpy as np
+from scipy.special import polygamma
 from numpy.typing import ArrayLike, NDArray
 
 from doseattr.core.curves.base import Growth
@@ -50,8 +51,11 @@ MIN_RELATIVE_LOG_SPREAD = 1e-6
 def check_usable(fam: "Family", params: FloatArray,
                  hint: str = "give a smaller spread or a smaller scale") -> None:
     """Refuse parameters the numerics cannot carry: a mean beyond the float
-    range (about 1.8e308), or a lognormal spread too narrow to resolve in
-    double precision (``ln gsd < 1e-6 |ln gm|``)."""
+    range (about 1.8e308), or a spread of ``ln X`` too narrow to resolve in
+    double precision (below 1e-6 x the magnitude of its centre: ``ln gsd``
+    against ``ln gm`` for the lognormal; for gamma and Weibull the SD of
+    ``ln X``, :math:`\sqrt{\psi_1(k)}` and :math:`\pi / (k\sqrt 6)`
+    (Johnson, Kotz & Balakrishnan 1994, from memory), against ``ln mean``)."""
     with np.errstate(over="ignore", invalid="ignore"):
         mean = float(np.asarray(fam.mean(params)))
     if not np.isfinite(mean):
@@ -65,11 +69,16 @@ def check_usable(fam: "Family", params: FloatArray,
             raise ModelError(f"gsd {gsd!r} is too close to 1 for gm {gm:g}: a log-scale spread "
                              f"below 1e-6 x |ln gm| cannot be resolved in double precision; give "
                              f"gsd >= {np.exp(need) * (1 + 1e-12):.10g}")
-
-
-def from_gm_gsd(gm: float, gsd: float) -> Exposure:
-    """Lognormal with geometric mean ``gm`` and geometric SD ``gsd`` (> 1)."""
-    return from_parameters("lognormal", {"gm": gm, "gsd": gsd}, source="gm-gsd")
+    elif fam.name in ("gamma", "weibull"):
+        k = float(params[0])
+        spread = (float(np.sqrt(polygamma(1, k))) if fam.name == "gamma"
+                  else float(np.pi / (k * np.sqrt(6.0))))
+        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(mean))
+        if spread < need:
+            raise ModelError(f"{fam.name} with shape {k:.6g} is too narrow for its mean "
+                             f"{mean:.6g}: the SD of ln X, {spread:.3g}, is below 1e-6 x "
+                             f"|ln mean| = {need:.3g}, which double precision cannot resolve; "
+                             "give a larger spread (a smaller shape, a larger sd)")
 
 
 def pcol(params: ArrayLike, j: int) -> FloatArray:
