@@ -58,6 +58,12 @@ class DivergenceError(ModelError):
     curve extended over a lognormal tail)."""
 
 
+class FloatRangeError(DivergenceError):
+    """An expectation whose value lies outside double precision (an expected
+    RR that overflows 1.8e308 or underflows to 0): the curve's coefficients
+    or units are extreme, whatever is done with its tail."""
+
+
 class ConvergenceError(DoseattrError, RuntimeError):
     """An optimiser or root finder that did not converge."""
 

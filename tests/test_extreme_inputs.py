@@ -222,8 +222,16 @@ def test_steep_linear_excess_risk_matches_the_closed_form(capsys, tmp_path, err)
 def test_linear_excess_risk_past_the_float_range_is_refused(capsys, tmp_path):
     toml = entered('family = "gamma"\nshape = 2.0\nscale = 3.0', "err = 1e308\nper = 1"
                    ).replace('"log-linear"', '"linear"')
-    refused(capsys, tmp_path, toml, file="analysis.toml", where="[curve] key",
+    refused(capsys, tmp_path, toml, file="analysis.toml", where="[curve]",
             says="overflows the float range")
+
+
+def test_expected_rr_that_underflows_to_0_is_refused(capsys, tmp_path):
+    # RR = 5e-324 per unit over Gamma(2000, 1): E[RR] = (1 + 744.4)^-2000 (gamma MGF) = 0 in
+    # double precision, so 1 - 1/E[RR] has no value (found by the fuzzer).
+    toml = entered('family = "gamma"\nshape = 2000\nscale = 1', "rr = 5e-324\nper = 1")
+    refused(capsys, tmp_path, toml, file="analysis.toml", where="[curve]",
+            says="underflows to 0")
 
 
 # -- a CSV cell longer than 128k characters ------------------------------------------------

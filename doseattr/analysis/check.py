@@ -20,7 +20,7 @@ from doseattr.analysis.burden_run import burden_strata
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
-from doseattr.errors import DivergenceError, InputError
+from doseattr.errors import DivergenceError, FloatRangeError, InputError
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -158,6 +158,9 @@ class divergence:
         if kind is None or not issubclass(kind, DivergenceError):
             return False
         a = self.analysis
+        if issubclass(kind, FloatRangeError):
+            raise InputError(f"there is no PAF: {exc}", source=a.source,
+                             location="[curve]") from None
         how = ("beyond = \"flat\"" if a.curve.source == "table"
                else "max_dose with beyond = \"flat\"")
         raise InputError(

@@ -41,7 +41,7 @@ from scipy.special import roots_legendre
 
 from doseattr.core.curves.base import Growth
 from doseattr.core.exposure.base import Family
-from doseattr.errors import ConvergenceError, DivergenceError
+from doseattr.errors import ConvergenceError, FloatRangeError
 
 FloatArray = NDArray[np.float64]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
@@ -182,7 +182,7 @@ def _integrate(log_rr: LogRisk, grid: Grid, rows: slice) -> FloatArray:
         if np.any(grid.tail_p > 0):
             total = total + np.expm1(log_rr(grid.tail_x, rows)[:, 0]) * grid.tail_p
     if not np.all(np.isfinite(total)):
-        raise DivergenceError("the expected RR overflows the float range (about 1.8e308): "
+        raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
                               "the relative risk is too large over the exposure range; check "
                               "the curve's coefficients and units")
     return total

@@ -29,7 +29,7 @@ from doseattr.core.attribution.scenarios import Cap, Scenario
 from doseattr.core.curves.base import Curve, as_coef_draws
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
-from doseattr.errors import DivergenceError
+from doseattr.errors import FloatRangeError
 
 FloatArray = NDArray[np.float64]
 
@@ -76,7 +76,7 @@ def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, wei
         excess = np.expm1(_log_rr_m(curve, coef, m, scenario)(values, slice(0, d)))
         body = np.sum(excess * weights, axis=1) / np.sum(weights, axis=1)
     if not np.all(np.isfinite(body)):
-        raise DivergenceError("the expected RR overflows the float range (about 1.8e308): the "
+        raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): the "
                               "relative risk is too large over the exposure values; check the "
                               "curve's coefficients and units")
     return (1.0 - u) * body
@@ -186,12 +186,22 @@ def _point_excess(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_
 def paf_from_excess(excess0: ArrayLike) -> FloatArray:
     r""":math:`PAF = 1 - 1/E = (E - 1)/E` from the excess :math:`E - 1`."""
     e0 = np.asarray(excess0, dtype=float)
+    _refuse_zero_rr(e0)
     return e0 / (1.0 + e0)
+
+
+def _refuse_zero_rr(e0: FloatArray) -> None:
+    """An expected RR of 0 in double precision leaves no fraction to form."""
+    if np.any(1.0 + e0 <= 0.0):
+        raise FloatRangeError("the expected RR underflows to 0 in double precision (the curve "
+                              "lowers the risk by a factor beyond the float range); check the "
+                              "curve's coefficients and units")
 
 
 def pif_from_excess(excess0: ArrayLike, excess_g: ArrayLike) -> FloatArray:
     r""":math:`PIF = 1 - E_g/E = (E - E_g)/E` from the two excesses."""
     e0, eg = np.asarray(excess0, dtype=float), np.asarray(excess_g, dtype=float)
+    _refuse_zero_rr(e0)
     return (e0 - eg) / (1.0 + e0)
 
 
