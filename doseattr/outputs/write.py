@@ -104,7 +104,7 @@ def check_destination(out_dir: str | os.PathLike, protected: Iterable[str] = ())
     """
     text = os.fspath(out_dir)
     if not text.strip():
-        raise InputError(f"the output folder is empty; {HINT}", location="--out")
+        raise InputError(f"the output folder name is empty; {HINT}", location="--out")
     out = Path(text).absolute()
     real = Path(os.path.realpath(out))
 
