@@ -62,7 +62,16 @@ HISTORIES: dict[str, Any] = {
 }
 TABLES["jobs.csv"] = ("# invented jobs\nworker,start,end,intensity\nw1,2010-01-01,2015-07-01,0.2\n"
                       "w2,2005-03-15,2012-03-15,0.5\nw3,2019-01-01,2023-06-30,0.1\n")
-BASES = (BASE, ENTERED, HISTORIES)
+PERCENTILES: dict[str, Any] = {
+    "unit": "mg/m3",
+    "curve": {"model": "log-linear", "rr": 1.3, "per": 10.0, "max_dose": 40.0, "beyond": "flat"},
+    "exposure": {"percentiles": {"50": 3.0, "95": 12.0}, "family": "weibull", "unexposed": 0.1},
+    "attribution": {"minimum_risk": [0.5, 1.5], "cutpoints": [2.0, 6.0]},
+    "scenario": [{"name": "minus 1", "reduce_by": 1.0}],
+    "burden": {"table": "strata.csv"},
+}
+TABLES["strata.csv"] = ("# invented strata\nstratum,cases,gm,gsd\nEast,12,,\nWest,30,4.0,2.2\n")
+BASES = (BASE, ENTERED, HISTORIES, PERCENTILES)
 NUMERIC = {"lognormal": ("gm", "gsd"), "gamma": ("shape", "scale"), "weibull": ("shape", "scale")}
 FILES = ("analysis.toml",) + tuple(TABLES)
 
@@ -259,7 +268,7 @@ def test_mutated_analyses_end_in_results_or_one_line(case, capsys):
         shutil.rmtree(folder, ignore_errors=True)
 
 
-@pytest.mark.parametrize("base", BASES, ids=["tables", "entered", "histories"])
+@pytest.mark.parametrize("base", BASES, ids=["tables", "entered", "histories", "percentiles"])
 def test_the_base_analysis_runs(capsys, tmp_path, base):
     """Each unmutated base must run, or the fuzzing above tests refusals only."""
     check_one(tmp_path, to_toml(base).encode(), {k: v.encode() for k, v in TABLES.items()},
