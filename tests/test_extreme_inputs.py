@@ -121,7 +121,7 @@ def test_measurement_whose_square_overflows_is_refused_at_its_row(capsys, tmp_pa
     table = "value\n2\n3.5\n5\n1e300\n"
     toml = entered('table = "m.csv"\nfamily = "gamma"')
     refused(capsys, tmp_path, toml, {"m.csv": table}, file="m.csv",
-            where="row 5, column 'value'", says="overflows beyond 1.34e+154")
+            where="row 5, column 'value'", says="overflow beyond 1.34e+154")
 
 
 # -- case counts near 1e19 ---------------------------------------------------------------

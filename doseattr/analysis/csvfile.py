@@ -189,9 +189,8 @@ def check_band_order(raw: RawTable, lower: FloatArray, upper: FloatArray) -> Non
                         "each band must start where the one before it ends or later")
 
 
-def below_sqrt_max(raw: RawTable, row: Row, column: str, value: float, why: str) -> None:
+def below_sqrt_max(raw: RawTable, row: Row, column: str, value: float, advice: str) -> None:
     """Refuse ``value`` at or above :data:`SQRT_MAX`, whose square overflows."""
     if abs(value) >= SQRT_MAX:
-        raise cell_error(raw, row, column, f"{value:g} is too large: {why} use its square, "
-                         f"which overflows beyond {SQRT_MAX:.3g}; give a value below that "
-                         "(check the unit)")
+        raise cell_error(raw, row, column, f"{value:g} is too large: fits and summaries use "
+                         f"squares, which overflow beyond {SQRT_MAX:.3g}; {advice}")

@@ -260,15 +260,15 @@ def read_measurements(path: str | Path, source: str | None = None, *,
             if below and v == 0:
                 raise cell_error(raw, row, "value", "a detection limit must be above 0, but this "
                                  f"non-detect ({detected_column} = false) has the value 0")
-        below_sqrt_max(raw, row, "value", v, "the fits and summaries of the measurements")
+        below_sqrt_max(raw, row, "value", v, "give a value below that (check the unit)")
         values.append(v)
         detected.append(not below)
         if has_w:
             w = number(raw, row, weight_column)
             if w < 0:
                 raise cell_error(raw, row, weight_column, f"weight must be 0 or more, got {w:g}")
-            below_sqrt_max(raw, row, weight_column, w, "weighted fits (only the weights' "
-                           "ratios matter, so they can all be divided by one factor)")
+            below_sqrt_max(raw, row, weight_column, w, "only the weights' ratios matter, so "
+                           "divide them all by one factor")
             weights.append(w)
     det = np.array(detected, dtype=bool)
     vals = np.array(values, dtype=float)
