@@ -317,3 +317,30 @@ def test_narrow_gamma_within_the_bound_matches_the_closed_form(capsys, tmp_path)
     assert code == 0, err
     b_mean = 1e-6 * 1e6  # RR = 1 + b x: PAF = b E[X] / (1 + b E[X]) (closed form)
     assert res["paf"]["estimate"] == pytest.approx(b_mean / (1 + b_mean), rel=1e-9)
+
+
+# -- found while probing beyond the listed cases ---------------------------------------------
+def test_percentiles_too_far_apart_are_refused_at_their_key(capsys, tmp_path):
+    # A lognormal through 1e-300 (median) and 1e300 (95th) has s = ln(1e600) / 1.645, so its
+    # mean gm exp(s^2 / 2) is far beyond 1.8e308 (closed form).
+    refused(capsys, tmp_path, entered('percentiles = {50 = 1e-300, 95 = 1e300}\n'
+                                      'family = "lognormal"'),
+            file="analysis.toml", where="[exposure] key 'percentiles'", says="too far apart")
+
+
+def test_spline_knots_whose_cubes_overflow_are_refused(capsys, tmp_path):
+    bands = ("lower,upper,rr,ci_lower,ci_upper\n0,10,1,,\n10,20,1.2,1.0,1.4\n"
+             "20,1e300,1.5,1.2,1.9\n1e300,,2.0,1.5,2.7\n")
+    toml = ('unit = "mg/m3"\n[curve]\ntable = "bands.csv"\nmodel = "spline"\n'
+            '[exposure]\ngm = 10\ngsd = 2\n')
+    refused(capsys, tmp_path, toml, {"bands.csv": bands}, file="analysis.toml",
+            where="[curve] key 'model'", says="cubes")
+
+
+def test_counts_near_0_are_refused_in_one_line(capsys, tmp_path):
+    bands = ("lower,upper,rr,ci_lower,ci_upper,cases,controls\n0,10,1,,,5e-324,5e-324\n"
+             "10,20,1.2,1.0,1.4,50,100\n20,,1.5,1.2,1.9,40,60\n")
+    toml = ('unit = "mg/m3"\n[curve]\ntable = "bands.csv"\ndesign = "case-control"\n'
+            '[exposure]\ngm = 10\ngsd = 2\n')
+    refused(capsys, tmp_path, toml, {"bands.csv": bands}, file="bands.csv",
+            where="columns 'cases', 'controls'", says="not positive definite")

@@ -255,7 +255,7 @@ def check_one(folder: Path, toml: bytes, tables: dict[str, bytes], capsys) -> No
     assert not out.exists(), "a refused run wrote its output folder"
 
 
-@settings(derandomize=True, max_examples=80, deadline=None, database=None,
+@settings(derandomize=True, max_examples=60, deadline=None, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow,
                                  HealthCheck.data_too_large])
 @given(case=cases())

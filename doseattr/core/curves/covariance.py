@@ -127,6 +127,12 @@ def greenland_longnecker(rr: ArrayLike, var_log_rr: ArrayLike, cases: ArrayLike,
         Index of the reference band.
     """
     rr, var, cases, totals = _validate(rr, var_log_rr, cases, totals, ref)
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        # counts near 0 make 1/count inf; the positive-definiteness check refuses it
+        return _greenland_longnecker(rr, var, cases, totals, design, ref)
+
+
+def _greenland_longnecker(rr, var, cases, totals, design, ref) -> LogRRCovariance:
     if design == "case-control":
         a, b = _case_control_counts(rr, cases, totals, ref)
         shared = 1.0 / a[ref] + 1.0 / b[ref]

@@ -31,6 +31,11 @@ def default_knots(doses: ArrayLike, n_knots: int = 3) -> FloatArray:
     return knots
 
 
+#: Largest knot span whose cube (and the squared span dividing it) stays a
+#: float: the cube root of the largest float, about 5.6e102.
+MAX_KNOT_SPAN = float(np.finfo(float).max) ** (1.0 / 3.0) / 10.0
+
+
 def _cube_plus(z: FloatArray) -> FloatArray:
     return np.maximum(z, 0.0) ** 3
 
@@ -64,6 +69,10 @@ class RestrictedCubicSpline(CurveModel):
         t = np.asarray(knots, dtype=float)
         if t.ndim != 1 or t.size < 3 or not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0):
             raise ModelError(f"spline knots must be at least 3 increasing numbers, got {knots}")
+        if np.max(np.abs(t - t[0])) >= MAX_KNOT_SPAN:
+            raise ModelError(f"spline knots span {t[0]:g} to {t[-1]:g}; the basis uses cubes of "
+                             f"dose differences, which overflow beyond a span of "
+                             f"{MAX_KNOT_SPAN:.3g}: check the doses' unit")
         self.knots = t
 
     @property

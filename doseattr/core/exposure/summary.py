@@ -86,9 +86,14 @@ def from_percentiles(family: str | Family, percentiles: Mapping[float, float]) -
     fam = get_family(family)
     p, x = _percentile_table(percentiles)
     z = ndtri(p[[0, -1]])
-    s = np.log(x[-1] / x[0]) / (z[1] - z[0])
-    mean = x[0] * np.exp(-s * z[0] + 0.5 * s * s)
-    start = fam.to_internal(fam.from_moments(mean, mean * np.sqrt(np.expm1(s * s))))
+    s = (np.log(x[-1]) - np.log(x[0])) / (z[1] - z[0])
+    with np.errstate(over="ignore", invalid="ignore"):
+        mean = x[0] * np.exp(-s * z[0] + 0.5 * s * s)
+        start = fam.to_internal(fam.from_moments(mean, mean * np.sqrt(np.expm1(s * s))))
+    if not np.all(np.isfinite(start)):
+        raise ModelError(f"the percentiles {x[0]:g} and {x[-1]:g} are too far apart: a "
+                         f"{fam.name} through them has a mean or spread beyond the float range; "
+                         "check the values and their unit")
 
     def residuals(theta: FloatArray) -> FloatArray:
         with np.errstate(all="ignore"):
@@ -102,6 +107,7 @@ def from_percentiles(family: str | Family, percentiles: Mapping[float, float]) -
                          f"(closest misses by {rms:.2g} on the log scale); try another family")
     params = fam.from_internal(res.x)
     fam.check(params)
+    check_usable(fam, params, "check the percentiles and their unit")
     notes = () if p.size == 2 else (f"least-squares fit to {p.size} percentiles: RMS log-scale residual {rms:.3g}",)
     return Exposure(fam, params, source="percentiles", notes=notes)
 
