@@ -9,8 +9,8 @@ from pathlib import Path
 
 import numpy as np
 
-from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, number,
-                                       read_raw, require_columns)
+from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, below_sqrt_max, cell_error,
+                                       number, read_raw, require_columns)
 from doseattr.errors import InputError
 
 #: Per-stratum exposure columns that may override the shared exposure.
@@ -58,6 +58,8 @@ def read_burden(path: str | Path, source: str | None = None) -> BurdenTable:
         n = number(raw, row, "cases")
         if n < 0:
             raise cell_error(raw, row, "cases", f"cases must be 0 or more, got {n:g}")
+        below_sqrt_max(raw, row, "cases", n, "the intervals' standard errors square the "
+                       "attributable cases; give cases below that")
         names.append(name)
         cases.append(n)
         if "population" in raw.columns:

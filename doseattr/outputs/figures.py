@@ -472,7 +472,10 @@ def plot_draws(draws: Sequence[float], ax=None, *, estimate: float | None = None
     with styled():
         ax = new_axes(ax, size=(5.0, 3.0))
         d = 100 * np.asarray(draws, float)
-        ax.hist(d, bins=40, color=COLORS["band"], edgecolor="white", linewidth=0.4,
+        # draws equal but for rounding cannot be cut into 40 finite bins
+        spread = float(np.ptp(d)) if d.size else 0.0
+        bins = 40 if spread > 1e-9 * max(1.0, float(np.max(np.abs(d), initial=0.0))) else 1
+        ax.hist(d, bins=bins, color=COLORS["band"], edgecolor="white", linewidth=0.4,
                 gid="draws-hist", label=f"{d.size} draws")
         if estimate is not None:
             ax.axvline(100 * estimate, color=COLORS["curve"], linewidth=2, label="estimate")

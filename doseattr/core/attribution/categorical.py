@@ -92,7 +92,8 @@ def band_means(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     hi = np.concatenate([cuts, [np.inf]])
     pm = (1 - exposure.unexposed) * _partial_mean(exposure, lo, hi)
     p = band_shares(exposure, cuts)
-    return np.where(p > 0, pm / np.where(p > 0, p, 1.0), 0.5 * (lo + np.where(np.isfinite(hi), hi, lo)))
+    middle = 0.5 * lo + 0.5 * np.where(np.isfinite(hi), hi, lo)  # halves first: no overflow
+    return np.where(p > 0, pm / np.where(p > 0, p, 1.0), middle)
 
 
 def _partial_mean(exposure: AnyExposure, lo: FloatArray, hi: FloatArray) -> FloatArray:

@@ -80,10 +80,26 @@ def minimum_risk_draws(low: float, high: float, n: int, rng: np.random.Generator
     return rng.uniform(low, high, size=n)
 
 
+#: Mean count from which Poisson draws use the normal approximation.
+NORMAL_FROM = 1e12
+
+
 def case_draws(cases: FloatArray, n: int, rng: np.random.Generator, poisson: bool) -> FloatArray:
     """Observed cases per stratum ``(S,)`` -> draws ``(S, n)``; Poisson
-    variation around the observed count when ``poisson`` is true."""
+    variation around the observed count when ``poisson`` is true.
+
+    numpy's Poisson sampler takes means up to about 9.2e18 (int64); from
+    :data:`NORMAL_FROM` on, the normal approximation N(lambda, lambda) is used,
+    whose error in distribution is of order lambda^(-1/2) < 1e-6 there
+    (the central limit theorem for Poisson counts; from memory)."""
     cases = np.asarray(cases, dtype=float)
     if not poisson:
         return np.broadcast_to(cases[:, None], (cases.size, n))
-    return rng.poisson(cases[:, None], size=(cases.size, n)).astype(float)
+    big = cases >= NORMAL_FROM
+    if not big.any():
+        return rng.poisson(cases[:, None], size=(cases.size, n)).astype(float)
+    out = np.empty((cases.size, n))
+    out[~big] = rng.poisson(cases[~big, None], size=(int((~big).sum()), n))
+    lam = cases[big, None]
+    out[big] = np.maximum(lam + np.sqrt(lam) * rng.standard_normal((int(big.sum()), n)), 0.0)
+    return out
