@@ -273,3 +273,22 @@ def test_cli_check_refuses_with_one_line(tmp_path, monkeypatch, capsys, no_draws
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "analysis.toml" in err[0] and "[curve] key 'knots'" in err[0]
     assert _snapshot(tmp_path) == before
+
+
+def test_quadrature_failure_at_the_point_fit_names_the_exposure_section(monkeypatch) -> None:
+    """The engine's probability check (a ConvergenceError, raised when the
+    fixed rule cannot resolve a distribution) is reported as one line at
+    ``[exposure]`` of the analysis file, not as an error naming nothing."""
+    import doseattr.core.attribution.fractions as fractions_module
+    from doseattr.errors import ConvergenceError
+
+    def unresolved(*args, **kwargs):
+        raise ConvergenceError("quadrature recovered the lognormal distribution's probability "
+                               "only to 1.0e-03")
+
+    monkeypatch.setattr(fractions_module, "paf", unresolved)
+    with pytest.raises(InputError) as err:
+        check_analysis(load_analysis(DEMO / "analysis.toml"))
+    assert err.value.location == "[exposure]"
+    assert err.value.source is not None and err.value.source.endswith("analysis.toml")
+    assert "\n" not in err.value.line()

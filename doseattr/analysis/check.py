@@ -20,7 +20,7 @@ from doseattr.analysis.burden_run import burden_strata
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
-from doseattr.errors import DivergenceError, FloatRangeError, InputError
+from doseattr.errors import ConvergenceError, DivergenceError, FloatRangeError, InputError
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -137,6 +137,10 @@ def _check_strata(analysis: Analysis, curve, shared, strata: list) -> None:
             continue
         try:
             paf(curve, stratum.exposure, m)
+        except ConvergenceError as exc:
+            raise InputError(f"this stratum's PAF cannot be computed: {exc} (check its "
+                             "exposure columns)", source=table.source,
+                             location=f"row {line}") from None
         except DivergenceError as exc:
             raise InputError(f"this stratum's exposure gives an infinite expected RR, so there "
                              f"is no PAF: {str(exc).rstrip('.')} (set [curve] beyond = "
@@ -155,9 +159,12 @@ class divergence:
         return None
 
     def __exit__(self, kind, exc, tb) -> bool:
+        a = self.analysis
+        if kind is not None and issubclass(kind, ConvergenceError):
+            raise InputError(f"the PAF cannot be computed: {exc} (check the exposure's "
+                             "values and unit)", source=a.source, location="[exposure]") from None
         if kind is None or not issubclass(kind, DivergenceError):
             return False
-        a = self.analysis
         if issubclass(kind, FloatRangeError):
             raise InputError(f"there is no PAF: {exc}", source=a.source,
                              location="[curve]") from None
