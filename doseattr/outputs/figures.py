@@ -91,7 +91,7 @@ def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None =
         _draw_bands(ax, band_table, level)
         _draw_dose_limits(ax, curve, unit)
         ax.axhline(1.0, color="#777777", linewidth=0.8)
-        ax.set_xlim(0.0, top)
+        _xlim_from_zero(ax, top)
         ax.set_xlabel(axis_label("Exposure", unit))
         ax.set_ylabel("Relative risk (RR)")
         ax.set_title(title)
@@ -216,7 +216,7 @@ def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
                         gid=f"compare-{other.family.name}")
         if exposure.unexposed > 0:
             ax.plot([], [], " ", label=f"plus {exposure.unexposed:.1%} unexposed (not drawn)")
-        ax.set_xlim(0.0, top)
+        _xlim_from_zero(ax, top)
         ax.set_ylim(bottom=0.0)
         ax.set_xlabel(axis_label("Exposure", unit))
         ax.set_ylabel(axis_label("Density", f"per {unit}" if unit else None))
@@ -401,7 +401,7 @@ def plot_contribution(contribution, ax=None, unit: str | None = None, *,
         if minimum_risk:
             ax.axvline(minimum_risk, color=COLORS["accent"], linestyle=":", linewidth=1.2,
                        label=f"minimum-risk level, {minimum_risk:g}{u}", gid="minimum-risk")
-        ax.set_xlim(0.0, float(x.max()))
+        _xlim_from_zero(ax, float(x.max()))
         if not cumulative:
             ax.set_ylim(bottom=min(0.0, ax.get_ylim()[0]))
         ax.set_xlabel(axis_label("Exposure", unit))
@@ -501,3 +501,11 @@ def plot_cumulative(values: Sequence[float], ax=None, unit: str | None = None):
         ax.set_ylabel("Number of workers")
         ax.set_title(f"Cumulative exposure of {v.size} workers")
     return ax
+
+
+def _xlim_from_zero(ax: Any, top: float) -> None:
+    """Start the exposure axis at zero; leave matplotlib's limits when the
+    top is not a positive finite number (a distribution concentrated at
+    zero), where a zero-width axis would be singular."""
+    if np.isfinite(top) and top > 0.0:
+        ax.set_xlim(0.0, top)

@@ -50,7 +50,7 @@ MIN_RELATIVE_LOG_SPREAD = 1e-6
 
 def check_usable(fam: "Family", params: FloatArray,
                  hint: str = "give a smaller spread or a smaller scale") -> None:
-    """Refuse parameters the numerics cannot carry: a mean beyond the float
+    r"""Refuse parameters the numerics cannot carry: a mean beyond the float
     range (about 1.8e308), or a spread of ``ln X`` too narrow to resolve in
     double precision (below 1e-6 x the magnitude of its centre: ``ln gsd``
     against ``ln gm`` for the lognormal; for gamma and Weibull the SD of
