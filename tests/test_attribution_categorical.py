@@ -107,7 +107,7 @@ def test_burden_density_integrates_to_paf():
     m = 2.0
     c = burden_density(curve, ex, m)
     d = ex.family.scipy(ex.params)
-    e_total = 1 / (1 - paf(curve, ex, m))
+    e_total = 1 / (1 - paf(curve, ex, minimum_risk=m))
 
     def dens(x):
         rr = 1 + 0.04 * min(max(x, m), 40.0)
@@ -115,8 +115,8 @@ def test_burden_density_integrates_to_paf():
 
     total = integrate.quad(dens, 0, m)[0] + integrate.quad(dens, m, 40)[0] \
         + integrate.quad(dens, 40, np.inf)[0]
-    assert total == pytest.approx(paf(curve, ex, m), rel=1e-7)
-    assert c.paf == pytest.approx(paf(curve, ex, m), rel=1e-12)
+    assert total == pytest.approx(paf(curve, ex, minimum_risk=m), rel=1e-7)
+    assert c.paf == pytest.approx(paf(curve, ex, minimum_risk=m), rel=1e-12)
     assert np.interp(20.0, c.x, c.density) == pytest.approx(dens(20.0), rel=1e-3)
     end = c.x[-1]
     upto = integrate.quad(dens, m, min(end, 40.0))[0] + (integrate.quad(dens, 40.0, end)[0] if end > 40 else 0)
@@ -135,7 +135,7 @@ def test_empirical_path_is_weighted_mean():
     m = 1.0
     rr = (1 + 0.05 * np.minimum(np.maximum(x, m), 15.0)) / (1 + 0.05 * m)
     e = np.average(rr, weights=w)
-    assert paf(curve, empirical(x, w), m) == pytest.approx(1 - 1 / e, rel=1e-12)
+    assert paf(curve, empirical(x, w), minimum_risk=m) == pytest.approx(1 - 1 / e, rel=1e-12)
     c = burden_density(curve, empirical(x, w), m)
     assert c.paf == pytest.approx(1 - 1 / e, rel=1e-12)
     assert c.cumulative[-1] == pytest.approx(1.0, rel=1e-12)

@@ -44,7 +44,7 @@ def test_gamma_loglinear_extended(k, theta, b):
     generating function gives E[e^{bX}] = (1 - b theta)^{-k} for
     b theta < 1, so PAF = 1 - (1 - b theta)^k (methods.md; derived)."""
     expected = -np.expm1(k * np.log1p(-b * theta))
-    got = paf(curve(LogLinear(), b), gamma(k, theta))
+    got = paf(curve(LogLinear(), b), gamma(k, theta), minimum_risk=0.0)
     assert got == pytest.approx(expected, rel=RTOL)
 
 
@@ -68,7 +68,7 @@ def test_lognormal_linear_extended(gm, gsd, b):
     s = np.log(gsd)
     e = 1 + b * gm * np.exp(s * s / 2)
     assert expected_rr(curve(LinearExcess(), b), lognormal(gm, gsd)) == pytest.approx(e, rel=RTOL)
-    assert paf(curve(LinearExcess(), b), lognormal(gm, gsd)) == pytest.approx(1 - 1 / e, rel=RTOL)
+    assert paf(curve(LinearExcess(), b), lognormal(gm, gsd), minimum_risk=0.0) == pytest.approx(1 - 1 / e, rel=RTOL)
 
 
 @pytest.mark.parametrize("gm,gsd,b,cap", [(10.0, 2.0, 0.01, 15.0), (3.0, 4.0, 0.2, 2.0),
@@ -82,7 +82,7 @@ def test_lognormal_linear_cap_scenario(gm, gsd, b, cap):
         + cap * ndtr(-(np.log(cap) - mu) / s)
     e0 = 1 + b * np.exp(mu + s * s / 2)
     eg = 1 + b * lev
-    got = pif(curve(LinearExcess(), b), lognormal(gm, gsd), Cap(cap))
+    got = pif(curve(LinearExcess(), b), lognormal(gm, gsd), Cap(cap), minimum_risk=0.0)
     assert got == pytest.approx(1 - eg / e0, rel=RTOL)
 
 
@@ -107,7 +107,7 @@ def test_gamma_loglinear_scale_scenario(s_factor):
     k, theta, b = 3.0, 2.0, 0.1
     e0 = (1 - b * theta) ** (-k)
     eg = (1 - b * s_factor * theta) ** (-k)
-    got = pif(curve(LogLinear(), b), gamma(k, theta), Scale(s_factor))
+    got = pif(curve(LogLinear(), b), gamma(k, theta), Scale(s_factor), minimum_risk=0.0)
     assert got == pytest.approx(1 - eg / e0, rel=RTOL, abs=1e-14)
 
 
@@ -119,7 +119,7 @@ def test_lognormal_linear_reduce_by():
     mean = np.exp(mu + s * s / 2)
     lev = mean * ndtr((np.log(d) - mu - s * s) / s) + d * ndtr(-(np.log(d) - mu) / s)
     e0, eg = 1 + b * mean, 1 + b * (mean - lev)
-    got = pif(curve(LinearExcess(), b), lognormal(gm, gsd), ReduceBy(d))
+    got = pif(curve(LinearExcess(), b), lognormal(gm, gsd), ReduceBy(d), minimum_risk=0.0)
     assert got == pytest.approx(1 - eg / e0, rel=RTOL)
 
 
@@ -135,13 +135,13 @@ def test_divergent_loglinear_over_lognormal_is_refused():
     """The lognormal moment generating function is infinite for any positive
     argument (methods.md), so E[exp(bX)] diverges: refused, never inf."""
     with pytest.raises(DivergenceError, match="lognormal"):
-        paf(curve(LogLinear(), 0.01), lognormal(10.0, 2.0))
+        paf(curve(LogLinear(), 0.01), lognormal(10.0, 2.0), minimum_risk=0.0)
 
 
 def test_divergent_gamma_tilt_is_refused():
     """E[e^{bX}] for Gamma(k, theta) is infinite when b theta >= 1."""
     with pytest.raises(DivergenceError):
-        paf(curve(LogLinear(), 0.6), gamma(2.0, 2.0))
+        paf(curve(LogLinear(), 0.6), gamma(2.0, 2.0), minimum_risk=0.0)
 
 
 def test_weibull_linear_extended():
@@ -151,3 +151,26 @@ def test_weibull_linear_extended():
     e = 1 + b * stats.weibull_min(k, scale=lam).mean()
     ex = Exposure(FAMILIES["weibull"], np.array([k, lam]))
     assert expected_rr(curve(LinearExcess(), b), ex) == pytest.approx(e, rel=RTOL)
+
+
+@pytest.mark.parametrize("target", [1e-13, 1e-16, 1e-77])
+def test_tiny_paf_keeps_its_relative_precision(target: float) -> None:
+    """Linear excess risk RR(x) = 1 + b x over a lognormal, minimum risk 0:
+    E[RR] - 1 = b E[X] = b gm exp(ln(gsd)^2 / 2) (closed form, lognormal
+    mean), so PAF = e/(1 + e) with e = b E[X]. Going through 1 + e would
+    lose all digits below 1e-16; the excess keeps them."""
+    gm, gsd = 12.0, 2.2
+    mean = gm * np.exp(np.log(gsd) ** 2 / 2.0)
+    b = target / mean
+    e = b * mean
+    got = paf(curve(LinearExcess(), b), lognormal(gm, gsd), minimum_risk=0.0)
+    assert got == pytest.approx(e / (1.0 + e), rel=1e-9)
+
+
+def test_minimum_risk_is_keyword_only_without_default() -> None:
+    """A silent default of 0 let callers forget the minimum-risk level."""
+    c, ex = curve(LinearExcess(), 0.01), lognormal(12.0, 2.2)
+    with pytest.raises(TypeError):
+        paf(c, ex)  # type: ignore[call-arg]
+    with pytest.raises(TypeError):
+        paf(c, ex, 1.0)  # type: ignore[misc]

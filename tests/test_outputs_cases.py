@@ -74,13 +74,13 @@ def make_results(*, title: str = "Test <analysis> & co", warnings=("Fit <warning
                  censored: bool = True) -> Results:
     curve, exposure, m = make_curve(), make_exposure(censored), MINIMUM_RISK
     kinds = (Cap(15.0), Scale(0.5), ReduceBy(3.0))
-    scenarios = tuple(ScenarioResult(name, s.kind, s.value, Estimate(pif(curve, exposure, s, m)))
+    scenarios = tuple(ScenarioResult(name, s.kind, s.value, Estimate(pif(curve, exposure, s, minimum_risk=m)))
                       for name, s in zip(SCENARIO_NAMES, kinds))
     bands = BandTable(LOWER, UPPER, DOSE, RR, CI_LO, CI_HI, np.array([True, False, False, False]),
                       ("given",) * 4)
     return Results(
         analysis=make_analysis(title), curve=curve, exposure=exposure, minimum_risk=m,
-        paf=Estimate(paf(curve, exposure, m)), scenarios=scenarios,
+        paf=Estimate(paf(curve, exposure, minimum_risk=m)), scenarios=scenarios,
         categorical=categorical_comparison(curve, exposure, minimum_risk=m,
                                            cutpoints=UPPER[:-1], reported_rr=RR),
         contribution=burden_density(curve, exposure, m),

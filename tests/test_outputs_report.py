@@ -173,7 +173,7 @@ def entered_results():
     base = _base()
     return dataclasses.replace(
         base, curve=curve, exposure=exposure, minimum_risk=5.0,
-        paf=Estimate(paf(curve, exposure, 5.0)), scenarios=(), band_table=None,
+        paf=Estimate(paf(curve, exposure, minimum_risk=5.0)), scenarios=(), band_table=None,
         categorical=categorical_comparison(curve, exposure, minimum_risk=5.0,
                                            cutpoints=[10.0, 20.0, 40.0]),
         contribution=burden_density(curve, exposure, 5.0))

@@ -40,14 +40,14 @@ def test_interval_matches_monotone_transform_of_coefficient():
     mc_err = np.sqrt(0.025 * 0.975 / d) / stats.norm.pdf(z) * se
     for q, sign in [(0.025, -1), (0.975, 1)]:
         lo_b, hi_b = b + sign * z * se - 4 * mc_err, b + sign * z * se + 4 * mc_err
-        bracket = sorted(paf(Curve(LogLinear(), np.array([v]), np.eye(1), max_dose=25.0), ex)
+        bracket = sorted(paf(Curve(LogLinear(), np.array([v]), np.eye(1), max_dose=25.0), ex, minimum_risk=0.0)
                          for v in (lo_b, hi_b))
         assert bracket[0] <= np.quantile(draws, q) <= bracket[1]
     # exact monotone-transform identity at the sample quantiles (order statistics)
     slopes = np.random.default_rng(11).multivariate_normal([b], [[se**2]], size=d, method="eigh")[:, 0]
     k = int(0.975 * (d - 1))
     assert np.sort(draws)[k] == pytest.approx(
-        paf(Curve(LogLinear(), np.array([np.sort(slopes)[k]]), np.eye(1), max_dose=25.0), ex), rel=1e-10)
+        paf(Curve(LogLinear(), np.array([np.sort(slopes)[k]]), np.eye(1), max_dose=25.0), ex, minimum_risk=0.0), rel=1e-10)
 
 
 def test_totals_are_sums_of_strata_draw_by_draw():
@@ -81,8 +81,8 @@ def test_point_values_equal_core_paf():
     curve = Curve(LinearExcess(), np.array([0.05]), np.array([[0.0001]]))
     ex = gamma_exposure()
     pv = point_values(curve, [Stratum("a", 50.0, ex)], [], 1.0)
-    assert pv.paf[0, 0] == pytest.approx(paf(curve, ex, 1.0), rel=1e-14)
-    assert pv.attributable[0, 0] == pytest.approx(50.0 * paf(curve, ex, 1.0), rel=1e-14)
+    assert pv.paf[0, 0] == pytest.approx(paf(curve, ex, minimum_risk=1.0), rel=1e-14)
+    assert pv.attributable[0, 0] == pytest.approx(50.0 * paf(curve, ex, minimum_risk=1.0), rel=1e-14)
 
 
 def test_no_source_gives_zero_width():
@@ -122,7 +122,7 @@ def test_empirical_bootstrap_interval_contains_point():
     curve = Curve(LinearExcess(), np.array([0.05]), np.array([[0.0]]))
     prop = propagate(curve, [Stratum("a", 10.0, ex)], [], draws=400,
                      rng=np.random.default_rng(1), minimum_risk=(0.0, 0.0), sources=("exposure",))
-    s = summarise(paf(curve, ex), prop.paf[0])
+    s = summarise(paf(curve, ex, minimum_risk=0.0), prop.paf[0])
     assert s.lower < s.estimate < s.upper
 
 

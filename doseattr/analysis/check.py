@@ -114,8 +114,8 @@ def prepare(analysis: Analysis) -> Prepared:
     check_minimum_risk(analysis, built, warnings)
     curve, m = built.curve, analysis.attribution.minimum_risk
     with divergence(analysis):
-        paf_value = finite(paf(curve, exposure, m), "PAF")
-        pifs = tuple(finite(pif(curve, exposure, sc, m), f"PIF of {spec.name}")
+        paf_value = finite(paf(curve, exposure, minimum_risk=m), "PAF")
+        pifs = tuple(finite(pif(curve, exposure, sc, minimum_risk=m), f"PIF of {spec.name}")
                      for spec, sc in scenarios)
     strata = None
     if analysis.burden is not None:
@@ -136,7 +136,7 @@ def _check_strata(analysis: Analysis, curve, shared, strata: list) -> None:
         if stratum.exposure is shared:
             continue
         try:
-            paf(curve, stratum.exposure, m)
+            paf(curve, stratum.exposure, minimum_risk=m)
         except ConvergenceError as exc:
             raise InputError(f"this stratum's PAF cannot be computed: {exc} (check its "
                              "exposure columns)", source=table.source,

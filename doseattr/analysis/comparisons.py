@@ -50,7 +50,7 @@ def _variant(analysis: Analysis, exposure, label: str, **override) -> CurveVaria
 
     try:
         other = fit_table_curve(analysis, exposure, **override)
-        value = finite(paf(other.curve, exposure, analysis.attribution.minimum_risk), "PAF")
+        value = finite(paf(other.curve, exposure, minimum_risk=analysis.attribution.minimum_risk), "PAF")
     except DoseattrError as exc:
         return CurveVariant(label, None, None, None, _reason(exc))
     return CurveVariant(label, other.curve, value, other.bands.dose)
@@ -78,7 +78,7 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
     for fam, params, alt in others:
         other = Exposure(fam, np.asarray(params, dtype=float), unexposed)
         out.append(_exposure_variant(fam.name, other.parameters, getattr(alt, "aic", None),
-                                     lambda: paf(curve, other, m)))
+                                     lambda: paf(curve, other, minimum_risk=m)))
     if not empirical_main:
         out.append(_empirical_variant(analysis, curve, built_exposure))
     return tuple(out)
@@ -102,7 +102,7 @@ def _empirical_variant(analysis: Analysis, curve, built_exposure) -> ExposureVar
                                "and the empirical path substitutes nothing")
     m = analysis.attribution.minimum_risk
     return _exposure_variant("empirical", {}, None, lambda: paf(
-        curve, empirical(values, weights, unexposed=unexposed), m))
+        curve, empirical(values, weights, unexposed=unexposed), minimum_risk=m))
 
 
 def _exposure_variant(label: str, params: dict, aic, compute) -> ExposureVariant:
@@ -129,7 +129,7 @@ def substitution_results(analysis: Analysis, curve, exposure,
     for k in analysis.exposure.substitution:
         try:
             other = fit_substituted(analysis, exposure, k)
-            value = finite(paf(curve, other, analysis.attribution.minimum_risk), "PAF")
+            value = finite(paf(curve, other, minimum_risk=analysis.attribution.minimum_risk), "PAF")
         except DoseattrError as exc:
             out.append(SubstitutionResult(k, {}, None, None, _reason(exc)))
             continue

@@ -169,7 +169,7 @@ def categorical_comparison(curve: Curve, exposure: AnyExposure, *, minimum_risk:
     shares = band_shares(exposure, cuts)
     mids = band_midpoints(cuts)
     means = band_means(exposure, cuts)
-    cont = continuous_paf(curve, exposure, minimum_risk)
+    cont = continuous_paf(curve, exposure, minimum_risk=minimum_risk)
     assigned = []
     if reported_rr is not None:
         assigned.append(("reported", np.asarray(reported_rr, dtype=float)))

@@ -205,14 +205,18 @@ def pif_from_excess(excess0: ArrayLike, excess_g: ArrayLike) -> FloatArray:
     return (e0 - eg) / (1.0 + e0)
 
 
-def paf(curve: Curve, exposure: Exposure, minimum_risk: float = 0.0) -> float:
-    """Population attributable fraction of the current exposure distribution
-    against everyone at the minimum-risk level."""
+def paf(curve: Curve, exposure: Exposure | EmpiricalExposure, *, minimum_risk: float) -> float:
+    r"""Population attributable fraction of the current exposure
+    distribution against everyone at the minimum-risk level ``minimum_risk``
+    (keyword-only, no default: the level is a choice the caller states).
+
+    Computed from the excess :math:`e = E[RR_m(X)] - 1` as :math:`e/(1+e)`,
+    so a PAF of 1e-16 keeps full relative precision."""
     return float(paf_from_excess(_point_excess(curve, exposure, minimum_risk)))
 
 
-def pif(curve: Curve, exposure: Exposure, scenario: Scenario,
-        minimum_risk: float = 0.0) -> float:
+def pif(curve: Curve, exposure: Exposure | EmpiricalExposure, scenario: Scenario, *,
+        minimum_risk: float) -> float:
     """Potential impact fraction of an exposure-reduction scenario."""
     e0 = _point_excess(curve, exposure, minimum_risk)
     eg = _point_excess(curve, exposure, minimum_risk, scenario)
