@@ -292,3 +292,25 @@ def test_quadrature_failure_at_the_point_fit_names_the_exposure_section(monkeypa
     assert err.value.location == "[exposure]"
     assert err.value.source is not None and err.value.source.endswith("analysis.toml")
     assert "\n" not in err.value.line()
+
+
+def test_outcomes_share_one_exposure_fit(tmp_path, monkeypatch):
+    """Two [[outcome]] blocks over the same [exposure]: the exposure is
+    fitted once and both outcomes use that one fit (before, each outcome
+    refitted it)."""
+    import doseattr.analysis.check as check_module
+
+    calls = []
+    real = check_module.build_exposure
+
+    def counted(analysis):
+        calls.append(1)
+        return real(analysis)
+
+    monkeypatch.setattr(check_module, "build_exposure", counted)
+    d = {"unit": "ug/m3", "exposure": {"table": "measurements.csv", "family": "lognormal"},
+         "outcome": [_valid_outcome(), dict(_valid_outcome(), name="B")]}
+    done = check_module.prepare_all(analysis_from_dict(d, base_dir=_tables(tmp_path)))
+    assert len(calls) == 1
+    first, second = (p.built_exposure for _, p in done.outcomes)
+    assert first is second

@@ -86,27 +86,30 @@ def prepare_all(analysis: Analysis) -> PreparedAll:
 
     if not analysis.outcomes:
         return PreparedAll(prepare(analysis))
+    shared = build_exposure(analysis)  # one fit, shared by every outcome
     runs = []
     for i, outcome in enumerate(analysis.outcomes):
         sub = dataclasses.replace(analysis, curve=outcome.curve, burden=outcome.burden,
                                   outcomes=())
         with outcome_location(i, outcome.name):
-            runs.append((outcome.name, prepare(sub)))
+            runs.append((outcome.name, prepare(sub, built_exposure=shared)))
     top = None
     if "curve" in (analysis.settings or {}):
-        top = prepare(dataclasses.replace(analysis, outcomes=()))
+        top = prepare(dataclasses.replace(analysis, outcomes=()), built_exposure=shared)
     return PreparedAll(top, tuple(runs))
 
 
-def prepare(analysis: Analysis) -> Prepared:
+def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) -> Prepared:
     """Build and check one analysis (no ``[[outcome]]``): exposure, curve
     (knots, dose rules that need the fitted exposure, shape standard
     errors), scenarios, the minimum-risk level, the burden strata's own
     exposures, and a finite point PAF and PIF (for the population and
-    each stratum with its own exposure)."""
+    each stratum with its own exposure). ``built_exposure``, when given, is
+    the analysis's exposure already fitted (shared by ``[[outcome]]`` blocks)."""
     from doseattr.core.attribution.fractions import paf, pif
 
-    built_exposure = build_exposure(analysis)
+    if built_exposure is None:
+        built_exposure = build_exposure(analysis)
     exposure = built_exposure.exposure
     built = build_curve(analysis, exposure)
     scenarios = build_scenarios(analysis)
