@@ -23,13 +23,14 @@ import argparse
 import signal
 import sys
 import threading
+import warnings
 from contextlib import ExitStack, contextmanager, nullcontext
 from importlib import resources
 from pathlib import Path
 from typing import Iterator, Sequence
 
 from doseattr import __version__
-from doseattr.errors import DoseattrError, InputError
+from doseattr.errors import DoseattrError, DoseattrWarning, InputError
 
 EXIT_OK = 0
 EXIT_BUG = 1
@@ -115,7 +116,11 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     analysis = load_analysis(path)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
-    results = run_analysis(analysis, progress=not quiet)
+    with warnings.catch_warnings():
+        # the summary, results.json and the report list them; Python's own
+        # warning lines would only repeat them on standard error
+        warnings.simplefilter("ignore", DoseattrWarning)
+        results = run_analysis(analysis, progress=not quiet)
     _same_inputs(read, results.provenance, path)
     try:
         written = write_outputs(results, out, command=command)

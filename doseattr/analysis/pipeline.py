@@ -72,8 +72,26 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
     """
     prepared = prepare_all(analysis)  # every check, before any Monte Carlo draw
     if analysis.outcomes:
-        return _with_outcomes(analysis, prepared, progress)
-    return _run_prepared(prepared.top, progress)
+        results = _with_outcomes(analysis, prepared, progress)
+    else:
+        results = _run_prepared(prepared.top, progress)
+    _warn(results)
+    return results
+
+
+def _warn(results: Results) -> None:
+    """Issue every warning the results list (the top level's, then each
+    outcome's, prefixed by its name) as a :class:`DoseattrWarning`, so
+    that Python users see them where they run the analysis."""
+    import warnings
+
+    from doseattr.errors import DoseattrWarning
+
+    texts = [*results.warnings]
+    for name, r in results.outcomes or ():
+        texts += [f"outcome '{name}': {w}" for w in r.warnings]
+    for text in _unique(texts):
+        warnings.warn(text, DoseattrWarning, stacklevel=3)
 
 
 def _run_prepared(p: Prepared, progress: bool) -> Results:
