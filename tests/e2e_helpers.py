@@ -4,11 +4,10 @@ the command line or the Python API, and reference integrals by quad."""
 from __future__ import annotations
 
 import json
-import math
 import textwrap
 from pathlib import Path
 
-from scipy import integrate
+from reference_integrals import expect_over
 
 from doseattr.cli import main
 
@@ -47,7 +46,4 @@ def run_api(folder: Path, toml: str, tables: dict[str, str] | None = None) -> di
 
 def expect_excess(excess, dist, kinks) -> float:
     """E[excess(X)] by scipy.integrate.quad, split at the kinks."""
-    pts = sorted({0.0, *kinks})
-    return sum(integrate.quad(lambda x: excess(x) * dist.pdf(x), a, b, epsabs=0,
-                              epsrel=1e-12, limit=400)[0]
-               for a, b in zip(pts, pts[1:] + [math.inf]))
+    return expect_over(excess, dist, kinks, epsrel=1e-12, limit=400)

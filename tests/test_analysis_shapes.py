@@ -19,7 +19,8 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from reference_integrals import expect_over
+from scipy import stats
 
 from doseattr.analysis.config import analysis_from_dict
 from doseattr.analysis.pipeline import run_analysis
@@ -51,13 +52,11 @@ def _llw_rr(x, theta=0.15, a=1.6, mu=15.5, nu=36.8, cf=2.4):
 def _expected_rr_m(rr, m=0.0, kinks=(), cap=None):
     r""":math:`E[RR_m(g(X))]` with :math:`RR_m(x) = RR(\max(x, m))/RR(m)`, by
     scipy.integrate.quad split at the kinks; ``cap`` applies g(x) = min(x, cap)."""
-    def f(x):
+    def rr_m(x):
         y = x if cap is None else min(x, cap)
-        return rr(max(y, m)) / rr(m) * DIST.pdf(x)
+        return rr(max(y, m)) / rr(m)
 
-    edges = sorted({0.0, *kinks, np.inf})
-    return sum(integrate.quad(f, a, b, epsabs=0, epsrel=1e-12, limit=200)[0]
-               for a, b in zip(edges[:-1], edges[1:]))
+    return expect_over(rr_m, DIST, kinks, epsrel=1e-12, limit=200)
 
 
 def test_saturating_exponential_against_quad():

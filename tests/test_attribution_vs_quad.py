@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy import integrate
+from reference_integrals import expect_over
 
 from doseattr.core.attribution.fractions import excess_draws, expected_rr
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
@@ -36,13 +36,7 @@ def quad_expected_rr(curve, exposure, m, scenario=None):
         pts.append(curve.max_dose)
     if scenario is not None:
         pts = list(scenario.preimage(np.array(pts))) + list(scenario.own_kinks())
-    pts = sorted(p for p in set(pts) if p > 0)
-    edges = [0.0] + pts + [np.inf]
-    total = 0.0
-    for a, b in zip(edges[:-1], edges[1:]):
-        if b > a:
-            total += integrate.quad(lambda x: rr_m(x) * dist.pdf(x), a, b,
-                                    epsabs=0, epsrel=1e-12, limit=500)[0]
+    total = expect_over(rr_m, dist, pts, epsrel=1e-12, limit=500)
     return exposure.unexposed + (1 - exposure.unexposed) * total
 
 

@@ -16,19 +16,16 @@ import textwrap
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
-
 from e2e_helpers import run_api, run_cli
+from reference_integrals import expect_over
+from scipy import integrate, stats
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats
 
 
 def paf_by_quad(rr_m, dist, kinks) -> float:
     """PAF = e/(1 + e), e = E[RR_m(X) - 1] by scipy.integrate.quad split at the kinks."""
-    pts = sorted({0.0, *kinks})
-    e = sum(integrate.quad(lambda x: (rr_m(x) - 1) * dist.pdf(x), a, b, epsabs=0,
-                           epsrel=1e-12, limit=400)[0]
-            for a, b in zip(pts, pts[1:] + [math.inf]))
+    e = expect_over(lambda x: rr_m(x) - 1, dist, kinks, epsrel=1e-12, limit=400)
     return e / (1 + e)
 
 

@@ -24,9 +24,9 @@ import warnings
 
 import numpy as np
 import pytest
-from scipy import integrate, optimize, stats
-
 from e2e_helpers import run_cli
+from reference_integrals import expect_over
+from scipy import integrate, optimize, stats
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats: the 97.5th normal percentile used by 95% CIs
 QUAD_RTOL = 1e-7  # the engine vs scipy.integrate.quad (issue 2 promises 1e-8; quad's own error is ~1e-11)
@@ -46,13 +46,7 @@ def expect_positive(func, dist, kinks=()) -> float:
     """E[func(X)] for X > 0 with density ``dist.pdf``, by scipy.integrate.quad
     split at every kink of the integrand (quad's own recommendation for
     non-smooth integrands)."""
-    points = sorted({0.0, *[float(k) for k in kinks if k > 0]})
-    total = 0.0
-    for a, b in zip(points, points[1:] + [math.inf]):
-        val, _ = integrate.quad(lambda x: func(x) * dist.pdf(x), a, b, epsabs=0.0,
-                                epsrel=1e-12, limit=400)
-        total += val
-    return total
+    return expect_over(func, dist, kinks, epsrel=1e-12, limit=400)
 
 
 def attributable(excess, dist, *, unexposed=0.0, kinks=(), scenarios=()) -> tuple[float, list[float]]:
@@ -919,10 +913,9 @@ def test_steep_curve_over_wide_lognormal():
     b, mu, s, m, top = math.log(1.5) / 10, math.log(5.0), math.log(4.0), 1.0, 500.0
 
     def q(func, kinks):
-        edges = [mu - 40 * s] + sorted(math.log(k) for k in kinks) + [mu + 40 * s]
-        return sum(integrate.quad(lambda t: func(math.exp(t)) * stats.norm.pdf(t, mu, s), a, c,
-                                  epsabs=0, epsrel=1e-13, limit=1000)[0]
-                   for a, c in zip(edges, edges[1:]))
+        return expect_over(lambda t: func(math.exp(t)), stats.norm(mu, s),
+                           [math.log(k) for k in kinks], epsrel=1e-13, limit=1000,
+                           lower=mu - 40 * s, upper=mu + 40 * s)
 
     def excess(x):
         return math.expm1(b * (min(max(x, m), top) - m))
@@ -951,10 +944,7 @@ def test_share_beyond_and_burden_median(case_d):
         return math.expm1(b * (min(max(x, 2.5), 28.0) - 2.5))
 
     def part(x):
-        pts = [pt for pt in (2.5, 28.0) if pt < x]
-        edges = [0.0] + pts + [x]
-        return sum(integrate.quad(lambda v: excess(v) * dist.pdf(v), a, c, epsabs=0,
-                                  epsrel=1e-12)[0] for a, c in zip(edges, edges[1:]))
+        return expect_over(excess, dist, (2.5, 28.0), epsrel=1e-12, limit=50, upper=x)
 
     total = expect_positive(excess, dist, [2.5, 28.0])
     median = optimize.brentq(lambda x: part(x) - total / 2, 2.5, 200.0, xtol=1e-10)

@@ -17,7 +17,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from reference_integrals import expect_over, expect_over_log_dose
+from scipy import stats
 from scipy.special import gammainc, gammaincc
 
 from doseattr.cli import main
@@ -100,9 +101,8 @@ def test_outlier_near_1e50_gives_the_closed_form_lognormal_mle(capsys, tmp_path)
     assert p["gm"] == pytest.approx(gm, rel=1e-6) and p["gsd"] == pytest.approx(gsd, rel=1e-6)
     dist = stats.lognorm(s=math.log(gsd), scale=gm)
     # E[RR] - 1 by scipy.integrate.quad on the log scale, flat above 50.
-    body = integrate.quad(lambda t: math.expm1(B * math.exp(t)) * dist.pdf(math.exp(t))
-                          * math.exp(t), -400, math.log(50), limit=400, epsabs=0,
-                          epsrel=1e-11)[0]
+    body = expect_over_log_dose(lambda x: math.expm1(B * x), dist, (), epsrel=1e-11, limit=400,
+                                t_lower=-400, t_upper=math.log(50))
     excess = body + math.expm1(B * 50) * dist.sf(50)
     assert res["paf"]["estimate"] == pytest.approx(excess / (1 + excess), rel=1e-6)
 
@@ -173,8 +173,8 @@ def test_sd_near_1e300_lognormal_uses_the_moment_closed_form(capsys, tmp_path):
     # Almost all mass sits far below the curve's doses: quad in z for E[RR] - 1.
     mu, s = math.log(p["gm"]), math.sqrt(s2)
     zc = (math.log(50) - mu) / s
-    excess = integrate.quad(lambda z: math.expm1(B * math.exp(mu + s * z)) * stats.norm.pdf(z),
-                            -40, zc, epsabs=0, epsrel=1e-10, limit=200)[0]
+    excess = expect_over(lambda z: math.expm1(B * math.exp(mu + s * z)), stats.norm, (),
+                         epsrel=1e-10, limit=200, lower=-40, upper=zc)
     excess += math.expm1(B * 50) * stats.norm.sf(zc)
     assert res["paf"]["estimate"] == pytest.approx(excess / (1 + excess), rel=1e-6)
 
@@ -207,8 +207,8 @@ def test_gsd_just_above_the_bound_matches_quad(capsys, tmp_path):
     assert code == 0, err
     s = math.log(gsd)
     # E[e^{bX}] = e^{b gm e^{s^2/2}} approximately; exactly by quad over z.
-    e = integrate.quad(lambda z: math.exp(B * 10 * math.exp(s * z)) * stats.norm.pdf(z),
-                       -12, 12, epsabs=0, epsrel=1e-13)[0]
+    e = expect_over(lambda z: math.exp(B * 10 * math.exp(s * z)), stats.norm, (),
+                    epsrel=1e-13, limit=50, lower=-12, upper=12)
     assert res["paf"]["estimate"] == pytest.approx(1 - 1 / e, rel=1e-8)
 
 

@@ -12,7 +12,8 @@ import dataclasses
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from reference_integrals import expect_over
+from scipy import stats
 
 from doseattr.analysis.config import analysis_from_dict
 from doseattr.analysis.results import BandTable, Estimate, Results, ScenarioResult
@@ -100,11 +101,10 @@ def quad_paf(results: Results) -> float:
     gm, gsd = ex.parameters["gm"], ex.parameters["gsd"]
     f = stats.lognorm(s=np.log(gsd), scale=gm)
 
-    def g(x):
-        return np.exp(b * (min(max(x, m), top) - m)) * f.pdf(x)
+    def rr_m(x):
+        return np.exp(b * (min(max(x, m), top) - m))
 
-    body = sum(integrate.quad(g, a, z, epsabs=0, epsrel=1e-12, limit=200)[0]
-               for a, z in ((0, m), (m, top), (top, np.inf)))
+    body = expect_over(rr_m, f, (m, top), epsrel=1e-12, limit=200)
     e = ex.unexposed + (1 - ex.unexposed) * body
     return 1 - 1 / e
 
