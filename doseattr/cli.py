@@ -121,7 +121,8 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
         # warning lines would only repeat them on standard error
         warnings.simplefilter("ignore", DoseattrWarning)
         results = run_analysis(analysis, progress=not quiet)
-    _same_inputs(read, results.provenance, path)
+    _same_inputs(read, results.provenance, path)  # as the run finished
+    _same_inputs(read, provenance(analysis), path)  # and now, before writing
     try:
         written = write_outputs(results, out, command=command)
     except OSError as exc:

@@ -46,13 +46,13 @@ def test_attributable_cases_by_stratum(tmp_path):
     pafs = {"North": _paf(8.0, 2.0), "South": _paf(14.0, 2.5), "East": _paf(8.0, 2.0)}
     cases = {"North": 120.0, "South": 80.0, "East": 45.0}
     for row in d["strata"]:
-        np.testing.assert_allclose(row["paf"], pafs[row["stratum"]], rtol=1e-8)
-        assert row["paf_interval"]["estimate"] == row["paf"]
+        # schema 2.0: a stratum's PAF is an estimate object like every other
+        np.testing.assert_allclose(row["paf"]["estimate"], pafs[row["stratum"]], rtol=1e-8)
         np.testing.assert_allclose(row["attributable"]["estimate"],
                                    pafs[row["stratum"]] * cases[row["stratum"]], rtol=1e-8)
     total = sum(pafs[k] * cases[k] for k in cases)
     np.testing.assert_allclose(d["total"]["attributable"]["estimate"], total, rtol=1e-8)
-    np.testing.assert_allclose(d["total"]["paf"], total / 245.0, rtol=1e-8)
+    np.testing.assert_allclose(d["total"]["paf"]["estimate"], total / 245.0, rtol=1e-8)
     e, e_half = 1 / (1 - _paf(14.0, 2.5)), 1 / (1 - _paf(14.0, 2.5, factor=0.5))
     south = next(r for r in d["strata"] if r["stratum"] == "South")
     np.testing.assert_allclose(south["scenarios"][0]["pif"]["estimate"], 1 - e_half / e,

@@ -108,7 +108,7 @@ def _interval(v) -> bool:
 def _check_burden(b: dict, n: int) -> None:
     assert len(b["strata"]) == n
     for row in b["strata"] + [b["total"]]:
-        assert isinstance(row["paf"], float) and _interval(row["paf_interval"])
+        assert isinstance(row["paf"]["estimate"], float) and _interval(row["paf"])
         assert isinstance(row["cases"], float) and _interval(row["attributable"])
     assert [r["stratum"] for r in b["strata"]] == ["North", "South"]
     assert {s["name"] for s in b["total"]["scenarios"]} >= {"cap"}
@@ -244,5 +244,5 @@ def test_outcomes_hold_the_same_keys(tmp_path):
     for o in d["outcomes"]:
         assert _interval(o["paf"]) and o["curve"]["model"] in ("linear", "log-linear")
         b = o["burden"]
-        assert len(b["strata"]) == 2 and isinstance(b["total"]["paf"], float)
-        assert _interval(b["total"]["attributable"]) and _interval(b["total"]["paf_interval"])
+        assert len(b["strata"]) == 2 and isinstance(b["total"]["paf"]["estimate"], float)
+        assert _interval(b["total"]["attributable"]) and _interval(b["total"]["paf"])

@@ -16,7 +16,9 @@ from reference_integrals import expect_over
 from scipy import stats
 
 from doseattr.analysis.config import analysis_from_dict
-from doseattr.analysis.results import BandTable, Estimate, Results, ScenarioResult
+from doseattr.analysis.assemble import curve_section, exposure_section
+from doseattr.analysis.pipeline import run_inputs
+from doseattr.results import AttributionSection, BandTable, Estimate, Results, ScenarioResult
 from doseattr.core.attribution.categorical import categorical_comparison
 from doseattr.core.attribution.contribution import burden_density
 from doseattr.core.attribution.fractions import paf, pif
@@ -79,13 +81,18 @@ def make_results(*, title: str = "Test <analysis> & co", warnings=("Fit <warning
                       for name, s in zip(SCENARIO_NAMES, kinds))
     bands = BandTable(LOWER, UPPER, DOSE, RR, CI_LO, CI_HI, np.array([True, False, False, False]),
                       ("given",) * 4)
+    analysis = make_analysis(title)
+    attribution = AttributionSection(Estimate(paf(curve, exposure, minimum_risk=m)), m, None,
+                                     scenarios, burden_density(curve, exposure, m))
     return Results(
-        analysis=make_analysis(title), curve=curve, exposure=exposure, minimum_risk=m,
-        paf=Estimate(paf(curve, exposure, minimum_risk=m)), scenarios=scenarios,
+        title=analysis.title, unit=analysis.unit,
+        curve_section=curve_section(curve, exposure, bands, (), ()),
+        exposure_section=exposure_section(curve, exposure, comparison=(), substitution=(),
+                                          worker_totals=None, parametric=()),
+        attribution=attribution,
         categorical=categorical_comparison(curve, exposure, minimum_risk=m,
                                            cutpoints=UPPER[:-1], reported_rr=RR),
-        contribution=burden_density(curve, exposure, m),
-        warnings=tuple(warnings), cautions=tuple(cautions), band_table=bands)
+        warnings=tuple(warnings), cautions=tuple(cautions), inputs=run_inputs(analysis))
 
 
 def quad_paf(results: Results) -> float:

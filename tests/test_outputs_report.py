@@ -12,7 +12,7 @@ from html.parser import HTMLParser
 import pytest
 from test_outputs_cases import SCENARIO_NAMES, make_results
 
-from doseattr.analysis.results import Estimate
+from doseattr.results import Estimate
 from doseattr.outputs import report
 from doseattr.outputs.report import render_report
 
@@ -130,7 +130,8 @@ def test_no_warnings_message():
 def test_uncertainty_section_only_with_intervals(results):
     assert 'id="uncertainty"' not in render_report(results, figures=False)
     p = results.paf.estimate
-    with_ci = dataclasses.replace(results, paf=Estimate(p, 0.8 * p, 1.2 * p, 0.001))
+    with_ci = dataclasses.replace(results, attribution=dataclasses.replace(
+        results.attribution, paf=Estimate(p, 0.8 * p, 1.2 * p, 0.001)))
     html = render_report(with_ci, figures=False)
     assert 'id="uncertainty"' in html
     text = "".join(parse(html).text)
@@ -162,6 +163,7 @@ def entered_results():
     for the test) over an exposure given by GM and GSD: no bands, no fit, no data."""
     from test_outputs_cases import make_results as _base
 
+    from doseattr.analysis.assemble import curve_section, exposure_section
     from doseattr.core.attribution.categorical import categorical_comparison
     from doseattr.core.attribution.contribution import burden_density
     from doseattr.core.attribution.fractions import paf
@@ -171,12 +173,16 @@ def entered_results():
     curve = published_curve("log-linear", rr=1.08, per=10.0, ci=(1.06, 1.09), max_dose=60.0)
     exposure = from_gm_gsd(12.0, 1.8)
     base = _base()
+    attribution = dataclasses.replace(
+        base.attribution, paf=Estimate(paf(curve, exposure, minimum_risk=5.0)),
+        minimum_risk=5.0, scenarios=(), contribution=burden_density(curve, exposure, 5.0))
     return dataclasses.replace(
-        base, curve=curve, exposure=exposure, minimum_risk=5.0,
-        paf=Estimate(paf(curve, exposure, minimum_risk=5.0)), scenarios=(), band_table=None,
+        base, curve_section=curve_section(curve, exposure, None, (), ()),
+        exposure_section=exposure_section(curve, exposure, comparison=(), substitution=(),
+                                          worker_totals=None, parametric=()),
+        attribution=attribution,
         categorical=categorical_comparison(curve, exposure, minimum_risk=5.0,
-                                           cutpoints=[10.0, 20.0, 40.0]),
-        contribution=burden_density(curve, exposure, 5.0))
+                                           cutpoints=[10.0, 20.0, 40.0]))
 
 
 def test_entered_curve_and_summary_exposure():

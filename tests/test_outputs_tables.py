@@ -46,7 +46,9 @@ def test_workers_table_from_histories():
         np.array(["2000-01-01", "2010-01-01", "2005-01-01"], dtype="datetime64[D]"),
         np.array(["2010-01-01", "2012-01-01", "2006-01-01"], dtype="datetime64[D]"),
         np.array([0.2, 0.5, 1.0]), as_of=np.datetime64("2020-01-01"))
-    rows = as_csv(tables.workers_table(w))
+    from doseattr.analysis.assemble import workers
+
+    rows = as_csv(tables.workers_table(workers(w)))
     assert list(rows[0]) == ["worker", "cumulative", "duration_years", "mean_intensity"]
     assert [r["worker"] for r in rows] == ["A", "B"]
     a_cum = (3653 * 0.2 + 730 * 0.5) / 365.25

@@ -16,7 +16,7 @@ from typing import Iterator
 import numpy as np
 
 from doseattr.analysis.config import Analysis, CurveSpec, ExposureSpec, ScenarioSpec
-from doseattr.analysis.results import BandTable
+from doseattr.results.records import BandTable
 from doseattr.analysis.schema import key_location
 from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario

@@ -15,11 +15,13 @@ from typing import Any
 
 import numpy as np
 
+from doseattr.analysis.assemble import stratum_exposure as stratum_exposure_record
 from doseattr.analysis.build import as_input_error
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import (SOURCES, interval, minimum_risk_range,
                                          progress_bar)
-from doseattr.analysis.results import BurdenResult, Estimate, StratumResult
+from doseattr.results.estimate import Estimate
+from doseattr.results.records import BurdenResult, StratumEffect, StratumResult
 from doseattr.errors import InputError
 
 
@@ -34,10 +36,11 @@ def burden_strata(analysis: Analysis, exposure) -> list:
                                                 table.lines)]
 
 
-def run_burden(analysis: Analysis, curve, strata: list, scenarios,
-               progress: bool) -> tuple[BurdenResult, Any]:
+def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: bool, *,
+               shared) -> tuple[BurdenResult, Any]:
     """Attributable cases per stratum and in total, with their Monte Carlo
-    draws (``None`` without ``[uncertainty]``)."""
+    draws (``None`` without ``[uncertainty]``); ``shared`` is the
+    population's exposure, which a stratum without its own uses."""
     from doseattr.core.uncertainty.propagate import point_values, propagate
 
     transforms = [sc for _, sc in scenarios]
@@ -55,9 +58,11 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios,
     names = [sc.name for sc in transforms]
     table = analysis.burden.table
     pop = table.population
-    rows = tuple(_row(name, float(table.cases[s]), point, draws, names, s,
-                      None if pop is None else float(pop[s]))
-                 for s, name in enumerate(table.strata))
+    rows = tuple(dataclasses.replace(
+        _row(name, float(table.cases[s]), point, draws, names, s,
+             None if pop is None else float(pop[s])),
+        exposure=stratum_exposure_record(strata[s].exposure, shared, table.exposure[s]))
+        for s, name in enumerate(table.strata))
     total = _row("total", float(table.cases.sum()), point, draws, names, None,
                  None if pop is None else float(pop.sum()))
     return BurdenResult(rows, total), draws
@@ -74,7 +79,8 @@ def _row(name: str, cases: float, point, draws, names: list[str], s: int | None,
         return interval(value, _pick(draws, attr, s, scenario), "burden")
 
     return StratumResult(name, cases, est("paf"), est("attributable"),
-                         tuple((n, est("pif", n), est("averted", n)) for n in names),
+                         tuple(StratumEffect(n, est("pif", n), est("averted", n))
+                               for n in names),
                          population)
 
 

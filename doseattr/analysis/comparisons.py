@@ -14,7 +14,7 @@ import numpy as np
 from doseattr.analysis.build import BuiltCurve, fit_substituted, fit_table_curve
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
-from doseattr.analysis.results import CurveVariant, ExposureVariant, SubstitutionResult
+from doseattr.results.records import CurveVariant, ExposureVariant, SubstitutionResult
 from doseattr.errors import DoseattrError, InputError
 
 DOSE_RULES = ("midpoint", "band-mean", "band-median")

@@ -25,7 +25,8 @@ from typing import Callable, Iterator, Sequence
 import numpy as np
 
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.results import Estimate, ScenarioResult, SourceWidth
+from doseattr.results.estimate import Estimate
+from doseattr.results.records import ScenarioResult, SourceWidth
 from doseattr.errors import DoseattrError
 
 #: Inputs whose uncertainty is propagated in the main run (the core's names).

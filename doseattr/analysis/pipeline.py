@@ -27,9 +27,12 @@ from doseattr.analysis.comparisons import (curve_variants, exposure_variants,
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import (population_intervals, source_width,
                                          uncertainty_notes, width_by_source)
-from doseattr.analysis.results import (BurdenResult, Estimate, Results, ScenarioResult,
-                                       SourceWidth)
+from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.core.uncertainty.propagate import Stratum
+from doseattr.results.estimate import Estimate
+from doseattr.results.records import (AttributionSection, BurdenResult, RunInputs,
+                                      ScenarioResult, UncertaintySection)
+from doseattr.results.run import Results
 
 #: A population share above the data range larger than this gets a warning
 #: (smaller shares are stated in the notes).
@@ -75,8 +78,19 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
         results = _with_outcomes(analysis, prepared, progress)
     else:
         results = _run_prepared(prepared.top, progress)
+    results = dataclasses.replace(results, inputs=run_inputs(analysis))
     _warn(results)
     return results
+
+
+def run_inputs(analysis: Analysis) -> RunInputs:
+    """Provenance and the analysis as read, taken when the run finished
+    (the command line compares them with what it read before the run)."""
+    from doseattr.analysis.provenance import analysis_bytes, protected_paths, provenance
+
+    kind, data = analysis_bytes(analysis)
+    return RunInputs(provenance(analysis, source=(kind, data)), kind, data,
+                     tuple(protected_paths(analysis)))
 
 
 def _warn(results: Results) -> None:
@@ -111,22 +125,34 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
     notes.extend(point.notes)
     warnings.extend(_extrapolation(analysis, curve, exposure, notes))
     comparison, sensitivity = curve_variants(analysis, exposure, built, point.paf)
+    sensitivity = tuple(dataclasses.replace(v, used=v.curve is curve) for v in sensitivity)
+    comparison = tuple(dataclasses.replace(v, used=v.curve is curve) for v in comparison)
     with divergence(analysis):
         mc = _monte_carlo(analysis, curve, exposure, scenarios, point, p.strata, progress)
     notes.extend(mc.notes + _range_note(analysis))
-    return Results(analysis=analysis, curve=curve, exposure=exposure,
-                   minimum_risk=analysis.attribution.minimum_risk, paf=mc.paf,
-                   scenarios=mc.scenarios, categorical=point.categorical,
-                   contribution=point.contribution, warnings=tuple(_unique(warnings)),
-                   cautions=CAUTIONS, band_table=built.bands, notes=tuple(_unique(notes)),
-                   propagation=mc.propagation, model_comparison=comparison,
-                   dose_sensitivity=sensitivity, workers=built_exposure.workers,
-                   exposure_comparison=exposure_variants(analysis, curve, exposure,
-                                                         built_exposure, point.paf),
-                   burden=mc.burden, substitution=substitution_results(
-                       analysis, curve, exposure, point.paf),
-                   width_by_source=mc.widths, width_all=mc.width_all,
-                   parametric_fits=built_exposure.fits)
+    scenario_results = tuple(dataclasses.replace(s, averted=_averted(mc.burden, s.name))
+                             for s in mc.scenarios)
+    attribution = AttributionSection(mc.paf, analysis.attribution.minimum_risk,
+                                     analysis.attribution.minimum_risk_range,
+                                     scenario_results, point.contribution)
+    return Results(
+        title=analysis.title, unit=analysis.unit,
+        curve_section=curve_section(curve, exposure, built.bands, comparison, sensitivity),
+        exposure_section=exposure_section(
+            curve, exposure,
+            comparison=exposure_variants(analysis, curve, exposure, built_exposure, point.paf),
+            substitution=substitution_results(analysis, curve, exposure, point.paf),
+            worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits)),
+        attribution=attribution, categorical=point.categorical,
+        uncertainty=mc.uncertainty, burden=mc.burden,
+        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes)))
+
+
+def _averted(burden: BurdenResult | None, name: str) -> Estimate | None:
+    """Total averted cases of scenario ``name``, or ``None`` without [burden]."""
+    if burden is None:
+        return None
+    return next((e.averted for e in burden.total.scenarios if e.name == name), None)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -165,10 +191,8 @@ class _MonteCarlo:
 
     paf: Estimate
     scenarios: tuple[ScenarioResult, ...]
-    propagation: object = None
+    uncertainty: UncertaintySection | None = None
     burden: BurdenResult | None = None
-    widths: tuple[SourceWidth, ...] = ()
-    width_all: SourceWidth | None = None
     notes: list[str] = dataclasses.field(default_factory=list)
 
 
@@ -177,7 +201,7 @@ def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
     """PAF and PIF intervals, attributable cases, and which input drives
     the width of the overall PAF's interval (``strata`` from the checks)."""
     burden, burden_draws = (None, None) if strata is None else run_burden(
-        analysis, curve, strata, scenarios, progress)
+        analysis, curve, strata, scenarios, progress, shared=exposure)
     if analysis.uncertainty is None:
         return _MonteCarlo(Estimate(point.paf), point.scenarios, burden=burden)
     prop, paf, scenario_results = population_intervals(
@@ -187,8 +211,11 @@ def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
     else:
         overall, draws = burden.total.paf.estimate, burden_draws
     widths = width_by_source(analysis, curve, strata, overall, progress)
-    return _MonteCarlo(paf, scenario_results, prop, burden, widths,
-                       source_width(analysis, "all", overall, draws),
+    u = analysis.uncertainty
+    section = UncertaintySection(int(u.draws), int(u.seed), 0.95, widths,
+                                 source_width(analysis, "all", overall, draws), prop,
+                                 analysis.attribution.minimum_risk_range is not None)
+    return _MonteCarlo(paf, scenario_results, section, burden,
                        uncertainty_notes(analysis, curve, exposure))
 
 
@@ -308,4 +335,4 @@ def _with_outcomes(analysis: Analysis, prepared: PreparedAll, progress: bool) ->
         note = (f"the file has no [curve] of its own: the results above the outcomes are those "
                 f"of the first outcome, '{runs[0][0]}'")
         top = dataclasses.replace(first, notes=first.notes + (note,))
-    return dataclasses.replace(top, analysis=analysis, outcomes=tuple(runs))
+    return dataclasses.replace(top, outcomes=tuple(runs))

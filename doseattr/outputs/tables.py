@@ -313,7 +313,7 @@ def workers_table(workers: Any) -> Table | None:
     if hasattr(workers, "cumulative") and hasattr(workers, "duration_years"):
         records = [{"worker": str(w), "cumulative": _plain(c), "duration_years": _plain(t),
                     "mean_intensity": _plain(m)}
-                   for w, c, t, m in zip(workers.workers, workers.cumulative,
+                   for w, c, t, m in zip(workers.worker, workers.cumulative,
                                          workers.duration_years, workers.mean_intensity)]
     else:
         records = list(workers)

@@ -30,7 +30,6 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, Iterable, Iterator, Sequence
 
-from doseattr.analysis.provenance import analysis_bytes, protected_paths
 from doseattr.errors import InputError
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
 from doseattr.outputs.records import workers_source
@@ -74,7 +73,11 @@ def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = T
     InputError
         When ``out_dir`` is not a folder doseattr may write into.
     """
-    out = check_destination(out_dir, protected_paths(results.analysis))
+    if results.inputs is None:
+        raise InputError("these results record no inputs (built by hand?), so they cannot be "
+                         "written with their provenance; run the analysis with run_analysis",
+                         location="results")
+    out = check_destination(out_dir, results.inputs.protected)
     made_parents = _make_parents(out.parent)
     tmp = out.parent / f".{out.name}.partial-{secrets.token_hex(4)}"
     try:
@@ -178,8 +181,7 @@ def _analysis_copy(results: Any, folder: Path) -> Path:
     """The analysis as read: ``analysis.toml`` (the file's bytes) or, for
     an analysis given as a dictionary, ``analysis.json`` (the canonical
     JSON whose SHA-256 is ``provenance.analysis_sha256``)."""
-    copy = getattr(results, "analysis_copy", None)
-    kind, data = copy if copy is not None else analysis_bytes(results.analysis)
+    kind, data = results.inputs.copy_kind, results.inputs.copy_bytes
     rel = Path("analysis.toml" if kind == "file" else "analysis.json")
     (folder / rel).write_bytes(data)
     return rel

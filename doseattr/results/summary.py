@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Sequence
 import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover
-    from doseattr.analysis.results import Results
+    from doseattr.results.run import Results
 
 WIDTH = 78
 

@@ -1,0 +1,102 @@
+"""Fill the results layer's section records from the core objects of a run
+(the facts the pipeline knows are recorded here, so that no output has to
+work them out again)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
+from doseattr.results.records import (CurveSection, CurveVariant, ExposureSection,
+                                      ExposureVariant, FamilyFit, GoodnessOfFit,
+                                      StratumExposure, SubstitutionResult, Workers)
+from doseattr.results.serialize import nonlinearity_p
+
+
+def share_above(exposure: Exposure, dose: float | None) -> float | None:
+    """Population share above ``dose`` (``None`` for no dose)."""
+    if dose is None:
+        return None
+    return float(np.asarray(exposure.sf(np.array([dose])), dtype=float).reshape(-1)[0])
+
+
+def exposure_mean(exposure: Exposure) -> float:
+    """Population mean exposure, the unexposed counted at zero."""
+    if exposure.family.name == "empirical":
+        return float(exposure.mean())
+    one = float(np.asarray(exposure.family.mean(exposure.params), dtype=float).reshape(-1)[0])
+    return (1.0 - exposure.unexposed) * one
+
+
+def zero_share(exposure: Exposure) -> float:
+    """The unexposed share, plus the weighted share of zeros among the
+    values on the empirical path."""
+    if exposure.family.name == "empirical":
+        return float(exposure.zero_share)
+    return float(exposure.unexposed)
+
+
+def goodness_of_fit(fit: Any) -> GoodnessOfFit | None:
+    """The fit's goodness-of-fit record, or ``None`` without measurements."""
+    gof = getattr(fit, "gof", None)
+    if not gof:
+        return None
+    return GoodnessOfFit(gof.get("test"), _float(gof.get("statistic")),
+                         _float(gof.get("p_value")), int(gof.get("n") or 0), gof.get("note"))
+
+
+def family_fits(exposure: Exposure, parametric: tuple[Exposure, ...]) -> tuple[FamilyFit, ...]:
+    """Every parametric fit tried: the main one, the alternatives of
+    ``family = "best"``, or the comparison fits of the empirical path."""
+    tried = [(e.family, e.params, e.fit) for e in parametric]
+    if exposure.fit is not None and exposure.fit.loglik is not None:
+        tried.insert(0, (exposure.family, exposure.params, exposure.fit))
+    tried += list(exposure.alternatives)
+    return tuple(FamilyFit(fam.name,
+                           dict(zip(fam.param_names, np.asarray(p, float).tolist(), strict=True)),
+                           _float(getattr(fit, "loglik", None)), _float(getattr(fit, "aic", None)),
+                           goodness_of_fit(fit))
+                 for fam, p, fit in tried)
+
+
+def workers(w: Any) -> Workers | None:
+    """Per-worker totals from the core ``WorkerExposure``."""
+    if w is None:
+        return None
+    return Workers(tuple(str(n) for n in w.workers), tuple(map(float, w.cumulative)),
+                   tuple(map(float, w.duration_years)), tuple(map(float, w.mean_intensity)))
+
+
+def curve_section(curve: Curve, exposure: Exposure, bands: Any,
+                  comparison: tuple[CurveVariant, ...],
+                  sensitivity: tuple[CurveVariant, ...]) -> CurveSection:
+    return CurveSection(curve, bands, comparison, sensitivity, nonlinearity_p(curve),
+                        share_above(exposure, curve.max_dose),
+                        share_above(exposure, curve.data_max))
+
+
+def exposure_section(curve: Curve, exposure: Exposure, *,
+                     comparison: tuple[ExposureVariant, ...],
+                     substitution: tuple[SubstitutionResult, ...], worker_totals: Any,
+                     parametric: tuple[Exposure, ...]) -> ExposureSection:
+    return ExposureSection(exposure, exposure_mean(exposure), zero_share(exposure),
+                           share_above(exposure, curve.max_dose),
+                           share_above(exposure, curve.data_max),
+                           goodness_of_fit(exposure.fit), family_fits(exposure, parametric),
+                           comparison, substitution, workers(worker_totals), parametric)
+
+
+def stratum_exposure(exposure: Exposure, shared: Exposure,
+                     given: dict[str, float] | None) -> StratumExposure:
+    """The exposure of one stratum, and whether it is its own."""
+    return StratumExposure(exposure is not shared, exposure.family.name,
+                           {k: float(v) for k, v in exposure.parameters.items()},
+                           exposure_mean(exposure),
+                           None if given is None else {k: float(v) for k, v in given.items()})
+
+
+def _float(value: Any) -> float | None:
+    return None if value is None else float(value)

@@ -1,0 +1,291 @@
+"""Small frozen records of one finished run, one per section of the results.
+
+The analysis layer fills them; :mod:`doseattr.results.serialize` turns them
+into ``results.json``; every table, report section and figure reads one of
+them. They hold numbers, strings and the core's own frozen objects (a
+:class:`~doseattr.core.curves.base.Curve`, an
+:class:`~doseattr.core.exposure.base.Exposure`), never the analysis input.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from doseattr.core.attribution.contribution import Contribution
+from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
+from doseattr.results.estimate import Estimate
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class ScenarioResult:
+    """One exposure-reduction scenario: its potential impact fraction and,
+    with ``[burden]``, the total averted cases."""
+
+    name: str
+    kind: str
+    value: float
+    pif: Estimate
+    description: str = ""
+    averted: Estimate | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class BandTable:
+    """The study's bands as the fit used them (table order, lowest first).
+
+    Arrays of length ``B``; ``upper`` is ``inf`` for an open-ended top band,
+    ``ci_lower``/``ci_upper`` are NaN for the reference band (whose CI is
+    empty by definition). ``dose_rule`` says how each dose was assigned.
+    """
+
+    lower: FloatArray
+    upper: FloatArray
+    dose: FloatArray
+    rr: FloatArray
+    ci_lower: FloatArray
+    ci_upper: FloatArray
+    reference: NDArray[np.bool_]
+    dose_rule: tuple[str, ...]
+    source: str | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class CurveVariant:
+    """The same analysis under another curve model or dose-assignment rule.
+
+    ``label`` is the model name (model comparison) or the dose rule (dose
+    sensitivity); ``curve`` and ``paf`` are ``None`` with ``problem`` set
+    when that variant could not be computed. ``used`` marks the variant the
+    analysis itself used.
+    """
+
+    label: str
+    curve: Curve | None
+    paf: float | None
+    doses: FloatArray | None = None
+    problem: str | None = None
+    used: bool = False
+
+
+@dataclass(frozen=True)
+class ExposureVariant:
+    """The PAF under another description of the same exposure data: each
+    fitted family, and the empirical distribution of the values."""
+
+    label: str
+    parameters: Mapping[str, float]
+    aic: float | None
+    paf: float | None
+    problem: str | None = None
+
+
+@dataclass(frozen=True)
+class SubstitutionResult:
+    """The main family refitted with each non-detect replaced by
+    ``fraction`` x its detection limit, for comparison only: its
+    parameters, the PAF it gives and ``difference`` = that PAF minus the
+    main (censored-likelihood) PAF. ``problem`` says why a fit failed."""
+
+    fraction: float
+    parameters: Mapping[str, float]
+    paf: float | None
+    difference: float | None
+    problem: str | None = None
+
+
+@dataclass(frozen=True)
+class GoodnessOfFit:
+    """A goodness-of-fit test of an exposure fit to measurements."""
+
+    test: str | None
+    statistic: float | None
+    p_value: float | None
+    n: int
+    note: str | None = None
+
+
+@dataclass(frozen=True)
+class FamilyFit:
+    """One parametric family fitted to the exposure data."""
+
+    family: str
+    parameters: Mapping[str, float]
+    loglik: float | None
+    aic: float | None
+    goodness_of_fit: GoodnessOfFit | None
+
+
+@dataclass(frozen=True)
+class Workers:
+    """Per-worker cumulative exposure from work histories (sorted ids)."""
+
+    worker: tuple[str, ...]
+    cumulative: tuple[float, ...]
+    duration_years: tuple[float, ...]
+    mean_intensity: tuple[float, ...]
+
+
+@dataclass(frozen=True, eq=False)
+class CurveSection:
+    """The relative-risk curve and everything said about it."""
+
+    curve: Curve
+    bands: BandTable | None
+    model_comparison: tuple[CurveVariant, ...]
+    dose_sensitivity: tuple[CurveVariant, ...]
+    nonlinearity_p: float | None
+    share_beyond_max_dose: float | None
+    share_beyond_data: float | None
+
+
+@dataclass(frozen=True, eq=False)
+class ExposureSection:
+    """The exposure distribution and the fits and comparisons behind it.
+
+    ``mean`` counts the unexposed at zero; ``zero_share`` is the unexposed
+    share plus, for weighted values, the weighted share of zeros.
+    """
+
+    exposure: Exposure
+    mean: float
+    zero_share: float
+    share_beyond_max_dose: float | None
+    share_beyond_data: float | None
+    goodness_of_fit: GoodnessOfFit | None
+    fits: tuple[FamilyFit, ...]
+    comparison: tuple[ExposureVariant, ...]
+    substitution: tuple[SubstitutionResult, ...]
+    workers: Workers | None
+    parametric_fits: tuple[Exposure, ...] = ()
+
+    @property
+    def is_empirical(self) -> bool:
+        """True when the exposure is the weighted values themselves."""
+        return self.exposure.family.name == "empirical"
+
+
+@dataclass(frozen=True)
+class SourceWidth:
+    """The 95% interval of the overall PAF when only ``source`` varies
+    (``"all"`` for every source together); with ``[burden]`` also the
+    interval of the total attributable cases, ``attributable = (lower,
+    upper)``."""
+
+    source: str
+    lower: float
+    upper: float
+    attributable: tuple[float, float] | None = None
+
+    @property
+    def width(self) -> float:
+        return self.upper - self.lower
+
+
+@dataclass(frozen=True, eq=False)
+class UncertaintySection:
+    """What ``[uncertainty]`` ran: draws, seed, level, which inputs varied,
+    and the overall PAF's interval by source.
+
+    ``propagation`` holds the core's Monte Carlo draws (one stratum named
+    ``"population"``); ``minimum_risk_varied`` is true when the
+    minimum-risk level was drawn from a range.
+    """
+
+    draws: int
+    seed: int
+    level: float
+    width_by_source: tuple[SourceWidth, ...]
+    width_all: SourceWidth | None
+    propagation: Any = None
+    minimum_risk_varied: bool = False
+
+    @property
+    def sources(self) -> tuple[str, ...]:
+        return tuple(w.source for w in self.width_by_source)
+
+
+@dataclass(frozen=True)
+class StratumExposure:
+    """The exposure a stratum's fractions were computed over.
+
+    ``own`` is true when the burden table gave the stratum its own exposure
+    (``given``: the columns as written, e.g. ``{"gm": 8.0, "gsd": 2.0}``),
+    false when it is the shared one; ``mean`` counts the unexposed at zero.
+    """
+
+    own: bool
+    family: str
+    parameters: Mapping[str, float]
+    mean: float
+    given: Mapping[str, float] | None = None
+
+
+@dataclass(frozen=True)
+class StratumEffect:
+    """One scenario in one stratum: its PIF and the cases averted."""
+
+    name: str
+    pif: Estimate
+    averted: Estimate
+
+
+@dataclass(frozen=True)
+class StratumResult:
+    """Attributable cases in one stratum (or the total): observed cases,
+    PAF, attributable cases and each scenario's effect; ``exposure`` is
+    ``None`` for the total."""
+
+    stratum: str
+    cases: float
+    paf: Estimate
+    attributable: Estimate
+    scenarios: tuple[StratumEffect, ...] = ()
+    population: float | None = None
+    exposure: StratumExposure | None = None
+
+
+@dataclass(frozen=True)
+class BurdenResult:
+    """Attributable cases by stratum and in total (totals are sums over the
+    strata draw by draw; the total PAF is total attributable over total
+    cases)."""
+
+    strata: tuple[StratumResult, ...]
+    total: StratumResult
+
+    @property
+    def any_own_exposure(self) -> bool:
+        return any(s.exposure is not None and s.exposure.own for s in self.strata)
+
+
+@dataclass(frozen=True, eq=False)
+class AttributionSection:
+    """The PAF, the minimum-risk level it is relative to, each scenario's
+    PIF and where the burden lies along the exposure axis."""
+
+    paf: Estimate
+    minimum_risk: float
+    minimum_risk_range: tuple[float, float] | None
+    scenarios: tuple[ScenarioResult, ...]
+    contribution: Contribution
+
+
+@dataclass(frozen=True)
+class RunInputs:
+    """What the run read, recorded when it finished: ``provenance`` (the
+    results.json record), the analysis as read (``copy_kind`` ``"file"`` or
+    ``"python-dict"`` and its bytes) and the input paths an output folder
+    must never hold."""
+
+    provenance: Mapping[str, Any]
+    copy_kind: str
+    copy_bytes: bytes
+    protected: tuple[str, ...]

@@ -1,0 +1,275 @@
+"""``results.json``: generated here, and only here, from the run's records.
+
+Schema version "2.0" (published as ``results.schema.json`` in this
+package). Every estimate is one object ``{estimate, lower, upper, mcse}``;
+every number is a plain float or ``None``; a NaN or infinity reaching this
+module is a bug and is refused (:func:`~doseattr.results.numbers.num`).
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.curves.base import Curve
+from doseattr.results.estimate import Estimate
+from doseattr.results.numbers import json_safe, matrix, num, nums, params
+from doseattr.results.records import (AttributionSection, BandTable, BurdenResult,
+                                      CurveSection, CurveVariant, ExposureSection,
+                                      ExposureVariant, FamilyFit, GoodnessOfFit, SourceWidth,
+                                      StratumExposure, StratumResult, SubstitutionResult,
+                                      UncertaintySection, Workers)
+
+if TYPE_CHECKING:
+    from doseattr.results.run import Results
+
+SCHEMA_VERSION = "2.0"
+
+#: The keys an outcome repeats from the top level.
+OUTCOME_KEYS = ("paf", "minimum_risk", "scenarios", "curve", "categorical", "burden",
+                "uncertainty", "model_comparison", "dose_sensitivity", "bands", "warnings",
+                "notes")
+
+
+def results_dict(r: Results) -> dict[str, Any]:
+    """The ``results.json`` dictionary of a run (JSON-safe)."""
+    from doseattr import __version__
+
+    a = r.attribution
+    d = {
+        "schema_version": SCHEMA_VERSION,
+        "doseattr_version": __version__,
+        "title": r.title,
+        "unit": r.unit,
+        **attribution_dict(a, r.burden),
+        "curve": curve_dict(r.curve_section),
+        "exposure": exposure_dict(r.exposure_section),
+        "categorical": categorical_dict(r.categorical),
+        "contribution": {"x": nums(a.contribution.x), "density": nums(a.contribution.density),
+                         "cumulative": nums(a.contribution.cumulative),
+                         "median": num(a.contribution.median)},
+        "bands": bands_list(r.curve_section.bands),
+        "uncertainty": uncertainty_dict(r.uncertainty),
+        "burden": burden_dict(r.burden),
+        "outcomes": [outcome_dict(name, o) for name, o in r.outcomes],
+        "workers": workers_list(r.exposure_section.workers),
+        "exposure_comparison": [exposure_variant_dict(v) for v in r.exposure_section.comparison],
+        "model_comparison": [curve_variant_dict(v) for v in r.curve_section.model_comparison],
+        "dose_sensitivity": [curve_variant_dict(v) for v in r.curve_section.dose_sensitivity],
+        "warnings": list(r.warnings),
+        "cautions": list(r.cautions),
+        "notes": list(r.notes),
+        "provenance": r.provenance,
+    }
+    return json_safe(d)  # type: ignore[no-any-return]
+
+
+def estimate_dict(e: Estimate) -> dict[str, float | None]:
+    return {"estimate": num(e.estimate), "lower": num(e.lower), "upper": num(e.upper),
+            "mcse": num(e.mcse)}
+
+
+def attribution_dict(a: AttributionSection, burden: BurdenResult | None) -> dict[str, Any]:
+    """``paf``, ``minimum_risk``, ``minimum_risk_range`` and ``scenarios``
+    (``averted``: the burden's total averted cases)."""
+    rng = a.minimum_risk_range
+    return {"paf": estimate_dict(a.paf), "minimum_risk": num(a.minimum_risk),
+            "minimum_risk_range": None if rng is None else [num(v) for v in rng],
+            "scenarios": [{"name": s.name, "kind": s.kind, "value": num(s.value),
+                           "description": s.description, "pif": estimate_dict(s.pif),
+                           "averted": None if s.averted is None else estimate_dict(s.averted)}
+                          for s in a.scenarios]}
+
+
+def outcome_dict(name: str, r: Results) -> dict[str, Any]:
+    """One outcome's results: the same keys as the top level."""
+    d = results_dict(r)
+    return {"name": name, **{k: d[k] for k in OUTCOME_KEYS}}
+
+
+def bands_list(b: BandTable | None) -> list[dict[str, Any]] | None:
+    """One dictionary per study band, or ``None`` for a curve not fitted."""
+    if b is None:
+        return None
+    return [{"lower": num(b.lower[i]), "upper": num(b.upper[i], open_ok=True),
+             "dose": num(b.dose[i]), "rr": num(b.rr[i]),
+             "ci_lower": num(b.ci_lower[i], open_ok=True),
+             "ci_upper": num(b.ci_upper[i], open_ok=True),
+             "reference": bool(b.reference[i]), "dose_rule": b.dose_rule[i]}
+            for i in range(len(b.rr))]
+
+
+def standard_errors(curve: Curve) -> list[float | None]:
+    return nums(np.sqrt(np.maximum(np.diag(curve.cov), 0.0)))
+
+
+def curve_variant_dict(v: CurveVariant) -> dict[str, Any]:
+    c = v.curve
+    fit = None if c is None else c.fit
+    return {"label": v.label, "model": None if c is None else c.model.name,
+            "coefficients": None if c is None else nums(c.coef),
+            "standard_errors": None if c is None else standard_errors(c),
+            "doses": None if v.doses is None else nums(v.doses),
+            "q": None if fit is None else num(fit.q),
+            "df": None if fit is None else int(fit.df),
+            "p_value": None if fit is None else num(fit.p_value),
+            "nonlinearity_p": None if c is None else num(nonlinearity_p(c)),
+            "paf": num(v.paf), "problem": v.problem, "used": v.used}
+
+
+def curve_dict(s: CurveSection) -> dict[str, Any]:
+    c = s.curve
+    fit = c.fit
+    fitted = []
+    if fit is not None:
+        fitted = [{"dose": num(x), "rr_reported": num(math.exp(y)),
+                   "rr_fitted": num(math.exp(f))}
+                  for x, y, f in zip(fit.doses, fit.log_rr, fit.fitted_log_rr, strict=True)]
+    return {
+        "model": c.model.name,
+        "parameter_names": list(c.model.param_names),
+        "coefficients": nums(c.coef),
+        "covariance": matrix(c.cov),
+        "standard_errors": standard_errors(c),
+        "reference_dose": num(c.model.reference_dose),
+        "max_dose": num(c.max_dose),
+        "beyond": "extend" if c.max_dose is None else "flat",
+        "source": c.source,
+        "data_max": num(c.data_max),
+        "covariance_method": None if fit is None else fit.covariance_method,
+        "q": None if fit is None else num(fit.q),
+        "df": None if fit is None else int(fit.df),
+        "p_value": None if fit is None else num(fit.p_value),
+        "nonlinearity_p": num(s.nonlinearity_p),
+        "fitted": fitted,
+        "log_rr_covariance": None if fit is None else matrix(fit.log_rr_covariance),
+        "formula": c.model.describe(),
+        "notes": list(c.notes),
+    }
+
+
+def gof_dict(g: GoodnessOfFit | None) -> dict[str, Any] | None:
+    if g is None:
+        return None
+    return {"test": g.test, "statistic": num(g.statistic), "p_value": num(g.p_value),
+            "n": int(g.n), "note": g.note}
+
+
+def family_fit_dict(f: FamilyFit) -> dict[str, Any]:
+    return {"family": f.family, "parameters": params(f.parameters), "loglik": num(f.loglik),
+            "aic": num(f.aic), "goodness_of_fit": gof_dict(f.goodness_of_fit)}
+
+
+def exposure_variant_dict(v: ExposureVariant) -> dict[str, Any]:
+    return {"family": v.label, "parameters": params(v.parameters), "aic": num(v.aic),
+            "paf": num(v.paf), "problem": v.problem}
+
+
+def substitution_dict(v: SubstitutionResult) -> dict[str, Any]:
+    return {"fraction": num(v.fraction), "parameters": params(v.parameters),
+            "paf": num(v.paf), "difference": num(v.difference), "problem": v.problem}
+
+
+def exposure_dict(s: ExposureSection) -> dict[str, Any]:
+    ex = s.exposure
+    fit = ex.fit
+    has_data = fit is not None and fit.n > 0
+    return {
+        "family": ex.family.name,
+        "parameters": params(ex.parameters),
+        "unexposed": num(s.zero_share),
+        "share_beyond_max_dose": num(s.share_beyond_max_dose),
+        "share_beyond_data": num(s.share_beyond_data),
+        "mean": num(s.mean),
+        "source": ex.source,
+        "n": int(fit.n) if fit is not None and has_data else None,
+        "detected": int(fit.detected) if fit is not None and has_data else None,
+        "censored": int(fit.censored) if fit is not None and has_data else None,
+        "loglik": None if fit is None else num(fit.loglik),
+        "aic": None if fit is None else num(fit.aic),
+        "goodness_of_fit": gof_dict(s.goodness_of_fit),
+        "fits": [family_fit_dict(f) for f in s.fits],
+        "substitution": [substitution_dict(v) for v in s.substitution],
+        "notes": list(ex.notes),
+    }
+
+
+def categorical_dict(cat: CategoricalComparison) -> dict[str, Any]:
+    return {
+        "cutpoints": nums(cat.cutpoints),
+        "shares": nums(cat.shares),
+        "midpoints": nums(cat.midpoints),
+        "band_means": nums(cat.band_means),
+        "methods": [{"method": m.method, "rr": nums(m.rr), "paf": num(m.paf),
+                     "difference": num(m.difference)} for m in cat.methods],
+        "continuous_paf": num(cat.continuous_paf),
+        "convergence": [{"bands": int(k), "paf": num(p)} for k, p in cat.convergence],
+    }
+
+
+def source_width_dict(w: SourceWidth) -> dict[str, Any]:
+    cases = None
+    if w.attributable is not None:
+        lo, hi = w.attributable
+        cases = {"lower": num(lo), "upper": num(hi), "width": num(hi - lo)}
+    return {"source": w.source, "lower": num(w.lower), "upper": num(w.upper),
+            "width": num(w.width), "attributable": cases}
+
+
+def uncertainty_dict(u: UncertaintySection | None) -> dict[str, Any] | None:
+    if u is None:
+        return None
+    return {"draws": int(u.draws), "seed": int(u.seed), "level": num(u.level),
+            "sources": list(u.sources), "minimum_risk_varied": bool(u.minimum_risk_varied),
+            "width_by_source": [source_width_dict(w) for w in u.width_by_source],
+            "width_all": None if u.width_all is None else source_width_dict(u.width_all)}
+
+
+def stratum_exposure_dict(e: StratumExposure | None) -> dict[str, Any] | None:
+    if e is None:
+        return None
+    return {"own": bool(e.own), "family": e.family, "parameters": params(e.parameters),
+            "mean": num(e.mean), "given": None if e.given is None else params(e.given)}
+
+
+def stratum_dict(s: StratumResult) -> dict[str, Any]:
+    return {"stratum": s.stratum, "cases": num(s.cases), "population": num(s.population),
+            "paf": estimate_dict(s.paf), "attributable": estimate_dict(s.attributable),
+            "exposure": stratum_exposure_dict(s.exposure),
+            "scenarios": [{"name": e.name, "pif": estimate_dict(e.pif),
+                           "averted": estimate_dict(e.averted)} for e in s.scenarios]}
+
+
+def burden_dict(b: BurdenResult | None) -> dict[str, Any] | None:
+    if b is None:
+        return None
+    total = stratum_dict(b.total)
+    total.pop("stratum")
+    total.pop("exposure")
+    return {"strata": [stratum_dict(s) for s in b.strata], "total": total}
+
+
+def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:
+    if w is None:
+        return None
+    return [{"worker": name, "cumulative": num(c), "duration_years": num(d),
+             "mean_intensity": num(m)}
+            for name, c, d, m in zip(w.worker, w.cumulative, w.duration_years,
+                                     w.mean_intensity, strict=True)]
+
+
+def nonlinearity_p(curve: Curve) -> float | None:
+    """p-value of the Wald test that a spline is linear (``None`` for other
+    models): core :func:`~doseattr.core.curves.spline.nonlinearity_test`."""
+    if curve.model.name != "spline":
+        return None
+    from doseattr.core.curves.spline import nonlinearity_test
+    from doseattr.errors import ModelError
+
+    try:
+        return float(nonlinearity_test(curve)[2])
+    except ModelError:
+        return None
