@@ -105,3 +105,14 @@ def test_stratum_exposure_is_shown(demo):
         assert shared["parameters"] == demo["exposure"]["parameters"]
         assert shared["mean"] == pytest.approx(demo["exposure"]["mean"], rel=1e-12)
     assert "exposure" not in demo["burden"]["total"]
+
+
+def test_summary_shows_the_stratum_exposure():
+    """summary.txt lists each stratum with 'own: gm 18.5, gsd 2.1' for the
+    demo's Quarryside (its row of data_demo/districts.csv) and 'shared' for
+    the others."""
+    text = run_analysis(load_analysis(DEMO)).summary()
+    rows = {line.split()[0]: line for line in text.splitlines()
+            if line.startswith(("Old Town", "Riverside", "Quarryside", "Hillcrest"))}
+    assert rows["Quarryside"].endswith("own: gm 18.5, gsd 2.1")
+    assert all(rows[k].endswith("shared") for k in ("Old", "Riverside", "Hillcrest"))

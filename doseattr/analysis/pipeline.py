@@ -29,6 +29,7 @@ from doseattr.analysis.intervals import (population_intervals, source_width,
                                          uncertainty_notes, width_by_source)
 from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.core.uncertainty.propagate import Stratum
+from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (AttributionSection, BurdenResult, RunInputs,
                                       ScenarioResult, UncertaintySection)
@@ -37,22 +38,6 @@ from doseattr.results.run import Results
 #: A population share above the data range larger than this gets a warning
 #: (smaller shares are stated in the notes).
 EXTRAPOLATION_WARN = 0.01
-
-CAUTIONS = (
-    "Causality: a PAF is the share of cases that would not occur without the exposure only if "
-    "the RR curve is causal and free of confounding. With confounder-adjusted RRs the "
-    "population formula used here can be biased; Miettinen's case-based formula "
-    "(Miettinen 1974, Am J Epidemiol 99:325), PAF = sum of pc_i (RR_i - 1)/RR_i over the "
-    "share of cases pc_i at each level, is the valid form when the cases' exposure "
-    "distribution is known.",
-    "Transportability: the study's RRs are assumed to hold in this population (same "
-    "susceptibility, co-exposures, baseline risk and exposure metric).",
-    "Extrapolation: results that depend on exposures above the curve's data range rest on "
-    "the assumed shape there (held flat or extended), not on data.",
-    "Decisions: exposure limits and any decision based on these numbers belong to the local "
-    "regulations and to licensed professionals; this tool computes, it does not advise.",
-)
-
 
 def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
     """Compute every result of ``analysis``.

@@ -17,6 +17,7 @@ from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
+from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import pct
 from doseattr.results.records import (AttributionSection, BandTable, BurdenResult,
@@ -65,7 +66,7 @@ class Results:
     burden: BurdenResult | None = None
     outcomes: tuple[tuple[str, Results], ...] = ()
     warnings: tuple[str, ...] = ()
-    cautions: tuple[str, ...] = ()
+    cautions: tuple[str, ...] = CAUTIONS
     notes: tuple[str, ...] = ()
     inputs: RunInputs | None = None
 

@@ -9,6 +9,8 @@ from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
+from doseattr.results.records import StratumExposure
+
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results.run import Results
 
@@ -28,7 +30,7 @@ def render(r: "Results", brief: bool = False) -> str:
         if r.warnings:
             lines += ["", f"{len(r.warnings)} warning(s): see results.json or the report"]
         return "\n".join(lines)
-    lines += ["", *_curve(r), "", *_exposure(r), "", *_categorical(r)]
+    lines += ["", *_curve(r), "", *_exposure(r), "", *_categorical(r), *_burden(r)]
     lines += _variants(r) + _widths(r)
     for title, items in (("Warnings", r.warnings), ("Notes", r.notes), ("Cautions", r.cautions)):
         if items:
@@ -48,8 +50,8 @@ def _curve(r: "Results") -> list[str]:
         p = "-" if c.fit.p_value is None else f"{c.fit.p_value:.3g}"
         out.append(f"goodness of fit: Q = {c.fit.q:.3g}, df = {c.fit.df}, p = {p} "
                    f"(covariance: {c.fit.covariance_method})")
-    if c.max_dose is not None:
-        share = r.share_beyond_max_dose
+    share = r.share_beyond_max_dose
+    if c.max_dose is not None and share is not None:
         out.append(f"RR held flat above {c.max_dose:g} {r.unit} "
                    f"({100 * share:.2g}% of the population above)")
     else:
@@ -60,7 +62,8 @@ def _curve(r: "Results") -> list[str]:
 def _exposure(r: "Results") -> list[str]:
     ex = r.exposure
     if r.is_empirical:
-        out = [f"Exposure: empirical ({ex.fit.n} weighted values, no fitted distribution)"]
+        n = 0 if ex.fit is None else ex.fit.n
+        out = [f"Exposure: empirical ({n} weighted values, no fitted distribution)"]
     else:
         params = ", ".join(f"{k} = {v:.4g}" for k, v in ex.parameters.items())
         how = ex.source
@@ -101,6 +104,30 @@ def _categorical(r: "Results") -> list[str]:
     rows.append(["difference (points)", ""] + [f"{100 * m.difference:+.2f}" for m in cat.methods])
     out += table(head, rows)
     return out
+
+
+def _burden(r: "Results") -> list[str]:
+    """Attributable cases by stratum, with the exposure each stratum used."""
+    b = r.burden
+    if b is None:
+        return []
+    rows = [[s.stratum, f"{s.cases:g}", s.paf.text(), s.attributable.text(percent=False),
+             _stratum_exposure(s.exposure)] for s in b.strata]
+    rows.append(["total", f"{b.total.cases:g}", b.total.paf.text(),
+                 b.total.attributable.text(percent=False), ""])
+    out = ["", "Attributable cases by stratum"]
+    out += table(["stratum", "cases", "PAF", "attributable", "exposure"], rows)
+    if b.any_own_exposure:
+        out += textwrap.wrap("strata marked 'own' have their own exposure from the burden "
+                             "table; the others use the shared distribution", WIDTH)
+    return out
+
+
+def _stratum_exposure(e: StratumExposure | None) -> str:
+    if e is None or not e.own:
+        return "shared"
+    given = e.given if e.given is not None else e.parameters
+    return "own: " + ", ".join(f"{k} {v:.4g}" for k, v in given.items())
 
 
 def _variants(r: "Results") -> list[str]:
