@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
-from typing import ClassVar
+from typing import Any, ClassVar, TypeAlias, cast
 
 import numpy as np
 from scipy.special import polygamma
@@ -146,7 +146,7 @@ class Family(ABC):
         """E[X; a < X <= b] (``b`` may be ``inf``)."""
 
     @abstractmethod
-    def scipy(self, params: ArrayLike):
+    def scipy(self, params: ArrayLike) -> Any:
         """The frozen ``scipy.stats`` distribution for one parameter vector."""
 
     @abstractmethod
@@ -201,10 +201,10 @@ class PositiveFamily(Family):
     vector is their logarithms."""
 
     def to_internal(self, params: ArrayLike) -> FloatArray:
-        return np.log(np.asarray(params, dtype=float))
+        return cast(FloatArray, np.log(np.asarray(params, dtype=float)))
 
     def from_internal(self, theta: ArrayLike) -> FloatArray:
-        return np.exp(np.asarray(theta, dtype=float))
+        return cast(FloatArray, np.exp(np.asarray(theta, dtype=float)))
 
     def check(self, params: ArrayLike) -> None:
         p = np.asarray(params, dtype=float)
@@ -235,8 +235,12 @@ class ExposureFit:
     weights: FloatArray | None = None
     upper: FloatArray | None = None
     cov_internal: FloatArray | None = None
-    gof: dict = field(default_factory=dict)
+    gof: dict[str, Any] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+
+
+#: Another family's fit to the same data: ``(family, params, fit)``.
+Alternative: TypeAlias = tuple[Family, FloatArray, ExposureFit | None]
 
 
 @dataclass(frozen=True)
@@ -253,7 +257,7 @@ class Exposure:
     unexposed: float = 0.0
     fit: ExposureFit | None = None
     source: str = "entered"
-    alternatives: tuple = ()
+    alternatives: tuple[Alternative, ...] = ()
     notes: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
