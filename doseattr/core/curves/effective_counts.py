@@ -11,7 +11,8 @@ the defaults below are this project's assumptions and are reported).
 
 from __future__ import annotations
 
-from typing import Callable, Literal, cast
+from collections.abc import Callable
+from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike

@@ -69,7 +69,8 @@ class PointsCurve(CurveModel):
         return self._hats(x) - self._hats(self.reference_dose)
 
     def log_rr(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
-        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x), np.asarray(coef, dtype=float)))
+        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x),
+                                          np.asarray(coef, dtype=float)))
 
     def growth(self, coef: ArrayLike) -> Growth:
         return Growth.bounded()

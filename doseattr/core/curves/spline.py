@@ -88,7 +88,8 @@ class RestrictedCubicSpline(CurveModel):
 
     def _tail_derivative(self) -> FloatArray:
         t = self.knots
-        return cast(FloatArray, np.r_[1.0, 3.0 * (t[-1] - t[:-2]) * (t[-2] - t[:-2]) / (t[-1] - t[0]) ** 2])
+        return cast(FloatArray,
+                    np.r_[1.0, 3.0 * (t[-1] - t[:-2]) * (t[-2] - t[:-2]) / (t[-1] - t[0]) ** 2])
 
     def _raw_basis(self, x: ArrayLike) -> FloatArray:
         """``(s_1(x), ..., s_{k-1}(x))`` with shape ``x.shape + (k - 1,)``."""
@@ -105,7 +106,8 @@ class RestrictedCubicSpline(CurveModel):
         return self._raw_basis(x) - self._raw_basis(self.reference_dose)
 
     def log_rr(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
-        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x), np.asarray(coef, dtype=float)))
+        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x),
+                                          np.asarray(coef, dtype=float)))
 
     def tail_slope(self, coef: ArrayLike) -> FloatArray:
         """d log RR / dx beyond the last knot, shape ``()`` or ``(D,)``."""

@@ -97,7 +97,8 @@ class Gamma(PositiveFamily):
         return log_gammaincc(*self._ky(x, params))
 
     def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray:
-        return cast(FloatArray, pcol(params, 1) * gammaincinv(pcol(params, 0), np.asarray(q, dtype=float)))
+        q = np.asarray(q, dtype=float)
+        return cast(FloatArray, pcol(params, 1) * gammaincinv(pcol(params, 0), q))
 
     def mean(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)

@@ -14,7 +14,8 @@ substitution ``E = (x/lambda)^k``). Internal parameters are
 
 from __future__ import annotations
 
-from typing import Any, Callable, cast
+from collections.abc import Callable
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
