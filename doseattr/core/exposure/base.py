@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
+from collections.abc import Mapping
 from typing import Any, ClassVar, TypeAlias, cast
 
 import numpy as np
@@ -91,10 +92,26 @@ class Family(ABC):
 
     Subclasses write the formulas; :class:`Exposure` and the fitters in
     :mod:`doseattr.core.exposure.fit` supply everything else.
+
+    Besides ``name`` and ``param_names`` a family declares ``dose_params``,
+    the public parameters in the exposure's unit, and ``bounds``, the open
+    interval ``(lower, upper)`` each public parameter must lie in (what
+    :meth:`check` enforces). A change of unit ``x -> c x`` is a scale
+    transform: the family is closed under it, with the dose parameters
+    multiplied by ``c`` and the others unchanged (:meth:`in_unit`).
     """
 
     name: ClassVar[str]
     param_names: ClassVar[tuple[str, ...]]
+    dose_params: ClassVar[tuple[str, ...]]
+    bounds: ClassVar[Mapping[str, tuple[float, float]]]
+
+    def in_unit(self, params: ArrayLike, factor: float) -> FloatArray:
+        """Public parameters of ``factor * X`` when ``params`` are those of
+        ``X`` (the exposure in a unit ``factor`` times smaller): the dose
+        parameters times ``factor``, the others as they are."""
+        scale = np.array([factor if n in self.dose_params else 1.0 for n in self.param_names])
+        return cast(FloatArray, np.asarray(params, dtype=float) * scale)
 
     # -- parameterisation -------------------------------------------------
     @abstractmethod

@@ -14,6 +14,7 @@ Internal parameters are ``(ln k, ln theta)``.
 
 from __future__ import annotations
 
+from types import MappingProxyType
 from typing import Any, cast
 
 import numpy as np
@@ -59,6 +60,8 @@ class Gamma(PositiveFamily):
 
     name = "gamma"
     param_names = ("shape", "scale")
+    dose_params = ("scale",)
+    bounds = MappingProxyType({"shape": (0.0, np.inf), "scale": (0.0, np.inf)})
 
     def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
         r"""log density of ``T = ln X``: :math:`k u - e^u - \ln\Gamma(k)`,

@@ -16,6 +16,7 @@ follows from completing the square). Internal parameters are
 
 from __future__ import annotations
 
+from types import MappingProxyType
 from typing import Any, cast
 
 import numpy as np
@@ -48,6 +49,8 @@ class LogNormal(Family):
 
     name = "lognormal"
     param_names = ("gm", "gsd")
+    dose_params = ("gm",)
+    bounds = MappingProxyType({"gm": (0.0, np.inf), "gsd": (1.0, np.inf)})
 
     @staticmethod
     def _mu_s(params: ArrayLike) -> tuple[FloatArray, FloatArray]:

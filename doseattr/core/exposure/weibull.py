@@ -15,6 +15,7 @@ substitution ``E = (x/lambda)^k``). Internal parameters are
 from __future__ import annotations
 
 from collections.abc import Callable
+from types import MappingProxyType
 from typing import Any, cast
 
 import numpy as np
@@ -42,6 +43,8 @@ class Weibull(PositiveFamily):
 
     name = "weibull"
     param_names = ("shape", "scale")
+    dose_params = ("scale",)
+    bounds = MappingProxyType({"shape": (0.0, np.inf), "scale": (0.0, np.inf)})
 
     @staticmethod
     def _u(x_or_t: ArrayLike, params: ArrayLike, *, log_scale: bool) -> tuple[FloatArray, FloatArray]:
