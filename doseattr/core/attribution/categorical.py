@@ -18,6 +18,7 @@ distribution.
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -111,7 +112,7 @@ def _exposed_quantiles(exposure: AnyExposure, q: FloatArray) -> FloatArray:
         order = np.argsort(exposure.values)
         cum = np.cumsum(exposure.weights[order])
         idx = np.minimum(np.searchsorted(cum, q * cum[-1]), cum.size - 1)
-        return exposure.values[order][idx]
+        return cast(FloatArray, exposure.values[order][idx])
     return exposure.family.ppf(q, exposure.params)
 
 

@@ -43,7 +43,7 @@ class Contribution:
     paf: float
 
 
-def burden_density(curve: Curve, exposure: Exposure, minimum_risk: float = 0.0, *,
+def burden_density(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0, *,
                    points: int = 200, upper_quantile: float = 0.999) -> Contribution:
     """Density and cumulative share of the attributable burden on a grid
     from 0 to the ``upper_quantile`` of the exposed population."""

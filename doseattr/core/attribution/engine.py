@@ -33,7 +33,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Callable
+from typing import Callable, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -61,7 +61,7 @@ def _legendre(n: int) -> tuple[FloatArray, FloatArray]:
 
 
 def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
-                    growth: Growth, kinks: FloatArray, flat_from: FloatArray | None = None,
+                    growth: Growth, kinks: FloatArray, flat_from: float | FloatArray | None = None,
                     nodes: int = NODES) -> FloatArray:
     r"""E[expm1(L(X))] = E[RR(X) - 1] for each draw of an exposure family.
 
@@ -219,9 +219,9 @@ def _weighted_excess(lr: FloatArray, log_f: FloatArray, weight: FloatArray,
     """
     if lr.max(initial=0.0) < 600.0:
         if dens.shape[0] == 1:
-            return np.expm1(lr) @ dens[0]
-        return np.einsum("ij,ij->i", np.expm1(lr), dens)
+            return cast(FloatArray, np.expm1(lr) @ dens[0])
+        return cast(FloatArray, np.einsum("ij,ij->i", np.expm1(lr), dens))
     with np.errstate(over="ignore", invalid="ignore"):
         big = np.exp(log_f + lr) * -np.expm1(-np.maximum(lr, 0.5)) * weight
     small = np.expm1(np.minimum(lr, 0.5)) * dens
-    return np.where(lr > 0.5, big, small).sum(axis=1)
+    return cast(FloatArray, np.where(lr > 0.5, big, small).sum(axis=1))

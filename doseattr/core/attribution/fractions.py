@@ -21,12 +21,14 @@ point mass at zero exposure, where :math:`RR_m = 1` for any :math:`m \ge 0`.
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.attribution.engine import expected_excess
+from doseattr.core.attribution.engine import LogRisk, expected_excess
 from doseattr.core.attribution.scenarios import Cap, Scenario
-from doseattr.core.curves.base import Curve, as_coef_draws
+from doseattr.core.curves.base import Curve, Growth, as_coef_draws
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import FloatRangeError
@@ -79,10 +81,11 @@ def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, wei
         raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): the "
                               "relative risk is too large over the exposure values; check the "
                               "curve's coefficients and units")
-    return (1.0 - u) * body
+    return cast(FloatArray, (1.0 - u) * body)
 
 
-def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike, n_exposure: int):
+def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike,
+                 n_exposure: int) -> tuple[FloatArray, FloatArray, FloatArray, int]:
     """Broadcast coefficients, unexposed share and minimum-risk level to a
     common number of draws ``D``."""
     coef = as_coef_draws(coef)
@@ -94,7 +97,7 @@ def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike,
     return coef, m, u, d
 
 
-def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None):
+def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None) -> LogRisk:
     """The function ``(x, rows) -> ln RR_m(g(x))`` for draws ``rows``."""
 
     top = np.inf if curve.max_dose is None else curve.max_dose
@@ -108,7 +111,7 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
     return log_rr
 
 
-def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None):
+def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None) -> Growth:
     g = curve.growth(coef)
     return g if scenario is None else scenario.growth(g)
 
@@ -202,7 +205,7 @@ def pif_from_excess(excess0: ArrayLike, excess_g: ArrayLike) -> FloatArray:
     r""":math:`PIF = 1 - E_g/E = (E - E_g)/E` from the two excesses."""
     e0, eg = np.asarray(excess0, dtype=float), np.asarray(excess_g, dtype=float)
     _refuse_zero_rr(e0)
-    return (e0 - eg) / (1.0 + e0)
+    return cast(FloatArray, (e0 - eg) / (1.0 + e0))
 
 
 def paf(curve: Curve, exposure: Exposure | EmpiricalExposure, *, minimum_risk: float) -> float:

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
-from typing import ClassVar, Literal
+from typing import Any, ClassVar, Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -49,7 +49,7 @@ class Growth:
         return Growth("bounded", np.zeros(()))
 
 
-def param(coef: FloatArray, k: int) -> FloatArray:
+def param(coef: ArrayLike, k: int) -> FloatArray:
     """Parameter ``k`` of ``coef`` shaped to broadcast against doses."""
     return np.asarray(coef, dtype=float)[..., k, None]
 
@@ -142,7 +142,7 @@ class CurveFit:
     df: int
     p_value: float | None
     warnings: tuple[str, ...] = ()
-    extra: dict = field(default_factory=dict)
+    extra: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -219,7 +219,7 @@ class Curve:
             dn[k] -= h
             grad[:, k] = (self.log_rr(x, up) - self.log_rr(x, dn)) / (2 * h)
         var = np.einsum("ij,jk,ik->i", grad, self.cov, grad)
-        return np.sqrt(np.maximum(var, 0.0))
+        return cast(FloatArray, np.sqrt(np.maximum(var, 0.0)))
 
     def rr_interval(self, x: ArrayLike, level: float = 0.95) -> tuple[FloatArray, FloatArray, FloatArray]:
         """RR(x) with a pointwise Wald interval on the log scale."""

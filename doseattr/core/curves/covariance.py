@@ -12,7 +12,7 @@ effective counts, for tables without counts, are in
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal
+from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -59,7 +59,7 @@ class LogRRCovariance:
     @property
     def correlation(self) -> FloatArray:
         sd = np.sqrt(self.variances)
-        return self.cov / np.outer(sd, sd)
+        return cast(FloatArray, self.cov / np.outer(sd, sd))
 
 
 def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
@@ -81,7 +81,7 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
             f"{np.ravel(hi)[bad]:g}, RR {np.ravel(rr)[bad]:g}) must satisfy 0 < lower < upper "
             f"with the RR inside it")
     z = norm.ppf(0.5 + level / 2.0)
-    return ((np.log(hi) - np.log(lo)) / (2.0 * z)) ** 2
+    return cast(FloatArray, ((np.log(hi) - np.log(lo)) / (2.0 * z)) ** 2)
 
 
 def independent_covariance(var_log_rr: ArrayLike) -> LogRRCovariance:
@@ -132,7 +132,8 @@ def greenland_longnecker(rr: ArrayLike, var_log_rr: ArrayLike, cases: ArrayLike,
         return _greenland_longnecker(rr, var, cases, totals, design, ref)
 
 
-def _greenland_longnecker(rr, var, cases, totals, design, ref) -> LogRRCovariance:
+def _greenland_longnecker(rr: FloatArray, var: FloatArray, cases: FloatArray, totals: FloatArray,
+                          design: str, ref: int) -> LogRRCovariance:
     if design == "case-control":
         a, b = _case_control_counts(rr, cases, totals, ref)
         shared = 1.0 / a[ref] + 1.0 / b[ref]
@@ -204,7 +205,7 @@ def _proportional_counts(rr: FloatArray, cases: FloatArray, size: FloatArray, re
             f"pseudo-counts need some cases (got {m1:g}) and positive {what} in the "
             f"reference band (got {size[ref]:g})")
     weight = rr * size
-    return m1 * weight / weight.sum()
+    return cast(FloatArray, m1 * weight / weight.sum())
 
 
 def _cumulative_counts(rr: FloatArray, cases: FloatArray, persons: FloatArray,

@@ -21,7 +21,7 @@ open-ended top band (``upper = inf``)
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable, Literal
+from typing import Callable, Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -119,7 +119,7 @@ def band_mean_doses(mass: ArrayLike, partial_mean: ArrayLike) -> FloatArray:
     partial = np.asarray(partial_mean, dtype=float)
     if np.any(mass < MIN_BAND_MASS):
         raise ModelError("a band holds no probability under the exposure distribution")
-    return partial / mass
+    return cast(FloatArray, partial / mass)
 
 
 def distribution_doses(lower: ArrayLike, upper: ArrayLike, *, rule: DistributionRule,

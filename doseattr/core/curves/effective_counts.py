@@ -11,7 +11,8 @@ the defaults below are this project's assumptions and are reported).
 
 from __future__ import annotations
 
-from typing import Literal
+from collections.abc import Callable
+from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -62,11 +63,12 @@ def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
         (``ref``) has RR 1 and its variance is ignored.
     """
     rr, var = _validate(rr, var_log_rr, ref)
-    design, case_ratio, share, notes = _assumptions(design, rr.size, case_ratio,
+    solved, case_ratio, share, notes = _assumptions(design, rr.size, case_ratio,
                                                     reference_share)
     others = np.delete(np.arange(rr.size), ref)
     try:
-        if design == "case-control":
+        if solved == "case-control":
+            assert case_ratio is not None  # _assumptions sets it for case-control
             a, b, shared = _case_control(rr[others], var[others], share, case_ratio)
         else:
             a, b, shared = _incidence_rate(rr[others], var[others], share)
@@ -145,20 +147,21 @@ def _incidence_rate(rr: FloatArray, v: FloatArray,
 
     def cases(s: float) -> FloatArray:
         gap = (v - vmin) + vmin * expit(-s)
-        return np.r_[1.0 / (vmin * expit(s)), 1.0 / gap]
+        return cast(FloatArray, np.r_[1.0 / (vmin * expit(s)), 1.0 / gap])
 
     s = _root(lambda s: float(np.log(cases(s)[0] / cases(s).sum()) - np.log(share)),
               "reference share")
     a = cases(s)
-    return a, a / np.r_[1.0, rr], 1.0 / a[0]
+    return a, cast(FloatArray, a / np.r_[1.0, rr]), cast(float, 1.0 / a[0])
 
 
-def _root(f, what: str, bracket: ArrayLike = (-BRACKET, BRACKET)) -> float:
+def _root(f: Callable[[float], float], what: str,
+          bracket: tuple[float, float] | FloatArray = (-BRACKET, BRACKET)) -> float:
     lo, hi = (float(b) for b in bracket)
     f_lo, f_hi = f(lo), f(hi)
     if not (np.isfinite(f_lo) and np.isfinite(f_hi)) or f_lo * f_hi > 0:
         raise ModelError(f"no effective counts reproduce the {what}")
-    return brentq(f, lo, hi, xtol=1e-13, rtol=4 * np.finfo(float).eps, maxiter=500)
+    return cast(float, brentq(f, lo, hi, xtol=1e-13, rtol=4 * np.finfo(float).eps, maxiter=500))
 
 
 def _in_table_order(cells: FloatArray, ref: int) -> FloatArray:

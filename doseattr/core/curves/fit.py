@@ -7,6 +7,8 @@ dose), so there is no intercept (Greenland & Longnecker 1992, Am J Epidemiol
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.linalg import cholesky, solve_triangular
@@ -79,21 +81,21 @@ def _validate(model: CurveModel, doses: ArrayLike, log_rr: ArrayLike,
 
 def _cholesky(v: FloatArray) -> FloatArray:
     try:
-        return cholesky(v, lower=True)
+        return cast(FloatArray, cholesky(v, lower=True))
     except np.linalg.LinAlgError:
         raise ModelError("covariance of the log RRs is not positive definite") from None
 
 
 def _whiten(chol: FloatArray, a: FloatArray) -> FloatArray:
     """``L^{-1} a`` for ``V = L L'``."""
-    return solve_triangular(chol, a, lower=True)
+    return cast(FloatArray, solve_triangular(chol, a, lower=True))
 
 
 def _fit_linear(model: CurveModel, x: FloatArray, y: FloatArray,
                 chol: FloatArray) -> tuple[FloatArray, FloatArray]:
     xw, yw = _whiten(chol, model.basis(x)), _whiten(chol, y)
     cov = _inverse_information(model, x, xw)
-    return np.linalg.lstsq(xw, yw, rcond=None)[0], cov
+    return cast(FloatArray, np.linalg.lstsq(xw, yw, rcond=None)[0]), cov
 
 
 def _fit_nonlinear(model: CurveModel, x: FloatArray, y: FloatArray,
@@ -141,7 +143,7 @@ def dose_range(model: CurveModel, doses: FloatArray, data_max: float | None,
     ``max_dose`` or, when the formula is extended without limit, ``inf``."""
     top = np.inf if max_dose is None else max_dose
     extra = [] if data_max is None else [data_max]
-    return np.r_[model.reference_dose, doses, extra, top]
+    return cast(FloatArray, np.r_[model.reference_dose, doses, extra, top])
 
 
 def check_curve(model: CurveModel, coef: FloatArray, doses: FloatArray) -> None:
@@ -158,7 +160,7 @@ def _diagnostics(model: CurveModel, x: FloatArray, y: FloatArray, v: FloatArray,
     q = float(rw @ rw)
     df = x.size - len(model.param_names)
     p_value = float(chi2.sf(q, df)) if df > 0 else None
-    warnings = ()
+    warnings: tuple[str, ...] = ()
     if p_value is not None and p_value < POOR_FIT_P:
         warnings = (f"the {model.name} model fits the category estimates poorly "
                     f"(Q = {q:.3g} on {df} df, p = {p_value:.2g}); consider the spline model",)

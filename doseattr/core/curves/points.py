@@ -7,7 +7,7 @@ linear with hat-function basis (piecewise-linear interpolation weights).
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -44,7 +44,7 @@ class PointsCurve(CurveModel):
         super().__init__(reference_dose=reference_dose)
         d = np.asarray(points, dtype=float)
         if d.ndim != 1 or d.size < 2 or not np.all(np.isfinite(d)) or np.any(np.diff(d) <= 0):
-            raise ModelError(f"curve points need at least 2 increasing doses, got {points}")
+            raise ModelError(f"curve points need at least 2 increasing doses, got {points!s}")
         if not d[0] <= self.reference_dose <= d[-1]:
             raise ModelError(f"reference dose {self.reference_dose:g} lies outside the curve's "
                              f"points {d[0]:g} to {d[-1]:g}")
@@ -63,13 +63,14 @@ class PointsCurve(CurveModel):
             raise ModelError(f"the curve is given only up to dose {self.points[-1]:g}; "
                              f"set max_dose to at most that or allow a flat extension")
         eye = np.eye(self.points.size)
-        return np.stack([np.interp(x, self.points, e) for e in eye], axis=-1)
+        return cast(FloatArray, np.stack([np.interp(x, self.points, e) for e in eye], axis=-1))
 
     def basis(self, x: ArrayLike) -> FloatArray:
         return self._hats(x) - self._hats(self.reference_dose)
 
     def log_rr(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
-        return np.einsum("...nk,...k->...n", self.basis(x), np.asarray(coef, dtype=float))
+        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x),
+                                          np.asarray(coef, dtype=float)))
 
     def growth(self, coef: ArrayLike) -> Growth:
         return Growth.bounded()
@@ -104,7 +105,7 @@ def points_curve(doses: ArrayLike, rr: ArrayLike, lower: ArrayLike | None = None
         raise ModelError("curve points need one positive RR per dose")
     _require_unit_rr_at_reference(model, rr)
     var = np.zeros(d.size)
-    notes = ()
+    notes: tuple[str, ...] = ()
     if lower is not None and upper is not None:
         lo, hi = np.asarray(lower, dtype=float), np.asarray(upper, dtype=float)
         has = np.isfinite(lo) & np.isfinite(hi)

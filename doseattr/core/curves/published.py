@@ -137,6 +137,7 @@ def _notes(name: str, ci: tuple[float, float] | None, rr: float | None,
         return ("no confidence interval given: the curve carries no uncertainty",)
     lo, hi = (float(c) for c in ci)
     if name == "log-linear":
+        assert rr is not None  # _log_linear refused a missing rr
         lo, hi, value = np.log(lo), np.log(hi), np.log(rr)
     else:
         value = next(v for v in (err, rr, exponent) if v is not None)

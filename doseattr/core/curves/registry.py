@@ -25,6 +25,11 @@ MODELS: dict[str, type[CurveModel]] = {
 }
 
 
+def model_names() -> tuple[str, ...]:
+    """Names of the registered curve models, in registration order."""
+    return tuple(MODELS)
+
+
 def make_model(name: str, *, reference_dose: float = 0.0, **settings: Any) -> CurveModel:
     """Instantiate the model called ``name`` with its fixed settings.
 

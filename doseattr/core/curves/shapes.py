@@ -9,6 +9,8 @@ the papers' supplements before use.
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.special import expit
@@ -124,7 +126,7 @@ class LogLogisticWeighted(_ThresholdShape):
 
     def _shape(self, x: ArrayLike) -> FloatArray:
         z = self.excess_dose(x)
-        return expit((z - self.midpoint) / self.spread) * np.log1p(z / self.scale)
+        return cast(FloatArray, expit((z - self.midpoint) / self.spread) * np.log1p(z / self.scale))
 
     def basis(self, x: ArrayLike) -> FloatArray:
         return (self._shape(x) - self._shape(self.reference_dose))[..., None]

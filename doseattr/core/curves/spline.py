@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
-from numpy.typing import ArrayLike
+from numpy.typing import ArrayLike, NDArray
 from scipy.stats import chi2
 
 from doseattr.core.curves.base import Curve, CurveModel, FloatArray, Growth
@@ -24,7 +26,7 @@ def default_knots(doses: ArrayLike, n_knots: int = 3) -> FloatArray:
     if n_knots not in HARRELL_QUANTILES:
         raise ModelError(f"default knots exist for 3, 4 or 5 knots, not {n_knots}; "
                          f"give the knots explicitly")
-    knots = np.quantile(np.asarray(doses, dtype=float), HARRELL_QUANTILES[n_knots])
+    knots: FloatArray = np.quantile(np.asarray(doses, dtype=float), HARRELL_QUANTILES[n_knots])
     if np.any(np.diff(knots) <= 0):
         raise ModelError(f"the doses {np.unique(doses)} give repeated knots {knots}; "
                          f"use fewer knots or give them explicitly")
@@ -37,7 +39,7 @@ MAX_KNOT_SPAN = float(np.finfo(float).max) ** (1.0 / 3.0) / 10.0
 
 
 def _cube_plus(z: FloatArray) -> FloatArray:
-    return np.maximum(z, 0.0) ** 3
+    return cast(FloatArray, np.maximum(z, 0.0) ** 3)
 
 
 class RestrictedCubicSpline(CurveModel):
@@ -68,7 +70,7 @@ class RestrictedCubicSpline(CurveModel):
         super().__init__(reference_dose=reference_dose)
         t = np.asarray(knots, dtype=float)
         if t.ndim != 1 or t.size < 3 or not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0):
-            raise ModelError(f"spline knots must be at least 3 increasing numbers, got {knots}")
+            raise ModelError(f"spline knots must be at least 3 increasing numbers, got {knots!s}")
         if np.max(np.abs(t - t[0])) >= MAX_KNOT_SPAN:
             raise ModelError(f"spline knots span {t[0]:g} to {t[-1]:g}; the basis uses cubes of "
                              f"dose differences, which overflow beyond a span of "
@@ -80,13 +82,14 @@ class RestrictedCubicSpline(CurveModel):
         return ("linear",) + tuple(f"cubic{j}" for j in range(1, self.knots.size - 1))
 
     @property
-    def nonlinear_index(self) -> FloatArray:
+    def nonlinear_index(self) -> NDArray[np.intp]:
         """Indices of the coefficients that make the curve non-linear."""
         return np.arange(1, self.knots.size - 1)
 
     def _tail_derivative(self) -> FloatArray:
         t = self.knots
-        return np.r_[1.0, 3.0 * (t[-1] - t[:-2]) * (t[-2] - t[:-2]) / (t[-1] - t[0]) ** 2]
+        return cast(FloatArray,
+                    np.r_[1.0, 3.0 * (t[-1] - t[:-2]) * (t[-2] - t[:-2]) / (t[-1] - t[0]) ** 2])
 
     def _raw_basis(self, x: ArrayLike) -> FloatArray:
         """``(s_1(x), ..., s_{k-1}(x))`` with shape ``x.shape + (k - 1,)``."""
@@ -97,17 +100,18 @@ class RestrictedCubicSpline(CurveModel):
         cubic = (_cube_plus(xc - tj) - _cube_plus(xc - t[-2]) * (t[-1] - tj) / span
                  + _cube_plus(xc - t[-1]) * (t[-2] - tj) / span) / (t[-1] - t[0]) ** 2
         tail = np.maximum(x - t[-1], 0.0) * self._tail_derivative()
-        return np.concatenate([xc, cubic], axis=-1) + tail
+        return cast(FloatArray, np.concatenate([xc, cubic], axis=-1) + tail)
 
     def basis(self, x: ArrayLike) -> FloatArray:
         return self._raw_basis(x) - self._raw_basis(self.reference_dose)
 
     def log_rr(self, x: ArrayLike, coef: ArrayLike) -> FloatArray:
-        return np.einsum("...nk,...k->...n", self.basis(x), np.asarray(coef, dtype=float))
+        return cast(FloatArray, np.einsum("...nk,...k->...n", self.basis(x),
+                                          np.asarray(coef, dtype=float)))
 
     def tail_slope(self, coef: ArrayLike) -> FloatArray:
         """d log RR / dx beyond the last knot, shape ``()`` or ``(D,)``."""
-        return np.asarray(coef, dtype=float) @ self._tail_derivative()
+        return cast(FloatArray, np.asarray(coef, dtype=float) @ self._tail_derivative())
 
     def growth(self, coef: ArrayLike) -> Growth:
         slope = self.tail_slope(coef)

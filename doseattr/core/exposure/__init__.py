@@ -1,8 +1,10 @@
 """Exposure distributions: families, fits to measurements, summaries, data helpers.
 
 Families (one per module): :class:`LogNormal`, :class:`Gamma`, :class:`Weibull`,
-by name through :data:`FAMILIES` / :func:`get_family`. Fits: :func:`fit_measurements`,
-:func:`fit_best` (weighted, left-censored maximum likelihood); from summaries:
+by name through :data:`FAMILIES` / :func:`get_family` (names: :func:`family_names`;
+parameters in the exposure's unit: :func:`dose_parameters`). Fits:
+:func:`fit_measurements`, :func:`fit_best` (weighted, left-censored maximum
+likelihood); from summaries:
 :func:`from_parameters`, :func:`from_gm_gsd`, :func:`from_mean_sd`,
 :func:`from_percentiles`, :func:`fit_bins`. Data helpers: non-detects, goodness of
 fit, empirical distributions, the unexposed share, work histories and units.
@@ -16,13 +18,14 @@ from doseattr.core.exposure.gof import goodness_of_fit, qq_points
 from doseattr.core.exposure.histories import WorkerExposure, cumulative_exposure, twa_8h
 from doseattr.core.exposure.lognormal import LogNormal
 from doseattr.core.exposure.nondetects import ros_plotting_positions, substitute_nondetects
-from doseattr.core.exposure.registry import FAMILIES, get_family
+from doseattr.core.exposure.registry import FAMILIES, dose_parameters, family_names, get_family
 from doseattr.core.exposure.summary import fit_bins, from_gm_gsd, from_mean_sd, from_parameters, from_percentiles
 from doseattr.core.exposure.unexposed import estimate_unexposed, unexposed_from_count
 from doseattr.core.exposure.weibull import Weibull
 
 __all__ = [
-    "Exposure", "ExposureFit", "Family", "FAMILIES", "get_family", "LogNormal", "Gamma", "Weibull",
+    "Exposure", "ExposureFit", "Family", "FAMILIES", "get_family", "family_names", "dose_parameters",
+    "LogNormal", "Gamma", "Weibull",
     "fit_measurements", "fit_best", "from_parameters", "from_gm_gsd", "from_mean_sd",
     "from_percentiles", "fit_bins", "goodness_of_fit", "qq_points", "ros_plotting_positions",
     "substitute_nondetects", "EmpiricalExposure", "empirical", "estimate_unexposed",

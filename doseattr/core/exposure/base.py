@@ -16,7 +16,8 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
-from typing import ClassVar
+from collections.abc import Mapping
+from typing import Any, ClassVar, TypeAlias, cast
 
 import numpy as np
 from scipy.special import polygamma
@@ -91,10 +92,26 @@ class Family(ABC):
 
     Subclasses write the formulas; :class:`Exposure` and the fitters in
     :mod:`doseattr.core.exposure.fit` supply everything else.
+
+    Besides ``name`` and ``param_names`` a family declares ``dose_params``,
+    the public parameters in the exposure's unit, and ``bounds``, the open
+    interval ``(lower, upper)`` each public parameter must lie in (what
+    :meth:`check` enforces). A change of unit ``x -> c x`` is a scale
+    transform: the family is closed under it, with the dose parameters
+    multiplied by ``c`` and the others unchanged (:meth:`in_unit`).
     """
 
     name: ClassVar[str]
     param_names: ClassVar[tuple[str, ...]]
+    dose_params: ClassVar[tuple[str, ...]]
+    bounds: ClassVar[Mapping[str, tuple[float, float]]]
+
+    def in_unit(self, params: ArrayLike, factor: float) -> FloatArray:
+        """Public parameters of ``factor * X`` when ``params`` are those of
+        ``X`` (the exposure in a unit ``factor`` times smaller): the dose
+        parameters times ``factor``, the others as they are."""
+        scale = np.array([factor if n in self.dose_params else 1.0 for n in self.param_names])
+        return cast(FloatArray, np.asarray(params, dtype=float) * scale)
 
     # -- parameterisation -------------------------------------------------
     @abstractmethod
@@ -146,7 +163,7 @@ class Family(ABC):
         """E[X; a < X <= b] (``b`` may be ``inf``)."""
 
     @abstractmethod
-    def scipy(self, params: ArrayLike):
+    def scipy(self, params: ArrayLike) -> Any:
         """The frozen ``scipy.stats`` distribution for one parameter vector."""
 
     @abstractmethod
@@ -201,10 +218,10 @@ class PositiveFamily(Family):
     vector is their logarithms."""
 
     def to_internal(self, params: ArrayLike) -> FloatArray:
-        return np.log(np.asarray(params, dtype=float))
+        return cast(FloatArray, np.log(np.asarray(params, dtype=float)))
 
     def from_internal(self, theta: ArrayLike) -> FloatArray:
-        return np.exp(np.asarray(theta, dtype=float))
+        return cast(FloatArray, np.exp(np.asarray(theta, dtype=float)))
 
     def check(self, params: ArrayLike) -> None:
         p = np.asarray(params, dtype=float)
@@ -235,8 +252,12 @@ class ExposureFit:
     weights: FloatArray | None = None
     upper: FloatArray | None = None
     cov_internal: FloatArray | None = None
-    gof: dict = field(default_factory=dict)
+    gof: dict[str, Any] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+
+
+#: Another family's fit to the same data: ``(family, params, fit)``.
+Alternative: TypeAlias = tuple[Family, FloatArray, ExposureFit | None]
 
 
 @dataclass(frozen=True)
@@ -253,7 +274,7 @@ class Exposure:
     unexposed: float = 0.0
     fit: ExposureFit | None = None
     source: str = "entered"
-    alternatives: tuple = ()
+    alternatives: tuple[Alternative, ...] = ()
     notes: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:

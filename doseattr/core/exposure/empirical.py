@@ -21,7 +21,7 @@ from typing import ClassVar
 import numpy as np
 from numpy.typing import ArrayLike
 
-from doseattr.core.exposure.base import ExposureFit, FloatArray
+from doseattr.core.exposure.base import Alternative, ExposureFit, FloatArray
 from doseattr.errors import ModelError
 
 
@@ -47,7 +47,7 @@ class EmpiricalExposure:
     unexposed: float = 0.0
     source: str = "measurements"
     notes: tuple[str, ...] = ()
-    alternatives: ClassVar[tuple] = ()
+    alternatives: ClassVar[tuple[Alternative, ...]] = ()
 
     def __post_init__(self) -> None:
         assert 0.0 <= self.unexposed < 1.0, self.unexposed

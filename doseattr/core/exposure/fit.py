@@ -26,7 +26,7 @@ from numpy.typing import ArrayLike, NDArray
 from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray, check_usable
 from doseattr.core.exposure.gof import goodness_of_fit
 from doseattr.core.exposure.mle import Maximum, covariance, maximise
-from doseattr.core.exposure.registry import get_family
+from doseattr.core.exposure.registry import FAMILIES, get_family
 from doseattr.errors import ConvergenceError, FitError, ModelError
 
 
@@ -153,23 +153,31 @@ def fit_measurements(family: str | Family, values: ArrayLike, *, detected: Array
 
 
 def fit_best(values: ArrayLike, *, detected: ArrayLike | None = None, weights: ArrayLike | None = None,
-             families: tuple[str, ...] = ("lognormal", "gamma", "weibull")) -> Exposure:
-    """Fit each family and keep the one with the lowest AIC.
+             families: tuple[str, ...] | None = None) -> Exposure:
+    """Fit each family (default: every registered one, :data:`FAMILIES`) and
+    keep the one with the lowest AIC.
 
     The others go to ``Exposure.alternatives`` as ``(family, params, fit)``;
     a family whose search fails to converge is skipped with a note.
     """
-    fits, failed = [], []
-    for name in families:
+    fits: list[Exposure] = []
+    failed: list[str] = []
+    for name in tuple(FAMILIES) if families is None else families:
         try:
             fits.append(fit_measurements(name, values, detected=detected, weights=weights))
         except (ConvergenceError, ModelError) as err:
             failed.append(f"{name} not fitted: {err}")
     if not fits:
         raise FitError("no exposure family could be fitted: " + "; ".join(failed))
-    fits.sort(key=lambda e: e.fit.aic)
+    fits.sort(key=_aic)
     best, rest = fits[0], fits[1:]
-    table = ", ".join(f"{e.family.name} {e.fit.aic:.2f}" for e in fits)
+    table = ", ".join(f"{e.family.name} {_aic(e):.2f}" for e in fits)
     notes = (f"family chosen by lowest AIC ({table})",) + tuple(failed)
     return Exposure(best.family, best.params, fit=best.fit, source="measurements",
                     alternatives=tuple((e.family, e.params, e.fit) for e in rest), notes=notes)
+
+
+def _aic(exposure: Exposure) -> float:
+    """The AIC of a fit made by :func:`fit_measurements` (which always sets it)."""
+    assert exposure.fit is not None and exposure.fit.aic is not None
+    return exposure.fit.aic

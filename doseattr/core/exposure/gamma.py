@@ -14,6 +14,9 @@ Internal parameters are ``(ln k, ln theta)``.
 
 from __future__ import annotations
 
+from types import MappingProxyType
+from typing import Any, cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
@@ -41,14 +44,15 @@ def stirling_correction(k: ArrayLike) -> FloatArray:
     series = 1 / (12 * kb) - 1 / (360 * kb**3) + 1 / (1260 * kb**5) - 1 / (1680 * kb**7)
     ks = np.where(big, 1.0, k)
     direct = gammaln(ks) - (ks - 0.5) * np.log(ks) + ks - _HALF_LOG_2PI
-    return np.where(big, series, direct)
+    return cast(FloatArray, np.where(big, series, direct))
 
 
 def gamma_between(a: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> FloatArray:
     """P(a, hi) - P(a, lo) for lo <= hi, on the survival side above the mean
     ``a`` to keep precision in the upper tail."""
     a, lo, hi = (np.asarray(v, dtype=float) for v in (a, lo, hi))
-    return np.where(lo > a, gammaincc(a, lo) - gammaincc(a, hi), gammainc(a, hi) - gammainc(a, lo))
+    return cast(FloatArray, np.where(lo > a, gammaincc(a, lo) - gammaincc(a, hi),
+                                     gammainc(a, hi) - gammainc(a, lo)))
 
 
 class Gamma(PositiveFamily):
@@ -56,6 +60,8 @@ class Gamma(PositiveFamily):
 
     name = "gamma"
     param_names = ("shape", "scale")
+    dose_params = ("scale",)
+    bounds = MappingProxyType({"shape": (0.0, np.inf), "scale": (0.0, np.inf)})
 
     def log_density_log(self, t: ArrayLike, params: ArrayLike) -> FloatArray:
         r"""log density of ``T = ln X``: :math:`k u - e^u - \ln\Gamma(k)`,
@@ -71,7 +77,7 @@ class Gamma(PositiveFamily):
         k = pcol(params, 0)
         v = np.subtract(t, np.log(pcol(params, 1)) + np.log(k), dtype=float)  # in place: hot path
         with np.errstate(over="ignore", invalid="ignore"):
-            e = np.expm1(v)
+            e: FloatArray = np.expm1(v)
             e -= v
         e *= -k
         e += 0.5 * np.log(k) - _HALF_LOG_2PI - stirling_correction(k)
@@ -82,10 +88,10 @@ class Gamma(PositiveFamily):
         return pcol(params, 0), np.asarray(x, dtype=float) / pcol(params, 1)
 
     def cdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return gammainc(*self._ky(x, params))
+        return cast(FloatArray, gammainc(*self._ky(x, params)))
 
     def sf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return gammaincc(*self._ky(x, params))
+        return cast(FloatArray, gammaincc(*self._ky(x, params)))
 
     def logcdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
         return log_gammainc(*self._ky(x, params))
@@ -94,18 +100,19 @@ class Gamma(PositiveFamily):
         return log_gammaincc(*self._ky(x, params))
 
     def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray:
-        return pcol(params, 1) * gammaincinv(pcol(params, 0), np.asarray(q, dtype=float))
+        q = np.asarray(q, dtype=float)
+        return cast(FloatArray, pcol(params, 1) * gammaincinv(pcol(params, 0), q))
 
     def mean(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)
-        return p[..., 0] * p[..., 1]
+        return cast(FloatArray, p[..., 0] * p[..., 1])
 
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         k, theta = pcol(params, 0), pcol(params, 1)
         lo, hi = np.asarray(a, dtype=float) / theta, np.asarray(b, dtype=float) / theta
         return k * theta * gamma_between(k + 1, lo, hi)
 
-    def scipy(self, params: ArrayLike):
+    def scipy(self, params: ArrayLike) -> Any:
         k, theta = np.asarray(params, dtype=float)
         return stats.gamma(a=k, scale=theta)
 
@@ -115,7 +122,7 @@ class Gamma(PositiveFamily):
 
     def log_breaks(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)
-        return np.log(p[..., 1, None]) + log_gamma_break_quantiles(p[..., 0])
+        return cast(FloatArray, np.log(p[..., 1, None]) + log_gamma_break_quantiles(p[..., 0]))
 
     def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
         r"""Power growth ``x^b``: ``x^b f`` is proportional to Gamma(k + b, theta).

@@ -18,7 +18,10 @@ Hand-written: scipy's ``ppcc_plot``/``probplot`` take no censoring.
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
+from numpy.typing import NDArray
 from scipy import stats
 
 from doseattr.core.exposure.base import Exposure, FloatArray
@@ -29,18 +32,18 @@ _NOTE = ("p-value approximate: parameters were estimated from the same data, "
          "which makes the test conservative")
 
 
-def _measured(exposure: Exposure):
+def _measured(exposure: Exposure) -> tuple[FloatArray, NDArray[np.bool_], FloatArray | None]:
     fit = exposure.fit
     if fit is None or fit.values is None or fit.detected_mask is None:
         raise ModelError("this exposure distribution was not fitted to measurements")
     return fit.values, fit.detected_mask, fit.weights
 
 
-def _skipped(reason: str) -> dict:
+def _skipped(reason: str) -> dict[str, Any]:
     return {"test": None, "statistic": None, "p_value": None, "n": 0, "note": f"not computed: {reason}"}
 
 
-def goodness_of_fit(exposure: Exposure) -> dict:
+def goodness_of_fit(exposure: Exposure) -> dict[str, Any]:
     """Kolmogorov-Smirnov test of the detected values (module docstring).
 
     Returns a dict with ``test``, ``statistic``, ``p_value``, ``n`` and
@@ -63,7 +66,7 @@ def goodness_of_fit(exposure: Exposure) -> dict:
             "p_value": float(res.pvalue), "n": int(d.sum()), "note": note}
 
 
-def probability_plot_correlation(exposure: Exposure, why: str) -> dict:
+def probability_plot_correlation(exposure: Exposure, why: str) -> dict[str, Any]:
     r"""PPCC: Pearson correlation of :math:`\ln x_i` with
     :math:`\ln F^{-1}(p_i)` over the detected values, :math:`p_i` their ROS
     plotting positions (module docstring)."""
@@ -77,7 +80,7 @@ def probability_plot_correlation(exposure: Exposure, why: str) -> dict:
                     "no p-value; values near 1 mean a close fit"}
 
 
-def qq_points(exposure: Exposure) -> tuple[FloatArray, FloatArray, np.ndarray]:
+def qq_points(exposure: Exposure) -> tuple[FloatArray, FloatArray, NDArray[np.bool_]]:
     """Points of a Q-Q plot for a fit to (possibly censored) measurements.
 
     Returns ``(theoretical, observed, detected)`` sorted by plotting

@@ -20,6 +20,7 @@ time before the cutoff).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -89,8 +90,10 @@ def cumulative_exposure(worker: ArrayLike, start: ArrayLike, end: ArrayLike, int
     cutoff = _days(np.asarray([as_of]), "as_of")[0] - lag_years * DAYS_PER_YEAR
     years = np.maximum(0.0, np.minimum(e, cutoff) - s) / DAYS_PER_YEAR
     workers, code = np.unique(ids, return_inverse=True)
-    return WorkerExposure(workers, np.bincount(code, weights=c * years, minlength=workers.size),
-                          np.bincount(code, weights=years, minlength=workers.size))
+    # bincount with weights sums them as floats
+    return WorkerExposure(workers,
+                          cast(FloatArray, np.bincount(code, weights=c * years, minlength=workers.size)),
+                          cast(FloatArray, np.bincount(code, weights=years, minlength=workers.size)))
 
 
 def twa_8h(concentrations: ArrayLike, minutes: ArrayLike) -> float:

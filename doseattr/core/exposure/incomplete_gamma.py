@@ -23,6 +23,8 @@ where scipy's value underflows:
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.special import gammainc, gammaincc, gammainccinv, gammaincinv, gammaln, ndtr
@@ -50,7 +52,7 @@ def log_gammainc_series(a: ArrayLike, y: ArrayLike) -> FloatArray:
         if np.all(term <= 1e-17 * total):
             break
     with np.errstate(divide="ignore"):
-        return a * np.log(y) - y - gammaln(a + 1) + np.log(total)
+        return cast(FloatArray, a * np.log(y) - y - gammaln(a + 1) + np.log(total))
 
 
 def log_gammaincc_cf(a: ArrayLike, y: ArrayLike) -> FloatArray:
@@ -74,7 +76,7 @@ def log_gammaincc_cf(a: ArrayLike, y: ArrayLike) -> FloatArray:
         h = h * delta
         if np.all(np.abs(delta - 1.0) < 1e-16):
             break
-    return a * np.log(y) - y - gammaln(a) + np.log(h)
+    return cast(FloatArray, a * np.log(y) - y - gammaln(a) + np.log(h))
 
 
 def log_gammainc(a: ArrayLike, y: ArrayLike) -> FloatArray:
@@ -108,7 +110,7 @@ def _log_lower_quantile(a: FloatArray, p: FloatArray) -> FloatArray:
     y = gammaincinv(a, p)
     bound = (np.log(p) + gammaln(a + 1)) / a
     with np.errstate(divide="ignore"):
-        return np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound)
+        return cast(FloatArray, np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound))
 
 
 def _log_upper_quantile(a: FloatArray, q: FloatArray) -> FloatArray:
@@ -118,7 +120,7 @@ def _log_upper_quantile(a: FloatArray, q: FloatArray) -> FloatArray:
     y = gammainccinv(a, q)
     bound = (np.log1p(-q) + gammaln(a + 1)) / a
     with np.errstate(divide="ignore"):
-        return np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound)
+        return cast(FloatArray, np.where(y > 1e-250, np.log(np.maximum(y, 1e-300)), bound))
 
 
 def log_gamma_break_quantiles(shape: ArrayLike) -> FloatArray:

@@ -16,6 +16,9 @@ follows from completing the square). Internal parameters are
 
 from __future__ import annotations
 
+from types import MappingProxyType
+from typing import Any, cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
@@ -33,12 +36,12 @@ def ndtr_between(lo: ArrayLike, hi: ArrayLike) -> FloatArray:
     """Phi(hi) - Phi(lo) for lo <= hi, computed on the side of zero that
     keeps precision (upper tail via Phi(-lo) - Phi(-hi))."""
     lo, hi = np.asarray(lo, float), np.asarray(hi, float)
-    return np.where(lo > 0, ndtr(-lo) - ndtr(-hi), ndtr(hi) - ndtr(lo))
+    return cast(FloatArray, np.where(lo > 0, ndtr(-lo) - ndtr(-hi), ndtr(hi) - ndtr(lo)))
 
 
 def _log(x: ArrayLike) -> FloatArray:
     with np.errstate(divide="ignore"):
-        return np.log(np.asarray(x, dtype=float))
+        return cast(FloatArray, np.log(np.asarray(x, dtype=float)))
 
 
 class LogNormal(Family):
@@ -46,6 +49,8 @@ class LogNormal(Family):
 
     name = "lognormal"
     param_names = ("gm", "gsd")
+    dose_params = ("gm",)
+    bounds = MappingProxyType({"gm": (0.0, np.inf), "gsd": (1.0, np.inf)})
 
     @staticmethod
     def _mu_s(params: ArrayLike) -> tuple[FloatArray, FloatArray]:
@@ -81,33 +86,33 @@ class LogNormal(Family):
         return (_log(x) - mu) / s
 
     def cdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return ndtr(self._z(x, params))
+        return cast(FloatArray, ndtr(self._z(x, params)))
 
     def sf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return ndtr(-self._z(x, params))
+        return cast(FloatArray, ndtr(-self._z(x, params)))
 
     def logcdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return log_ndtr(self._z(x, params))
+        return cast(FloatArray, log_ndtr(self._z(x, params)))
 
     def logsf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        return log_ndtr(-self._z(x, params))
+        return cast(FloatArray, log_ndtr(-self._z(x, params)))
 
     def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray:
         mu, s = self._mu_s(params)
-        return np.exp(mu + s * ndtri(np.asarray(q, dtype=float)))
+        return cast(FloatArray, np.exp(mu + s * ndtri(np.asarray(q, dtype=float))))
 
     def mean(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)
         s = np.log(p[..., 1])
-        return p[..., 0] * np.exp(0.5 * s * s)
+        return cast(FloatArray, p[..., 0] * np.exp(0.5 * s * s))
 
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         mu, s = self._mu_s(params)
         za = (_log(a) - mu) / s - s
         zb = (_log(b) - mu) / s - s
-        return np.exp(mu + 0.5 * s * s) * ndtr_between(za, zb)
+        return cast(FloatArray, np.exp(mu + 0.5 * s * s) * ndtr_between(za, zb))
 
-    def scipy(self, params: ArrayLike):
+    def scipy(self, params: ArrayLike) -> Any:
         gm, gsd = np.asarray(params, dtype=float)
         return stats.lognorm(s=np.log(gsd), scale=gm)
 
@@ -134,7 +139,7 @@ class LogNormal(Family):
 
     def log_breaks(self, params: ArrayLike) -> FloatArray:
         mu, s = self._mu_s(params)
-        return mu + s * Z_BREAKS
+        return cast(FloatArray, mu + s * Z_BREAKS)
 
     def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
         """Power growth ``x^b``: ``x^b f(x)`` is proportional to the lognormal

@@ -10,7 +10,7 @@ is the asymptotic covariance of the internal parameters.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable
+from typing import Callable, cast
 
 import numpy as np
 from scipy.optimize import minimize
@@ -59,12 +59,12 @@ def _search(neg: LogLik, theta0: FloatArray) -> FloatArray:
 def _bfgs_then_simplex(neg: LogLik, theta0: FloatArray) -> FloatArray:
     res = minimize(neg, theta0, method="BFGS", options={"gtol": 1e-9})
     if _stationary(neg, res.x):
-        return res.x
+        return cast(FloatArray, res.x)
     start = res.x if np.isfinite(res.fun) else theta0
     res = minimize(neg, start, method="Nelder-Mead",
                    options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 10000})
     res = minimize(neg, res.x, method="BFGS", options={"gtol": 1e-9})
-    return res.x
+    return cast(FloatArray, res.x)
 
 
 def covariance(loglik: LogLik, theta: FloatArray) -> tuple[FloatArray | None, tuple[str, ...]]:

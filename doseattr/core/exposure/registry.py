@@ -11,6 +11,18 @@ from doseattr.errors import ModelError
 FAMILIES: dict[str, Family] = {"lognormal": LogNormal(), "gamma": Gamma(), "weibull": Weibull()}
 
 
+def family_names() -> tuple[str, ...]:
+    """Names of the registered exposure families, in registration order
+    (the choices an input may name, and the families ``fit_best`` tries)."""
+    return tuple(FAMILIES)
+
+
+def dose_parameters(family: str | Family) -> tuple[str, ...]:
+    """Public parameters of ``family`` in the exposure's unit (they scale
+    with a change of unit; the others are dimensionless)."""
+    return get_family(family).dose_params
+
+
 def get_family(family: str | Family) -> Family:
     """The family called ``family`` (a Family instance is returned as is)."""
     if isinstance(family, Family):

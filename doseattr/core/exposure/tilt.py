@@ -12,7 +12,10 @@ panels).
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
+from numpy.typing import NDArray
 
 from doseattr.core.curves.base import Growth
 from doseattr.core.exposure.base import FloatArray
@@ -29,7 +32,7 @@ def positive_rate(growth: Growth) -> FloatArray:
     if growth.kind not in ("power", "exp"):
         raise ModelError(f"unknown growth kind {growth.kind!r}; expected 'bounded', 'power' or 'exp'")
     rate = np.asarray(growth.rate, dtype=float)
-    return np.maximum(rate, 0.0)[..., None]
+    return cast(FloatArray, np.maximum(rate, 0.0)[..., None])
 
 
 def merge(own: FloatArray, tilted: FloatArray) -> FloatArray:
@@ -50,7 +53,7 @@ def merge(own: FloatArray, tilted: FloatArray) -> FloatArray:
     return np.sort(np.concatenate([own, extra], axis=-1), axis=-1)
 
 
-def refuse(bad: FloatArray, what: str) -> None:
+def refuse(bad: NDArray[np.bool_], what: str) -> None:
     """Raise DivergenceError if any draw in ``bad`` diverges.
 
     ``what`` says what diverges; the message adds how many draws and the

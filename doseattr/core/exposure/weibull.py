@@ -14,6 +14,10 @@ substitution ``E = (x/lambda)^k``). Internal parameters are
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from types import MappingProxyType
+from typing import Any, cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
@@ -39,6 +43,8 @@ class Weibull(PositiveFamily):
 
     name = "weibull"
     param_names = ("shape", "scale")
+    dose_params = ("scale",)
+    bounds = MappingProxyType({"shape": (0.0, np.inf), "scale": (0.0, np.inf)})
 
     @staticmethod
     def _u(x_or_t: ArrayLike, params: ArrayLike, *, log_scale: bool) -> tuple[FloatArray, FloatArray]:
@@ -85,19 +91,19 @@ class Weibull(PositiveFamily):
 
     def ppf(self, q: ArrayLike, params: ArrayLike) -> FloatArray:
         e = -np.log1p(-np.asarray(q, dtype=float))
-        return pcol(params, 1) * e ** (1.0 / pcol(params, 0))
+        return cast(FloatArray, pcol(params, 1) * e ** (1.0 / pcol(params, 0)))
 
     def mean(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)
-        return p[..., 1] * np.exp(gammaln(1 + 1 / p[..., 0]))
+        return cast(FloatArray, p[..., 1] * np.exp(gammaln(1 + 1 / p[..., 0])))
 
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         k = pcol(params, 0)
         ea, eb = self._e(a, params), self._e(b, params)
         full = pcol(params, 1) * np.exp(gammaln(1 + 1 / k))
-        return full * gamma_between(1 + 1 / k, ea, eb)
+        return cast(FloatArray, full * gamma_between(1 + 1 / k, ea, eb))
 
-    def scipy(self, params: ArrayLike):
+    def scipy(self, params: ArrayLike) -> Any:
         k, lam = np.asarray(params, dtype=float)
         return stats.weibull_min(c=k, scale=lam)
 
@@ -108,7 +114,7 @@ class Weibull(PositiveFamily):
 
         def gap(logk: float) -> float:
             k = np.exp(logk)
-            return gammaln(1 + 2 / k) - 2 * gammaln(1 + 1 / k) - target
+            return cast(float, gammaln(1 + 2 / k) - 2 * gammaln(1 + 1 / k) - target)
 
         lo, hi = np.log(0.02), np.log(1000.0)
         if not gap(lo) > 0 > gap(hi):
@@ -119,7 +125,7 @@ class Weibull(PositiveFamily):
 
     def log_breaks(self, params: ArrayLike) -> FloatArray:
         k, lam = pcol(params, 0), pcol(params, 1)
-        return np.log(lam) + LOG_E_BREAKS / k
+        return cast(FloatArray, np.log(lam) + LOG_E_BREAKS / k)
 
     def tilted_log_breaks(self, params: ArrayLike, growth: Growth) -> FloatArray:
         r"""Power growth ``x^b``: in ``E = (x/lambda)^k``, ``x^b f`` is
@@ -169,7 +175,8 @@ def _exp_tilt_breaks(k: FloatArray, lam: FloatArray, c: FloatArray) -> FloatArra
     return out.reshape(shape)
 
 
-def _fixed_point(u0: FloatArray, step, iterations: int = 500) -> FloatArray:
+def _fixed_point(u0: FloatArray, step: Callable[[FloatArray], FloatArray],
+                 iterations: int = 500) -> FloatArray:
     u = u0
     for _ in range(iterations):
         u = step(u)
@@ -189,6 +196,6 @@ def _laplace_breaks(k: FloatArray, lam: FloatArray, c: FloatArray) -> FloatArray
     top = _fixed_point(np.maximum(loglam + np.log(big) / k, u_asym),
                        lambda u: loglam + np.log(c * np.exp(u) + big) / k)
     sd = 1.0 / np.sqrt(k * k + (k - 1) * c * np.exp(mode))
-    breaks = mode[:, None] + sd[:, None] * Z_BREAKS
+    breaks: FloatArray = mode[:, None] + sd[:, None] * Z_BREAKS
     breaks[:, -1] = np.maximum(breaks[:, -1], top)
     return breaks

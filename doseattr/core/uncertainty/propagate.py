@@ -20,7 +20,7 @@ integrated once.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Callable, Sequence
+from typing import Callable, Sequence, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -68,11 +68,11 @@ class Propagation:
 
     @property
     def total_cases(self) -> FloatArray:
-        return self.cases.sum(axis=0)
+        return cast(FloatArray, self.cases.sum(axis=0))
 
     @property
     def total_attributable(self) -> FloatArray:
-        return self.attributable.sum(axis=0)
+        return cast(FloatArray, self.attributable.sum(axis=0))
 
     @property
     def total_paf(self) -> FloatArray:
@@ -82,7 +82,7 @@ class Propagation:
         return self._ratio(self.total_attributable, self.paf)
 
     def total_averted(self, name: str) -> FloatArray:
-        return self.averted[name].sum(axis=0)
+        return cast(FloatArray, self.averted[name].sum(axis=0))
 
     def total_pif(self, name: str) -> FloatArray:
         return self._ratio(self.total_averted(name), self.pif[name])
@@ -157,7 +157,10 @@ def _unique_exposures(strata: Sequence[Stratum]) -> dict[int, AnyExposure]:
 
 def _excess(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
             m: FloatArray, scenario: Scenario | None) -> FloatArray:
+    # exposure_draws fills values and weights for an empirical exposure, params otherwise
     if isinstance(exposure, EmpiricalExposure):
+        assert ex.values is not None and ex.weights is not None
         return empirical_excess_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
                                       m, scenario)
+    assert ex.params is not None
     return excess_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
