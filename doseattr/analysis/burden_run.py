@@ -120,13 +120,19 @@ def stratum_exposure(analysis: Analysis, shared, override: dict | None, line: in
 
 
 def _override_problem(keys: tuple[str, ...], family: str) -> str | None:
-    """Why a stratum's exposure columns cannot describe the shared family."""
+    """Why a stratum's exposure columns cannot describe the shared family
+    (gm and gsd always can: they give the stratum a lognormal)."""
+    from doseattr.core.exposure.registry import FAMILIES
+
     if keys == ("gm", "gsd"):
         return None
     if family == "empirical":
         return (f"{keys[0]} and {keys[1]} need a fitted family, but the shared exposure is "
                 "empirical (weighted values); give gm and gsd (a lognormal) instead")
-    if keys == ("shape", "scale") and family not in ("gamma", "weibull"):
-        return (f"shape and scale describe a gamma or Weibull distribution, but the shared "
-                f"exposure is {family}")
+    if keys == ("mean", "sd"):
+        return None
+    takes = [name for name, fam in FAMILIES.items() if set(fam.param_names) == set(keys)]
+    if family not in takes:
+        return (f"{' and '.join(keys)} describe a {' or '.join(takes) or 'no registered'} "
+                f"distribution, but the shared exposure is {family}")
     return None
