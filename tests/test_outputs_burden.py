@@ -232,7 +232,7 @@ def test_width_by_source_table(single):
     total = estimate_of(d["burden"]["total"], "paf")
     assert (full["lower"], full["upper"]) == pytest.approx((total["lower"], total["upper"]),
                                                            rel=1e-12)
-    csv_rows = as_csv(tables.width_by_source_table(d))
+    csv_rows = as_csv(tables.width_by_source_table(single.uncertainty))
     assert [float(r["width"]) for r in csv_rows] == [r["width"] for r in unc["width_by_source"]]
 
 
@@ -275,21 +275,21 @@ def test_burden_csv_files(outcomes):
     """burden.csv: one row per outcome and stratum plus the totals, the PAF
     as estimate and limits; burden_scenarios.csv: one row per outcome,
     stratum (and total) and scenario. Values are the results' exactly."""
-    d = outcomes.to_dict()
-    rows = as_csv(tables.burden_table(d))
-    n_rows = sum(len(o["burden"]["strata"]) + 1 for o in d["outcomes"])
+    blocks = tables.burden_blocks(outcomes)
+    assert [n for n, _ in blocks] == [n for n, _ in outcomes.outcomes]
+    rows = as_csv(tables.burden_blocks_table(blocks, UNIT))
+    n_rows = sum(len(o.burden.strata) + 1 for _, o in outcomes.outcomes)
     assert len(rows) == n_rows
-    first = d["outcomes"][0]["burden"]["strata"][0]
-    paf = estimate_of(first, "paf")
-    assert float(rows[0]["paf_lower"]) == paf["lower"]
-    assert float(rows[0]["paf_estimate"]) == paf["estimate"]
-    assert float(rows[0]["attributable_upper"]) == first["attributable"]["upper"]
+    first = outcomes.outcomes[0][1].burden.strata[0]
+    assert float(rows[0]["paf_lower"]) == first.paf.lower
+    assert float(rows[0]["paf_estimate"]) == first.paf.estimate
+    assert float(rows[0]["attributable_upper"]) == first.attributable.upper
     assert "scenarios" not in rows[0]
-    scen = as_csv(tables.burden_scenarios_table(d))
+    scen = as_csv(tables.burden_scenarios_blocks_table(blocks))
     assert len(scen) == n_rows * len(SCENARIOS)
-    last = d["outcomes"][-1]["burden"]["total"]["scenarios"][-1]
-    assert scen[-1]["stratum"] == "total" and scen[-1]["scenario"] == last["name"]
-    assert float(scen[-1]["averted_estimate"]) == last["averted"]["estimate"]
+    last = outcomes.outcomes[-1][1].burden.total.scenarios[-1]
+    assert scen[-1]["stratum"] == "total" and scen[-1]["scenario"] == last.name
+    assert float(scen[-1]["averted_estimate"]) == last.averted.estimate
 
 
 def test_each_outcomes_warnings_are_shown(outcomes):

@@ -189,13 +189,13 @@ def test_model_and_dose_csv_full_precision(spline):
     """CSV cells read back as the exact floats of results.json (Python's
     float repr round-trips)."""
     d = spline.to_dict()
-    rows = as_csv(tables.model_comparison_table(d))
+    rows = as_csv(tables.model_comparison_table(spline.curve_section))
     assert [r["model"] for r in rows] == ["spline", *MODELS]
     for r, v in zip(rows, d["model_comparison"]):
         assert float(r["paf"]) == v["paf"] and float(r["q"]) == v["q"]
         assert float(r["coefficient_1"]) == v["coefficients"][0]
     assert rows[0]["coefficient_2"] != "" and rows[1]["coefficient_2"] == ""
-    rows = as_csv(tables.dose_sensitivity_table(d))
+    rows = as_csv(tables.dose_sensitivity_table(spline.curve_section, UNIT))
     for r, v in zip(rows, d["dose_sensitivity"]):
         assert [float(r[f"dose_{i + 1} ({UNIT})"]) for i in range(len(v["doses"]))] == v["doses"]
         assert float(r["paf"]) == v["paf"]

@@ -1,33 +1,41 @@
 """CSV tables of the results.
 
-Every table is built from the results.json dictionary (``Results.to_dict()``)
-plus the study's band table and the per-worker exposures, so the CSV files
-and results.json can never disagree. Optional tables (burden, comparisons,
-width by source, workers) are written only when the results hold them.
-Numbers are written at full precision (``repr`` of the float, which
-round-trips exactly); empty cells mean "not applicable". Units are given in
-the column headers, e.g. ``lower (ug/m3)``.
+Every table is built from one typed section of the run's
+:class:`~doseattr.results.run.Results` (the records results.json is
+generated from, so the CSV files and results.json hold the same numbers).
+Optional tables (burden, comparisons, width by source, workers) are written
+only when the results hold them. Numbers are written at full precision
+(``repr`` of the float, which round-trips exactly); empty cells mean "not
+applicable". Units are given in the column headers, e.g. ``lower (ug/m3)``.
 """
 
 from __future__ import annotations
 
 import csv
 import math
+from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 import numpy as np
 
-from doseattr.outputs.bands import band_arrays
-from doseattr.outputs.records import (
-    burden_blocks,
-    estimate_of,
-    scenario_effects,
-    substitution,
-    width_by_source,
-)
+from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.curves.base import Curve
+from doseattr.results.estimate import Estimate
+from doseattr.results.records import (AttributionSection, BurdenResult, CurveSection,
+                                      CurveVariant, ExposureSection, StratumExposure,
+                                      StratumResult, UncertaintySection, Workers)
+from doseattr.results.run import Results
+from doseattr.results.serialize import nonlinearity_p
 
 Table = tuple[list[str], list[list[Any]]]
+#: One burden table of the run: the outcome's name (``None`` for the
+#: analysis's own ``[burden]``) and its strata.
+BurdenBlock = tuple[str | None, BurdenResult]
+
+ESTIMATE_COLUMNS = ["estimate", "lower", "upper", "mcse"]
+BURDEN_COLUMNS = ["stratum", "cases", "population", *[f"paf_{c}" for c in ESTIMATE_COLUMNS],
+                  *[f"attributable_{c}" for c in ESTIMATE_COLUMNS]]
 
 
 def cell(value: Any) -> str:
@@ -64,314 +72,359 @@ def with_unit(name: str, unit: str | None) -> str:
     return f"{name} ({unit})" if unit else name
 
 
-def estimate_cells(est: Any) -> list[Any]:
-    """``[estimate, lower, upper, mcse]`` of an estimate dict or a number."""
-    if isinstance(est, dict):
-        return [est.get("estimate"), est.get("lower"), est.get("upper"), est.get("mcse")]
-    return [est, None, None, None]
+def estimate_cells(est: Estimate | None) -> list[float | None]:
+    """``[estimate, lower, upper, mcse]`` of an estimate (empty without one)."""
+    if est is None:
+        return [None] * 4
+    return [_float(est.estimate), _float(est.lower), _float(est.upper), _float(est.mcse)]
 
 
-ESTIMATE_COLUMNS = ["estimate", "lower", "upper", "mcse"]
-
-
-def summary_table(d: dict) -> Table:
+def summary_table(attribution: AttributionSection) -> Table:
     """PAF and every scenario's PIF with their intervals."""
-    rows = [["PAF", "", *estimate_cells(d["paf"])]]
-    for s in d.get("scenarios", []):
-        rows.append(["PIF", s["name"], *estimate_cells(s["pif"])])
+    rows = [["PAF", "", *estimate_cells(attribution.paf)]]
+    for s in attribution.scenarios:
+        rows.append(["PIF", s.name, *estimate_cells(s.pif)])
     return ["quantity", "scenario", *ESTIMATE_COLUMNS], rows
 
 
-def scenarios_table(d: dict) -> Table:
+def scenarios_table(attribution: AttributionSection, unit: str | None) -> Table:
     """One row per scenario: its kind, value (with unit where it has one), PIF."""
-    unit = d.get("unit")
-    rows = []
-    for s in d.get("scenarios", []):
-        value_unit = "" if s.get("kind") == "scale" else (unit or "")
-        rows.append([s["name"], s.get("kind"), s.get("value"), value_unit,
-                     *estimate_cells(s["pif"])])
+    rows: list[list[Any]] = []
+    for s in attribution.scenarios:
+        value_unit = "" if s.kind == "scale" else (unit or "")
+        rows.append([s.name, s.kind, _float(s.value), value_unit, *estimate_cells(s.pif)])
     header = ["name", "kind", "value", "value_unit", "pif", "pif_lower", "pif_upper", "pif_mcse"]
     return header, rows
 
 
-def categorical_table(d: dict) -> Table:
+def categorical_table(cat: CategoricalComparison, unit: str | None) -> Table:
     """One row per band of the categorical comparison: limits, population
     share, midpoint, conditional mean, and the RR each method assigns."""
-    cat, unit = d["categorical"], d.get("unit")
-    cuts = list(cat["cutpoints"])
+    cuts = _floats(cat.cutpoints)
     lowers, uppers = [0.0, *cuts], [*cuts, None]
-    methods = cat["methods"]
+    midpoints, means = _floats(cat.midpoints), _floats(cat.band_means)
+    rrs = [_floats(m.rr) for m in cat.methods]
     header = ["band", with_unit("lower", unit), with_unit("upper", unit), "share",
               with_unit("midpoint", unit), with_unit("band_mean", unit),
-              *[f"rr_{m['method']}" for m in methods]]
+              *[f"rr_{m.method}" for m in cat.methods]]
     rows = []
-    for i, share in enumerate(cat["shares"]):
-        mid = _item(cat.get("midpoints"), i)
-        mean = _item(cat.get("band_means"), i)
-        rows.append([i + 1, lowers[i], uppers[i], share, mid, mean,
-                     *[_item(m["rr"], i) for m in methods]])
+    for i, share in enumerate(_floats(cat.shares)):
+        rows.append([i + 1, lowers[i], uppers[i], share, _item(midpoints, i), _item(means, i),
+                     *[_item(rr, i) for rr in rrs]])
     return header, rows
 
 
-def categorical_paf_table(d: dict) -> Table:
+def categorical_paf_table(cat: CategoricalComparison) -> Table:
     """PAF by each categorical method, its difference from the continuous
     PAF, and the continuous PAF itself."""
-    cat = d["categorical"]
-    rows = [[m["method"], m["paf"], m.get("difference")] for m in cat["methods"]]
-    rows.append(["continuous", cat["continuous_paf"], 0.0])
+    rows: list[list[Any]] = [[m.method, _float(m.paf), _float(m.difference)]
+                             for m in cat.methods]
+    rows.append(["continuous", _float(cat.continuous_paf), 0.0])
     return ["method", "paf", "difference_from_continuous"], rows
 
 
-def convergence_table(d: dict) -> Table:
-    cat = d["categorical"]
-    rows = [[c["bands"], c["paf"], cat["continuous_paf"]] for c in cat.get("convergence", [])]
+def convergence_table(cat: CategoricalComparison) -> Table:
+    """Categorical PAF with ``k`` equal-probability bands, beside the
+    continuous PAF it converges to."""
+    continuous = _float(cat.continuous_paf)
+    rows: list[list[Any]] = [[int(k), _float(p), continuous] for k, p in cat.convergence]
     return ["bands", "categorical_paf", "continuous_paf"], rows
 
 
-def curve_fit_table(d: dict, band_table: Any = None) -> Table:
+def curve_fit_table(section: CurveSection, unit: str | None) -> Table:
     """The study's bands with assigned dose (and how it was assigned),
     reported RR and CI, and the fitted RR at the assigned dose (1 for the
-    reference band)."""
-    unit = d.get("unit")
-    fitted = d["curve"].get("fitted") or []
-    rows_in = d.get("bands")
-    if not rows_in:
-        bands = band_arrays(band_table)
-        keys = ("lower", "upper", "dose", "rr", "ci_lower", "ci_upper")
-        rows_in = None if bands is None else [
-            {k: _num(bands[k][i]) for k in keys} | {"reference": bool(bands["reference"][i])}
-            for i in range(len(bands["rr"]))]
-    if not rows_in:
+    reference band); without bands, the fit's doses with reported and
+    fitted RR."""
+    fit = section.curve.fit
+    fitted: list[tuple[float, float, float]] = [] if fit is None else [
+        (float(x), math.exp(y), math.exp(f))
+        for x, y, f in zip(fit.doses, fit.log_rr, fit.fitted_log_rr, strict=True)]
+    b = section.bands
+    if b is None or len(b.rr) == 0:
         header = [with_unit("dose", unit), "rr_reported", "rr_fitted"]
-        return header, [[f["dose"], f["rr_reported"], f["rr_fitted"]] for f in fitted]
+        return header, [list(f) for f in fitted]
     header = ["band", with_unit("lower", unit), with_unit("upper", unit), with_unit("dose", unit),
               "dose_rule", "rr", "ci_lower", "ci_upper", "reference", "rr_fitted"]
-    fitted_iter = iter(fitted)
+    fitted_rr = iter(f[2] for f in fitted)
     rows = []
-    for i, b in enumerate(rows_in):
-        ref = bool(b.get("reference"))
-        fit = None if ref else next(fitted_iter, None)
-        rows.append([i + 1, b.get("lower"), b.get("upper"), b.get("dose"), b.get("dose_rule"),
-                     b.get("rr"), b.get("ci_lower"), b.get("ci_upper"), ref,
-                     1.0 if ref else (fit or {}).get("rr_fitted")])
+    for i in range(len(b.rr)):
+        ref = bool(b.reference[i])
+        rr_fitted = 1.0 if ref else next(fitted_rr, None)
+        rows.append([i + 1, _float(b.lower[i]), _float(b.upper[i]), _float(b.dose[i]),
+                     b.dose_rule[i], _float(b.rr[i]), _float(b.ci_lower[i]),
+                     _float(b.ci_upper[i]), ref, rr_fitted])
     return header, rows
 
 
-def coefficients_table(d: dict) -> Table:
+def coefficients_table(section: CurveSection) -> Table:
     """Coefficients, standard errors and the covariance matrix by rows."""
-    c = d["curve"]
-    names = list(c.get("parameter_names") or [f"b{i}" for i in range(len(c["coefficients"]))])
-    ses = c.get("standard_errors") or [None] * len(names)
+    c = section.curve
+    coef = _floats(c.coef)
+    names = list(c.model.param_names) or [f"b{i}" for i in range(len(coef))]
+    cov = [_floats(row) for row in np.atleast_2d(np.asarray(c.cov, dtype=float))]
     header = ["parameter", "estimate", "standard_error", *[f"cov_{n}" for n in names]]
-    rows = [[n, b, se, *row] for n, b, se, row in zip(names, c["coefficients"], ses,
-                                                       c["covariance"])]
+    rows = [[n, b, se, *row] for n, b, se, row in zip(names, coef, _standard_errors(c), cov)]
     return header, rows
 
 
-def exposure_fits_table(d: dict) -> Table:
+def exposure_fits_table(section: ExposureSection) -> Table:
     """Every family fitted (or the one entered), parameters, log-likelihood, AIC."""
-    e = d["exposure"]
-    fits = e.get("fits") or [{"family": e["family"], "parameters": e["parameters"],
-                              "loglik": e.get("loglik"), "aic": e.get("aic")}]
-    names: list[str] = []
-    for f in fits:
-        names += [k for k in f["parameters"] if k not in names]
+    ex = section.exposure
+    family = ex.family.name
+    if section.fits:
+        fits = [(f.family, f.parameters, f.loglik, f.aic) for f in section.fits]
+    else:
+        fit = ex.fit
+        fits = [(family, ex.parameters, None if fit is None else fit.loglik,
+                 None if fit is None else fit.aic)]
+    names = _union(parameters for _, parameters, _, _ in fits)
     header = ["family", "selected", *names, "loglik", "aic"]
-    rows = [[f["family"], f["family"] == e["family"], *[f["parameters"].get(n) for n in names],
-             f.get("loglik"), f.get("aic")] for f in fits]
+    rows = [[name, name == family, *_parameter_cells(parameters, names), _float(loglik),
+             _float(aic)] for name, parameters, loglik, aic in fits]
     return header, rows
 
 
-def records_table(records: Iterable[dict], first: str | None = None) -> Table:
-    """Flatten a list of (possibly nested) records into columns; nested
-    keys are joined with ``_`` (``attributable_lower``)."""
-    flat = [_flatten(r) for r in records]
-    header: list[str] = []
-    for r in flat:
-        header += [k for k in r if k not in header]
-    if first in header:
-        header.remove(first)
-        header.insert(0, first)
-    return header, [[r.get(k) for k in header] for r in flat]
+def burden_blocks(results: Results) -> list[BurdenBlock]:
+    """``(outcome name or None, burden)`` for every burden table of a run.
 
-
-def burden_table(d: dict) -> Table | None:
-    """Attributable cases by stratum and in total (one block per outcome).
-
-    The PAF of a row is written as ``paf_estimate``, ``paf_lower``, ... whether
-    the contract holds it as an estimate object or as a number with
-    ``paf_interval`` beside it; per-scenario results go to
-    :func:`burden_scenarios_table`.
+    With ``[[outcome]]`` blocks, one per outcome that has strata; the
+    analysis's own burden is put in front only when it is not the first
+    outcome's (a file with its own ``[curve]`` and ``[burden]`` beside the
+    outcomes; without its own ``[curve]`` the top level is the first
+    outcome's run).
     """
-    records = []
-    for outcome, burden in burden_blocks(d):
-        rows = list(burden["strata"])
-        if burden.get("total"):
-            rows.append({"stratum": "total", **burden["total"]})
-        for r in rows:
-            flat = {k: v for k, v in r.items() if k not in ("scenarios", "paf_interval")}
-            flat["paf"] = estimate_of(r, "paf")
-            records.append(({"outcome": outcome} if outcome else {}) | flat)
-    return records_table(records) if records else None
+    blocks: list[BurdenBlock] = [(name, o.burden) for name, o in results.outcomes
+                                 if o.burden is not None and o.burden.strata]
+    top = results.burden
+    if top is not None and top.strata and not (
+            blocks and (top is blocks[0][1] or top == blocks[0][1])):
+        blocks.insert(0, (None, top))
+    return blocks
 
 
-def burden_scenarios_table(d: dict) -> Table | None:
+def burden_table(burden: BurdenResult, unit: str | None) -> Table:
+    """Attributable cases by stratum and in total, one burden
+    (:func:`burden_blocks_table`)."""
+    table = burden_blocks_table([(None, burden)], unit)
+    assert table is not None
+    return table
+
+
+def burden_blocks_table(blocks: Sequence[BurdenBlock], unit: str | None) -> Table | None:
+    """Attributable cases by stratum and in total, one block per outcome.
+
+    Columns: ``outcome`` (only with outcomes), ``stratum``, ``cases``,
+    ``population``, ``paf_estimate`` ... ``paf_mcse``,
+    ``attributable_estimate`` ... ``attributable_mcse``, then the exposure
+    each stratum's fractions were computed over: ``exposure`` (``own``
+    when the burden table gave the stratum its own, else ``shared``),
+    ``exposure_family``, one ``exposure_<parameter>`` per parameter name
+    (the union over all strata, in first-seen order) and ``exposure_mean``
+    (the unexposed counted at zero). The total row leaves those empty.
+    Per-scenario results go to :func:`burden_scenarios_table`.
+    """
+    if not blocks:
+        return None
+    strata = [s for _, b in blocks for s in b.strata]
+    names = _union(s.exposure.parameters for s in strata if s.exposure is not None)
+    exposure_header = ["exposure", "exposure_family", *[f"exposure_{n}" for n in names],
+                       with_unit("exposure_mean", unit)]
+    named = any(name for name, _ in blocks)
+    # The outcome column is first; it stood after the burden columns (and
+    # stays there) when the analysis's own burden comes before the outcomes.
+    at = 0 if blocks[0][0] else len(BURDEN_COLUMNS)
+    header = [*BURDEN_COLUMNS, *exposure_header]
+    if named:
+        header.insert(at, "outcome")
+    rows = []
+    for name, burden in blocks:
+        for s in (*burden.strata, burden.total):
+            stratum = "total" if s is burden.total else s.stratum
+            row = [*_burden_cells(s, stratum), *_exposure_cells(s.exposure, names)]
+            if named:
+                row.insert(at, name or None)
+            rows.append(row)
+    return header, rows
+
+
+def burden_scenarios_table(burden: BurdenResult) -> Table | None:
+    """Each stratum's (and the total's) PIF and cases averted per scenario
+    (:func:`burden_scenarios_blocks_table`)."""
+    return burden_scenarios_blocks_table([(None, burden)])
+
+
+def burden_scenarios_blocks_table(blocks: Sequence[BurdenBlock]) -> Table | None:
     """One row per outcome, stratum (and total) and scenario: the PIF and the
-    cases averted, each with its interval."""
+    cases averted, each with its interval; no ``outcome`` column without
+    outcomes."""
     header = ["outcome", "stratum", "scenario", *[f"pif_{c}" for c in ESTIMATE_COLUMNS],
               *[f"averted_{c}" for c in ESTIMATE_COLUMNS]]
-    rows = []
-    for outcome, burden in burden_blocks(d):
-        records = list(burden["strata"])
-        if burden.get("total"):
-            records.append({"stratum": "total", **burden["total"]})
-        for r in records:
-            for s in scenario_effects(r):
-                rows.append([outcome, r.get("stratum"), s["name"],
-                             *estimate_cells(s["pif"] or {}), *estimate_cells(s["averted"] or {})])
+    rows: list[list[Any]] = []
+    for name, burden in blocks:
+        for s in (*burden.strata, burden.total):
+            stratum = "total" if s is burden.total else s.stratum
+            for e in s.scenarios:
+                rows.append([name or None, stratum, e.name, *estimate_cells(e.pif),
+                             *estimate_cells(e.averted)])
     if not any(r[0] for r in rows):
         header, rows = header[1:], [r[1:] for r in rows]
     return (header, rows) if rows else None
 
 
-def model_comparison_table(d: dict) -> Table | None:
-    """PAF and fit of each model in ``compare_models`` (``model_comparison``)."""
-    return _variant_table(d.get("model_comparison"), "model")
+def model_comparison_table(section: CurveSection) -> Table | None:
+    """PAF and fit of each model in ``compare_models``."""
+    return _variant_table(section.model_comparison, "model")
 
 
-def dose_sensitivity_table(d: dict) -> Table | None:
-    """PAF and fit under each dose-assignment rule (``dose_sensitivity``),
-    with the assigned doses ``dose_1`` ... in the unit of the analysis."""
-    return _variant_table(d.get("dose_sensitivity"), "dose_rule", unit=d.get("unit"))
+def dose_sensitivity_table(section: CurveSection, unit: str | None) -> Table | None:
+    """PAF and fit under each dose-assignment rule, with the assigned doses
+    ``dose_1`` ... in the unit of the analysis."""
+    return _variant_table(section.dose_sensitivity, "dose_rule", unit=unit, doses=True)
 
 
-def _variant_table(variants: Any, label: str, unit: str | None = None) -> Table | None:
+def _variant_table(variants: Sequence[CurveVariant], label: str, unit: str | None = None,
+                   doses: bool = False) -> Table | None:
     if not variants:
         return None
-    n_coef = max(len(v.get("coefficients") or []) for v in variants)
-    n_dose = max(len(v.get("doses") or []) for v in variants) if unit is not None else 0
+    coefs = [[] if v.curve is None else _floats(v.curve.coef) for v in variants]
+    ses = [[] if v.curve is None else _standard_errors(v.curve) for v in variants]
+    dose_lists = [[] if v.doses is None else _floats(v.doses) for v in variants]
+    n_coef = max(len(c) for c in coefs)
+    n_dose = max(len(d) for d in dose_lists) if doses else 0
     header = [label, "model", *[f"coefficient_{i + 1}" for i in range(n_coef)],
               *[f"standard_error_{i + 1}" for i in range(n_coef)],
               *[with_unit(f"dose_{i + 1}", unit) for i in range(n_dose)],
               "q", "df", "p_value", "nonlinearity_p", "paf", "problem"]
     rows = []
-    for v in variants:
-        coef = _padded(v.get("coefficients"), n_coef)
-        ses = _padded(v.get("standard_errors"), n_coef)
-        doses = _padded(v.get("doses"), n_dose)
-        rows.append([v.get("label"), v.get("model"), *coef, *ses, *doses, v.get("q"),
-                     v.get("df"), v.get("p_value"), v.get("nonlinearity_p"), v.get("paf"),
-                     v.get("problem")])
+    for v, coef, se, dose in zip(variants, coefs, ses, dose_lists):
+        c = v.curve
+        fit = None if c is None else c.fit
+        rows.append([v.label, None if c is None else c.model.name, *_padded(coef, n_coef),
+                     *_padded(se, n_coef), *_padded(dose, n_dose),
+                     None if fit is None else _float(fit.q),
+                     None if fit is None else int(fit.df),
+                     None if fit is None else _float(fit.p_value),
+                     None if c is None else _float(nonlinearity_p(c)), _float(v.paf),
+                     v.problem])
     return header, rows
 
 
-def exposure_comparison_table(d: dict) -> Table | None:
-    """PAF under each fitted family and the empirical distribution
-    (``exposure_comparison``)."""
-    rows_in = d.get("exposure_comparison") or []
-    if not rows_in:
+def exposure_comparison_table(section: ExposureSection) -> Table | None:
+    """PAF under each fitted family and the empirical distribution."""
+    variants = section.comparison
+    if not variants:
         return None
-    names: list[str] = []
-    for r in rows_in:
-        names += [k for k in (r.get("parameters") or {}) if k not in names]
+    names = _union(v.parameters for v in variants)
     header = ["family", *names, "aic", "paf", "problem"]
-    return header, [[r.get("family"), *[(r.get("parameters") or {}).get(n) for n in names],
-                     r.get("aic"), r.get("paf"), r.get("problem")] for r in rows_in]
+    return header, [[v.label, *_parameter_cells(v.parameters, names), _float(v.aic),
+                     _float(v.paf), v.problem] for v in variants]
 
 
-def substitution_table(d: dict) -> Table | None:
+def substitution_table(section: ExposureSection) -> Table | None:
     """Non-detects replaced by a fraction of their limit (comparison only):
     fraction, fitted parameters, PAF, difference from the analysis's PAF."""
-    rows_in = substitution(d)
+    rows_in = section.substitution
     if not rows_in:
         return None
-    names: list[str] = []
-    for r in rows_in:
-        names += [k for k in (r.get("parameters") or {}) if k not in names]
+    names = _union(r.parameters for r in rows_in)
     header = ["fraction", *names, "paf", "difference"]
-    return header, [[r.get("fraction"), *[(r.get("parameters") or {}).get(n) for n in names],
-                     r.get("paf"), r.get("difference")] for r in rows_in]
+    return header, [[_float(r.fraction), *_parameter_cells(r.parameters, names), _float(r.paf),
+                     _float(r.difference)] for r in rows_in]
 
 
-def width_by_source_table(d: dict) -> Table | None:
+def width_by_source_table(u: UncertaintySection | None) -> Table | None:
     """The PAF interval with one source of uncertainty at a time."""
-    rows_in = width_by_source(d)
-    if not rows_in:
+    if u is None or not u.width_by_source:
         return None
     return (["source", "lower", "upper", "width"],
-            [[r.get("source"), r.get("lower"), r.get("upper"), r.get("width")] for r in rows_in])
+            [[w.source, _float(w.lower), _float(w.upper), _float(w.width)]
+             for w in u.width_by_source])
 
 
-def workers_table(workers: Any) -> Table | None:
-    """One row per worker: worker, cumulative, duration_years, mean_intensity.
-
-    ``workers`` is the core ``WorkerExposure`` (``Results.workers``) or the
-    ``workers`` list of the results dictionary.
-    """
-    if workers is None or (isinstance(workers, (list, tuple)) and not workers):
+def workers_table(w: Workers | None) -> Table | None:
+    """One row per worker: worker, cumulative, duration_years, mean_intensity
+    (``None`` without work histories)."""
+    if w is None:
         return None
-    if hasattr(workers, "cumulative") and hasattr(workers, "duration_years"):
-        records = [{"worker": str(w), "cumulative": _plain(c), "duration_years": _plain(t),
-                    "mean_intensity": _plain(m)}
-                   for w, c, t, m in zip(workers.worker, workers.cumulative,
-                                         workers.duration_years, workers.mean_intensity)]
-    else:
-        records = list(workers)
-    return records_table(records, first="worker")
+    rows: list[list[Any]] = [
+        [name, _float(c), _float(t), _float(m)]
+        for name, c, t, m in zip(w.worker, w.cumulative, w.duration_years, w.mean_intensity,
+                                 strict=True)]
+    return ["worker", "cumulative", "duration_years", "mean_intensity"], rows
 
 
-def all_tables(d: dict, band_table: Any = None, workers: Any = None) -> dict[str, Table]:
+def all_tables(results: Results) -> dict[str, Table]:
     """Every CSV file name with its table; optional ones only when present."""
+    unit = results.unit
+    curve, exposure = results.curve_section, results.exposure_section
     tables = {
-        "summary.csv": summary_table(d),
-        "scenarios.csv": scenarios_table(d),
-        "curve_fit.csv": curve_fit_table(d, band_table),
-        "curve_coefficients.csv": coefficients_table(d),
-        "exposure_fits.csv": exposure_fits_table(d),
+        "summary.csv": summary_table(results.attribution),
+        "scenarios.csv": scenarios_table(results.attribution, unit),
+        "curve_fit.csv": curve_fit_table(curve, unit),
+        "curve_coefficients.csv": coefficients_table(curve),
+        "exposure_fits.csv": exposure_fits_table(exposure),
+        "categorical.csv": categorical_table(results.categorical, unit),
+        "categorical_paf.csv": categorical_paf_table(results.categorical),
+        "convergence.csv": convergence_table(results.categorical),
     }
-    if d.get("categorical"):
-        tables["categorical.csv"] = categorical_table(d)
-        tables["categorical_paf.csv"] = categorical_paf_table(d)
-        tables["convergence.csv"] = convergence_table(d)
+    blocks = burden_blocks(results)
     optional = {
-        "burden.csv": burden_table(d),
-        "burden_scenarios.csv": burden_scenarios_table(d),
-        "model_comparison.csv": model_comparison_table(d),
-        "dose_sensitivity.csv": dose_sensitivity_table(d),
-        "exposure_comparison.csv": exposure_comparison_table(d),
-        "substitution.csv": substitution_table(d),
-        "width_by_source.csv": width_by_source_table(d),
-        "workers.csv": workers_table(workers),
+        "burden.csv": burden_blocks_table(blocks, unit),
+        "burden_scenarios.csv": burden_scenarios_blocks_table(blocks),
+        "model_comparison.csv": model_comparison_table(curve),
+        "dose_sensitivity.csv": dose_sensitivity_table(curve, unit),
+        "exposure_comparison.csv": exposure_comparison_table(exposure),
+        "substitution.csv": substitution_table(exposure),
+        "width_by_source.csv": width_by_source_table(results.uncertainty),
+        "workers.csv": workers_table(exposure.workers),
     }
     tables.update({name: t for name, t in optional.items() if t is not None})
     return tables
 
 
-def _plain(v: Any) -> Any:
-    """numpy scalars to Python values."""
-    return v.item() if isinstance(v, np.generic) else v
+def _burden_cells(s: StratumResult, stratum: str) -> list[Any]:
+    return [stratum, _float(s.cases), _float(s.population), *estimate_cells(s.paf),
+            *estimate_cells(s.attributable)]
 
 
-def _padded(values: Any, n: int) -> list[Any]:
-    values = list(values or [])[:n]
+def _exposure_cells(e: StratumExposure | None, names: Sequence[str]) -> list[Any]:
+    if e is None:
+        return [None] * (len(names) + 3)
+    return ["own" if e.own else "shared", e.family, *_parameter_cells(e.parameters, names),
+            _float(e.mean)]
+
+
+def _standard_errors(curve: Curve) -> list[float]:
+    """sqrt of the covariance's diagonal (negative rounding clipped to 0)."""
+    return _floats(np.sqrt(np.maximum(np.diag(np.atleast_2d(curve.cov)), 0.0)))
+
+
+def _union(mappings: Iterable[Mapping[str, float]]) -> list[str]:
+    """The keys of every mapping, in first-seen order."""
+    names: list[str] = []
+    for m in mappings:
+        names += [k for k in m if k not in names]
+    return names
+
+
+def _parameter_cells(parameters: Mapping[str, float], names: Sequence[str]) -> list[float | None]:
+    return [_float(parameters.get(n)) for n in names]
+
+
+def _float(value: Any) -> float | None:
+    """A plain float, or ``None`` for a missing value."""
+    return None if value is None else float(value)
+
+
+def _floats(values: Any) -> list[float]:
+    return [float(v) for v in np.asarray(values, dtype=float).reshape(-1)]
+
+
+def _padded(values: Sequence[Any], n: int) -> list[Any]:
+    values = list(values)[:n]
     return values + [None] * (n - len(values))
 
 
-def _item(seq: Any, i: int) -> Any:
-    return None if seq is None or i >= len(seq) else seq[i]
-
-
-def _num(v: float) -> float | None:
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
-def _flatten(record: dict, prefix: str = "") -> dict:
-    out: dict = {}
-    for k, v in record.items():
-        key = f"{prefix}{k}"
-        if isinstance(v, dict):
-            out |= _flatten(v, f"{key}_")
-        else:
-            out[key] = v
-    return out
+def _item(seq: Sequence[Any], i: int) -> Any:
+    return None if i >= len(seq) else seq[i]

@@ -154,8 +154,7 @@ def _produce(results: Any, folder: Path, *, figures: bool,
         data["provenance"]["command"] = [str(a) for a in command]
     written = [Path("results.json")]
     (folder / "results.json").write_text(results_json(results, data), encoding="utf-8")
-    tables = all_tables(data, band_table=getattr(results, "band_table", None),
-                        workers=workers_source(results, data))
+    tables = all_tables(results)
     for name, table in tables.items():
         write_csv(folder / name, table)
         written.append(Path(name))
