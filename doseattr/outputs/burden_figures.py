@@ -80,11 +80,11 @@ def plot_strata(names: Sequence[str], estimate: Sequence[float], ax: Axes | None
 def _note_below(ax: Axes, text: str) -> None:
     """``text`` as a one-line legend under the x-axis label, left-aligned
     with the axes (36 points down clears the tick labels and the label)."""
-    from matplotlib.transforms import offset_copy
+    from matplotlib.transforms import ScaledTranslation
 
     with styled():
         note = ax.plot([], [], " ", label=text)
-        below = offset_copy(ax.transAxes, fig=ax.figure, y=-36.0, units="points")
+        below = ax.transAxes + ScaledTranslation(0.0, -36.0 / 72.0, ax.figure.dpi_scale_trans)
         ax.legend(handles=note, loc="upper left", bbox_to_anchor=(0.0, 0.0),
                   bbox_transform=below, borderaxespad=0.0, borderpad=0.0,
                   handlelength=0.0, handletextpad=0.0)

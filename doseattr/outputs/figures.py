@@ -21,7 +21,14 @@ from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure, ExposureFit, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import ModelError
-from doseattr.outputs.style import COLORS, CYCLE, axis_label, new_axes, outside_legend, styled
+from doseattr.outputs.style import (
+    COLORS,
+    CYCLE,
+    axis_label,
+    new_axes,
+    outside_legend,
+    styled,
+)
 from doseattr.results.records import BandTable
 
 if TYPE_CHECKING:
@@ -477,7 +484,7 @@ def plot_categorical(categorical: CategoricalComparison, ax: Axes | None = None)
         ax.bar(pos, pafs, color=colors, width=0.6, gid="method-bars")
         ax.axhline(100 * categorical.continuous_paf, color=COLORS["limit"], linewidth=1.6,
                    linestyle="--", label="continuous PAF", gid="continuous-paf")
-        ax.set_xticks(pos, [METHOD_LABELS[n] if n in METHOD_LABELS else n for n in names])
+        ax.set_xticks(pos, [METHOD_LABELS.get(n, n) for n in names])
         ax.set_ylabel("PAF (%)")
         ax.set_ylim(bottom=0.0, top=1.15 * max([*pafs, 100 * categorical.continuous_paf, 1e-9]))
         ax.set_title("Categorical against continuous")

@@ -25,8 +25,14 @@ from doseattr.outputs.markup import pct
 from doseattr.outputs.model_figures import Panel, bands_with_doses, plot_curve_panels
 from doseattr.outputs.style import png_bytes, pyplot, styled
 from doseattr.results.estimate import Estimate
-from doseattr.results.records import (AttributionSection, BurdenResult, CurveSection,
-                                      ExposureSection, StratumResult, UncertaintySection)
+from doseattr.results.records import (
+    AttributionSection,
+    BurdenResult,
+    CurveSection,
+    ExposureSection,
+    StratumResult,
+    UncertaintySection,
+)
 from doseattr.results.run import Results
 
 if TYPE_CHECKING:
@@ -300,5 +306,13 @@ def _burden(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure | None:
     return figure
 
 
-__all__ = ["render_figures", "FIGURE_NAMES", "paf_draws", "burden_blocks", "burden_panels",
-           "model_panels", "outcome_panels", "other_models"]
+__all__ = [
+    "FIGURE_NAMES",
+    "burden_blocks",
+    "burden_panels",
+    "model_panels",
+    "other_models",
+    "outcome_panels",
+    "paf_draws",
+    "render_figures",
+]
