@@ -31,6 +31,7 @@ from test_outputs_cases import (  # noqa: E402
 from test_outputs_tables import as_csv  # noqa: E402
 
 from doseattr.outputs import gallery, tables  # noqa: E402
+from doseattr.outputs.burden_figures import OWN_MARK, OWN_NOTE  # noqa: E402
 from doseattr.outputs.burden_report import cases  # noqa: E402
 from doseattr.outputs.markup import estimate_text, interval, pct  # noqa: E402
 from doseattr.outputs.records import estimate_of  # noqa: E402
@@ -100,7 +101,7 @@ def test_paf_draws_histogram(single):
     the draws reproduces."""
     draws = np.asarray(single.propagation.paf[0], float)
     assert draws.shape == (DRAWS,)
-    ax = gallery._paf_draws(single).axes[0]
+    ax = gallery._paf_draws(single.uncertainty, single.paf).axes[0]
     bars = [p for p in ax.patches if p.get_gid() == "draws-hist"]
     counts, _ = np.histogram(100 * draws, bins=40)
     np.testing.assert_array_equal([p.get_height() for p in bars], counts)
@@ -130,23 +131,70 @@ def test_burden_figure_bars_and_whiskers(outcomes):
     """One row per outcome: attributable cases per stratum with their
     interval (left); all attributable and each scenario's averted cases in
     total with intervals (right). Every number is the results'."""
-    d = outcomes.to_dict()
-    figure = gallery._burden(d)
+    figure = gallery._burden(gallery.burden_blocks(outcomes))
     axes = [ax for ax in figure.axes if ax.get_visible()]
     assert len(axes) == 4
-    for (left, right), o in zip(zip(axes[::2], axes[1::2]), d["outcomes"]):
-        strata = o["burden"]["strata"]
-        assert o["name"] in left.get_title()
-        assert [t.get_text() for t in left.get_yticklabels()] == [s["stratum"] for s in strata]
-        assert bar_widths(left, "strata") == [s["attributable"]["estimate"] for s in strata]
-        assert whiskers(left, "strata") == [(s["attributable"]["lower"],
-                                             s["attributable"]["upper"]) for s in strata]
-        total = o["burden"]["total"]
-        expected = [total["attributable"]] + [s["averted"] for s in total["scenarios"]]
-        assert bar_widths(right, "scenario") == [e["estimate"] for e in expected]
-        assert whiskers(right, "scenario") == [(e["lower"], e["upper"]) for e in expected]
+    for (left, right), (name, o) in zip(zip(axes[::2], axes[1::2]), outcomes.outcomes):
+        strata = o.burden.strata
+        assert name in left.get_title()
+        assert [t.get_text().removesuffix(f" {OWN_MARK}") for t in left.get_yticklabels()] == [
+            s.stratum for s in strata]
+        assert bar_widths(left, "strata") == [s.attributable.estimate for s in strata]
+        assert whiskers(left, "strata") == [(s.attributable.lower, s.attributable.upper)
+                                            for s in strata]
+        total = o.burden.total
+        expected = [total.attributable] + [s.averted for s in total.scenarios]
+        assert bar_widths(right, "scenario") == [e.estimate for e in expected]
+        assert whiskers(right, "scenario") == [(e.lower, e.upper) for e in expected]
         assert [t.get_text() for t in right.get_yticklabels()][1:] == [
             s["name"] for s in SCENARIOS]
+
+
+def own_exposure_strata(text: str) -> list[str]:
+    """Strata of a burden table that give their own exposure: those with
+    values in the gm and gsd columns (the burden table's rule, read with
+    the standard library's csv module)."""
+    import csv
+    import io
+
+    lines = [ln for ln in text.splitlines() if not ln.startswith("#")]
+    return [r["stratum"] for r in csv.DictReader(io.StringIO("\n".join(lines)))
+            if (r.get("gm") or "").strip() and (r.get("gsd") or "").strip()]
+
+
+def marked_strata(ax) -> list[str]:
+    return [t.get_text().removesuffix(f" {OWN_MARK}") for t in ax.get_yticklabels()
+            if t.get_text().endswith(f" {OWN_MARK}")]
+
+
+def test_burden_figure_marks_strata_with_their_own_exposure(outcomes):
+    """Exactly the strata whose row in the burden table gives gm and gsd
+    carry the mark, and the legend explains it; the second outcome's table
+    has no exposure columns, so its panel has neither."""
+    figure = gallery._burden(gallery.burden_blocks(outcomes))
+    left = [ax for ax in figure.axes if ax.get_visible()][::2]
+    assert marked_strata(left[0]) == own_exposure_strata(STRATA) == ["South <b>",
+                                                                     "East & hills"]
+    assert [t.get_text() for t in left[0].get_legend().get_texts()] == [OWN_NOTE]
+    assert marked_strata(left[1]) == own_exposure_strata(STRATA_2) == []
+    assert left[1].get_legend() is None
+
+
+def test_demo_burden_figure_marks_quarryside():
+    """The bundled demo: data_demo/districts.csv gives Quarryside (only)
+    its own GM and GSD, so only Quarryside is marked."""
+    from pathlib import Path
+
+    import doseattr
+
+    demo = Path(__file__).resolve().parent.parent / "data_demo"
+    r = doseattr.run_analysis(doseattr.load_analysis(demo / "analysis.toml"))
+    figure = gallery._burden(gallery.burden_blocks(r))
+    strata_ax = figure.axes[0]
+    own = own_exposure_strata((demo / "districts.csv").read_text(encoding="utf-8"))
+    assert own == ["Quarryside"]
+    assert marked_strata(strata_ax) == own
+    assert [t.get_text() for t in strata_ax.get_legend().get_texts()] == [OWN_NOTE]
 
 
 def test_strata_table_with_intervals(single):
@@ -262,7 +310,7 @@ def test_outcomes_side_by_side(outcomes):
 
 def test_outcome_curves_side_by_side(outcomes):
     """Each panel's line is that outcome's RR(x) (the curve object itself)."""
-    figure = gallery._outcome_curves(outcomes, UNIT)
+    figure = gallery._outcome_curves(outcomes.outcomes, UNIT)
     axes = [ax for ax in figure.axes if ax.get_visible()]
     assert len(axes) == len(outcomes.outcomes) == 2
     for ax, (name, r) in zip(axes, outcomes.outcomes):

@@ -101,7 +101,7 @@ def test_exposure_figure_draws_every_family_tried(best):
     d = best.to_dict()
     fits = d["exposure"]["fits"]
     assert sorted(f["family"] for f in fits) == ["gamma", "lognormal", "weibull"]
-    ax = gallery._exposure(best, UNIT).axes[0]
+    ax = gallery._exposure(best.exposure_section, UNIT).axes[0]
     lines = lines_by_gid(ax)
     for f in fits:
         gid = "fitted-density" if f["family"] == d["exposure"]["family"] else \
@@ -159,7 +159,7 @@ def test_qq_panels_one_per_family(best):
     (scipy.stats ppf, reference library) at the censored-data plotting
     positions; non-detects are drawn at their limit."""
     d = best.to_dict()
-    figure = gallery._qq(best, UNIT)
+    figure = gallery._qq(best.exposure_section, UNIT)
     axes = figure.axes
     fits = d["exposure"]["fits"]
     assert len(axes) == len(fits) == 3
@@ -251,7 +251,7 @@ def test_empirical_figure_has_no_fitted_density(empirical):
     """Weighted bars of all the values (areas sum to 1), no density used;
     families fitted for comparison only are dotted and equal the scipy.stats
     pdf with their parameters."""
-    ax = gallery._exposure(empirical, UNIT).axes[0]
+    ax = gallery._exposure(empirical.exposure_section, UNIT).axes[0]
     lines = lines_by_gid(ax)
     assert "fitted-density" not in lines
     bars = [p for p in ax.patches if p.get_gid() == "data-hist"]
@@ -266,7 +266,7 @@ def test_empirical_figure_has_no_fitted_density(empirical):
         np.testing.assert_allclose(line.get_ydata(),
                                    scipy_family(f["family"], f["parameters"]).pdf(
                                        line.get_xdata()), rtol=1e-9, atol=1e-300)
-    assert gallery._qq(empirical, UNIT) is None  # no fitted family to compare with
+    assert gallery._qq(empirical.exposure_section, UNIT) is None  # no fitted family to compare with
 
 
 # -- work histories ----------------------------------------------------------
@@ -309,7 +309,7 @@ def test_workers_csv_and_histogram(histories):
         assert float(r["cumulative"]) == pytest.approx(expected[r["worker"]], rel=1e-12)
     read_back = [{k: v if k == "worker" else float(v) for k, v in r.items()} for r in rows]
     assert read_back == d["workers"]  # the CSV and results.json agree exactly
-    ax = gallery._workers(histories, d, "mg/m3-years").axes[0]
+    ax = gallery._workers(histories.exposure_section, "mg/m3-years").axes[0]
     bars = [p for p in ax.patches if p.get_gid() == "cumulative-hist"] or ax.patches
     heights = [p.get_height() for p in bars]
     counts, _ = np.histogram(list(expected.values()), bins=len(bars))
@@ -333,6 +333,9 @@ def test_banded_exposure_bars_and_no_qq():
     the open top band is named in the legend with its share, and the
     fitted density equals scipy.stats.gamma's pdf (reference library). No
     Q-Q plot: banded data have no individual values."""
+    from test_outputs_cases import make_curve
+
+    from doseattr.analysis.assemble import exposure_section
     from doseattr.core.exposure.summary import fit_bins
 
     lower = np.array([0.0, 5.0, 10.0, 20.0, 40.0])
@@ -354,5 +357,6 @@ def test_banded_exposure_bars_and_no_qq():
     np.testing.assert_allclose(line.get_ydata(),
                                stats.gamma(a=shape, scale=scale).pdf(line.get_xdata()),
                                rtol=1e-9, atol=1e-300)
-    results = type("R", (), {"exposure": ex})()
-    assert gallery._qq(results, UNIT) is None
+    section = exposure_section(make_curve(), ex, comparison=(), substitution=(),
+                               worker_totals=None, parametric=())
+    assert gallery._qq(section, UNIT) is None

@@ -243,3 +243,17 @@ def test_plot_curve_power_without_offset_leaves_zero_out():
     x, y = line.get_xdata(), line.get_ydata()
     assert 0.0 < x[0] < 0.1 and x[-1] == 60.0
     np.testing.assert_allclose(y, (np.minimum(x, 50.0) / 2.0) ** 0.3, rtol=1e-12)
+
+
+def test_plot_curve_names_a_fitted_curve_from_its_fit_record(results):
+    """The legend says "fitted curve" for a curve carrying the diagnostics
+    of its fit to the study's bands (``Curve.fit``), "curve" for one
+    entered from a publication (no fit)."""
+    from doseattr.core.curves.published import published_curve
+
+    assert results.curve.fit is not None
+    ax = figures.plot_curve(results.curve, results.band_table, unit=UNIT)
+    assert by_gid(ax, "fitted-rr").get_label() == "fitted curve"
+    entered = published_curve("log-linear", rr=1.2, per=10.0, ci=(1.1, 1.3))
+    assert entered.fit is None
+    assert by_gid(figures.plot_curve(entered, unit=UNIT), "fitted-rr").get_label() == "curve"

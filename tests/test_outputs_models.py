@@ -81,7 +81,7 @@ def test_model_panels_draw_each_model_with_the_band_estimates(spline):
     """One panel per model: its line is that model's RR(x) (the curve
     object itself), its title gives the model's PAF, and the study's band
     estimates sit at the doses that model was fitted at."""
-    figure = gallery._models(spline, UNIT)
+    figure = gallery._models(spline.curve_section, spline.exposure, UNIT)
     axes = [ax for ax in figure.axes if ax.get_visible()]
     variants = spline.model_comparison
     assert len(axes) == len(variants)
@@ -99,7 +99,7 @@ def test_model_panels_draw_each_model_with_the_band_estimates(spline):
 
 
 def test_curve_figure_overlays_the_other_models(spline):
-    figure = gallery._curve(spline, UNIT)
+    figure = gallery._curve(spline.curve_section, spline.exposure, UNIT)
     ax = figure.axes[0]
     np.testing.assert_allclose(gid_line(ax, "fitted-rr").get_ydata(),
                                spline.curve.rr(gid_line(ax, "fitted-rr").get_xdata()), rtol=1e-12)
@@ -110,6 +110,10 @@ def test_curve_figure_overlays_the_other_models(spline):
         ok = np.isfinite(y)  # a power curve without offset has no RR at dose 0
         np.testing.assert_allclose(y[ok], v.curve.rr(x[ok]), rtol=1e-12)
         assert line.get_linestyle() == "--"
+    # the model the analysis used (CurveVariant.used) is the solid line, not repeated dashed
+    used = [v.label for v in spline.model_comparison if v.used]
+    assert used == ["spline"]
+    assert not [ln for ln in ax.get_lines() if ln.get_gid() == f"model-{used[0]}"]
 
 
 def test_model_table_gives_each_models_paf_and_fit(spline):

@@ -1,6 +1,6 @@
 """Figures of attributable and averted cases, with their intervals.
 
-Each function takes plain numbers (read from the results dictionary by the
+Each function takes plain numbers (read from the burden record by the
 caller), draws on the given axes or a new figure, and returns the axes.
 Bars carry ``gid="<prefix>-bars"`` and interval whiskers
 ``gid="<prefix>-whiskers"`` (a line collection, one segment per bar from
@@ -9,18 +9,27 @@ the lower to the upper limit), so tests can read back what was drawn.
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from doseattr.outputs.style import COLORS, new_axes, styled
 
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
 
-def plot_bars(names: Sequence[str], estimate: Sequence[float], ax=None, *,
+#: Mark after the name of a stratum whose fractions use its own exposure.
+OWN_MARK = "\u2020"
+#: Legend note explaining :data:`OWN_MARK`.
+OWN_NOTE = f"{OWN_MARK} own exposure from the burden table"
+
+
+def plot_bars(names: Sequence[str], estimate: Sequence[float], ax: Axes | None = None, *,
               lower: Sequence[float | None] | None = None,
               upper: Sequence[float | None] | None = None,
               xlabel: str = "Cases", title: str = "", color: str = COLORS["burden"],
-              prefix: str = "strata"):
+              prefix: str = "strata") -> Axes:
     """Horizontal bars, first name at the top, with interval whiskers
     wherever both limits are given."""
     with styled():
@@ -46,20 +55,45 @@ def plot_bars(names: Sequence[str], estimate: Sequence[float], ax=None, *,
     return ax
 
 
-def plot_strata(names: Sequence[str], estimate: Sequence[float], ax=None, *,
+def plot_strata(names: Sequence[str], estimate: Sequence[float], ax: Axes | None = None, *,
                 lower: Sequence[float | None] | None = None,
                 upper: Sequence[float | None] | None = None,
-                xlabel: str = "Attributable cases", title: str = "By stratum"):
+                own: Sequence[bool] | None = None,
+                xlabel: str = "Attributable cases", title: str = "By stratum") -> Axes:
     """Attributable cases per stratum (``gid="strata-bars"`` and
-    ``"strata-whiskers"``)."""
-    return plot_bars(names, estimate, ax, lower=lower, upper=upper, xlabel=xlabel,
-                     title=title, prefix="strata")
+    ``"strata-whiskers"``).
+
+    A stratum flagged in ``own`` (its fractions use its own exposure, not
+    the shared one) gets :data:`OWN_MARK` after its name and the legend
+    explains the mark (:data:`OWN_NOTE`), so the figure does not suggest
+    that every stratum shares one distribution.
+    """
+    flags = [False] * len(names) if own is None else [bool(o) for o in own]
+    labels = [f"{n} {OWN_MARK}" if o else str(n) for n, o in zip(names, flags)]
+    ax = plot_bars(labels, estimate, ax, lower=lower, upper=upper, xlabel=xlabel,
+                   title=title, prefix="strata")
+    if any(flags):
+        _note_below(ax, OWN_NOTE)
+    return ax
 
 
-def plot_averted(names: Sequence[str], estimate: Sequence[float], ax=None, *,
+def _note_below(ax: Axes, text: str) -> None:
+    """``text`` as a one-line legend under the x-axis label, left-aligned
+    with the axes (36 points down clears the tick labels and the label)."""
+    from matplotlib.transforms import ScaledTranslation
+
+    with styled():
+        note = ax.plot([], [], " ", label=text)
+        below = ax.transAxes + ScaledTranslation(0.0, -36.0 / 72.0, ax.figure.dpi_scale_trans)
+        ax.legend(handles=note, loc="upper left", bbox_to_anchor=(0.0, 0.0),
+                  bbox_transform=below, borderaxespad=0.0, borderpad=0.0,
+                  handlelength=0.0, handletextpad=0.0)
+
+
+def plot_averted(names: Sequence[str], estimate: Sequence[float], ax: Axes | None = None, *,
                  lower: Sequence[float | None] | None = None,
                  upper: Sequence[float | None] | None = None,
-                 xlabel: str = "Cases", title: str = "By scenario"):
+                 xlabel: str = "Cases", title: str = "By scenario") -> Axes:
     """Cases attributable (all exposure above the minimum-risk level, first
     bar) and averted by each scenario (``gid="scenario-bars"`` and
     ``"scenario-whiskers"``)."""

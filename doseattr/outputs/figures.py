@@ -8,21 +8,42 @@ matplotlib is imported inside the functions, on the Agg backend.
 
 from __future__ import annotations
 
-from typing import Any, Sequence
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike, NDArray
 
+from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.curves.base import Curve
-from doseattr.core.exposure.base import Exposure
+from doseattr.core.exposure.base import Exposure, ExposureFit, Family
+from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import ModelError
-from doseattr.outputs.bands import band_arrays
-from doseattr.outputs.style import COLORS, CYCLE, axis_label, new_axes, outside_legend, styled
+from doseattr.outputs.style import (
+    COLORS,
+    CYCLE,
+    axis_label,
+    new_axes,
+    outside_legend,
+    styled,
+)
+from doseattr.results.records import BandTable
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+
+#: A fitted exposure distribution or the weighted values themselves.
+AnyExposure = Exposure | EmpiricalExposure
+FloatArray = NDArray[np.float64]
 
 #: Number of points on plotted curves.
 GRID_POINTS = 400
 
 
-def curve_extent(curve: Curve, band_table: Any = None, exposure: Exposure | None = None) -> float:
+def curve_extent(curve: Curve, band_table: BandTable | None = None,
+                 exposure: AnyExposure | None = None) -> float:
     """Upper end of a dose axis that shows the curve's data and its flat part.
 
     The largest of: 1.25 x ``max_dose``, 1.25 x ``data_max``, 1.1 x the
@@ -33,9 +54,9 @@ def curve_extent(curve: Curve, band_table: Any = None, exposure: Exposure | None
     for value, factor in ((curve.max_dose, 1.25), (curve.data_max, 1.25)):
         if value is not None and np.isfinite(value):
             candidates.append(factor * value)
-    bands = band_arrays(band_table)
-    if bands is not None:
-        finite = np.concatenate([bands["dose"], bands["upper"][np.isfinite(bands["upper"])]])
+    if band_table is not None:
+        dose, upper = _floats(band_table.dose), _upper(band_table)
+        finite = np.concatenate([dose, upper[np.isfinite(upper)]])
         if finite.size:
             candidates.append(1.1 * float(np.nanmax(finite)))
     if exposure is not None:
@@ -44,31 +65,42 @@ def curve_extent(curve: Curve, band_table: Any = None, exposure: Exposure | None
     return top if top > 0 else 1.0
 
 
-def exposure_quantile(exposure: Exposure, q: float) -> float:
+def _floats(values: ArrayLike) -> FloatArray:
+    return np.asarray(values, dtype=float)
+
+
+def _upper(bands: BandTable) -> FloatArray:
+    """Upper band limits, ``inf`` for an open-ended band."""
+    upper = _floats(bands.upper)
+    return np.where(np.isnan(upper), np.inf, upper)
+
+
+def exposure_quantile(exposure: AnyExposure, q: float) -> float:
     """Quantile ``q`` of the population exposure (point mass included)."""
     u = exposure.unexposed
     if q <= u:
         return 0.0
-    if is_empirical(exposure):
+    if isinstance(exposure, EmpiricalExposure):
         return weighted_quantile(exposure.values, exposure.weights, (q - u) / (1 - u))
     return _scalar(exposure.family.ppf(np.array([(q - u) / (1 - u)]), exposure.params))
 
 
-def weighted_quantile(values, weights, q: float) -> float:
+def weighted_quantile(values: ArrayLike, weights: ArrayLike, q: float) -> float:
     """Smallest value whose weighted cumulative share reaches ``q``."""
     order = np.argsort(values)
     v = np.asarray(values, float)[order]
     cum = np.cumsum(np.asarray(weights, float)[order])
-    return float(v[min(np.searchsorted(cum / cum[-1], q), v.size - 1)])
+    return float(v[min(int(np.searchsorted(cum / cum[-1], q)), v.size - 1)])
 
 
-def _scalar(value) -> float:
+def _scalar(value: ArrayLike) -> float:
     return float(np.asarray(value, dtype=float).reshape(-1)[0])
 
 
-def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None = None, *,
-               x_max: float | None = None, level: float = 0.95, label: str | None = None,
-               title: str = "Relative risk by exposure", legend: bool = True):
+def plot_curve(curve: Curve, band_table: BandTable | None = None, ax: Axes | None = None,
+               unit: str | None = None, *, x_max: float | None = None, level: float = 0.95,
+               label: str | None = None, title: str = "Relative risk by exposure",
+               legend: bool = True) -> Axes:
     """Fitted RR curve with its pointwise band and the study's band estimates.
 
     Draws RR(x) (``gid="fitted-rr"``), the pointwise ``level`` interval from
@@ -76,7 +108,8 @@ def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None =
     their assigned doses with their CIs (``gid="study-bands"``), and dotted
     vertical lines at ``max_dose`` (``gid="max-dose"``) and, when different,
     at ``data_max`` (``gid="data-max"``). ``legend=False`` leaves the
-    legend out (small panels).
+    legend out (small panels). The line is called "fitted curve" when the
+    curve carries the diagnostics of a fit to the study's bands.
     """
     with styled():
         ax = new_axes(ax)
@@ -85,7 +118,7 @@ def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None =
         rr, lo, hi = _curve_values(curve, x, level)
         ax.fill_between(x, lo, hi, color=COLORS["band"], alpha=0.35, linewidth=0,
                         label=f"pointwise {level:.0%} interval", gid="rr-band")
-        default = "fitted curve" if curve.source == "fitted" else "curve"
+        default = "fitted curve" if curve.fit is not None else "curve"
         ax.plot(x, rr, color=COLORS["curve"], linewidth=2, label=label or default,
                 gid="fitted-rr")
         _draw_bands(ax, band_table, level)
@@ -100,7 +133,7 @@ def plot_curve(curve: Curve, band_table: Any = None, ax=None, unit: str | None =
     return ax
 
 
-def dose_grid(curve: Curve, top: float) -> np.ndarray:
+def dose_grid(curve: Curve, top: float) -> FloatArray:
     """Doses from 0 to ``top``; from just above 0 when the model has no
     finite RR at zero dose (a power curve without offset refuses it)."""
     try:
@@ -112,16 +145,22 @@ def dose_grid(curve: Curve, top: float) -> np.ndarray:
     return np.linspace(start, top, GRID_POINTS)
 
 
-def _curve_values(curve: Curve, x: np.ndarray, level: float):
+def _curve_values(curve: Curve, x: FloatArray,
+                  level: float) -> tuple[FloatArray, FloatArray, FloatArray]:
     """RR and its pointwise interval at ``x``; NaN (a gap in the line) where
     the model has no finite value, e.g. a power curve without offset at
     zero dose, whose log RR is minus infinity there."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        values = curve.rr_interval(x, level=level)
-    return tuple(np.where(np.isfinite(v) & (v > 0), v, np.nan) for v in values)
+        rr, lo, hi = curve.rr_interval(x, level=level)
+    return _finite_rr(rr), _finite_rr(lo), _finite_rr(hi)
 
 
-def add_curve(ax, curve: Curve, *, color: str, label: str, x_max: float | None = None):
+def _finite_rr(v: FloatArray) -> FloatArray:
+    return np.where(np.isfinite(v) & (v > 0), v, np.nan)
+
+
+def add_curve(ax: Axes, curve: Curve, *, color: str, label: str,
+              x_max: float | None = None) -> Axes:
     """Add another curve's RR line to an existing curve plot (model comparison)."""
     x = dose_grid(curve, x_max if x_max is not None else ax.get_xlim()[1])
     ax.plot(x, _curve_values(curve, x, 0.95)[0], color=color, linewidth=1.6, linestyle="--",
@@ -130,24 +169,24 @@ def add_curve(ax, curve: Curve, *, color: str, label: str, x_max: float | None =
     return ax
 
 
-def _draw_bands(ax, band_table: Any, level: float) -> None:
-    bands = band_arrays(band_table)
+def _draw_bands(ax: Axes, bands: BandTable | None, level: float) -> None:
     if bands is None:
         return
-    ref = bands["reference"]
-    dose, rr = bands["dose"][~ref], bands["rr"][~ref]
-    lo, hi = bands["ci_lower"][~ref], bands["ci_upper"][~ref]
+    ref = np.asarray(bands.reference, bool)
+    all_dose, all_rr = _floats(bands.dose), _floats(bands.rr)
+    dose, rr = all_dose[~ref], all_rr[~ref]
+    lo, hi = _floats(bands.ci_lower)[~ref], _floats(bands.ci_upper)[~ref]
     has_ci = np.isfinite(lo) & np.isfinite(hi)
     yerr = np.where(has_ci, np.vstack([rr - lo, hi - rr]), 0.0)
     ax.errorbar(dose, rr, yerr=yerr, fmt="o", color=COLORS["study"], markersize=5, capsize=3,
                 linewidth=1.2, label="study estimates (reported CI)", gid="study-bands", zorder=4)
     if ref.any():
-        ax.plot(bands["dose"][ref], np.ones(int(ref.sum())), "o", markerfacecolor="white",
+        ax.plot(all_dose[ref], np.ones(int(ref.sum())), "o", markerfacecolor="white",
                 markeredgecolor=COLORS["study"], markersize=5, label="reference band",
                 gid="reference-band", zorder=4)
 
 
-def _draw_dose_limits(ax, curve: Curve, unit: str | None) -> None:
+def _draw_dose_limits(ax: Axes, curve: Curve, unit: str | None) -> None:
     u = f" {unit}" if unit else ""
     if curve.max_dose is not None:
         ax.axvline(curve.max_dose, color=COLORS["limit"], linestyle=":", linewidth=1.2,
@@ -157,15 +196,15 @@ def _draw_dose_limits(ax, curve: Curve, unit: str | None) -> None:
                    label=f"end of the study's data, {curve.data_max:g}{u}", gid="data-max")
 
 
-def is_empirical(exposure) -> bool:
+def is_empirical(exposure: AnyExposure) -> bool:
     """True for an exposure given as weighted values, with no fitted family."""
-    return getattr(exposure.family, "name", "") == "empirical" or not hasattr(
-        exposure.family, "logpdf")
+    return isinstance(exposure, EmpiricalExposure)
 
 
-def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
+def plot_exposure(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = None, *,
                   x_max: float | None = None, bins: int = 30, alternatives: bool = True,
-                  compare: Sequence[Exposure] = (), data_label: str = "measurements"):
+                  compare: Sequence[Exposure] = (),
+                  data_label: str = "measurements") -> Axes:
     """Exposure data (weighted histogram) against the fitted density.
 
     The histogram (``gid="data-hist"``) covers the detected values; bar
@@ -184,32 +223,21 @@ def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
     """
     with styled():
         ax = new_axes(ax)
-        data = _exposure_data(exposure.fit)
+        data = exposure_data(exposure.fit)
         top = x_max if x_max is not None else _exposure_extent(exposure, data)
-        if data is not None and "upper" in data:
-            _draw_banded(ax, data, top)
+        if data is not None and data.upper is not None:
+            _draw_banded(ax, data.values, data.upper, data.weights)
         elif data is not None:
             _draw_data(ax, data, top, bins, data_label)
-        others = exposure.alternatives if alternatives else ()
-        if not is_empirical(exposure):
-            x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
-            density = np.exp(exposure.family.logpdf(x, exposure.params))
-            used = f"fitted {exposure.family.name} density (used"
-            used += f", AIC {exposure.fit.aic:.1f})" if others and _aic(exposure.fit) else ")"
-            ax.plot(x, density, color=COLORS["density"], linewidth=2, label=used,
-                    gid="fitted-density")
-            for i, (family, params, fit) in enumerate(others):
-                aic = f" (AIC {fit.aic:.1f})" if _aic(fit) else ""
-                ax.plot(x, np.exp(family.logpdf(x, params)), color=CYCLE[i % 3],
-                        linestyle="--", linewidth=1.4, label=f"{family.name} density{aic}",
-                        gid=f"density-{family.name}")
+        x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
+        if isinstance(exposure, Exposure):
+            _draw_densities(ax, exposure, x, alternatives)
         else:
             if data is not None:
                 ax.plot([], [], " ", label="no fitted density: the PAF is a weighted\n"
                                            "mean over these values")
-            x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
             for i, other in enumerate(compare):
-                aic = f", AIC {other.fit.aic:.1f}" if _aic(other.fit) else ""
+                aic = _aic_text(other.fit, ", AIC {:.1f}")
                 ax.plot(x, np.exp(other.family.logpdf(x, other.params)), color=CYCLE[i % 3],
                         linestyle=":", linewidth=1.6,
                         label=f"{other.family.name} fit (comparison only{aic})",
@@ -225,8 +253,23 @@ def plot_exposure(exposure: Exposure, ax=None, unit: str | None = None, *,
     return ax
 
 
-def plot_qq(exposure: Exposure, ax=None, unit: str | None = None, *, family: Any = None,
-            params: Any = None, legend: bool = True):
+def _draw_densities(ax: Axes, exposure: Exposure, x: FloatArray, alternatives: bool) -> None:
+    """The density used (``gid="fitted-density"``) and, with
+    ``alternatives``, every other family tried (``gid="density-<family>"``)."""
+    others = exposure.alternatives if alternatives else ()
+    density = np.exp(exposure.family.logpdf(x, exposure.params))
+    used = f"fitted {exposure.family.name} density (used"
+    used += (_aic_text(exposure.fit, ", AIC {:.1f}") if others else "") + ")"
+    ax.plot(x, density, color=COLORS["density"], linewidth=2, label=used, gid="fitted-density")
+    for i, (family, params, fit) in enumerate(others):
+        aic = _aic_text(fit, " (AIC {:.1f})")
+        ax.plot(x, np.exp(family.logpdf(x, params)), color=CYCLE[i % 3], linestyle="--",
+                linewidth=1.4, label=f"{family.name} density{aic}", gid=f"density-{family.name}")
+
+
+def plot_qq(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = None, *,
+            family: Family | None = None, params: FloatArray | None = None,
+            legend: bool = True) -> Axes:
     """Quantile-quantile plot of the measurements against the fitted family.
 
     Plotting positions are those of regression on order statistics for
@@ -244,12 +287,12 @@ def plot_qq(exposure: Exposure, ax=None, unit: str | None = None, *, family: Any
 
     from doseattr.core.exposure.nondetects import ros_plotting_positions
 
-    data = _exposure_data(exposure.fit)
-    if data is None or is_empirical(exposure) or "upper" in data:
+    data = exposure_data(exposure.fit)
+    if data is None or not isinstance(exposure, Exposure) or data.upper is not None:
         raise ValueError("a Q-Q plot needs measurements (not bands) fitted by a family")
     with styled():
         ax = new_axes(ax, size=(5.2, 4.4))
-        values, det = data["values"], data["detected"]
+        values, det = data.values, data.detected
         pos = ros_plotting_positions(values, det)
         family = exposure.family if family is None else family
         params = exposure.params if params is None else params
@@ -280,12 +323,26 @@ def plot_qq(exposure: Exposure, ax=None, unit: str | None = None, *, family: Any
     return ax
 
 
-def _aic(fit) -> bool:
-    return getattr(fit, "aic", None) is not None
+def _aic_text(fit: ExposureFit | None, template: str) -> str:
+    """``template`` filled with the fit's AIC; empty without one."""
+    return "" if fit is None or fit.aic is None else template.format(fit.aic)
 
 
-def _exposure_data(fit) -> dict | None:
-    if fit is None or getattr(fit, "values", None) is None:
+@dataclass(frozen=True, eq=False)
+class ExposureData:
+    """The data an exposure was fitted to, as plotted: the values (lower
+    band limits for counts in bands), which were detected, their weights
+    (counts for bands) and, for counts in bands, the upper limits."""
+
+    values: FloatArray
+    detected: NDArray[np.bool_]
+    weights: FloatArray
+    upper: FloatArray | None = None
+
+
+def exposure_data(fit: ExposureFit | None) -> ExposureData | None:
+    """The fitted data of ``fit``, or ``None`` when it kept none."""
+    if fit is None or fit.values is None:
         return None
     values = np.asarray(fit.values, dtype=float)
     if values.size == 0:
@@ -293,30 +350,29 @@ def _exposure_data(fit) -> dict | None:
     mask = fit.detected_mask
     detected = np.ones(values.shape, bool) if mask is None else np.asarray(mask, bool)
     weights = np.ones(values.shape) if fit.weights is None else np.asarray(fit.weights, float)
-    data = {"values": values, "detected": detected, "weights": weights}
-    if getattr(fit, "upper", None) is not None:  # banded data: (values, upper] per count
-        data["upper"] = np.asarray(fit.upper, dtype=float)
-    return data
+    # banded data: (values, upper] per count
+    upper = None if fit.upper is None else np.asarray(fit.upper, dtype=float)
+    return ExposureData(values, detected, weights, upper)
 
 
-def is_banded(fit) -> bool:
+def is_banded(fit: ExposureFit | None) -> bool:
     """True when the exposure was fitted to counts in bands (grouped data)."""
-    return fit is not None and getattr(fit, "upper", None) is not None
+    return fit is not None and fit.upper is not None
 
 
-def _exposure_extent(exposure: Exposure, data: dict | None) -> float:
-    if is_empirical(exposure):
+def _exposure_extent(exposure: AnyExposure, data: ExposureData | None) -> float:
+    if isinstance(exposure, EmpiricalExposure):
         return float(np.max(exposure.values)) * 1.02 or 1.0
     top = _scalar(exposure.family.ppf(np.array([0.995]), exposure.params))
     if data is not None:
-        top = max(top, float(np.max(data["values"])) * 1.02)
-    if data is not None and "upper" in data:
-        finite = data["upper"][np.isfinite(data["upper"])]
+        top = max(top, float(np.max(data.values)) * 1.02)
+    if data is not None and data.upper is not None:
+        finite = data.upper[np.isfinite(data.upper)]
         top = max(top, float(finite.max()) * 1.02 if finite.size else top)
     return top
 
 
-def banded_heights(lower: np.ndarray, upper: np.ndarray, counts: np.ndarray) -> np.ndarray:
+def banded_heights(lower: FloatArray, upper: FloatArray, counts: FloatArray) -> FloatArray:
     """Bar heights of counts in bands on the density scale (NaN for an
     open-ended band, which has no width).
 
@@ -327,10 +383,10 @@ def banded_heights(lower: np.ndarray, upper: np.ndarray, counts: np.ndarray) -> 
         return np.where(np.isfinite(width), counts / (counts.sum() * width), np.nan)
 
 
-def _draw_banded(ax, data: dict, top: float) -> None:
-    """Counts in bands as bars over each band (``gid="band-bars"``); an
-    open-ended top band is named in the legend with its share."""
-    lo, hi, n = data["values"], data["upper"], data["weights"]
+def _draw_banded(ax: Axes, lo: FloatArray, hi: FloatArray, n: FloatArray) -> None:
+    """Counts ``n`` in bands ``(lo, hi]`` as bars over each band
+    (``gid="band-bars"``); an open-ended top band is named in the legend
+    with its share."""
     h = banded_heights(lo, hi, n)
     closed = np.isfinite(h)
     ax.bar(lo[closed], h[closed], width=(hi - lo)[closed], align="edge", color=COLORS["data"],
@@ -340,8 +396,9 @@ def _draw_banded(ax, data: dict, top: float) -> None:
         ax.plot([], [], " ", label=f"open band above {a:g}: {share:.1%} (not drawn)")
 
 
-def _draw_data(ax, data: dict, top: float, bins: int, what: str = "measurements") -> None:
-    values, det, w = data["values"], data["detected"], data["weights"]
+def _draw_data(ax: Axes, data: ExposureData, top: float, bins: int,
+               what: str = "measurements") -> None:
+    values, det, w = data.values, data.detected, data.weights
     edges = np.linspace(0.0, top, bins + 1)
     heights = data_histogram(values[det], w[det], edges, total_weight=float(w.sum()))
     ax.bar(edges[:-1], heights, width=np.diff(edges), align="edge", color=COLORS["data"],
@@ -355,8 +412,8 @@ def _draw_data(ax, data: dict, top: float, bins: int, what: str = "measurements"
                 gid="censored-marks")
 
 
-def data_histogram(values: np.ndarray, weights: np.ndarray, edges: np.ndarray,
-                   total_weight: float) -> np.ndarray:
+def data_histogram(values: FloatArray, weights: FloatArray, edges: FloatArray,
+                   total_weight: float) -> FloatArray:
     """Bar heights whose areas are weighted shares of ``total_weight``.
 
     .. math:: h_j = \\frac{\\sum_{i \\in j} w_i}{W (e_{j+1} - e_j)}
@@ -365,8 +422,9 @@ def data_histogram(values: np.ndarray, weights: np.ndarray, edges: np.ndarray,
     return sums / (total_weight * np.diff(edges))
 
 
-def plot_contribution(contribution, ax=None, unit: str | None = None, *,
-                      minimum_risk: float | None = None, cumulative: bool = False):
+def plot_contribution(contribution: Contribution, ax: Axes | None = None,
+                      unit: str | None = None, *, minimum_risk: float | None = None,
+                      cumulative: bool = False) -> Axes:
     """Where the attributable burden comes from along the exposure axis.
 
     Draws the density ``f(x) (RR_m(x) - 1) / E[RR_m(X)]`` held in
@@ -393,7 +451,7 @@ def plot_contribution(contribution, ax=None, unit: str | None = None, *,
             ax.plot(x, d, color=COLORS["burden"], linewidth=2,
                     label="attributable share per unit exposure", gid="burden-density")
             ax.set_ylabel(axis_label("Attributable share", f"per {unit}" if unit else None))
-        median = getattr(contribution, "median", None)
+        median = contribution.median
         if median is not None and np.isfinite(median):
             ax.axvline(median, color=COLORS["limit"], linestyle="--", linewidth=1.1,
                        label=f"half the attributable cases below {median:.3g}{u}",
@@ -410,7 +468,7 @@ def plot_contribution(contribution, ax=None, unit: str | None = None, *,
     return ax
 
 
-def plot_categorical(categorical, ax=None):
+def plot_categorical(categorical: CategoricalComparison, ax: Axes | None = None) -> Axes:
     """PAF by the multi-category formula, one bar per method, against the
     continuous PAF drawn as a horizontal line.
 
@@ -442,7 +500,7 @@ METHOD_LABELS = {
 }
 
 
-def plot_convergence(categorical, ax=None):
+def plot_convergence(categorical: CategoricalComparison, ax: Axes | None = None) -> Axes:
     """Categorical PAF with k equal-probability bands against k
     (``gid="convergence"``), with the continuous PAF as a line, in percent."""
     from matplotlib.ticker import MaxNLocator
@@ -464,9 +522,9 @@ def plot_convergence(categorical, ax=None):
     return ax
 
 
-def plot_draws(draws: Sequence[float], ax=None, *, estimate: float | None = None,
-               lower: float | None = None, upper: float | None = None,
-               what: str = "PAF"):
+def plot_draws(draws: Sequence[float] | FloatArray, ax: Axes | None = None, *,
+               estimate: float | None = None, lower: float | None = None,
+               upper: float | None = None, what: str = "PAF") -> Axes:
     """Histogram of Monte Carlo draws of a fraction, in percent
     (``gid="draws-hist"``), with the estimate and interval limits marked."""
     with styled():
@@ -490,7 +548,8 @@ def plot_draws(draws: Sequence[float], ax=None, *, estimate: float | None = None
     return ax
 
 
-def plot_cumulative(values: Sequence[float], ax=None, unit: str | None = None):
+def plot_cumulative(values: Sequence[float], ax: Axes | None = None,
+                    unit: str | None = None) -> Axes:
     """Histogram of workers' cumulative exposures (``gid="cumulative-hist"``)."""
     with styled():
         ax = new_axes(ax, size=(6.0, 3.2))
@@ -503,7 +562,7 @@ def plot_cumulative(values: Sequence[float], ax=None, unit: str | None = None):
     return ax
 
 
-def _xlim_from_zero(ax: Any, top: float) -> None:
+def _xlim_from_zero(ax: Axes, top: float) -> None:
     """Start the exposure axis at zero; leave matplotlib's limits when the
     top is not a positive finite number (a distribution concentrated at
     zero), where a zero-width axis would be singular."""

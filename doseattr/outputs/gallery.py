@@ -1,47 +1,64 @@
 """Every figure of the report, rendered once to PNG bytes.
 
-:func:`render_figures` reads a ``Results`` object and returns
-``{name: png_bytes}``; the report embeds them and :func:`write_outputs`
-also saves them as files. Figures whose inputs are absent are skipped.
+:func:`render_figures` reads a :class:`~doseattr.results.run.Results` and
+returns ``{name: png_bytes}``; the report embeds them and
+:func:`write_outputs` also saves them as files. Each figure is built from
+one section record of the results; figures whose inputs are absent are
+skipped.
 """
 
 from __future__ import annotations
 
-from typing import Any, Callable
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import NDArray
 
+from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.curves.base import Curve
 from doseattr.outputs import burden_figures as bf
 from doseattr.outputs import figures as fig
+from doseattr.outputs.figures import AnyExposure
 from doseattr.outputs.markup import pct
 from doseattr.outputs.model_figures import Panel, bands_with_doses, plot_curve_panels
-from doseattr.outputs.records import burden_blocks, estimate_of, scenario_effects, workers_source
 from doseattr.outputs.style import png_bytes, pyplot, styled
-from doseattr.outputs.tables import workers_table
+from doseattr.results.estimate import Estimate
+from doseattr.results.records import (
+    AttributionSection,
+    BurdenResult,
+    CurveSection,
+    ExposureSection,
+    StratumResult,
+    UncertaintySection,
+)
+from doseattr.results.run import Results
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
 #: File names (without ``.png``) in report order.
 FIGURE_NAMES = ("curve", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
                 "categorical", "paf_draws", "burden")
 
 
-def render_figures(results: Any, data: dict | None = None) -> dict[str, bytes]:
-    """PNG bytes of every figure the results support, keyed by name.
-
-    ``data`` is ``results.to_dict()`` when the caller already has it.
-    """
-    data = results.to_dict() if data is None else data
-    unit = data.get("unit")
-    makers: dict[str, Callable[[], Any]] = {
-        "curve": lambda: _curve(results, unit),
-        "models": lambda: _models(results, unit),
-        "outcome_curves": lambda: _outcome_curves(results, unit),
-        "exposure": lambda: _exposure(results, unit),
-        "qq": lambda: _qq(results, unit),
-        "workers": lambda: _workers(results, data, unit),
-        "contribution": lambda: _contribution(results, unit),
-        "categorical": lambda: _categorical(results),
-        "paf_draws": lambda: _paf_draws(results),
-        "burden": lambda: _burden(data),
+def render_figures(results: Results) -> dict[str, bytes]:
+    """PNG bytes of every figure the results support, keyed by name."""
+    unit = results.unit
+    curve, exposure = results.curve_section, results.exposure_section
+    makers: dict[str, Callable[[], Figure | None]] = {
+        "curve": lambda: _curve(curve, exposure.exposure, unit),
+        "models": lambda: _models(curve, exposure.exposure, unit),
+        "outcome_curves": lambda: _outcome_curves(results.outcomes, unit),
+        "exposure": lambda: _exposure(exposure, unit),
+        "qq": lambda: _qq(exposure, unit),
+        "workers": lambda: _workers(exposure, unit),
+        "contribution": lambda: _contribution(results.attribution, exposure.is_empirical, unit),
+        "categorical": lambda: _categorical(results.categorical),
+        "paf_draws": lambda: _paf_draws(results.uncertainty, results.attribution.paf),
+        "burden": lambda: _burden(burden_blocks(results)),
     }
     out = {}
     for name in FIGURE_NAMES:
@@ -51,20 +68,26 @@ def render_figures(results: Any, data: dict | None = None) -> dict[str, bytes]:
     return out
 
 
-def _curve(results: Any, unit: str | None):
+def _figure(ax: Axes) -> Figure:
+    """The figure a plot function drew ``ax`` on (a plain figure, never a
+    subfigure)."""
+    from matplotlib.figure import Figure
+
+    figure = ax.figure
+    assert isinstance(figure, Figure)
+    return figure
+
+
+def _curve(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Figure:
     """The analysis's curve with its band and the study's estimates, and
     every other model of ``compare_models`` as a dashed line."""
-    curve = getattr(results, "curve", None)
-    if curve is None:
-        return None
-    band_table = getattr(results, "band_table", None)
-    top = fig.curve_extent(curve, band_table, getattr(results, "exposure", None))
-    ax = fig.plot_curve(curve, band_table, unit=unit, x_max=top)
+    top = fig.curve_extent(section.curve, section.bands, exposure)
+    ax = fig.plot_curve(section.curve, section.bands, unit=unit, x_max=top)
     with styled():
-        for i, (label, other) in enumerate(other_models(results)):
+        for i, (label, other) in enumerate(other_models(section)):
             fig.add_curve(ax, other, color=MODEL_COLORS[i % len(MODEL_COLORS)], label=label,
                           x_max=top)
-    return ax.figure
+    return _figure(ax)
 
 
 #: Line colours of the other models on the curve plot: the Okabe-Ito
@@ -72,69 +95,64 @@ def _curve(results: Any, unit: str | None):
 MODEL_COLORS = ("#E69F00", "#009E73", "#CC79A7", "#000000")
 
 
-def other_models(results: Any) -> list[tuple[str, Any]]:
-    """``(label, curve)`` of every model in ``results.model_comparison``
-    other than the analysis's own curve (variants that failed have none)."""
-    main = getattr(results, "curve", None)
-    return [(str(v.label), v.curve) for v in getattr(results, "model_comparison", ()) or ()
-            if v.curve is not None and v.curve is not main]
+def other_models(section: CurveSection) -> list[tuple[str, Curve]]:
+    """``(label, curve)`` of every model in ``section.model_comparison``
+    other than the one the analysis used (variants that failed have none)."""
+    return [(str(v.label), v.curve) for v in section.model_comparison
+            if v.curve is not None and not v.used]
 
 
-def model_panels(results: Any) -> list[Panel]:
+def model_panels(section: CurveSection) -> list[Panel]:
     """One panel per model of ``compare_models`` that could be fitted, with
     the study's bands at the doses that model was fitted at."""
-    variants = [v for v in getattr(results, "model_comparison", ()) or () if v.curve is not None]
+    variants = [(v, v.curve) for v in section.model_comparison if v.curve is not None]
     if len(variants) < 2:
         return []
-    bands = getattr(results, "band_table", None)
-    return [Panel(f"{v.label}: PAF {pct(v.paf)}", v.curve, bands_with_doses(bands, v.doses))
-            for v in variants]
+    return [Panel(f"{v.label}: PAF {pct(v.paf)}", curve, bands_with_doses(section.bands, v.doses))
+            for v, curve in variants]
 
 
-def _models(results: Any, unit: str | None):
-    panels = model_panels(results)
+def _models(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Figure | None:
+    panels = model_panels(section)
     if not panels:
         return None
-    top = fig.curve_extent(results.curve, getattr(results, "band_table", None),
-                           getattr(results, "exposure", None))
+    top = fig.curve_extent(section.curve, section.bands, exposure)
     return plot_curve_panels(panels, unit, x_max=top)
 
 
-def outcome_panels(results: Any) -> list[Panel]:
+def outcome_panels(outcomes: Sequence[tuple[str, Results]]) -> list[Panel]:
     """One panel per ``[[outcome]]``: its curve and its study's bands."""
-    outcomes = getattr(results, "outcomes", ()) or ()
     if len(outcomes) < 2:
         return []
-    return [Panel(f"{name}: PAF {pct(r.paf.estimate)}", r.curve, getattr(r, "band_table", None))
+    return [Panel(f"{name}: PAF {pct(r.attribution.paf.estimate)}", r.curve_section.curve,
+                  r.curve_section.bands)
             for name, r in outcomes]
 
 
-def _outcome_curves(results: Any, unit: str | None):
-    panels = outcome_panels(results)
+def _outcome_curves(outcomes: Sequence[tuple[str, Results]], unit: str | None) -> Figure | None:
+    panels = outcome_panels(outcomes)
     return plot_curve_panels(panels, unit) if panels else None
 
 
-def _exposure(results: Any, unit: str | None):
-    exposure = getattr(results, "exposure", None)
-    if exposure is None:
-        return None
-    compare = getattr(results, "parametric_fits", ()) if fig.is_empirical(exposure) else ()
-    label = ("workers' cumulative exposures" if getattr(results, "workers", None) is not None
+def _exposure(section: ExposureSection, unit: str | None) -> Figure:
+    compare = section.parametric_fits if section.is_empirical else ()
+    label = ("workers' cumulative exposures" if section.workers is not None
              else "measurements")
-    return fig.plot_exposure(exposure, unit=unit, compare=compare, data_label=label).figure
+    ax = fig.plot_exposure(section.exposure, unit=unit, compare=compare, data_label=label)
+    return _figure(ax)
 
 
-def _qq(results: Any, unit: str | None):
+def _qq(section: ExposureSection, unit: str | None) -> Figure | None:
     """Q-Q plot of the measurements against the family used, and beside it
     against every other family tried (``family = "best"``)."""
-    exposure = getattr(results, "exposure", None)
-    fit = getattr(exposure, "fit", None)
-    if (exposure is None or fig.is_empirical(exposure) or fit is None or fig.is_banded(fit)
-            or getattr(fit, "values", None) is None or fit.loglik is None or fit.n < 3):
+    exposure = section.exposure
+    fit = exposure.fit
+    if (section.is_empirical or fit is None or fig.is_banded(fit) or fit.values is None
+            or fit.loglik is None or fit.n < 3):
         return None
     others = list(exposure.alternatives)
     if not others:
-        return fig.plot_qq(exposure, unit=unit).figure
+        return _figure(fig.plot_qq(exposure, unit=unit))
     plt = pyplot()
     n = 1 + len(others)
     with styled():
@@ -146,30 +164,23 @@ def _qq(results: Any, unit: str | None):
     return figure
 
 
-def _workers(results: Any, data: dict, unit: str | None):
-    table = workers_table(workers_source(results, data))
-    if table is None:
+def _workers(section: ExposureSection, unit: str | None) -> Figure | None:
+    workers = section.workers
+    if workers is None or not workers.cumulative:
         return None
-    header, rows = table
-    values = [r[header.index("cumulative")] for r in rows]
-    return fig.plot_cumulative(values, unit=unit).figure
+    return _figure(fig.plot_cumulative(list(workers.cumulative), unit=unit))
 
 
-def _contribution(results: Any, unit: str | None):
-    contribution = getattr(results, "contribution", None)
-    if contribution is None:
-        return None
-    empirical = fig.is_empirical(results.exposure)
-    ax = fig.plot_contribution(contribution, unit=unit,
-                               minimum_risk=getattr(results, "minimum_risk", None),
-                               cumulative=empirical)
-    return ax.figure
+def _contribution(attribution: AttributionSection, empirical: bool,
+                  unit: str | None) -> Figure:
+    """Where the attributable cases come from; with an empirical exposure
+    (``empirical``) as the cumulative share over the values."""
+    ax = fig.plot_contribution(attribution.contribution, unit=unit,
+                               minimum_risk=attribution.minimum_risk, cumulative=empirical)
+    return _figure(ax)
 
 
-def _categorical(results: Any):
-    cat = getattr(results, "categorical", None)
-    if cat is None:
-        return None
+def _categorical(cat: CategoricalComparison) -> Figure:
     plt = pyplot()
     with styled():
         figure, (left, right) = plt.subplots(1, 2, figsize=(8.4, 3.4), layout="constrained",
@@ -182,80 +193,126 @@ def _categorical(results: Any):
     return figure
 
 
-def paf_draws(results: Any) -> np.ndarray | None:
+def paf_draws(uncertainty: UncertaintySection | None) -> NDArray[np.float64] | None:
     """The PAF's Monte Carlo draws when uncertainty was propagated
-    (``results.propagation.paf[0]``: the single population stratum)."""
-    prop = getattr(results, "propagation", None)
-    draws = getattr(prop, "paf", None)
-    if draws is None:
+    (``uncertainty.propagation.paf[0]``: the single population stratum)."""
+    if uncertainty is None or uncertainty.propagation is None:
         return None
-    draws = np.asarray(draws, float)
+    draws = np.asarray(uncertainty.propagation.paf, float)
     draws = draws[0] if draws.ndim == 2 else draws
     return draws if draws.ndim == 1 and draws.size > 1 else None
 
 
-def _paf_draws(results: Any):
-    draws = paf_draws(results)
+def _paf_draws(uncertainty: UncertaintySection | None, paf: Estimate) -> Figure | None:
+    draws = paf_draws(uncertainty)
     if draws is None:
         return None
-    est = getattr(results, "paf", None)
-    ax = fig.plot_draws(draws, estimate=getattr(est, "estimate", None),
-                        lower=getattr(est, "lower", None), upper=getattr(est, "upper", None))
-    return ax.figure
+    ax = fig.plot_draws(draws, estimate=paf.estimate, lower=paf.lower, upper=paf.upper)
+    return _figure(ax)
 
 
-def burden_panels(data: dict) -> list[tuple[str | None, dict, list[dict]]]:
-    """Per burden block (one per outcome): ``(outcome, strata bars,
-    scenario bars)``, each bars dict holding names, estimate, lower, upper.
+def burden_blocks(results: Results) -> list[tuple[str | None, BurdenResult]]:
+    """``(outcome name or None, burden)`` for every burden table in the results.
+
+    With ``[[outcome]]`` blocks, one per outcome that has strata; the
+    top-level burden is added in front only when it is not the first
+    outcome's own (a file with its own ``[curve]`` and ``[burden]`` beside
+    the outcomes).
+    """
+    blocks: list[tuple[str | None, BurdenResult]] = [
+        (name, o.burden) for name, o in results.outcomes
+        if o.burden is not None and o.burden.strata]
+    top = results.burden
+    if top is not None and top.strata and not (blocks and top == blocks[0][1]):
+        blocks.insert(0, (None, top))
+    return blocks
+
+
+@dataclass(frozen=True)
+class Bars:
+    """One bar chart's numbers: names (top first), estimates, interval
+    limits (``None`` without an interval) and, for strata, which use their
+    own exposure."""
+
+    names: tuple[str, ...]
+    estimate: tuple[float, ...]
+    lower: tuple[float | None, ...]
+    upper: tuple[float | None, ...]
+    own: tuple[bool, ...] = ()
+
+
+@dataclass(frozen=True)
+class BurdenPanel:
+    """One burden block: its outcome (``None`` for a single curve), the
+    strata bars and the scenario bars (``None`` without scenarios)."""
+
+    outcome: str | None
+    strata: Bars
+    scenarios: Bars | None
+
+
+def burden_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[BurdenPanel]:
+    """One :class:`BurdenPanel` per burden block (one per outcome).
 
     The scenario bars start with the cases attributable to all exposure
     above the minimum-risk level, then the cases each scenario averts (in
-    total over the strata); empty when the analysis has no scenarios.
+    total over the strata).
     """
     out = []
-    for outcome, burden in burden_blocks(data):
-        strata = _bars([(s["stratum"], estimate_of(s, "attributable"))
-                        for s in burden["strata"]])
-        total = burden.get("total") or {}
-        effects = scenario_effects(total)
-        scen = []
-        if effects and all(e["averted"] for e in effects):
-            scen = _bars([("all above minimum risk", estimate_of(total, "attributable"))]
-                         + [(e["name"], e["averted"]) for e in effects])
-        out.append((outcome, strata, scen))
+    for outcome, burden in blocks:
+        strata = _bars([(s.stratum, s.attributable) for s in burden.strata],
+                       own=tuple(_own_exposure(s) for s in burden.strata))
+        total = burden.total
+        scen = None
+        if total.scenarios:
+            scen = _bars([("all above minimum risk", total.attributable)]
+                         + [(e.name, e.averted) for e in total.scenarios])
+        out.append(BurdenPanel(outcome, strata, scen))
     return out
 
 
-def _bars(items: list[tuple[Any, dict | None]]) -> dict:
-    ests = [e or {} for _, e in items]
-    return {"names": [str(n) for n, _ in items], "estimate": [e.get("estimate") for e in ests],
-            "lower": [e.get("lower") for e in ests], "upper": [e.get("upper") for e in ests]}
+def _own_exposure(stratum: StratumResult) -> bool:
+    return stratum.exposure is not None and stratum.exposure.own
 
 
-def _burden(data: dict):
+def _bars(items: Sequence[tuple[str, Estimate]], own: tuple[bool, ...] = ()) -> Bars:
+    return Bars(tuple(str(n) for n, _ in items), tuple(e.estimate for _, e in items),
+                tuple(e.lower for _, e in items), tuple(e.upper for _, e in items), own)
+
+
+def _burden(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure | None:
     """Attributable cases by stratum (left) and by scenario (right), one
-    row per outcome."""
-    panels = burden_panels(data)
+    row per outcome; a stratum with its own exposure is marked."""
+    panels = burden_panels(blocks)
     if not panels:
         return None
     plt = pyplot()
-    cols = 2 if any(scen for _, _, scen in panels) else 1
-    rows = [0.32 * max(len(st["names"]), len(sc["names"]) if sc else 0) + 1.3
-            for _, st, sc in panels]
+    cols = 2 if any(p.scenarios for p in panels) else 1
+    rows = [0.32 * max(len(p.strata.names), len(p.scenarios.names) if p.scenarios else 0) + 1.3
+            for p in panels]
     with styled():
         figure, axes = plt.subplots(len(panels), cols, squeeze=False, layout="constrained",
                                     figsize=(5.2 * cols + 0.6, sum(rows)), height_ratios=rows)
-    for row, (outcome, strata, scen) in zip(axes, panels):
-        prefix = f"{outcome}: " if outcome else ""
-        bf.plot_strata(strata["names"], strata["estimate"], row[0], lower=strata["lower"],
-                       upper=strata["upper"], title=f"{prefix}attributable cases by stratum")
+    for row, panel in zip(axes, panels):
+        prefix = f"{panel.outcome}: " if panel.outcome else ""
+        st, scen = panel.strata, panel.scenarios
+        bf.plot_strata(st.names, st.estimate, row[0], lower=st.lower, upper=st.upper,
+                       own=st.own, title=f"{prefix}attributable cases by stratum")
         if cols == 2 and scen:
-            bf.plot_averted(scen["names"], scen["estimate"], row[1], lower=scen["lower"],
-                            upper=scen["upper"], title=f"{prefix}cases by scenario (total)")
+            bf.plot_averted(scen.names, scen.estimate, row[1], lower=scen.lower,
+                            upper=scen.upper, title=f"{prefix}cases by scenario (total)")
         elif cols == 2:
             row[1].set_visible(False)
     return figure
 
 
-__all__ = ["render_figures", "FIGURE_NAMES", "paf_draws", "burden_panels", "model_panels",
-           "outcome_panels", "other_models"]
+__all__ = [
+    "FIGURE_NAMES",
+    "burden_blocks",
+    "burden_panels",
+    "model_panels",
+    "other_models",
+    "outcome_panels",
+    "paf_draws",
+    "render_figures",
+]

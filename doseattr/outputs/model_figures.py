@@ -9,14 +9,20 @@ shared dose axis and one shared RR axis so the panels compare at a glance.
 
 from __future__ import annotations
 
+import dataclasses
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from doseattr.core.curves.base import Curve
 from doseattr.outputs.figures import curve_extent, plot_curve
 from doseattr.outputs.style import pyplot, styled
+from doseattr.results.records import BandTable
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 
 @dataclass(frozen=True)
@@ -26,11 +32,11 @@ class Panel:
 
     title: str
     curve: Curve
-    bands: Any = None
+    bands: BandTable | None = None
 
 
 def plot_curve_panels(panels: Sequence[Panel], unit: str | None = None, *,
-                      x_max: float | None = None, ncols: int | None = None):
+                      x_max: float | None = None, ncols: int | None = None) -> Figure:
     """One panel per curve, with shared axes; returns the figure.
 
     ``ncols`` defaults to 2 for four panels and 3 otherwise (no row with a
@@ -57,13 +63,11 @@ def plot_curve_panels(panels: Sequence[Panel], unit: str | None = None, *,
     return fig
 
 
-def bands_with_doses(bands: Any, doses: Sequence[float] | None) -> Any:
+def bands_with_doses(bands: BandTable | None,
+                     doses: Sequence[float] | np.ndarray | None) -> BandTable | None:
     """The study's bands with another set of assigned doses (a dose rule
     or model variant was fitted at these); unchanged when ``doses`` is
     ``None`` or does not match the bands."""
-    from doseattr.outputs.bands import band_arrays
-
-    arrays = band_arrays(bands)
-    if arrays is None or doses is None or len(doses) != len(arrays["rr"]):
+    if bands is None or doses is None or len(doses) != len(bands.rr):
         return bands
-    return {**arrays, "dose": np.asarray(doses, float)}
+    return dataclasses.replace(bands, dose=np.asarray(doses, float))

@@ -277,7 +277,7 @@ def render_report(results: Any, *, images: dict[str, bytes] | None = None,
     if images is None:
         from doseattr.outputs.gallery import render_figures
 
-        images = render_figures(results, d) if figures else {}
+        images = render_figures(results) if figures else {}
     title = str(d.get("title") or "Attributable fraction analysis")
     date = date or report_date()
     sections = [

@@ -162,7 +162,7 @@ def _produce(results: Any, folder: Path, *, figures: bool,
     if callable(summary):
         (folder / "summary.txt").write_text(summary().rstrip() + "\n", encoding="utf-8")
         written.append(Path("summary.txt"))
-    images = render_figures(results, data) if figures else {}
+    images = render_figures(results) if figures else {}
     if images:
         (folder / FIGURE_FOLDER).mkdir()
         for name, png in images.items():
