@@ -8,6 +8,7 @@ from typing import Any
 
 from doseattr.analysis.schema import Context, nonnegative, only_one, suggest
 from doseattr.analysis.specs import (EFFECTIVE_COUNT_DESIGNS, FITTED_MODELS, SHAPE_KEYS,
+                                     SHAPE_MODELS,
                                      CurveSpec, DrawsCurve, EnteredCurve, PointsCurve,
                                      ShapeCurve, TableCurve)
 from doseattr.analysis.tables import (PointsTable, StudyTable, design_from_counts, read_draws_table,
@@ -25,11 +26,11 @@ def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
     if c.get("model") in SHAPE_KEYS:
         return _shape_curve(c, ctx)
     if not given:
+        shapes = " or ".join(f'"{m}"' for m in SHAPE_MODELS)
         raise InputError("[curve] needs table = \"FILE.csv\" (the study's bands), points or "
                          "draws (a curve given as a CSV), a published estimate: model with "
                          "rr (log-linear), err (linear) or exponent (power), or a published "
-                         "shape (model = \"saturating-exponential\" or "
-                         "\"log-logistic-weighted\" with its parameters)", source=ctx.source,
+                         f"shape (model = {shapes} with its parameters)", source=ctx.source,
                          location="[curve]")
     for key in ("knots", "knot_count"):
         if key in c and (c.get("model") != "spline" or "table" not in c):
