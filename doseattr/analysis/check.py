@@ -11,7 +11,7 @@ section what a run would compute. Nothing here draws or writes.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any, Callable
+from typing import Any, Callable, Literal
 
 import numpy as np
 
@@ -21,9 +21,11 @@ from doseattr.analysis.burden_run import burden_strata
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
+from doseattr.analysis.burden_table import BurdenTable
 from doseattr.analysis.specs import (BinnedExposure, DrawsCurve, EnteredCurve,
                                      HistoriesExposure, MeasuredExposure, PercentilesExposure,
                                      PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
+from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import ConvergenceError, DivergenceError, FloatRangeError, InputError
 
@@ -72,7 +74,7 @@ def check_analysis(analysis: Analysis) -> list[str]:
         The first problem found, as the run would report it.
     """
     done = prepare_all(analysis)
-    if not done.outcomes:
+    if done.top is not None and not done.outcomes:
         return describe(done.top)
     per_outcome = ("curve:", "attribution:", "burden:")
     lines = describe(done.top) if done.top is not None else [
@@ -128,18 +130,18 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
     strata = None
     if analysis.burden is not None:
         strata = burden_strata(analysis, exposure)
-        _check_strata(analysis, curve, exposure, strata)
+        _check_strata(analysis.burden.table, m, curve, exposure, strata)
     return Prepared(analysis, built_exposure, built, scenarios, strata, paf_value, pifs,
                     tuple(warnings))
 
 
-def _check_strata(analysis: Analysis, curve, shared, strata: list) -> None:
-    """A stratum with its own exposure must give a finite expected RR; the
-    error names its row of the burden table."""
+def _check_strata(table: BurdenTable, m: float, curve: Curve, shared: object,
+                  strata: list) -> None:
+    """A stratum with its own exposure must give a finite expected RR at
+    the minimum-risk level ``m``; the error names its row of the burden
+    table."""
     from doseattr.core.attribution.fractions import paf
 
-    table = analysis.burden.table
-    m = analysis.attribution.minimum_risk
     for stratum, line in zip(strata, table.lines):
         if stratum.exposure is shared:
             continue
@@ -166,7 +168,7 @@ class divergence:
     def __enter__(self) -> None:
         return None
 
-    def __exit__(self, kind, exc, tb) -> bool:
+    def __exit__(self, kind, exc, tb) -> Literal[False]:
         a = self.analysis
         if kind is not None and issubclass(kind, ConvergenceError):
             raise InputError(f"the PAF cannot be computed: {exc} (check the exposure's "
@@ -210,8 +212,8 @@ def describe(p: Prepared) -> list[str]:
     a = p.analysis
     lines = [_curve_line(a, p.built), _exposure_line(a, p.built_exposure),
              _attribution_line(a, p), _uncertainty_line(a)]
-    if p.strata is not None:
-        lines.append(_burden_line(a, p))
+    if p.strata is not None and a.burden is not None:
+        lines.append(_burden_line(a.burden.table, p.strata, p.built_exposure.exposure))
     return lines
 
 
@@ -319,10 +321,9 @@ def _uncertainty_line(a: Analysis) -> str:
     return f"uncertainty: {u.draws} Monte Carlo draws, {seed}{cases}"
 
 
-def _burden_line(a: Analysis, p: Prepared) -> str:
-    table = a.burden.table
-    own = sum(1 for s in p.strata if s.exposure is not p.built_exposure.exposure)
-    n = len(p.strata)
+def _burden_line(table: BurdenTable, strata: list, shared: object) -> str:
+    own = sum(1 for s in strata if s.exposure is not shared)
+    n = len(strata)
     return (f"burden: {n} strat{'um' if n == 1 else 'a'} of {table.source}, "
             f"{float(np.sum(table.cases)):g} observed cases in total ({own} with their own "
             "exposure)")

@@ -34,7 +34,7 @@ def curve_variants(analysis: Analysis, exposure, built: BuiltCurve, paf_value: f
         return (), ()
     main_doses = built.bands.dose
     models = [spec.model] + [m for m in spec.compare_models if m != spec.model]
-    comparison = ()
+    comparison: tuple[CurveVariant, ...] = ()
     if spec.compare_models:
         comparison = tuple(
             CurveVariant(spec.model, built.curve, paf_value, main_doses) if name == spec.model
@@ -56,7 +56,8 @@ def _variant(analysis: Analysis, spec: TableCurve, exposure, label: str,
         value = finite(paf(other.curve, exposure, minimum_risk=analysis.attribution.minimum_risk), "PAF")
     except DoseattrError as exc:
         return CurveVariant(label, None, None, None, _reason(exc))
-    return CurveVariant(label, other.curve, value, other.bands.dose)
+    return CurveVariant(label, other.curve, value,
+                        None if other.bands is None else other.bands.dose)
 
 
 # -- exposure -----------------------------------------------------------------------
@@ -68,7 +69,8 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
     from doseattr.core.attribution.fractions import paf
     from doseattr.core.exposure.base import Exposure
 
-    if not isinstance(analysis.exposure, (MeasuredExposure, HistoriesExposure)):
+    spec = analysis.exposure
+    if not isinstance(spec, (MeasuredExposure, HistoriesExposure)):
         return ()
     m = analysis.attribution.minimum_risk
     fit = exposure.fit
@@ -83,15 +85,15 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
         out.append(_exposure_variant(fam.name, other.parameters, getattr(alt, "aic", None),
                                      lambda: paf(curve, other, minimum_risk=m)))
     if not empirical_main:
-        out.append(_empirical_variant(analysis, curve, built_exposure))
+        out.append(_empirical_variant(analysis, spec, curve, built_exposure))
     return tuple(out)
 
 
-def _empirical_variant(analysis: Analysis, curve, built_exposure) -> ExposureVariant:
+def _empirical_variant(analysis: Analysis, spec: MeasuredExposure | HistoriesExposure, curve,
+                       built_exposure) -> ExposureVariant:
     from doseattr.core.attribution.fractions import paf
     from doseattr.core.exposure.empirical import empirical
 
-    spec = analysis.exposure
     if isinstance(spec, HistoriesExposure):
         values, weights, detected = built_exposure.workers.cumulative, None, None
         unexposed = 0.0

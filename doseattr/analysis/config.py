@@ -207,7 +207,8 @@ def _attribution(a: dict[str, Any], ctx: Context) -> AttributionSpec:
 
 
 def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec, ...]:
-    out, names = [], {}
+    out: list[ScenarioSpec] = []
+    names: dict[str, int] = {}
     for i, block in enumerate(blocks):
         if "name" not in block:
             raise ctx.error("missing key 'name' (a short label for the scenario)", "scenario",

@@ -84,8 +84,8 @@ def conversion(units: Units, given: str | None, section: str, ctx: Context, *,
         target = kind[1][: -len("-years")] if kind and kind[0] == "cumulative" else target
     if given is None or given.strip() == target:
         return Conversion()
-    to, frm = _kind(target), _kind(given)
-    _check_kinds(frm, to, given, target, section, ctx, intensity)
+    frm, to = _check_kinds(_kind(given), _kind(target), given, target, section, ctx,
+                           intensity)
     uses_mw = _groups_differ(frm[1], to[1])
     try:
         f = conversion_factor(_conc(frm[1]), _conc(to[1]),
@@ -113,8 +113,11 @@ def _groups_differ(a: str, b: str) -> bool:
     return CONCENTRATION_UNITS[_conc(a)][0] != CONCENTRATION_UNITS[_conc(b)][0]
 
 
-def _check_kinds(frm, to, given: str, target: str, section: str, ctx: Context,
-                 intensity: bool) -> None:
+def _check_kinds(frm: tuple[str, str] | None, to: tuple[str, str] | None, given: str,
+                 target: str, section: str, ctx: Context,
+                 intensity: bool) -> tuple[tuple[str, str], tuple[str, str]]:
+    """The kinds of ``given`` and ``target`` (``frm``, ``to``) when one
+    converts to the other; else the error that says why not."""
     from doseattr.core.exposure.units import CONCENTRATION_UNITS
 
     known = ", ".join(CONCENTRATION_UNITS)
@@ -132,6 +135,7 @@ def _check_kinds(frm, to, given: str, target: str, section: str, ctx: Context,
         raise ctx.error(f"'{given}' is a {frm[0]} unit but the file's unit '{target}' is a "
                         f"{to[0]} unit (concentration x years); they cannot be converted",
                         section, "unit")
+    return frm, to
 
 
 # -- applying a factor ---------------------------------------------------------------
