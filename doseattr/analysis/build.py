@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import dataclasses
 from contextlib import contextmanager
-from typing import TYPE_CHECKING, Any, Callable, Iterator, Union, cast
+from typing import TYPE_CHECKING, Any, Callable, Iterator, TypeAlias, cast
 
 import numpy as np
 
@@ -24,24 +24,23 @@ from doseattr.analysis.config import Analysis, ScenarioSpec
 from doseattr.analysis.csvfile import FloatArray
 from doseattr.analysis.results import BandTable
 from doseattr.analysis.schema import key_location
-from doseattr.analysis.specs import (FITTED_FAMILIES, BinnedExposure, CurveSpec, DrawsCurve,
-                                     EnteredCurve, ExposureSpec, HistoriesExposure,
-                                     MeasuredExposure, PercentilesExposure, PointsCurve,
-                                     ShapeCurve, SummaryExposure, TableCurve)
+from doseattr.analysis.specs import (FITTED_FAMILIES, BinnedExposure, DrawsCurve, EnteredCurve,
+                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
+                                     PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
 from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
 from doseattr.core.curves.base import Curve, CurveModel
 from doseattr.core.exposure.base import Exposure, Family
+from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
 
 if TYPE_CHECKING:
     from doseattr.core.curves.covariance import LogRRCovariance
     from doseattr.core.curves.doses import BandDoses
-    from doseattr.core.exposure.empirical import EmpiricalExposure
     from doseattr.core.exposure.histories import WorkerExposure
 
 #: A population's exposure: a fitted family or the weighted values.
-AnyExposure = Union[Exposure, "EmpiricalExposure"]
+AnyExposure: TypeAlias = Exposure | EmpiricalExposure
 
 
 @contextmanager
@@ -348,7 +347,7 @@ class BuiltExposure:
 
 
 #: An exposure family, or ``"best"``/``"empirical"`` (methods over values).
-FamilyChoice = Union[Family, str]
+FamilyChoice: TypeAlias = Family | str
 
 
 def build_exposure(analysis: Analysis) -> BuiltExposure:

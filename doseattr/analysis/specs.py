@@ -25,7 +25,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import date
-from typing import Any, Mapping, Union
+from typing import Any, Mapping, TypeAlias
 
 from doseattr.analysis.tables import (BinsTable, BurdenTable, DrawsTable, HistoriesTable,
                                       Measurements, PointsTable, StudyTable)
@@ -163,7 +163,7 @@ class ShapeCurve(_NoStudyTable, _Curve):
 
 
 #: What ``[curve]`` asks for: one type per source.
-CurveSpec = Union[TableCurve, EnteredCurve, PointsCurve, DrawsCurve, ShapeCurve]
+CurveSpec: TypeAlias = TableCurve | EnteredCurve | PointsCurve | DrawsCurve | ShapeCurve
 
 
 # -- exposure -----------------------------------------------------------------------
@@ -250,8 +250,8 @@ class HistoriesExposure(_Exposure):
 
 
 #: What ``[exposure]`` asks for: one type per source.
-ExposureSpec = Union[MeasuredExposure, SummaryExposure, PercentilesExposure, BinnedExposure,
-                     HistoriesExposure]
+ExposureSpec: TypeAlias = (MeasuredExposure | SummaryExposure | PercentilesExposure
+                           | BinnedExposure | HistoriesExposure)
 
 
 @dataclass(frozen=True)
