@@ -9,17 +9,18 @@ from typing import Any
 
 from doseattr.analysis import schema
 from doseattr.analysis.schema import Context
-from doseattr.analysis.specs import (FITTED_FAMILIES, BinnedExposure, ExposureSpec,
-                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
-                                     SummaryExposure)
+from doseattr.analysis.specs import (FITTED_FAMILIES, SUMMARY_KEYS, BinnedExposure,
+                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
+                                     PercentilesExposure, SummaryExposure)
 from doseattr.analysis.exposure_tables import read_tasks
 from doseattr.analysis.tables import read_bins, read_histories, read_measurements
 from doseattr.errors import InputError, ModelError
 
 
-EXPOSURE_MODES = {"table": ("table",), "gm-gsd": ("gm", "gsd"), "shape-scale": ("shape", "scale"),
-                  "mean-sd": ("mean", "sd"), "percentiles": ("percentiles",),
-                  "bins": ("bins",), "histories": ("histories",)}
+#: Ways of describing the exposure and the keys that give each.
+EXPOSURE_MODES: dict[str, tuple[str, ...]] = {
+    "table": ("table",), **SUMMARY_KEYS, "percentiles": ("percentiles",), "bins": ("bins",),
+    "histories": ("histories",)}
 
 
 def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
