@@ -2,6 +2,11 @@
 objects: the relative-risk curve, the exposure distribution and the
 scenarios.
 
+Each source of curve and of exposure (one spec type each, in
+:mod:`doseattr.analysis.specs`) has one builder, found through
+:data:`CURVE_BUILDERS` and :data:`EXPOSURE_BUILDERS`; a builder takes its own
+spec and only what it needs besides.
+
 The core refuses values it cannot use with :class:`~doseattr.errors.ModelError`;
 here each such refusal becomes an :class:`~doseattr.errors.InputError`
 naming the file and key (or table) the values came from.
@@ -11,17 +16,31 @@ from __future__ import annotations
 
 import dataclasses
 from contextlib import contextmanager
-from typing import Iterator
+from typing import TYPE_CHECKING, Any, Callable, Iterator, TypeAlias, cast
 
 import numpy as np
 
-from doseattr.analysis.config import Analysis, CurveSpec, ExposureSpec, ScenarioSpec
+from doseattr.analysis.config import Analysis, ScenarioSpec
+from doseattr.analysis.csvfile import FloatArray
 from doseattr.results.records import BandTable
 from doseattr.analysis.schema import key_location
+from doseattr.analysis.specs import (FITTED_FAMILIES, BinnedExposure, DrawsCurve, EnteredCurve,
+                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
+                                     PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
 from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
-from doseattr.core.curves.base import Curve
+from doseattr.core.curves.base import Curve, CurveModel
+from doseattr.core.exposure.base import Exposure, Family
+from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
+
+if TYPE_CHECKING:
+    from doseattr.core.curves.covariance import LogRRCovariance
+    from doseattr.core.curves.doses import BandDoses
+    from doseattr.core.exposure.histories import WorkerExposure
+
+#: A population's exposure: a fitted family or the weighted values.
+AnyExposure: TypeAlias = Exposure | EmpiricalExposure
 
 
 @contextmanager
@@ -50,30 +69,38 @@ class BuiltCurve:
     notes: tuple[str, ...] = ()
 
 
-def build_curve(analysis: Analysis, exposure=None) -> BuiltCurve:
+@dataclasses.dataclass(frozen=True, eq=False)
+class CurveInputs:
+    """What a curve's builder may need besides its spec: the analysis file
+    (named in errors; ``None`` for a dictionary), the analysis unit, the
+    population's fitted exposure (for band-mean and band-median doses) and
+    whether Monte Carlo draws will be made."""
+
+    source: str | None
+    unit: str
+    exposure: AnyExposure | None = None
+    draws: bool = False
+
+
+def build_curve(analysis: Analysis, exposure: AnyExposure | None = None) -> BuiltCurve:
     """The relative-risk curve the analysis asks for. ``exposure`` (the
     population's fitted distribution) is needed for band-mean and
     band-median doses."""
     spec = analysis.curve
-    if spec.source == "table":
-        return fit_table_curve(analysis, exposure)
-    if spec.source in ("points", "draws"):
-        return _given(spec, analysis)
-    if spec.source == "shape":
-        return _shape(spec, analysis)
-    return _entered(spec, analysis)
+    inputs = CurveInputs(analysis.source, analysis.unit, exposure,
+                         draws=analysis.uncertainty is not None)
+    return CURVE_BUILDERS[type(spec)](spec, inputs)
 
 
-def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = None,
+def fit_table_curve(spec: TableCurve, inputs: CurveInputs, *, model: str | None = None,
                     dose_rule: str | None = None) -> BuiltCurve:
     """Fit a model to the study table (``model`` and ``dose_rule`` override
-    the analysis file's, for comparisons and sensitivity tables)."""
+    the spec's, for comparisons and sensitivity tables)."""
     from doseattr.core.curves.fit import fit_curve
 
-    spec = analysis.curve
     t = spec.table
     model_name = model or spec.model
-    bd = band_doses(t, dose_rule or spec.dose_rule, exposure, source=analysis.source)
+    bd = band_doses(t, dose_rule or spec.dose_rule, inputs.exposure, source=inputs.source)
     doses, ref = bd.doses, t.reference
     nonref = np.arange(t.n_bands) != ref
     if not nonref.any():
@@ -81,11 +108,11 @@ def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = No
                          "other band", source=t.source)
     cov, warnings, notes = log_rr_covariance(spec, t)
     notes = list(bd.notes) + notes
-    curve_model = _table_model(analysis, model_name, doses)
+    curve_model = _table_model(spec, model_name, doses, inputs.source)
     data_max = float(doses.max())
     max_dose = None if spec.beyond == "extend" else (
         spec.max_dose if spec.max_dose is not None else data_max)
-    with as_input_error(analysis.source, key_location("curve", "model"),
+    with as_input_error(inputs.source, key_location("curve", "model"),
                         f"the {model_name} model cannot be fitted to {t.source}: "):
         curve = fit_curve(curve_model, doses[nonref], np.log(t.rr[nonref]), cov,
                           max_dose=max_dose, data_max=data_max)
@@ -96,23 +123,26 @@ def fit_table_curve(analysis: Analysis, exposure=None, *, model: str | None = No
     return BuiltCurve(curve, bands, tuple(warnings), tuple(notes))
 
 
-def band_doses(t: StudyTable, rule: str, exposure=None, *, source: str | None = None):
+def band_doses(t: StudyTable, rule: str, exposure: AnyExposure | None = None, *,
+               source: str | None = None) -> BandDoses:
     """Dose of each band: given/midpoint from the table, or the band mean or
     median of the population's fitted exposure distribution (its exposed
     part). ``source`` is the analysis file, named when the rule cannot be
     used."""
-    from doseattr.core.curves.doses import assign_doses, distribution_doses
+    from doseattr.core.curves.doses import (DistributionRule, TableRule, assign_doses,
+                                            distribution_doses)
 
     if rule in ("given", "midpoint"):
         with as_input_error(t.source, "columns 'lower', 'upper', 'dose'"):
-            return assign_doses(t.lower, t.upper, t.dose if t.has_dose else None, rule=rule)
-    if exposure is None or not hasattr(exposure.family, "partial_mean"):
+            return assign_doses(t.lower, t.upper, t.dose if t.has_dose else None,
+                                rule=cast(TableRule, rule))
+    if not isinstance(exposure, Exposure):
         raise InputError(f"dose = \"{rule}\" needs a fitted exposure distribution (not an "
                          "empirical one): use dose = \"midpoint\" or a fitted family",
                          source=source, location=key_location("curve", "dose"))
     fam, params = exposure.family, exposure.params
     with as_input_error(t.source, "columns 'lower', 'upper'"):
-        bd = distribution_doses(t.lower, t.upper, rule=rule,
+        bd = distribution_doses(t.lower, t.upper, rule=cast(DistributionRule, rule),
                                 cdf=lambda x: fam.cdf(x, params),
                                 partial_mean=lambda a, b: fam.partial_mean(a, b, params),
                                 ppf=lambda q: fam.ppf(q, params))
@@ -122,10 +152,11 @@ def band_doses(t: StudyTable, rule: str, exposure=None, *, source: str | None = 
     return type(bd)(bd.doses, bd.rule_used, bd.notes + (note,))
 
 
-def log_rr_covariance(spec: CurveSpec, t: StudyTable):
+def log_rr_covariance(spec: TableCurve,
+                      t: StudyTable) -> tuple[LogRRCovariance, list[str], list[str]]:
     """Covariance of the non-reference log RRs, with warnings and notes."""
-    from doseattr.core.curves.covariance import (greenland_longnecker, independent_covariance,
-                                                 var_log_rr_from_ci)
+    from doseattr.core.curves.covariance import (Design, greenland_longnecker,
+                                                 independent_covariance, var_log_rr_from_ci)
     from doseattr.core.curves.effective_counts import effective_counts
 
     ref = t.reference
@@ -134,20 +165,22 @@ def log_rr_covariance(spec: CurveSpec, t: StudyTable):
         var = var_log_rr_from_ci(t.rr[nonref], t.ci_lower[nonref], t.ci_upper[nonref])
     full_var = np.zeros(t.n_bands)
     full_var[nonref] = var
-    warnings, notes = [], []
+    warnings: list[str] = []
+    notes: list[str] = []
+    design = cast(Design, spec.design)  # set whenever the covariance needs it (curve_section)
     if spec.covariance == "counts":
-        totals_col = DESIGN_TOTALS[spec.design]
+        totals_col = DESIGN_TOTALS[design]
         with as_input_error(t.source, f"columns 'cases', '{totals_col}'",
                             "the covariance of the log RRs could not be rebuilt from the "
                             "counts: "):
             cov = greenland_longnecker(t.rr, full_var, t.counts["cases"], t.counts[totals_col],
-                                       design=spec.design, ref=ref)
+                                       design=design, ref=ref)
         notes.append(f"covariance of the log RRs rebuilt from the {spec.design} counts "
                      "(Greenland & Longnecker 1992, Am J Epidemiol 135:1301)")
         return cov, warnings, notes
     if spec.covariance == "effective-counts":
         with as_input_error(t.source, "columns 'rr', 'ci_lower', 'ci_upper'"):
-            cov = effective_counts(t.rr, full_var, ref=ref, design=spec.design)
+            cov = effective_counts(t.rr, full_var, ref=ref, design=design)
         if cov.method == "effective-counts":
             notes.append("covariance of the log RRs from effective counts reconstructed from "
                          "the RRs and CIs (Hamling et al. 2008, Stat Med 27:954)")
@@ -166,14 +199,13 @@ def log_rr_covariance(spec: CurveSpec, t: StudyTable):
     return cov, warnings, notes
 
 
-def _table_model(analysis: Analysis, name: str, doses: np.ndarray):
+def _table_model(spec: TableCurve, name: str, doses: FloatArray,
+                 src: str | None) -> CurveModel:
     from doseattr.core.curves.registry import make_model
     from doseattr.core.curves.spline import default_knots
 
-    spec = analysis.curve
     ref = float(doses[spec.table.reference])
-    src = analysis.source
-    settings = {}
+    settings: dict[str, Any] = {}
     if name == "power":
         settings["offset"] = spec.offset
     if name == "spline":
@@ -192,67 +224,84 @@ def _table_model(analysis: Analysis, name: str, doses: np.ndarray):
         return make_model(name, reference_dose=ref, **settings)
 
 
-def _given(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
-    """A curve given as points or as draws (held flat beyond the last dose)."""
-    from doseattr.core.curves.points import curve_from_draws, points_curve
+def _table(spec: TableCurve, inputs: CurveInputs) -> BuiltCurve:
+    return fit_table_curve(spec, inputs)
+
+
+def _points(spec: PointsCurve, inputs: CurveInputs) -> BuiltCurve:
+    """A curve given as points with CIs (held flat beyond the last dose);
+    the RRs are divided by the RR at the reference dose when it is not 1."""
+    from doseattr.core.curves.points import points_curve
 
     g = spec.given
     top = float(g.doses[-1])
     with as_input_error(g.source, "column 'rr'"):
-        if spec.source == "points":
-            rr, lo, hi = g.rr, g.ci_lower, g.ci_upper
-            at_ref = np.flatnonzero(g.doses == spec.reference_dose)
-            if at_ref.size and rr[at_ref[0]] != 1.0:
-                scale = rr[at_ref[0]]
-                rr, lo, hi = rr / scale, lo / scale, hi / scale
-            curve = points_curve(g.doses, rr, lo, hi, reference_dose=spec.reference_dose,
-                                 beyond="flat", max_dose=top)
-        else:
-            curve = curve_from_draws(g.doses, g.rr, reference_dose=spec.reference_dose,
-                                     beyond="flat", max_dose=top)
-    notes = [f"curve given as {spec.source} ({g.source}): log RR interpolated linearly between "
-             f"doses and held flat beyond {top:g} {analysis.unit}"]
-    if spec.source == "draws":
-        notes.append(f"the point estimate is the median of the {g.rr.shape[0]} draws at each "
-                     "dose")
+        rr, lo, hi = g.rr, g.ci_lower, g.ci_upper
+        at_ref = np.flatnonzero(g.doses == spec.reference_dose)
+        if at_ref.size and rr[at_ref[0]] != 1.0:
+            scale = rr[at_ref[0]]
+            rr, lo, hi = rr / scale, lo / scale, hi / scale
+        curve = points_curve(g.doses, rr, lo, hi, reference_dose=spec.reference_dose,
+                             beyond="flat", max_dose=top)
+    notes = [_given_note(spec, top, inputs.unit)]
     return BuiltCurve(curve, None, (), tuple(notes) + tuple(curve.notes))
 
 
-def _entered(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
+def _draws(spec: DrawsCurve, inputs: CurveInputs) -> BuiltCurve:
+    """A curve given as draws (held flat beyond the last dose)."""
+    from doseattr.core.curves.points import curve_from_draws
+
+    g = spec.given
+    top = float(g.doses[-1])
+    with as_input_error(g.source, "column 'rr'"):
+        curve = curve_from_draws(g.doses, g.rr, reference_dose=spec.reference_dose,
+                                 beyond="flat", max_dose=top)
+    notes = [_given_note(spec, top, inputs.unit),
+             f"the point estimate is the median of the {g.rr.shape[0]} draws at each dose"]
+    return BuiltCurve(curve, None, (), tuple(notes) + tuple(curve.notes))
+
+
+def _given_note(spec: PointsCurve | DrawsCurve, top: float, unit: str) -> str:
+    return (f"curve given as {spec.source} ({spec.given.source}): log RR interpolated linearly "
+            f"between doses and held flat beyond {top:g} {unit}")
+
+
+def _entered(spec: EnteredCurve, inputs: CurveInputs) -> BuiltCurve:
     from doseattr.core.curves.published import published_curve
 
-    key = next(k for k in ("rr", "err", "exponent") if getattr(spec, k) is not None)
     flat = spec.beyond == "flat"
-    with as_input_error(analysis.source, key_location("curve", key)):
-        curve = published_curve(spec.model, rr=spec.rr, err=spec.err, exponent=spec.exponent,
-                                per=spec.per, ci=spec.ci, reference_dose=spec.reference_dose,
+    value = {spec.estimate: spec.value}
+    with as_input_error(inputs.source, key_location("curve", spec.estimate)):
+        curve = published_curve(spec.model, rr=value.get("rr"), err=value.get("err"),
+                                exponent=value.get("exponent"), per=spec.per, ci=spec.ci,
+                                reference_dose=spec.reference_dose,
                                 max_dose=spec.max_dose if flat else None, offset=spec.offset,
                                 data_max=spec.max_dose)
     notes = list(curve.notes)
     if spec.max_dose is not None and not flat:
         notes.append(f"the curve is extended beyond max_dose = {spec.max_dose:g} "
-                     f"{analysis.unit} (beyond = \"extend\"); max_dose marks the end of the "
+                     f"{inputs.unit} (beyond = \"extend\"); max_dose marks the end of the "
                      "data range")
     return BuiltCurve(curve, None, (), tuple(notes))
 
 
-def _shape(spec: CurveSpec, analysis: Analysis) -> BuiltCurve:
+def _shape(spec: ShapeCurve, inputs: CurveInputs) -> BuiltCurve:
     """A published shape with its coefficients and (diagonal, or after a
     unit conversion delta-method) covariance: core
     :func:`~doseattr.core.curves.published.entered_curve`."""
     from doseattr.core.curves.published import entered_curve
     from doseattr.core.curves.registry import make_model
 
-    if analysis.uncertainty is not None:
-        _check_shape_draws(spec, analysis)
+    if inputs.draws:
+        _check_shape_draws(spec, inputs.source)
     flat = spec.beyond == "flat"
-    with as_input_error(analysis.source, key_location("curve", "model")):
+    with as_input_error(inputs.source, key_location("curve", "model")):
         model = make_model(spec.model, reference_dose=spec.reference_dose,
-                           **dict(spec.shape_settings))
-        curve = entered_curve(model, spec.shape_coef, cov=np.array(spec.shape_cov),
+                           **dict(spec.settings))
+        curve = entered_curve(model, spec.coef, cov=np.array(spec.cov),
                               max_dose=spec.max_dose if flat else None, data_max=spec.max_dose,
                               notes=spec.notes)
-    notes = [f"published shape {spec.model}: {model.describe()} (doses in {analysis.unit})"]
+    notes = [f"published shape {spec.model}: {model.describe()} (doses in {inputs.unit})"]
     return BuiltCurve(curve, None, (), tuple(notes))
 
 
@@ -262,77 +311,122 @@ SHAPE_BOUNDS = {"alpha": -1.0, "gamma": 0.0, "delta": 0.0}
 SHAPE_MARGIN_SE = 5.0
 
 
-def _check_shape_draws(spec: CurveSpec, analysis: Analysis) -> None:
+def _check_shape_draws(spec: ShapeCurve, source: str | None) -> None:
     """The Monte Carlo draws of the coefficients are normal; refuse a
     standard error so large that draws would leave the valid range (the
     chance beyond 5 SE is 3e-7 per draw)."""
     if spec.model != "saturating-exponential":
         return
-    se = np.sqrt(np.diag(np.array(spec.shape_cov)))
-    for (name, low), b, s in zip(SHAPE_BOUNDS.items(), spec.shape_coef, se):
+    se = np.sqrt(np.diag(np.array(spec.cov)))
+    for (name, low), b, s in zip(SHAPE_BOUNDS.items(), spec.coef, se):
         if b - SHAPE_MARGIN_SE * s <= low:
             raise InputError(f"{name}_se is too large for normal Monte Carlo draws of {name}: "
                              f"{name} - {SHAPE_MARGIN_SE:g} SE = {b - SHAPE_MARGIN_SE * s:.4g} "
                              f"is not above {low:g}, where the curve is invalid (drop the "
                              "[uncertainty] section or give a smaller standard error)",
-                             source=analysis.source,
-                             location=key_location("curve", f"{name}_se"))
+                             source=source, location=key_location("curve", f"{name}_se"))
+
+
+#: The builder of each source of curve.
+CURVE_BUILDERS: dict[type, Callable[[Any, CurveInputs], BuiltCurve]] = {
+    TableCurve: _table, EnteredCurve: _entered, PointsCurve: _points, DrawsCurve: _draws,
+    ShapeCurve: _shape}
 
 
 # -- exposure -------------------------------------------------------------------
 @dataclasses.dataclass(frozen=True, eq=False)
 class BuiltExposure:
     """The exposure distribution, per-worker totals when it came from work
-    histories, and notes on how it was obtained."""
+    histories, notes on how it was obtained, and the parametric families
+    fitted beside an empirical distribution for comparison."""
 
-    exposure: object
-    workers: object = None
+    exposure: AnyExposure
+    workers: WorkerExposure | None = None
     notes: tuple[str, ...] = ()
-    fits: tuple = ()
+    fits: tuple[Exposure, ...] = ()
+
+
+#: An exposure family, or ``"best"``/``"empirical"`` (methods over values).
+FamilyChoice: TypeAlias = Family | str
 
 
 def build_exposure(analysis: Analysis) -> BuiltExposure:
     """The exposure distribution the analysis asks for (with its unexposed
     share)."""
-    from doseattr.core.exposure import summary
     from doseattr.core.exposure.registry import get_family
 
     spec = analysis.exposure
     src = analysis.source
     with as_input_error(src, key_location("exposure", "family")):
         family = spec.family if spec.family in ("best", "empirical") else get_family(spec.family)
-    if spec.source == "measurements":
-        m = spec.measurements
-        return _fit_values(spec, family, m.values, m.detected, m.weights, m.source, spec.unexposed)
-    if spec.source == "histories":
-        return _histories(spec, family)
-    if spec.source == "bins":
-        b = spec.bins
-        with as_input_error(b.source, f"column '{'share' if b.shares else 'count'}'",
-                            f"the {spec.family} distribution cannot be fitted: "):
-            exposure = summary.fit_bins(family, b.lower, b.upper, b.counts)
-        if b.zero > 0:
-            if spec.unexposed:
-                raise InputError("the binned table has a row of people with no exposure; "
-                                 "remove the unexposed key (or that row)",
-                                 source=src, location=key_location("exposure", "unexposed"))
-            share = b.zero / (b.zero + float(b.counts.sum()))
-            return BuiltExposure(dataclasses.replace(exposure, unexposed=share), notes=(
-                f"unexposed share {share:.4g} from the table's no-exposure row (lower = upper = 0)",))
-    elif spec.source == "percentiles":
-        with as_input_error(src, key_location("exposure", "percentiles")):
-            exposure = summary.from_percentiles(family, dict(spec.values))
-    else:
-        exposure = _summary_exposure(spec, family, src)
-    if spec.unexposed:
-        exposure = dataclasses.replace(exposure, unexposed=spec.unexposed)
+    return EXPOSURE_BUILDERS[type(spec)](spec, family, src)
+
+
+def _with_unexposed(exposure: Exposure, unexposed: float) -> BuiltExposure:
+    """``exposure`` with the ``[exposure] unexposed`` share, when given."""
+    if unexposed:
+        exposure = dataclasses.replace(exposure, unexposed=unexposed)
     return BuiltExposure(exposure)
 
 
-def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: str,
-                unexposed: float, workers=None) -> BuiltExposure:
-    """Fit ``family`` to values; exact zeros give the unexposed share
-    (core :func:`~doseattr.core.exposure.unexposed.estimate_unexposed`)."""
+def _measured(spec: MeasuredExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
+    m = spec.measurements
+    return _fit_values(spec.family, family, m.values, m.detected, m.weights, m.source,
+                       spec.unexposed)
+
+
+def _binned(spec: BinnedExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
+    from doseattr.core.exposure import summary
+
+    b = spec.bins
+    with as_input_error(b.source, f"column '{'share' if b.shares else 'count'}'",
+                        f"the {spec.family} distribution cannot be fitted: "):
+        exposure = summary.fit_bins(family, b.lower, b.upper, b.counts)
+    if b.zero > 0:
+        if spec.unexposed:
+            raise InputError("the binned table has a row of people with no exposure; "
+                             "remove the unexposed key (or that row)",
+                             source=src, location=key_location("exposure", "unexposed"))
+        share = b.zero / (b.zero + float(b.counts.sum()))
+        return BuiltExposure(dataclasses.replace(exposure, unexposed=share), notes=(
+            f"unexposed share {share:.4g} from the table's no-exposure row (lower = upper = 0)",))
+    return _with_unexposed(exposure, spec.unexposed)
+
+
+def _percentiles(spec: PercentilesExposure, family: FamilyChoice,
+                 src: str | None) -> BuiltExposure:
+    from doseattr.core.exposure import summary
+
+    with as_input_error(src, key_location("exposure", "percentiles")):
+        exposure = summary.from_percentiles(family, dict(spec.values))
+    return _with_unexposed(exposure, spec.unexposed)
+
+
+def _summary(spec: SummaryExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
+    """Two summary statistics: gm and gsd (a lognormal), shape and scale,
+    or mean and sd (core :mod:`doseattr.core.exposure.summary`)."""
+    from doseattr.core.exposure import summary
+
+    v = spec.values
+    if spec.kind == "gm-gsd":
+        with as_input_error(src, key_location("exposure", "gsd")):
+            exposure = summary.from_gm_gsd(v["gm"], v["gsd"])
+    elif spec.kind == "shape-scale":
+        with as_input_error(src, key_location("exposure", "shape")):
+            exposure = summary.from_parameters(family, {"shape": v["shape"],
+                                                        "scale": v["scale"]})
+    else:
+        with as_input_error(src, key_location("exposure", "sd")):
+            exposure = summary.from_mean_sd(family, v["mean"], v["sd"])
+    return _with_unexposed(exposure, spec.unexposed)
+
+
+def _fit_values(name: str, family: FamilyChoice, values: FloatArray, detected: np.ndarray,
+                weights: FloatArray | None, source: str, unexposed: float,
+                workers: WorkerExposure | None = None) -> BuiltExposure:
+    """Fit ``family`` (named ``name`` in the file) to values; exact zeros
+    give the unexposed share (core
+    :func:`~doseattr.core.exposure.unexposed.estimate_unexposed`)."""
     from doseattr.core.exposure.fit import fit_best, fit_measurements
     from doseattr.core.exposure.unexposed import estimate_unexposed
 
@@ -350,9 +444,9 @@ def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: s
                      f"values of 0 in {source}")
     det = None if detected.all() else detected
     with as_input_error(source, "column 'value'",
-                        f"the {spec.family} distribution cannot be fitted: "):
+                        f"the {name} distribution cannot be fitted: "):
         if family == "best":
-            exposure = fit_best(values, detected=det, weights=weights)
+            exposure = fit_best(values, detected=det, weights=weights, families=FITTED_FAMILIES)
         else:
             exposure = fit_measurements(family, values, detected=det, weights=weights)
     if unexposed:
@@ -360,7 +454,8 @@ def _fit_values(spec: ExposureSpec, family, values, detected, weights, source: s
     return BuiltExposure(exposure, workers, tuple(notes))
 
 
-def _empirical(values, weights, source: str, unexposed: float, workers=None) -> BuiltExposure:
+def _empirical(values: FloatArray, weights: FloatArray | None, source: str, unexposed: float,
+               workers: WorkerExposure | None = None) -> BuiltExposure:
     """The weighted values themselves (core
     :func:`~doseattr.core.exposure.empirical.empirical`; zeros stay as
     points at zero exposure), with the parametric families fitted to the
@@ -375,15 +470,16 @@ def _empirical(values, weights, source: str, unexposed: float, workers=None) -> 
     return BuiltExposure(exposure, workers, tuple(notes + why), fits)
 
 
-def _comparison_fits(values, weights) -> tuple[tuple, list[str]]:
-    """Each parametric family fitted to the positive values (for the
-    comparison table beside the empirical PAF); a failure is a note."""
+def _comparison_fits(values: FloatArray,
+                     weights: FloatArray | None) -> tuple[tuple[Exposure, ...], list[str]]:
+    """Each family of the core registry fitted to the positive values (for
+    the comparison table beside the empirical PAF); a failure is a note."""
     from doseattr.core.exposure.fit import fit_measurements
 
     keep = np.asarray(values) > 0
     w = None if weights is None else np.asarray(weights)[keep]
     fits, why = [], []
-    for name in ("lognormal", "gamma", "weibull"):
+    for name in FITTED_FAMILIES:
         try:
             fits.append(fit_measurements(name, np.asarray(values)[keep], weights=w))
         except DoseattrError as exc:
@@ -391,20 +487,20 @@ def _comparison_fits(values, weights) -> tuple[tuple, list[str]]:
     return tuple(fits), why
 
 
-def fit_substituted(analysis: Analysis, exposure, fraction: float):
+def fit_substituted(spec: MeasuredExposure, exposure: Exposure, fraction: float) -> AnyExposure:
     """The main family refitted with every non-detect replaced by
     ``fraction`` x its detection limit (comparison only; core
     :func:`~doseattr.core.exposure.nondetects.substitute_nondetects`)."""
     from doseattr.core.exposure.nondetects import substitute_nondetects
 
-    spec, m = analysis.exposure, analysis.exposure.measurements
+    m = spec.measurements
     values = substitute_nondetects(m.values, m.detected, fraction)
-    built = _fit_values(spec, exposure.family, values, np.ones(values.size, bool), m.weights,
-                        m.source, spec.unexposed)
+    built = _fit_values(spec.family, exposure.family, values, np.ones(values.size, bool),
+                        m.weights, m.source, spec.unexposed)
     return built.exposure
 
 
-def _histories(spec: ExposureSpec, family) -> BuiltExposure:
+def _histories(spec: HistoriesExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
     """Cumulative exposure per worker from job histories, then a fit to it."""
     from doseattr.core.exposure.histories import cumulative_exposure
 
@@ -421,25 +517,18 @@ def _histories(spec: ExposureSpec, family) -> BuiltExposure:
                          f"{spec.as_of} minus the {spec.lag_years:g}-year lag; at least {need} "
                          f"{'is' if need == 1 else 'are'} needed {why}", source=h.source,
                          location="columns 'start', 'end', 'intensity'")
-    built = _fit_values(spec, family, values, np.ones(values.size, bool), None, h.source, 0.0,
-                        workers)
+    built = _fit_values(spec.family, family, values, np.ones(values.size, bool), None, h.source,
+                        0.0, workers)
     note = (f"exposure is cumulative (intensity x years) for {values.size} workers, counted "
             f"up to {spec.as_of} minus a {spec.lag_years:g}-year lag (years = days / 365.25)")
     return dataclasses.replace(built, notes=(note,) + built.notes)
 
 
-def _summary_exposure(spec: ExposureSpec, family, src: str | None):
-    from doseattr.core.exposure import summary
-
-    v = spec.values
-    if spec.source == "gm-gsd":
-        with as_input_error(src, key_location("exposure", "gsd")):
-            return summary.from_gm_gsd(v["gm"], v["gsd"])
-    if spec.source == "shape-scale":
-        with as_input_error(src, key_location("exposure", "shape")):
-            return summary.from_parameters(family, {"shape": v["shape"], "scale": v["scale"]})
-    with as_input_error(src, key_location("exposure", "sd")):
-        return summary.from_mean_sd(family, v["mean"], v["sd"])
+#: The builder of each source of exposure: ``(spec, family, analysis file)``.
+EXPOSURE_BUILDERS: dict[type, Callable[[Any, FamilyChoice, str | None], BuiltExposure]] = {
+    MeasuredExposure: _measured, SummaryExposure: _summary,
+    PercentilesExposure: _percentiles, BinnedExposure: _binned,
+    HistoriesExposure: _histories}
 
 
 # -- scenarios ------------------------------------------------------------------

@@ -11,6 +11,7 @@ section what a run would compute. Nothing here draws or writes.
 from __future__ import annotations
 
 import dataclasses
+from typing import Any, Callable, Literal
 
 import numpy as np
 
@@ -20,6 +21,12 @@ from doseattr.analysis.burden_run import burden_strata
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
+from doseattr.analysis.burden_table import BurdenTable
+from doseattr.analysis.specs import (BinnedExposure, DrawsCurve, EnteredCurve,
+                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
+                                     PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
+from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import ConvergenceError, DivergenceError, FloatRangeError, InputError
 
 
@@ -67,7 +74,7 @@ def check_analysis(analysis: Analysis) -> list[str]:
         The first problem found, as the run would report it.
     """
     done = prepare_all(analysis)
-    if not done.outcomes:
+    if done.top is not None and not done.outcomes:
         return describe(done.top)
     per_outcome = ("curve:", "attribution:", "burden:")
     lines = describe(done.top) if done.top is not None else [
@@ -123,18 +130,18 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
     strata = None
     if analysis.burden is not None:
         strata = burden_strata(analysis, exposure)
-        _check_strata(analysis, curve, exposure, strata)
+        _check_strata(analysis.burden.table, m, curve, exposure, strata)
     return Prepared(analysis, built_exposure, built, scenarios, strata, paf_value, pifs,
                     tuple(warnings))
 
 
-def _check_strata(analysis: Analysis, curve, shared, strata: list) -> None:
-    """A stratum with its own exposure must give a finite expected RR; the
-    error names its row of the burden table."""
+def _check_strata(table: BurdenTable, m: float, curve: Curve, shared: object,
+                  strata: list) -> None:
+    """A stratum with its own exposure must give a finite expected RR at
+    the minimum-risk level ``m``; the error names its row of the burden
+    table."""
     from doseattr.core.attribution.fractions import paf
 
-    table = analysis.burden.table
-    m = analysis.attribution.minimum_risk
     for stratum, line in zip(strata, table.lines):
         if stratum.exposure is shared:
             continue
@@ -161,7 +168,7 @@ class divergence:
     def __enter__(self) -> None:
         return None
 
-    def __exit__(self, kind, exc, tb) -> bool:
+    def __exit__(self, kind, exc, tb) -> Literal[False]:
         a = self.analysis
         if kind is not None and issubclass(kind, ConvergenceError):
             raise InputError(f"the PAF cannot be computed: {exc} (check the exposure's "
@@ -171,7 +178,7 @@ class divergence:
         if issubclass(kind, FloatRangeError):
             raise InputError(f"there is no PAF: {exc}", source=a.source,
                              location="[curve]") from None
-        how = ("beyond = \"flat\"" if a.curve.source == "table"
+        how = ("beyond = \"flat\"" if isinstance(a.curve, TableCurve)
                else "max_dose with beyond = \"flat\"")
         raise InputError(
             f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
@@ -205,8 +212,8 @@ def describe(p: Prepared) -> list[str]:
     a = p.analysis
     lines = [_curve_line(a, p.built), _exposure_line(a, p.built_exposure),
              _attribution_line(a, p), _uncertainty_line(a)]
-    if p.strata is not None:
-        lines.append(_burden_line(a, p))
+    if p.strata is not None and a.burden is not None:
+        lines.append(_burden_line(a.burden.table, p.strata, p.built_exposure.exposure))
     return lines
 
 
@@ -216,51 +223,81 @@ COVARIANCE_WORDS = {"counts": "Greenland-Longnecker covariance from the counts",
 
 
 def _curve_line(a: Analysis, built: BuiltCurve) -> str:
-    spec = a.curve
     held = (f"held flat above {built.curve.max_dose:g} {a.unit}"
             if built.curve.max_dose is not None else "extended over all doses")
-    if spec.source == "table":
-        t = spec.table
-        cov = COVARIANCE_WORDS.get(spec.covariance or "independent", spec.covariance)
-        if spec.covariance == "effective-counts" and not any(
-                "effective counts reconstructed" in n for n in built.notes):
-            cov = "effective counts not reconstructed, so log RRs treated as independent"
-        return (f"curve: {spec.model} fitted by GLS to {t.n_bands} bands of {t.source} "
-                f"({cov}; band doses by '{spec.dose_rule}'), {held}")
-    if spec.source in ("points", "draws"):
-        g = spec.given
-        return (f"curve: given as {spec.source} at {g.doses.size} doses in {g.source}, log RR "
-                f"interpolated linearly, {held}")
-    if spec.source == "shape":
-        se = ("with its coefficients' standard errors" if np.any(np.array(spec.shape_cov))
-              else "with fixed coefficients")
-        return f"curve: published {spec.model} shape {se}, {held}"
-    key = next(k for k in ("rr", "err", "exponent") if getattr(spec, k) is not None)
-    return (f"curve: {spec.model} from a published {key} = {getattr(spec, key):g} per "
-            f"{spec.per:g} {a.unit}, {held}")
+    return f"curve: {_CURVE_WORDS[type(a.curve)](a.curve, built, a.unit)}, {held}"
+
+
+def _table_words(spec: TableCurve, built: BuiltCurve, unit: str) -> str:
+    t = spec.table
+    cov = COVARIANCE_WORDS.get(spec.covariance, spec.covariance)
+    if spec.covariance == "effective-counts" and not any(
+            "effective counts reconstructed" in n for n in built.notes):
+        cov = "effective counts not reconstructed, so log RRs treated as independent"
+    return (f"{spec.model} fitted by GLS to {t.n_bands} bands of {t.source} "
+            f"({cov}; band doses by '{spec.dose_rule}')")
+
+
+def _given_words(spec: PointsCurve | DrawsCurve, built: BuiltCurve, unit: str) -> str:
+    g = spec.given
+    return (f"given as {spec.source} at {g.doses.size} doses in {g.source}, log RR "
+            "interpolated linearly")
+
+
+def _shape_words(spec: ShapeCurve, built: BuiltCurve, unit: str) -> str:
+    se = ("with its coefficients' standard errors" if np.any(np.array(spec.cov))
+          else "with fixed coefficients")
+    return f"published {spec.model} shape {se}"
+
+
+def _entered_words(spec: EnteredCurve, built: BuiltCurve, unit: str) -> str:
+    return f"{spec.model} from a published {spec.estimate} = {spec.value:g} per {spec.per:g} {unit}"
+
+
+#: How each source of curve is described (before where it is held flat).
+_CURVE_WORDS: dict[type, Callable[[Any, BuiltCurve, str], str]] = {
+    TableCurve: _table_words, PointsCurve: _given_words, DrawsCurve: _given_words,
+    ShapeCurve: _shape_words, EnteredCurve: _entered_words}
 
 
 def _exposure_line(a: Analysis, built: BuiltExposure) -> str:
-    spec, ex = a.exposure, built.exposure
+    ex = built.exposure
     family = ex.family.name
-    unexposed = getattr(ex, "zero_share", None) if family == "empirical" else ex.unexposed
+    unexposed = ex.zero_share if isinstance(ex, EmpiricalExposure) else ex.unexposed
     share = f"; unexposed share {unexposed:.4g}" if unexposed else ""
-    if spec.source == "measurements":
-        m = spec.measurements
-        nd = int(np.sum(~np.asarray(m.detected, bool)))
-        what = f"{m.values.size} measurements of {m.source} ({nd} non-detects)"
-        if family == "empirical":
-            return f"exposure: empirical, the {what} themselves, weighted{share}"
-        chosen = " (lowest AIC of the families)" if spec.family == "best" else ""
-        return f"exposure: {family}{chosen} fitted to {what}{share}"
-    if spec.source == "histories":
-        w = built.workers
-        return (f"exposure: {family} over the cumulative exposure of "
-                f"{np.asarray(w.cumulative).size} workers from {spec.histories.source} "
-                f"(as of {spec.as_of}, lag {spec.lag_years:g} years){share}")
-    if spec.source == "bins":
-        return f"exposure: {family} fitted to the binned counts of {spec.bins.source}{share}"
-    return f"exposure: {family} from the given {spec.source}{share}"
+    return f"exposure: {_EXPOSURE_WORDS[type(a.exposure)](a.exposure, built, family)}{share}"
+
+
+def _measured_words(spec: MeasuredExposure, built: BuiltExposure, family: str) -> str:
+    m = spec.measurements
+    nd = int(np.sum(~np.asarray(m.detected, bool)))
+    what = f"{m.values.size} measurements of {m.source} ({nd} non-detects)"
+    if family == "empirical":
+        return f"empirical, the {what} themselves, weighted"
+    chosen = " (lowest AIC of the families)" if spec.family == "best" else ""
+    return f"{family}{chosen} fitted to {what}"
+
+
+def _histories_words(spec: HistoriesExposure, built: BuiltExposure, family: str) -> str:
+    n = 0 if built.workers is None else np.asarray(built.workers.cumulative).size
+    return (f"{family} over the cumulative exposure of {n} workers from "
+            f"{spec.histories.source} (as of {spec.as_of}, lag {spec.lag_years:g} years)")
+
+
+def _binned_words(spec: BinnedExposure, built: BuiltExposure, family: str) -> str:
+    return f"{family} fitted to the binned counts of {spec.bins.source}"
+
+
+def _given_exposure_words(spec: SummaryExposure | PercentilesExposure, built: BuiltExposure,
+                          family: str) -> str:
+    return f"{family} from the given {spec.source}"
+
+
+#: How each source of exposure is described (before its unexposed share).
+_EXPOSURE_WORDS: dict[type, Callable[[Any, BuiltExposure, str], str]] = {
+    MeasuredExposure: _measured_words, HistoriesExposure: _histories_words,
+    BinnedExposure: _binned_words, SummaryExposure: _given_exposure_words,
+    PercentilesExposure: _given_exposure_words}
 
 
 def _attribution_line(a: Analysis, p: Prepared) -> str:
@@ -284,10 +321,9 @@ def _uncertainty_line(a: Analysis) -> str:
     return f"uncertainty: {u.draws} Monte Carlo draws, {seed}{cases}"
 
 
-def _burden_line(a: Analysis, p: Prepared) -> str:
-    table = a.burden.table
-    own = sum(1 for s in p.strata if s.exposure is not p.built_exposure.exposure)
-    n = len(p.strata)
+def _burden_line(table: BurdenTable, strata: list, shared: object) -> str:
+    own = sum(1 for s in strata if s.exposure is not shared)
+    n = len(strata)
     return (f"burden: {n} strat{'um' if n == 1 else 'a'} of {table.source}, "
             f"{float(np.sum(table.cases)):g} observed cases in total ({own} with their own "
             "exposure)")

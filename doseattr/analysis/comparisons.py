@@ -11,8 +11,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from doseattr.analysis.build import BuiltCurve, fit_substituted, fit_table_curve
+from doseattr.analysis.build import BuiltCurve, CurveInputs, fit_substituted, fit_table_curve
 from doseattr.analysis.config import Analysis
+from doseattr.analysis.specs import HistoriesExposure, MeasuredExposure, TableCurve
 from doseattr.analysis.intervals import finite
 from doseattr.results.records import CurveVariant, ExposureVariant, SubstitutionResult
 from doseattr.errors import DoseattrError, InputError
@@ -29,31 +30,34 @@ def curve_variants(analysis: Analysis, exposure, built: BuiltCurve, paf_value: f
     """PAF under each model of ``compare_models`` and under each dose rule
     (curves fitted to a study table only)."""
     spec = analysis.curve
-    if spec.source != "table":
+    if not isinstance(spec, TableCurve) or built.bands is None:
         return (), ()
     main_doses = built.bands.dose
     models = [spec.model] + [m for m in spec.compare_models if m != spec.model]
-    comparison = ()
+    comparison: tuple[CurveVariant, ...] = ()
     if spec.compare_models:
         comparison = tuple(
             CurveVariant(spec.model, built.curve, paf_value, main_doses) if name == spec.model
-            else _variant(analysis, exposure, name, model=name) for name in models)
+            else _variant(analysis, spec, exposure, name, model=name) for name in models)
     rules = (("given",) if spec.table.has_dose else ()) + DOSE_RULES
     sensitivity = tuple(
         CurveVariant(rule, built.curve, paf_value, main_doses) if rule == spec.dose_rule
-        else _variant(analysis, exposure, rule, dose_rule=rule) for rule in rules)
+        else _variant(analysis, spec, exposure, rule, dose_rule=rule) for rule in rules)
     return comparison, sensitivity
 
 
-def _variant(analysis: Analysis, exposure, label: str, **override) -> CurveVariant:
+def _variant(analysis: Analysis, spec: TableCurve, exposure, label: str,
+             **override: str) -> CurveVariant:
     from doseattr.core.attribution.fractions import paf
 
     try:
-        other = fit_table_curve(analysis, exposure, **override)
+        other = fit_table_curve(spec, CurveInputs(analysis.source, analysis.unit, exposure),
+                                **override)
         value = finite(paf(other.curve, exposure, minimum_risk=analysis.attribution.minimum_risk), "PAF")
     except DoseattrError as exc:
         return CurveVariant(label, None, None, None, _reason(exc))
-    return CurveVariant(label, other.curve, value, other.bands.dose)
+    return CurveVariant(label, other.curve, value,
+                        None if other.bands is None else other.bands.dose)
 
 
 # -- exposure -----------------------------------------------------------------------
@@ -65,7 +69,8 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
     from doseattr.core.attribution.fractions import paf
     from doseattr.core.exposure.base import Exposure
 
-    if analysis.exposure.source not in ("measurements", "histories"):
+    spec = analysis.exposure
+    if not isinstance(spec, (MeasuredExposure, HistoriesExposure)):
         return ()
     m = analysis.attribution.minimum_risk
     fit = exposure.fit
@@ -80,16 +85,16 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
         out.append(_exposure_variant(fam.name, other.parameters, getattr(alt, "aic", None),
                                      lambda: paf(curve, other, minimum_risk=m)))
     if not empirical_main:
-        out.append(_empirical_variant(analysis, curve, built_exposure))
+        out.append(_empirical_variant(analysis, spec, curve, built_exposure))
     return tuple(out)
 
 
-def _empirical_variant(analysis: Analysis, curve, built_exposure) -> ExposureVariant:
+def _empirical_variant(analysis: Analysis, spec: MeasuredExposure | HistoriesExposure, curve,
+                       built_exposure) -> ExposureVariant:
     from doseattr.core.attribution.fractions import paf
     from doseattr.core.exposure.empirical import empirical
 
-    spec = analysis.exposure
-    if spec.source == "histories":
+    if isinstance(spec, HistoriesExposure):
         values, weights, detected = built_exposure.workers.cumulative, None, None
         unexposed = 0.0
     else:
@@ -125,10 +130,13 @@ def substitution_results(analysis: Analysis, curve, exposure,
     """
     from doseattr.core.attribution.fractions import paf
 
+    spec = analysis.exposure
+    if not isinstance(spec, MeasuredExposure):
+        return ()
     out = []
-    for k in analysis.exposure.substitution:
+    for k in spec.substitution:
         try:
-            other = fit_substituted(analysis, exposure, k)
+            other = fit_substituted(spec, exposure, k)
             value = finite(paf(curve, other, minimum_risk=analysis.attribution.minimum_risk), "PAF")
         except DoseattrError as exc:
             out.append(SubstitutionResult(k, {}, None, None, _reason(exc)))

@@ -44,7 +44,8 @@ from doseattr.analysis.exposure_section import parse_exposure, require_cumulativ
 from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
 from doseattr.analysis.specs import (DEFAULT_SEED, MAX_DRAWS, MIN_DRAWS, Analysis,
                                      AttributionSpec, BurdenSpec, CurveSpec, ExposureSpec,
-                                     OutcomeSpec, ScenarioSpec, UncertaintySpec)
+                                     HistoriesExposure, OutcomeSpec, ScenarioSpec,
+                                     UncertaintySpec)
 from doseattr.analysis.tables import read_burden
 from doseattr.analysis.units_section import (Conversion, Units, conversion, convert_burden,
                                              convert_curve, convert_exposure, read_units)
@@ -147,7 +148,7 @@ def _exposure(e: dict[str, Any], ctx: Context, units: Units) -> tuple[ExposureSp
     """``[exposure]`` checked, its values converted to the file's unit (for
     work histories, the intensities to the concentration part of it)."""
     spec = parse_exposure(e, ctx)
-    histories = spec.source == "histories"
+    histories = isinstance(spec, HistoriesExposure)
     if histories:
         require_cumulative_unit(units.unit, ctx)
     conv = conversion(units, e.get("unit"), "exposure", ctx, intensity=histories)
@@ -206,7 +207,8 @@ def _attribution(a: dict[str, Any], ctx: Context) -> AttributionSpec:
 
 
 def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec, ...]:
-    out, names = [], {}
+    out: list[ScenarioSpec] = []
+    names: dict[str, int] = {}
     for i, block in enumerate(blocks):
         if "name" not in block:
             raise ctx.error("missing key 'name' (a short label for the scenario)", "scenario",

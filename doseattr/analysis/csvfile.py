@@ -24,7 +24,7 @@ import math
 import sys
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Sequence
+from typing import Literal, Sequence, overload
 
 import numpy as np
 from numpy.typing import NDArray
@@ -66,9 +66,9 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
     except IsADirectoryError:
         raise InputError("is a folder, not a CSV file", source=source) from None
     except UnicodeDecodeError as exc:
-        line = data[:exc.start].count(b"\n") + 1
+        bad_line = data[:exc.start].count(b"\n") + 1
         raise InputError("cannot be read as UTF-8 text; save it as CSV (UTF-8)",
-                         source=source, location=f"row {line}") from None
+                         source=source, location=f"row {bad_line}") from None
     except OSError as exc:
         raise InputError(f"cannot be read: {exc.strerror or exc}", source=source) from None
     header: list[str] | None = None
@@ -144,6 +144,15 @@ def near_column(name: str, columns: list[str]) -> str:
     """``"; the file has a column 'x' (misspelt?)"`` for a near miss, or ``""``."""
     close = difflib.get_close_matches(name, columns, n=1, cutoff=0.6)
     return f"; the file has a column '{close[0]}' (misspelt?)" if close else ""
+
+
+@overload
+def number(raw: RawTable, row: Row, column: str, *,
+           required: Literal[True] = True) -> float: ...
+
+
+@overload
+def number(raw: RawTable, row: Row, column: str, *, required: bool) -> float | None: ...
 
 
 def number(raw: RawTable, row: Row, column: str, *, required: bool = True) -> float | None:

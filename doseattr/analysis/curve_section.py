@@ -7,16 +7,13 @@ from __future__ import annotations
 from typing import Any
 
 from doseattr.analysis.schema import Context, nonnegative, only_one, suggest
-from doseattr.analysis.specs import EFFECTIVE_COUNT_DESIGNS, FITTED_MODELS, CurveSpec
-from doseattr.analysis.tables import (StudyTable, design_from_counts, read_draws_table,
+from doseattr.analysis.specs import (EFFECTIVE_COUNT_DESIGNS, FITTED_MODELS, SHAPE_KEYS,
+                                     SHAPE_MODELS,
+                                     CurveSpec, DrawsCurve, EnteredCurve, PointsCurve,
+                                     ShapeCurve, TableCurve)
+from doseattr.analysis.tables import (PointsTable, StudyTable, design_from_counts, read_draws_table,
                                       read_points_table, read_study_table)
 from doseattr.errors import InputError
-
-
-#: Published shapes: (coefficients with optional ``<name>_se``, required
-#: fixed settings); ``threshold`` is optional for both.
-SHAPE_KEYS = {"saturating-exponential": (("alpha", "gamma", "delta"), ()),
-              "log-logistic-weighted": (("theta",), ("scale", "midpoint", "spread"))}
 
 
 def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
@@ -29,11 +26,11 @@ def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
     if c.get("model") in SHAPE_KEYS:
         return _shape_curve(c, ctx)
     if not given:
+        shapes = " or ".join(f'"{m}"' for m in SHAPE_MODELS)
         raise InputError("[curve] needs table = \"FILE.csv\" (the study's bands), points or "
                          "draws (a curve given as a CSV), a published estimate: model with "
                          "rr (log-linear), err (linear) or exponent (power), or a published "
-                         "shape (model = \"saturating-exponential\" or "
-                         "\"log-logistic-weighted\" with its parameters)", source=ctx.source,
+                         f"shape (model = {shapes} with its parameters)", source=ctx.source,
                          location="[curve]")
     for key in ("knots", "knot_count"):
         if key in c and (c.get("model") != "spline" or "table" not in c):
@@ -49,12 +46,12 @@ def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
     return _given_curve(c, given[0], ctx)
 
 
-def _fitted_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
+def _fitted_curve(c: dict[str, Any], ctx: Context) -> TableCurve:
     for key in ("per", "ci", "reference_dose"):
         if key in c:
             raise ctx.error(f"'{key}' goes with a published estimate, not with a study table "
                             "(the reference band's dose is the reference)", "curve", key)
-    notes = []
+    notes: list[str] = []
     model = c.get("model")
     if model is None:
         model = "log-linear"
@@ -89,7 +86,7 @@ def _fitted_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
             raise ctx.error(f"'{name}' is not a model that can be fitted to a table; use "
                             f"{', '.join(FITTED_MODELS)}{suggest(name, FITTED_MODELS)}",
                             "curve", "compare_models")
-    return CurveSpec(source="table", model=model, beyond=beyond, table=table, design=design,
+    return TableCurve(model=model, beyond=beyond, table=table, design=design,
                      dose_rule=c.get("dose", "given"), covariance=covariance,
                      offset=float(c.get("offset", 0.0)), max_dose=max_dose, knots=knots,
                      knot_count=knot_count, compare_models=compare,
@@ -121,7 +118,7 @@ def _covariance_choice(c: dict[str, Any], table: StudyTable, design: str | None,
     return "independent"
 
 
-def _given_curve(c: dict[str, Any], key: str, ctx: Context) -> CurveSpec:
+def _given_curve(c: dict[str, Any], key: str, ctx: Context) -> PointsCurve | DrawsCurve:
     """A curve given as points (dose, RR, CI) or as draws of RR on doses."""
     for other in ("model", "per", "ci", "design", "dose", "covariance", "offset", "max_dose"):
         if other in c:
@@ -131,18 +128,20 @@ def _given_curve(c: dict[str, Any], key: str, ctx: Context) -> CurveSpec:
         raise ctx.error(f"a curve given as {key} is held flat beyond its last dose; it cannot "
                         "be extended", "curve", "beyond")
     path = ctx.path(c[key], "curve", key)
-    reader = read_points_table if key == "points" else read_draws_table
-    data = reader(path, path)
+    data = read_points_table(path, path) if key == "points" else read_draws_table(path, path)
     reference = nonnegative(c, "reference_dose", ctx)
     if reference is not None and not data.doses[0] <= reference <= data.doses[-1]:
         raise ctx.error(f"reference_dose {reference:g} lies outside the doses of {path} "
                         f"({data.doses[0]:g} to {data.doses[-1]:g})", "curve", "reference_dose")
-    return CurveSpec(source=key, model="points", beyond="flat", given=data,
-                     reference_dose=data.reference_dose if reference is None else reference,
-                     notes=data.notes)
+    ref = data.reference_dose if reference is None else reference
+    if isinstance(data, PointsTable):
+        return PointsCurve(model="points", beyond="flat", given=data, reference_dose=ref,
+                           notes=data.notes)
+    return DrawsCurve(model="points", beyond="flat", given=data, reference_dose=ref,
+                      notes=data.notes)
 
 
-def _entered_curve(c: dict[str, Any], entered: str, ctx: Context) -> CurveSpec:
+def _entered_curve(c: dict[str, Any], entered: str, ctx: Context) -> EnteredCurve:
     wanted = {"rr": "log-linear", "err": "linear", "exponent": "power"}[entered]
     model = c.get("model")
     if model is None:
@@ -187,12 +186,10 @@ def _entered_curve(c: dict[str, Any], entered: str, ctx: Context) -> CurveSpec:
         raise ctx.error("beyond = \"flat\" needs max_dose (the dose above which the RR is held "
                         "flat) for a curve entered directly", "curve", "beyond")
     reference = nonnegative(c, "reference_dose", ctx)
-    return CurveSpec(source="entered", model=model, beyond=beyond,
-                     offset=float(c.get("offset", 0.0)),
-                     rr=value if entered == "rr" else None,
-                     err=value if entered == "err" else None,
-                     exponent=value if entered == "exponent" else None, per=per, ci=ci,
-                     reference_dose=0.0 if reference is None else reference, max_dose=max_dose)
+    return EnteredCurve(model=model, beyond=beyond, offset=float(c.get("offset", 0.0)),
+                        estimate=entered, value=value, per=per, ci=ci,
+                        reference_dose=0.0 if reference is None else reference,
+                        max_dose=max_dose)
 
 
 def _model_settings(c: dict[str, Any], model: str, ctx: Context) -> None:
@@ -223,7 +220,7 @@ def _check_shape_keys(c: dict[str, Any], given: list[str], ctx: Context) -> None
                 raise ctx.error(f"'{key}' goes with model = \"{name}\"", "curve", key)
 
 
-def _shape_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
+def _shape_curve(c: dict[str, Any], ctx: Context) -> ShapeCurve:
     """A published shape entered with its parameters (Burnett et al. 2014,
     Environ Health Perspect 122:397; Burnett et al. 2018, PNAS 115:9592;
     forms in :mod:`doseattr.core.curves.shapes`)."""
@@ -248,12 +245,12 @@ def _shape_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
     beyond = _shape_beyond(c, max_dose, ctx)
     reference = nonnegative(c, "reference_dose", ctx)
     settings = {"threshold": threshold or 0.0, **{k: values[k] for k in setting_names}}
-    return CurveSpec(source="shape", model=model, beyond=beyond, max_dose=max_dose,
-                     reference_dose=reference or 0.0,
-                     shape_coef=tuple(values[k] for k in coef_names),
-                     shape_cov=tuple(tuple(se[a] ** 2 if a == b else 0.0 for b in coef_names)
-                                     for a in coef_names),
-                     shape_settings=settings, notes=_shape_notes(c, se, threshold))
+    return ShapeCurve(model=model, beyond=beyond, max_dose=max_dose,
+                      reference_dose=reference or 0.0,
+                      coef=tuple(values[k] for k in coef_names),
+                      cov=tuple(tuple(se[a] ** 2 if a == b else 0.0 for b in coef_names)
+                                for a in coef_names),
+                      settings=settings, notes=_shape_notes(c, se, threshold))
 
 
 def _check_shape_values(values: dict[str, float], ctx: Context) -> None:

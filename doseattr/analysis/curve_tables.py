@@ -46,7 +46,10 @@ def read_points_table(path: str | Path, source: str | None = None) -> PointsTabl
     raw = read_raw(path, source)
     require_columns(raw, ("dose", "rr"), "a points table")
     has_ci = "ci_lower" in raw.columns and "ci_upper" in raw.columns
-    doses, rr, lo, hi = [], [], [], []
+    doses: list[float] = []
+    rr: list[float] = []
+    lo: list[float] = []
+    hi: list[float] = []
     for row in raw.rows:
         d = _dose(raw, row, "dose", doses)
         r = number(raw, row, "rr")
@@ -57,7 +60,7 @@ def read_points_table(path: str | Path, source: str | None = None) -> PointsTabl
         if (a is None) != (b is None):
             raise cell_error(raw, row, "ci_lower" if a is None else "ci_upper",
                         "one CI limit is empty; give both or neither")
-        if a is not None and not (0 < a < b and a <= r <= b):
+        if a is not None and b is not None and not (0 < a < b and a <= r <= b):
             raise cell_error(raw, row, "ci_lower", f"the CI {a:g} to {b:g} must be above 0 and "
                         f"contain its RR {r:g}")
         doses.append(d)
@@ -78,7 +81,8 @@ def read_draws_table(path: str | Path, source: str | None = None) -> DrawsTable:
     if len(draw_cols) < 2:
         raise InputError("a draws file needs a dose column and at least 2 draw columns",
                          source=raw.source, location="row 1")
-    doses, rows = [], []
+    doses: list[float] = []
+    rows: list[list[float]] = []
     for row in raw.rows:
         doses.append(_dose(raw, row, dose_col, doses))
         values = []

@@ -9,15 +9,18 @@ from typing import Any
 
 from doseattr.analysis import schema
 from doseattr.analysis.schema import Context
-from doseattr.analysis.specs import ExposureSpec
+from doseattr.analysis.specs import (FITTED_FAMILIES, SUMMARY_KEYS, BinnedExposure,
+                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
+                                     PercentilesExposure, SummaryExposure)
 from doseattr.analysis.exposure_tables import read_tasks
 from doseattr.analysis.tables import read_bins, read_histories, read_measurements
 from doseattr.errors import InputError, ModelError
 
 
-EXPOSURE_MODES = {"table": ("table",), "gm-gsd": ("gm", "gsd"), "shape-scale": ("shape", "scale"),
-                  "mean-sd": ("mean", "sd"), "percentiles": ("percentiles",),
-                  "bins": ("bins",), "histories": ("histories",)}
+#: Ways of describing the exposure and the keys that give each.
+EXPOSURE_MODES: dict[str, tuple[str, ...]] = {
+    "table": ("table",), **SUMMARY_KEYS, "percentiles": ("percentiles",), "bins": ("bins",),
+    "histories": ("histories",)}
 
 
 def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
@@ -65,7 +68,7 @@ def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
     values = {k: float(e[k]) for k in modes[mode]}
     family = _summary_family(mode, family, ctx)
     _check_summary(values, ctx)
-    return ExposureSpec(source=mode, family=family, unexposed=unexposed, values=values)
+    return SummaryExposure(kind=mode, family=family, unexposed=unexposed, values=values)
 
 
 def _default_family(family: str | None, notes: list[str]) -> str:
@@ -76,7 +79,7 @@ def _default_family(family: str | None, notes: list[str]) -> str:
 
 
 def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
-                       ctx: Context) -> ExposureSpec:
+                       ctx: Context) -> MeasuredExposure:
     notes: list[str] = []
     family = _default_family(family, notes)
     path = ctx.path(e["table"], "exposure", "table")
@@ -91,13 +94,13 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
     if family == "empirical" and censored:
         raise InputError(f"family = \"empirical\" uses the values as measured and cannot use "
                          f"the {censored} values below a detection limit ('<' values or "
-                         "detected = false; it substitutes nothing); fit lognormal, gamma, "
-                         "weibull or best, which treat them as censored", source=path,
+                         f"detected = false; it substitutes nothing); fit "
+                         f"{', '.join(FITTED_FAMILIES)} or best, which treat them as censored",
+                         source=path,
                          location="column 'value'")
     fractions = _substitution(e, censored, path, ctx)
-    return ExposureSpec(source="measurements", family=family, unexposed=unexposed,
-                        measurements=data, substitution=fractions,
-                        notes=tuple(notes) + data.notes)
+    return MeasuredExposure(family=family, unexposed=unexposed, measurements=data,
+                            substitution=fractions, notes=tuple(notes) + data.notes)
 
 
 def _substitution(e: dict[str, Any], censored: int, path: str,
@@ -129,13 +132,13 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
     family = _default_family(family, notes)
     if mode == "percentiles":
         values = _percentiles(e["percentiles"], ctx)
-        return ExposureSpec(source=mode, family=family, unexposed=unexposed, values=values,
-                            notes=tuple(notes))
+        return PercentilesExposure(family=family, unexposed=unexposed, values=values,
+                                   notes=tuple(notes))
     if mode == "bins":
         path = ctx.path(e["bins"], "exposure", "bins")
         bins = read_bins(path, path)
-        return ExposureSpec(source=mode, family=family, unexposed=unexposed, bins=bins,
-                            notes=tuple(notes) + bins.notes)
+        return BinnedExposure(family=family, unexposed=unexposed, bins=bins,
+                              notes=tuple(notes) + bins.notes)
     path = ctx.path(e["histories"], "exposure", "histories")
     if "as_of" not in e:
         raise ctx.error("missing key 'as_of' (the analysis date, e.g. as_of = \"2024-12-31\"; "
@@ -161,8 +164,8 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
     if "lag_years" not in e:
         notes.append("lag_years not given: no lag (10 years is common practice for cancer "
                      "outcomes)")
-    return ExposureSpec(source=mode, family=family, histories=histories, as_of=as_of,
-                        lag_years=lag, notes=tuple(notes))
+    return HistoriesExposure(family=family, histories=histories, as_of=as_of, lag_years=lag,
+                             notes=tuple(notes))
 
 
 def _percentiles(table: dict[str, Any], ctx: Context) -> dict[float, float]:
@@ -197,13 +200,26 @@ def _summary_family(mode: str, family: str | None, ctx: Context) -> str:
                             "exposure", "family")
         return "lognormal"
     if family is None:
-        need = "gamma or weibull" if mode == "shape-scale" else "lognormal, gamma or weibull"
+        need = _either(_families_with(("shape", "scale")) if mode == "shape-scale"
+                       else FITTED_FAMILIES)
         raise ctx.error(f"missing key 'family' ({need}) beside "
                         f"{' and '.join(mode.split('-'))}", "exposure", "family")
     if mode == "shape-scale" and family == "lognormal":
         raise ctx.error("a lognormal distribution is given by gm and gsd, not shape and scale",
                         "exposure", "family")
     return family
+
+
+def _families_with(params: tuple[str, ...]) -> tuple[str, ...]:
+    """Families of the core registry whose parameters are ``params``."""
+    from doseattr.core.exposure.registry import FAMILIES
+
+    return tuple(name for name, fam in FAMILIES.items() if fam.param_names == params)
+
+
+def _either(names: tuple[str, ...]) -> str:
+    """``"a, b or c"``."""
+    return names[0] if len(names) == 1 else f"{', '.join(names[:-1])} or {names[-1]}"
 
 
 def _check_summary(values: dict[str, float], ctx: Context) -> None:

@@ -166,14 +166,16 @@ def _intensity(raw: RawTable, row: Row, worker: str, start, tasks: TasksTable | 
     """The job's intensity: its cell, or the TWA of its task samples."""
     given = number(raw, row, "intensity", required=tasks is None)
     from_tasks = None if tasks is None else tasks.twa.get((worker, start))
-    if given is not None and from_tasks is not None:
+    if given is not None and tasks is not None and from_tasks is not None:
         raise cell_error(raw, row, "intensity", f"worker '{worker}', job from {start}: both an "
                          f"intensity and task samples ({tasks.source}) are given; leave the "
                          "cell empty to use the samples, or remove the samples")
-    if given is None and from_tasks is None:
+    if given is not None:
+        return given
+    if from_tasks is None:
         raise cell_error(raw, row, "intensity", f"empty intensity and no task samples for "
                          f"worker '{worker}', job from {start}")
-    return given if given is not None else from_tasks
+    return from_tasks
 
 
 def _check_tasks_used(tasks: TasksTable, jobs: set) -> None:

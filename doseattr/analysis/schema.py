@@ -18,16 +18,19 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
 
+from doseattr.analysis.specs import FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
 from doseattr.errors import InputError
 
-#: Published shapes entered with their parameters (names of our own).
-SHAPE_MODELS = ("saturating-exponential", "log-logistic-weighted")
-CURVE_MODELS = ("log-linear", "linear", "power", "spline") + SHAPE_MODELS
+#: Models ``[curve] model`` takes: those of the core registry that can be
+#: fitted to a study table, then the published shapes.
+CURVE_MODELS = FITTED_MODELS + SHAPE_MODELS
 DESIGNS = ("case-control", "incidence-rate", "cumulative-incidence")
 #: The largest finite float; TOML integers beyond it are not numbers here.
 MAX_FLOAT = sys.float_info.max
 
-FAMILIES = ("lognormal", "gamma", "weibull", "best", "empirical")
+#: Families ``[exposure] family`` takes: the core registry's, then the
+#: choice by lowest AIC and the values themselves.
+FAMILIES = FITTED_FAMILIES + ("best", "empirical")
 
 
 @dataclass(frozen=True)

@@ -1,15 +1,36 @@
 """What a checked analysis file asks for: one frozen spec per section, and
 the :class:`Analysis` that holds them (built by
-:mod:`doseattr.analysis.config`)."""
+:mod:`doseattr.analysis.config`).
+
+The curve and the exposure each come from one of several sources; each
+source has its own frozen type (a tagged union), with a read-only
+``source`` property giving the source's name as the messages and
+results.json spell it:
+
+- curve (:data:`CurveSpec`): :class:`TableCurve` (``"table"``),
+  :class:`EnteredCurve` (``"entered"``), :class:`PointsCurve`
+  (``"points"``), :class:`DrawsCurve` (``"draws"``), :class:`ShapeCurve`
+  (``"shape"``);
+- exposure (:data:`ExposureSpec`): :class:`MeasuredExposure`
+  (``"measurements"``), :class:`SummaryExposure` (``"gm-gsd"``,
+  ``"shape-scale"`` or ``"mean-sd"``), :class:`PercentilesExposure`
+  (``"percentiles"``), :class:`BinnedExposure` (``"bins"``),
+  :class:`HistoriesExposure` (``"histories"``).
+
+Every dose is in the analysis file's unit once a spec is built (converted
+from ``unit``, the unit the file gave the section in).
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import date
-from typing import Any, Mapping
+from typing import Any, Mapping, TypeAlias
 
 from doseattr.analysis.tables import (BinsTable, BurdenTable, DrawsTable, HistoriesTable,
                                       Measurements, PointsTable, StudyTable)
+from doseattr.core.curves.registry import MODELS
+from doseattr.core.exposure.registry import FAMILIES
 
 #: Monte Carlo draws: fewer than MIN_DRAWS give unstable percentiles; more
 #: than MAX_DRAWS need ``allow_many_draws = true`` (memory and time).
@@ -17,78 +38,220 @@ MIN_DRAWS, MAX_DRAWS = 100, 100_000
 #: Seed used when ``[uncertainty]`` gives none, so that runs repeat exactly.
 DEFAULT_SEED = 1
 
-#: Models that can be fitted to a study table.
-FITTED_MODELS = ("log-linear", "linear", "power", "spline")
+#: Published shapes entered with their parameters: (coefficients, each with
+#: an optional ``<name>_se``; required fixed settings); ``threshold`` is
+#: optional for both.
+SHAPE_KEYS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    "saturating-exponential": (("alpha", "gamma", "delta"), ()),
+    "log-logistic-weighted": (("theta",), ("scale", "midpoint", "spread"))}
+#: Models of the core registry that are entered as published shapes.
+SHAPE_MODELS = tuple(name for name in MODELS if name in SHAPE_KEYS)
+#: Models of the core registry that can be fitted to a study table (all
+#: but the published shapes and the curve given as points).
+FITTED_MODELS = tuple(name for name in MODELS if name not in SHAPE_KEYS and name != "points")
+#: Exposure families of the core registry, in its order.
+FITTED_FAMILIES = tuple(FAMILIES)
 #: Designs for which effective counts can be reconstructed.
 EFFECTIVE_COUNT_DESIGNS = ("case-control", "incidence-rate")
 
 
+# -- curve ------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False, kw_only=True)
+class _Curve:
+    """What every ``[curve]`` has: the model's name, ``beyond``
+    (``"flat"`` or ``"extend"``), ``max_dose`` (``None`` unless given; a
+    fitted curve then uses its highest assigned dose), the unit the file
+    gave the curve in and notes on how it was read."""
 
-@dataclass(frozen=True, eq=False)
-class CurveSpec:
-    """What ``[curve]`` asks for.
-
-    ``source`` is ``"table"`` (fitted to the study's bands in ``table``),
-    ``"entered"`` (a published estimate: ``rr``, ``err`` or ``exponent``),
-    ``"points"``/``"draws"`` (a curve given as a CSV) or ``"shape"`` (a
-    published shape with coefficients ``shape_coef``, their covariance
-    ``shape_cov`` and fixed settings ``shape_settings``).
-    ``beyond`` is ``"flat"`` or ``"extend"``; ``max_dose`` is ``None``
-    unless given (a fitted curve then uses its highest assigned dose).
-    Every dose is in the analysis file's unit once the spec is built
-    (converted from ``unit``, the unit the file gave the curve in).
-    """
-
-    source: str
     model: str
     beyond: str
-    table: StudyTable | None = None
+    max_dose: float | None = None
+    unit: str | None = None
+    notes: tuple[str, ...] = ()
+
+
+class _NoStudyTable:
+    """A curve that was not fitted to a study table."""
+
+    @property
+    def table(self) -> StudyTable | None:
+        """``None``: there is no study table (read by the categorical
+        comparison, which uses the study's bands when there are any)."""
+        return None
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class TableCurve(_Curve):
+    """A model fitted to the study's bands in ``table``: ``design`` (given
+    or implied by the counts), band doses by ``dose_rule``, the log RRs'
+    ``covariance`` (``"counts"``, ``"effective-counts"`` or
+    ``"independent"``), the power model's ``offset``, the spline's
+    ``knots`` (or ``knot_count``), and the models to compare with."""
+
+    table: StudyTable
     design: str | None = None
     dose_rule: str = "given"
-    covariance: str | None = None
+    covariance: str = "independent"
     offset: float = 0.0
-    rr: float | None = None
-    err: float | None = None
-    exponent: float | None = None
-    per: float = 1.0
-    ci: tuple[float, float] | None = None
-    reference_dose: float = 0.0
-    max_dose: float | None = None
     knots: tuple[float, ...] | None = None
     knot_count: int = 3
     compare_models: tuple[str, ...] = ()
-    given: PointsTable | DrawsTable | None = None
-    shape_coef: tuple[float, ...] = ()
-    shape_cov: tuple[tuple[float, ...], ...] = ()
-    shape_settings: Mapping[str, float] | None = None
-    unit: str | None = None
-    notes: tuple[str, ...] = ()
+
+    @property
+    def source(self) -> str:
+        return "table"
 
 
-@dataclass(frozen=True, eq=False)
-class ExposureSpec:
-    """What ``[exposure]`` asks for.
+@dataclass(frozen=True, eq=False, kw_only=True)
+class EnteredCurve(_NoStudyTable, _Curve):
+    """A published one-parameter estimate: ``estimate`` names it
+    (``"rr"``, ``"err"`` or ``"exponent"``) and ``value`` is its value per
+    ``per`` dose units, with its ``ci`` when given."""
 
-    ``source`` is ``"measurements"`` (fit ``family`` to ``measurements``),
-    ``"gm-gsd"``, ``"shape-scale"``, ``"mean-sd"``, ``"percentiles"``,
-    ``"bins"`` or ``"histories"``; ``values`` holds the typed parameters.
-    ``substitution`` lists fractions of the detection limit to substitute
-    for a comparison fit. Values are in the analysis file's unit once the
-    spec is built (converted from ``unit``).
-    """
+    estimate: str
+    value: float
+    per: float = 1.0
+    ci: tuple[float, float] | None = None
+    offset: float = 0.0
+    reference_dose: float = 0.0
 
-    source: str
+    @property
+    def source(self) -> str:
+        return "entered"
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class PointsCurve(_NoStudyTable, _Curve):
+    """A curve given as doses with RR and CI (``given``), held flat beyond
+    its last dose; RRs are divided by the RR at ``reference_dose``."""
+
+    given: PointsTable
+    reference_dose: float = 0.0
+
+    @property
+    def source(self) -> str:
+        return "points"
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class DrawsCurve(_NoStudyTable, _Curve):
+    """A curve given as draws of RR on doses (``given``), held flat beyond
+    its last dose."""
+
+    given: DrawsTable
+    reference_dose: float = 0.0
+
+    @property
+    def source(self) -> str:
+        return "draws"
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class ShapeCurve(_NoStudyTable, _Curve):
+    """A published shape (``model`` one of :data:`SHAPE_MODELS`) with its
+    coefficients ``coef``, their covariance ``cov`` (diagonal as entered)
+    and fixed ``settings`` (threshold, and the shape's own)."""
+
+    coef: tuple[float, ...]
+    cov: tuple[tuple[float, ...], ...]
+    settings: Mapping[str, float]
+    reference_dose: float = 0.0
+
+    @property
+    def source(self) -> str:
+        return "shape"
+
+
+#: What ``[curve]`` asks for: one type per source.
+CurveSpec: TypeAlias = TableCurve | EnteredCurve | PointsCurve | DrawsCurve | ShapeCurve
+
+
+# -- exposure -----------------------------------------------------------------------
+@dataclass(frozen=True, eq=False, kw_only=True)
+class _Exposure:
+    """What every ``[exposure]`` has: the family (a name of
+    :data:`FITTED_FAMILIES`, or ``"best"``/``"empirical"`` for values),
+    the unexposed share given, the unit the file gave the values in and
+    notes on how they were read."""
+
     family: str
     unexposed: float = 0.0
-    measurements: Measurements | None = None
-    values: Mapping[Any, float] | None = None
-    bins: BinsTable | None = None
-    histories: HistoriesTable | None = None
-    as_of: date | None = None
-    lag_years: float = 0.0
-    substitution: tuple[float, ...] = ()
     unit: str | None = None
     notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class MeasuredExposure(_Exposure):
+    """``family`` fitted to ``measurements``; ``substitution`` lists
+    fractions of the detection limit to substitute for a comparison fit."""
+
+    measurements: Measurements
+    substitution: tuple[float, ...] = ()
+
+    @property
+    def source(self) -> str:
+        return "measurements"
+
+
+#: Summary statistics: the source's name and the two keys it takes.
+SUMMARY_KEYS: dict[str, tuple[str, str]] = {"gm-gsd": ("gm", "gsd"),
+                                            "shape-scale": ("shape", "scale"),
+                                            "mean-sd": ("mean", "sd")}
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class SummaryExposure(_Exposure):
+    """Two summary statistics: ``kind`` is a key of :data:`SUMMARY_KEYS`
+    (which is also the ``source``) and ``values`` maps its two keys to
+    their values."""
+
+    kind: str
+    values: Mapping[str, float]
+
+    @property
+    def source(self) -> str:
+        return self.kind
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class PercentilesExposure(_Exposure):
+    """``family`` matched to ``values``, percentile (0-100) to value."""
+
+    values: Mapping[float, float]
+
+    @property
+    def source(self) -> str:
+        return "percentiles"
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class BinnedExposure(_Exposure):
+    """``family`` fitted to the binned counts or shares of ``bins``."""
+
+    bins: BinsTable
+
+    @property
+    def source(self) -> str:
+        return "bins"
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class HistoriesExposure(_Exposure):
+    """``family`` fitted to cumulative exposure from work ``histories``,
+    counted up to ``as_of`` minus ``lag_years``."""
+
+    histories: HistoriesTable
+    as_of: date
+    lag_years: float = 0.0
+
+    @property
+    def source(self) -> str:
+        return "histories"
+
+
+#: What ``[exposure]`` asks for: one type per source.
+ExposureSpec: TypeAlias = (MeasuredExposure | SummaryExposure | PercentilesExposure
+                           | BinnedExposure | HistoriesExposure)
 
 
 @dataclass(frozen=True)

@@ -162,7 +162,7 @@ def _band_row(raw: RawTable, row: Row, counts_present: list[str]) -> dict[str, f
     if lo is None and rr != 1:
         raise cell_error(raw, row, "ci_lower", f"the CI is empty but the RR is {rr:g}; only the "
                     "reference band (rr 1) has an empty CI")
-    if lo is not None:
+    if lo is not None and hi is not None:
         if lo <= 0:
             raise cell_error(raw, row, "ci_lower", f"CI limit must be greater than 0, got {lo:g}")
         if not lo < hi:

@@ -21,12 +21,15 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import numpy as np
 
 from doseattr.analysis.schema import Context
-from doseattr.analysis.specs import CurveSpec, ExposureSpec
+from doseattr.analysis.specs import (BinnedExposure, CurveSpec, DrawsCurve, EnteredCurve,
+                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
+                                     PercentilesExposure, PointsCurve, ShapeCurve,
+                                     SummaryExposure, TableCurve)
 from doseattr.analysis.tables import BurdenTable
 from doseattr.errors import ModelError
 
@@ -81,8 +84,8 @@ def conversion(units: Units, given: str | None, section: str, ctx: Context, *,
         target = kind[1][: -len("-years")] if kind and kind[0] == "cumulative" else target
     if given is None or given.strip() == target:
         return Conversion()
-    to, frm = _kind(target), _kind(given)
-    _check_kinds(frm, to, given, target, section, ctx, intensity)
+    frm, to = _check_kinds(_kind(given), _kind(target), given, target, section, ctx,
+                           intensity)
     uses_mw = _groups_differ(frm[1], to[1])
     try:
         f = conversion_factor(_conc(frm[1]), _conc(to[1]),
@@ -110,8 +113,11 @@ def _groups_differ(a: str, b: str) -> bool:
     return CONCENTRATION_UNITS[_conc(a)][0] != CONCENTRATION_UNITS[_conc(b)][0]
 
 
-def _check_kinds(frm, to, given: str, target: str, section: str, ctx: Context,
-                 intensity: bool) -> None:
+def _check_kinds(frm: tuple[str, str] | None, to: tuple[str, str] | None, given: str,
+                 target: str, section: str, ctx: Context,
+                 intensity: bool) -> tuple[tuple[str, str], tuple[str, str]]:
+    """The kinds of ``given`` and ``target`` (``frm``, ``to``) when one
+    converts to the other; else the error that says why not."""
     from doseattr.core.exposure.units import CONCENTRATION_UNITS
 
     known = ", ".join(CONCENTRATION_UNITS)
@@ -129,6 +135,7 @@ def _check_kinds(frm, to, given: str, target: str, section: str, ctx: Context,
         raise ctx.error(f"'{given}' is a {frm[0]} unit but the file's unit '{target}' is a "
                         f"{to[0]} unit (concentration x years); they cannot be converted",
                         section, "unit")
+    return frm, to
 
 
 # -- applying a factor ---------------------------------------------------------------
@@ -143,23 +150,43 @@ def convert_curve(spec: CurveSpec, conv: Conversion, unit: str | None) -> CurveS
     if conv.factor == 1.0:
         return dataclasses.replace(spec, unit=unit)
     f = conv.factor
-    changes: dict[str, Any] = {"unit": unit, "notes": spec.notes + (conv.note,),
-                               "offset": spec.offset * f, "per": spec.per * f,
-                               "reference_dose": spec.reference_dose * f,
-                               "max_dose": None if spec.max_dose is None else spec.max_dose * f}
-    if spec.knots is not None:
-        changes["knots"] = tuple(k * f for k in spec.knots)
-    if spec.table is not None:
-        changes["table"] = _scaled(spec.table, f, "lower", "upper", "dose")
-    if spec.given is not None:
-        changes["given"] = dataclasses.replace(_scaled(spec.given, f, "doses"),
-                                               reference_dose=spec.given.reference_dose * f)
-    if spec.source == "shape":
-        changes.update(_shape_in_unit(spec, f))
-    return dataclasses.replace(spec, **changes)
+    changes = _CURVE_DOSES[type(spec)](spec, f)
+    return dataclasses.replace(spec, unit=unit, notes=_noted(spec.notes, conv),
+                               max_dose=None if spec.max_dose is None else spec.max_dose * f,
+                               **changes)
 
 
-def _shape_in_unit(spec: CurveSpec, f: float) -> dict[str, Any]:
+def _noted(notes: tuple[str, ...], conv: Conversion) -> tuple[str, ...]:
+    return notes + ((conv.note,) if conv.note is not None else ())
+
+
+def _table_doses(spec: TableCurve, f: float) -> dict[str, Any]:
+    return {"offset": spec.offset * f, "table": _scaled(spec.table, f, "lower", "upper", "dose"),
+            "knots": None if spec.knots is None else tuple(k * f for k in spec.knots)}
+
+
+def _entered_doses(spec: EnteredCurve, f: float) -> dict[str, Any]:
+    return {"offset": spec.offset * f, "per": spec.per * f,
+            "reference_dose": spec.reference_dose * f}
+
+
+def _given_doses(spec: PointsCurve | DrawsCurve, f: float) -> dict[str, Any]:
+    return {"reference_dose": spec.reference_dose * f,
+            "given": dataclasses.replace(_scaled(spec.given, f, "doses"),
+                                         reference_dose=spec.given.reference_dose * f)}
+
+
+def _shape_doses(spec: ShapeCurve, f: float) -> dict[str, Any]:
+    return {"reference_dose": spec.reference_dose * f, **_shape_in_unit(spec, f)}
+
+
+#: For each source of curve, its doses on the new scale (fields to replace).
+_CURVE_DOSES: dict[type, Callable[[Any, float], dict[str, Any]]] = {
+    TableCurve: _table_doses, EnteredCurve: _entered_doses, PointsCurve: _given_doses,
+    DrawsCurve: _given_doses, ShapeCurve: _shape_doses}
+
+
+def _shape_in_unit(spec: ShapeCurve, f: float) -> dict[str, Any]:
     r"""Shape settings and coefficients on the new dose scale.
 
     Doses (threshold, scale, midpoint, spread) scale by f. In the saturating
@@ -170,8 +197,8 @@ def _shape_in_unit(spec: CurveSpec, f: float) -> dict[str, Any]:
     :math:`\partial\gamma'/\partial\delta = -\gamma f^{-\delta}\ln f`.
     """
     settings = {k: v * f if k in ("threshold", "scale", "midpoint", "spread") else v
-                for k, v in spec.shape_settings.items()}
-    coef, cov = np.array(spec.shape_coef), np.array(spec.shape_cov)
+                for k, v in spec.settings.items()}
+    coef, cov = np.array(spec.coef), np.array(spec.cov)
     if spec.model == "saturating-exponential":
         _, g, d = coef
         jac = np.eye(3)
@@ -179,8 +206,8 @@ def _shape_in_unit(spec: CurveSpec, f: float) -> dict[str, Any]:
         jac[1, 2] = -g * f ** -d * math.log(f)
         coef = np.array([coef[0], g * f ** -d, d])
         cov = jac @ cov @ jac.T
-    return {"shape_settings": settings, "shape_coef": tuple(float(v) for v in coef),
-            "shape_cov": tuple(tuple(float(v) for v in row) for row in cov)}
+    return {"settings": settings, "coef": tuple(float(v) for v in coef),
+            "cov": tuple(tuple(float(v) for v in row) for row in cov)}
 
 
 #: Exposure parameters that are doses (the rest are dimensionless).
@@ -191,19 +218,35 @@ def convert_exposure(spec: ExposureSpec, conv: Conversion, unit: str | None) -> 
     """Every exposure value of ``spec`` in the analysis unit."""
     if conv.factor == 1.0:
         return dataclasses.replace(spec, unit=unit)
-    f = conv.factor
-    changes: dict[str, Any] = {"unit": unit, "notes": spec.notes + (conv.note,)}
-    if spec.measurements is not None:
-        changes["measurements"] = _scaled(spec.measurements, f, "values")
-    if spec.bins is not None:
-        changes["bins"] = _scaled(spec.bins, f, "lower", "upper")
-    if spec.histories is not None:
-        changes["histories"] = _scaled(spec.histories, f, "intensity")
-    if spec.values is not None:
-        every = spec.source == "percentiles"
-        changes["values"] = {k: v * f if every or k in DOSE_PARAMETERS else v
-                             for k, v in spec.values.items()}
-    return dataclasses.replace(spec, **changes)
+    changes = _EXPOSURE_VALUES[type(spec)](spec, conv.factor)
+    return dataclasses.replace(spec, unit=unit, notes=_noted(spec.notes, conv), **changes)
+
+
+def _measured_values(spec: MeasuredExposure, f: float) -> dict[str, Any]:
+    return {"measurements": _scaled(spec.measurements, f, "values")}
+
+
+def _summary_values(spec: SummaryExposure, f: float) -> dict[str, Any]:
+    return {"values": {k: v * f if k in DOSE_PARAMETERS else v for k, v in spec.values.items()}}
+
+
+def _percentile_values(spec: PercentilesExposure, f: float) -> dict[str, Any]:
+    return {"values": {k: v * f for k, v in spec.values.items()}}
+
+
+def _binned_values(spec: BinnedExposure, f: float) -> dict[str, Any]:
+    return {"bins": _scaled(spec.bins, f, "lower", "upper")}
+
+
+def _histories_values(spec: HistoriesExposure, f: float) -> dict[str, Any]:
+    return {"histories": _scaled(spec.histories, f, "intensity")}
+
+
+#: For each source of exposure, its values in the new unit (fields to replace).
+_EXPOSURE_VALUES: dict[type, Callable[[Any, float], dict[str, Any]]] = {
+    MeasuredExposure: _measured_values, SummaryExposure: _summary_values,
+    PercentilesExposure: _percentile_values, BinnedExposure: _binned_values,
+    HistoriesExposure: _histories_values}
 
 
 def convert_burden(table: BurdenTable, conv: Conversion) -> BurdenTable:
