@@ -10,31 +10,32 @@ import numpy as np
 
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
-from doseattr.results.records import (CurveSection, CurveVariant, ExposureSection,
+from doseattr.core.exposure.empirical import EmpiricalExposure
+from doseattr.results.records import (AnyExposure, CurveSection, CurveVariant, ExposureSection,
                                       ExposureVariant, FamilyFit, GoodnessOfFit,
                                       StratumExposure, SubstitutionResult, Workers)
 from doseattr.results.serialize import nonlinearity_p
 
 
-def share_above(exposure: Exposure, dose: float | None) -> float | None:
+def share_above(exposure: AnyExposure, dose: float | None) -> float | None:
     """Population share above ``dose`` (``None`` for no dose)."""
     if dose is None:
         return None
     return float(np.asarray(exposure.sf(np.array([dose])), dtype=float).reshape(-1)[0])
 
 
-def exposure_mean(exposure: Exposure) -> float:
+def exposure_mean(exposure: AnyExposure) -> float:
     """Population mean exposure, the unexposed counted at zero."""
-    if exposure.family.name == "empirical":
+    if isinstance(exposure, EmpiricalExposure):
         return float(exposure.mean())
     one = float(np.asarray(exposure.family.mean(exposure.params), dtype=float).reshape(-1)[0])
     return (1.0 - exposure.unexposed) * one
 
 
-def zero_share(exposure: Exposure) -> float:
+def zero_share(exposure: AnyExposure) -> float:
     """The unexposed share, plus the weighted share of zeros among the
     values on the empirical path."""
-    if exposure.family.name == "empirical":
+    if isinstance(exposure, EmpiricalExposure):
         return float(exposure.zero_share)
     return float(exposure.unexposed)
 
@@ -48,10 +49,10 @@ def goodness_of_fit(fit: Any) -> GoodnessOfFit | None:
                          _float(gof.get("p_value")), int(gof.get("n") or 0), gof.get("note"))
 
 
-def family_fits(exposure: Exposure, parametric: tuple[Exposure, ...]) -> tuple[FamilyFit, ...]:
+def family_fits(exposure: AnyExposure, parametric: tuple[Exposure, ...]) -> tuple[FamilyFit, ...]:
     """Every parametric fit tried: the main one, the alternatives of
     ``family = "best"``, or the comparison fits of the empirical path."""
-    tried = [(e.family, e.params, e.fit) for e in parametric]
+    tried: list[tuple[Any, Any, Any]] = [(e.family, e.params, e.fit) for e in parametric]
     if exposure.fit is not None and exposure.fit.loglik is not None:
         tried.insert(0, (exposure.family, exposure.params, exposure.fit))
     tried += list(exposure.alternatives)
@@ -70,7 +71,7 @@ def workers(w: Any) -> Workers | None:
                    tuple(map(float, w.duration_years)), tuple(map(float, w.mean_intensity)))
 
 
-def curve_section(curve: Curve, exposure: Exposure, bands: Any,
+def curve_section(curve: Curve, exposure: AnyExposure, bands: Any,
                   comparison: tuple[CurveVariant, ...],
                   sensitivity: tuple[CurveVariant, ...]) -> CurveSection:
     return CurveSection(curve, bands, comparison, sensitivity, nonlinearity_p(curve),
@@ -78,7 +79,7 @@ def curve_section(curve: Curve, exposure: Exposure, bands: Any,
                         share_above(exposure, curve.data_max))
 
 
-def exposure_section(curve: Curve, exposure: Exposure, *,
+def exposure_section(curve: Curve, exposure: AnyExposure, *,
                      comparison: tuple[ExposureVariant, ...],
                      substitution: tuple[SubstitutionResult, ...], worker_totals: Any,
                      parametric: tuple[Exposure, ...]) -> ExposureSection:
@@ -89,7 +90,7 @@ def exposure_section(curve: Curve, exposure: Exposure, *,
                            comparison, substitution, workers(worker_totals), parametric)
 
 
-def stratum_exposure(exposure: Exposure, shared: Exposure,
+def stratum_exposure(exposure: AnyExposure, shared: AnyExposure,
                      given: dict[str, float] | None) -> StratumExposure:
     """The exposure of one stratum, and whether it is its own."""
     return StratumExposure(exposure is not shared, exposure.family.name,

@@ -18,7 +18,7 @@ import numpy as np
 from doseattr.analysis.assemble import stratum_exposure as stratum_exposure_record
 from doseattr.analysis.build import as_input_error
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.intervals import (SOURCES, interval, minimum_risk_range,
+from doseattr.analysis.intervals import (SOURCES, burden_spec, interval, minimum_risk_range,
                                          progress_bar)
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import BurdenResult, StratumEffect, StratumResult
@@ -30,7 +30,7 @@ def burden_strata(analysis: Analysis, exposure) -> list:
     shared exposure or its own (from its exposure columns)."""
     from doseattr.core.uncertainty.propagate import Stratum
 
-    table = analysis.burden.table
+    table = burden_spec(analysis).table
     return [Stratum(name, float(n), stratum_exposure(analysis, exposure, override, line))
             for name, n, override, line in zip(table.strata, table.cases, table.exposure,
                                                 table.lines)]
@@ -56,16 +56,16 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
                               minimum_risk=minimum_risk_range(analysis), sources=sources,
                               progress=tick)
     names = [sc.name for sc in transforms]
-    table = analysis.burden.table
+    table = burden_spec(analysis).table
     pop = table.population
     rows = tuple(dataclasses.replace(
         _row(name, float(table.cases[s]), point, draws, names, s,
              None if pop is None else float(pop[s])),
         exposure=stratum_exposure_record(strata[s].exposure, shared, table.exposure[s]))
         for s, name in enumerate(table.strata))
-    total = _row("total", float(table.cases.sum()), point, draws, names, None,
-                 None if pop is None else float(pop.sum()))
-    return BurdenResult(rows, total), draws
+    overall = _row("total", float(table.cases.sum()), point, draws, names, None,
+                   None if pop is None else float(pop.sum()))
+    return BurdenResult(rows, overall), draws
 
 
 def _row(name: str, cases: float, point, draws, names: list[str], s: int | None,
@@ -101,7 +101,7 @@ def stratum_exposure(analysis: Analysis, shared, override: dict | None, line: in
         return shared
     from doseattr.core.exposure import summary
 
-    source = analysis.burden.table.source
+    source = burden_spec(analysis).table.source
     family = shared.family.name
     keys = tuple(override)
     location = f"row {line}, column '{keys[1]}'"

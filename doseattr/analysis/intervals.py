@@ -25,6 +25,7 @@ from typing import Callable, Iterator, Sequence
 import numpy as np
 
 from doseattr.analysis.config import Analysis
+from doseattr.analysis.specs import BurdenSpec, UncertaintySpec
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import ScenarioResult, SourceWidth
 from doseattr.errors import DoseattrError
@@ -40,7 +41,7 @@ def population_intervals(analysis: Analysis, curve, exposure, scenarios, paf_val
     with their intervals."""
     from doseattr.core.uncertainty.propagate import Stratum, propagate
 
-    u = analysis.uncertainty
+    u = settings(analysis)
     total = u.draws * (1 + len(scenarios))
     with progress_bar(total, progress) as tick:
         prop = propagate(curve, [Stratum("population", 1.0, exposure)],
@@ -53,6 +54,22 @@ def population_intervals(analysis: Analysis, curve, exposure, scenarios, paf_val
                                                         f"PIF of {r.name}"))
                     for r in scenario_results)
     return prop, paf, results
+
+
+def settings(analysis: Analysis) -> UncertaintySpec:
+    """The ``[uncertainty]`` spec of an analysis that has one."""
+    if analysis.uncertainty is None:
+        raise DoseattrError("internal error: Monte Carlo intervals asked for without "
+                            "[uncertainty]; please report this")
+    return analysis.uncertainty
+
+
+def burden_spec(analysis: Analysis) -> BurdenSpec:
+    """The ``[burden]`` spec of an analysis that has one."""
+    if analysis.burden is None:
+        raise DoseattrError("internal error: attributable cases asked for without [burden]; "
+                            "please report this")
+    return analysis.burden
 
 
 def minimum_risk_range(analysis: Analysis) -> tuple[float, float]:
@@ -68,6 +85,13 @@ def interval(estimate: float, draws: np.ndarray, what: str) -> Estimate:
 
     i = summarise(estimate, checked(draws, what))
     return Estimate(i.estimate, i.lower, i.upper, i.mcse)
+
+
+def limits(estimate: Estimate) -> tuple[float, float]:
+    """``(lower, upper)`` of an estimate that has an interval."""
+    if estimate.lower is None or estimate.upper is None:
+        raise DoseattrError("internal error: an interval without limits; please report this")
+    return estimate.lower, estimate.upper
 
 
 def finite(value: float, what: str) -> float:
@@ -117,7 +141,7 @@ def varying_sources(analysis: Analysis, curve, strata: Sequence) -> tuple[str, .
     flags = {"curve": curve.draws is not None or bool(np.any(curve.cov)),
              "exposure": any(exposure_varies(s.exposure) for s in strata),
              "minimum_risk": high > low,
-             "cases": analysis.uncertainty.poisson_cases and analysis.burden is not None}
+             "cases": settings(analysis).poisson_cases and analysis.burden is not None}
     return tuple(k for k, on in flags.items() if on)
 
 
@@ -128,7 +152,7 @@ def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
     time; one entry per source that varies."""
     from doseattr.core.uncertainty.propagate import propagate
 
-    u = analysis.uncertainty
+    u = settings(analysis)
     sources = varying_sources(analysis, curve, strata)
     out = []
     with progress_bar(u.draws * len(sources), progress) as tick:
@@ -147,17 +171,17 @@ def source_width(analysis: Analysis, source: str, point: float, prop) -> SourceW
     the single population stratum."""
     if analysis.burden is None:
         i = interval(point, prop.paf[0], f"PAF with only {source} varying")
-        return SourceWidth(source, i.lower, i.upper)
+        return SourceWidth(source, *limits(i))
     i = interval(point, prop.total_paf, f"PAF with only {source} varying")
     cases = interval(0.0, prop.total_attributable, "total attributable cases")
-    return SourceWidth(source, i.lower, i.upper, (cases.lower, cases.upper))
+    return SourceWidth(source, *limits(i), limits(cases))
 
 
 def uncertainty_notes(analysis: Analysis, curve, exposure) -> list[str]:
     """One note: how many draws, which seed, and what was varied."""
     from doseattr.core.exposure.empirical import EmpiricalExposure
 
-    u = analysis.uncertainty
+    u = settings(analysis)
     seed = f"seed {u.seed}" + ("" if u.seed_given else " (the default; set [uncertainty] seed "
                                                       "to choose another)")
     varied = []

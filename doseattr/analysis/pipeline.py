@@ -28,7 +28,11 @@ from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import (population_intervals, source_width,
                                          uncertainty_notes, width_by_source)
 from doseattr.analysis.assemble import curve_section, exposure_section
+from doseattr.analysis.tables import StudyTable
+from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.uncertainty.propagate import Stratum
+from doseattr.errors import DoseattrError
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (AttributionSection, BurdenResult, RunInputs,
@@ -61,6 +65,9 @@ def run_analysis(analysis: Analysis, *, progress: bool = False) -> Results:
     prepared = prepare_all(analysis)  # every check, before any Monte Carlo draw
     if analysis.outcomes:
         results = _with_outcomes(analysis, prepared, progress)
+    elif prepared.top is None:
+        raise DoseattrError("internal error: an analysis with neither [curve] nor "
+                            "[[outcome]] passed the checks; please report this")
     else:
         results = _run_prepared(prepared.top, progress)
     results = dataclasses.replace(results, inputs=run_inputs(analysis))
@@ -146,8 +153,8 @@ class _Point:
 
     paf: float
     scenarios: tuple[ScenarioResult, ...]
-    categorical: object
-    contribution: object
+    categorical: CategoricalComparison
+    contribution: Contribution
     notes: tuple[str, ...] = ()
 
 
@@ -193,7 +200,7 @@ def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
         analysis, curve, exposure, scenarios, point.paf, point.scenarios, progress)
     if strata is None:
         strata, overall, draws = [Stratum("population", 1.0, exposure)], point.paf, prop
-    else:
+    elif burden is not None:
         overall, draws = burden.total.paf.estimate, burden_draws
     widths = width_by_source(analysis, curve, strata, overall, progress)
     u = analysis.uncertainty
@@ -224,7 +231,7 @@ def _cutpoints(analysis: Analysis, built: BuiltCurve, exposure):
         cuts = np.asarray(given, dtype=float)
     elif study is not None:
         cuts = study
-        if table.lower[0] > 0:
+        if table is not None and table.lower[0] > 0:
             notes.append(f"categorical comparison: the lowest band starts at "
                          f"{table.lower[0]:g} {analysis.unit}; it is taken down to 0 so that "
                          "the bands cover everyone")
@@ -236,9 +243,10 @@ def _cutpoints(analysis: Analysis, built: BuiltCurve, exposure):
                      f"quartiles of the exposed population's {what} were used "
                      "(set [attribution] cutpoints to choose them)")
     reported = None
-    if study is not None and cuts.shape == study.shape and np.allclose(cuts, study):
+    if (table is not None and study is not None and cuts.shape == study.shape
+            and np.allclose(cuts, study)):
         reported = table.rr
-        if not _reference_holds_minimum(analysis, built):
+        if not _reference_holds_minimum(table, analysis.attribution.minimum_risk):
             notes.append("the study's reported RRs are relative to its reference band, while "
                          "the continuous PAF is relative to the minimum-risk level; their "
                          "difference reflects this too")
@@ -263,9 +271,8 @@ def _quartiles(exposure) -> np.ndarray:
     return np.unique(x[idx])
 
 
-def _reference_holds_minimum(analysis: Analysis, built: BuiltCurve) -> bool:
-    t = analysis.curve.table
-    m = analysis.attribution.minimum_risk
+def _reference_holds_minimum(t: StudyTable, m: float) -> bool:
+    """True when the study's reference band holds the minimum-risk level."""
     ref = t.reference
     return bool(t.lower[ref] <= m <= t.upper[ref])
 

@@ -19,9 +19,12 @@ from numpy.typing import NDArray
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
+from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.results.estimate import Estimate
 
 FloatArray = NDArray[np.float64]
+#: A fitted or entered distribution, or the weighted values themselves.
+AnyExposure = Exposure | EmpiricalExposure
 
 
 @dataclass(frozen=True)
@@ -154,7 +157,7 @@ class ExposureSection:
     share plus, for weighted values, the weighted share of zeros.
     """
 
-    exposure: Exposure
+    exposure: AnyExposure
     mean: float
     zero_share: float
     share_beyond_max_dose: float | None
@@ -169,7 +172,7 @@ class ExposureSection:
     @property
     def is_empirical(self) -> bool:
         """True when the exposure is the weighted values themselves."""
-        return self.exposure.family.name == "empirical"
+        return isinstance(self.exposure, EmpiricalExposure)
 
 
 @dataclass(frozen=True)

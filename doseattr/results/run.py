@@ -20,7 +20,7 @@ from doseattr.core.exposure.base import Exposure
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import pct
-from doseattr.results.records import (AttributionSection, BandTable, BurdenResult,
+from doseattr.results.records import (AnyExposure, AttributionSection, BandTable, BurdenResult,
                                       CurveSection, CurveVariant, ExposureSection,
                                       ExposureVariant, RunInputs, ScenarioResult,
                                       SourceWidth, SubstitutionResult, UncertaintySection,
@@ -76,7 +76,7 @@ class Results:
         return self.curve_section.curve
 
     @property
-    def exposure(self) -> Exposure:
+    def exposure(self) -> AnyExposure:
         return self.exposure_section.exposure
 
     @property
