@@ -182,7 +182,7 @@ def test_strata_table_names_each_strata_exposure(single):
     (reference library; no unexposed share here); the others say "shared",
     and one sentence under the table names the strata with their own."""
     html = render_report(single, figures=False)
-    header, rows = table_with(html, "attributable cases by stratum")
+    _, rows = table_with(html, "attributable cases by stratum")
     cells = {r[0]: r[-1] for r in rows}
     given = list(csv.DictReader(io.StringIO(STRATA)))
     own = [r["stratum"] for r in given if r["gm"]]

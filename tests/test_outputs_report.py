@@ -17,9 +17,9 @@ import pytest
 from scipy import stats
 from test_outputs_cases import SCENARIO_NAMES, make_results, table_with
 
-from doseattr.results import BurdenResult, Estimate, StratumExposure, StratumResult
 from doseattr.outputs import report
 from doseattr.outputs.report import render_report
+from doseattr.results import BurdenResult, Estimate, StratumExposure, StratumResult
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 

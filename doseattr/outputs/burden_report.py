@@ -24,9 +24,16 @@ from doseattr.outputs.markup import (
     with_unit,
     worded,
 )
-from doseattr.outputs.text import PARAMETER_UNITS
-from doseattr.results import (AttributionSection, BurdenResult, Estimate, SourceWidth,
-                              StratumExposure, StratumResult, UncertaintySection)
+from doseattr.outputs.text import UNIT_PARAMETERS
+from doseattr.results import (
+    AttributionSection,
+    BurdenResult,
+    Estimate,
+    SourceWidth,
+    StratumExposure,
+    StratumResult,
+    UncertaintySection,
+)
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results
@@ -229,7 +236,7 @@ def stratum_exposure_text(e: StratumExposure | None, unit: str | None) -> str:
 
 
 def _given_value(name: str, value: float, unit: str | None) -> str:
-    carries_unit = name in PARAMETER_UNITS and PARAMETER_UNITS[name]
+    carries_unit = name in UNIT_PARAMETERS
     return with_unit(float(value), unit) if carries_unit else num(float(value))
 
 

@@ -22,10 +22,15 @@ from doseattr.outputs.markup import (
     table,
     with_unit,
 )
-from doseattr.outputs.text import PARAMETER_UNITS
+from doseattr.outputs.text import UNIT_PARAMETERS
 from doseattr.results import ExposureSection
-from doseattr.results.records import (ExposureVariant, FamilyFit, GoodnessOfFit,
-                                      SubstitutionResult, Workers)
+from doseattr.results.records import (
+    ExposureVariant,
+    FamilyFit,
+    GoodnessOfFit,
+    SubstitutionResult,
+    Workers,
+)
 
 
 def exposure_section(e: ExposureSection, unit: str | None, images: Mapping[str, bytes], *,
@@ -114,7 +119,7 @@ def exposure_caption(e: ExposureSection) -> str:
 
 def param_text(name: str, value: float, unit: str | None) -> str:
     """A parameter's value, with the unit when the parameter carries it."""
-    if name in PARAMETER_UNITS and PARAMETER_UNITS[name]:
+    if name in UNIT_PARAMETERS:
         return with_unit(float(value), unit)
     return num(float(value), 5)
 

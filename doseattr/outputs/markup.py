@@ -115,7 +115,7 @@ def estimate_text(est: Estimate | None, fmt: Callable[[Any], str] = pct) -> str:
 def figure(images: Mapping[str, bytes], name: str, alt: str) -> str:
     """The figure ``name`` of ``images`` with its caption, or ``""`` when
     it was not drawn."""
-    return image(images[name] if name in images else None, alt)
+    return image(images[name], alt) if name in images else ""
 
 
 def worded(wording: Mapping[str, str], key: str, default: str | None = None) -> str:

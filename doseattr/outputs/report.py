@@ -59,8 +59,13 @@ from doseattr.outputs.text import (
     computed_paragraph,
     references,
 )
-from doseattr.results import (AttributionSection, CurveSection, Estimate, Results,
-                              ScenarioResult)
+from doseattr.results import (
+    AttributionSection,
+    CurveSection,
+    Estimate,
+    Results,
+    ScenarioResult,
+)
 
 
 # ---------------------------------------------------------------- sections

@@ -35,6 +35,9 @@ COVARIANCE_MEANING = {
 PARAMETER_UNITS = {"gm": True, "gsd": False, "shape": False, "scale": True,
                    "mean": True, "sd": True}
 
+#: The parameters of :data:`PARAMETER_UNITS` that carry the exposure unit.
+UNIT_PARAMETERS = frozenset(k for k, v in PARAMETER_UNITS.items() if v)
+
 DEFAULT_CAUTIONS = (
     "A PAF counts cases as caused by the exposure only if the relative-risk curve is causal "
     "and free of confounding. With confounder-adjusted RRs, Miettinen's case-based formula "
