@@ -15,9 +15,14 @@ import matplotlib
 
 matplotlib.use("Agg")
 
+import csv  # noqa: E402
+import io  # noqa: E402
+from html import escape  # noqa: E402
+
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402
+from scipy import stats  # noqa: E402
 from test_outputs_cases import (  # noqa: E402
     STRATA,
     STRATA_2,
@@ -33,7 +38,7 @@ from test_outputs_tables import as_csv  # noqa: E402
 from doseattr.outputs import gallery, tables  # noqa: E402
 from doseattr.outputs.burden_figures import OWN_MARK, OWN_NOTE  # noqa: E402
 from doseattr.outputs.burden_report import cases  # noqa: E402
-from doseattr.outputs.markup import estimate_text, interval, pct  # noqa: E402
+from doseattr.outputs.markup import estimate_text, interval, num, pct  # noqa: E402
 from doseattr.outputs.records import estimate_of  # noqa: E402
 from doseattr.outputs.report import render_report  # noqa: E402
 
@@ -202,39 +207,63 @@ def test_strata_table_with_intervals(single):
     and in total; the total PAF is the total attributable over the total
     cases (definition in the issue), and the totals' point estimates are the
     sums of the strata's."""
-    d = single.to_dict()
-    b = d["burden"]
+    b = single.burden
     html = render_report(single, figures=False)
     header, rows = table_with(html, "attributable cases by stratum")
     assert header == ["Stratum", "Cases", "Attributable cases", "95% interval", "PAF",
-                      "95% interval"]
-    for row, s in zip(rows, b["strata"] + [{**b["total"], "stratum": "Total"}]):
-        att, paf = s["attributable"], estimate_of(s, "paf")
-        assert row == [s["stratum"], cases(s["cases"]), cases(att["estimate"]),
-                       interval(att["lower"], att["upper"], cases), pct(paf["estimate"]),
-                       interval(paf["lower"], paf["upper"])]
-        assert paf["lower"] < paf["estimate"] < paf["upper"]
-    t = b["total"]
-    assert t["attributable"]["estimate"] == pytest.approx(
-        sum(s["attributable"]["estimate"] for s in b["strata"]), rel=1e-12)
-    assert estimate_of(t, "paf")["estimate"] == pytest.approx(
-        t["attributable"]["estimate"] / t["cases"], rel=1e-12)
+                      "95% interval", "Exposure"]
+    for row, (label, s) in zip(rows, [(s.stratum, s) for s in b.strata] + [("Total", b.total)]):
+        att, paf = s.attributable, s.paf
+        assert row[:-1] == [label, cases(s.cases), cases(att.estimate),
+                            interval(att.lower, att.upper, cases), pct(paf.estimate),
+                            interval(paf.lower, paf.upper)]
+        assert paf.lower < paf.estimate < paf.upper
+    t = b.total
+    assert t.attributable.estimate == pytest.approx(
+        sum(s.attributable.estimate for s in b.strata), rel=1e-12)
+    assert t.paf.estimate == pytest.approx(t.attributable.estimate / t.cases, rel=1e-12)
+
+
+def test_strata_table_names_each_strata_exposure(single):
+    """The strata of STRATA with gm and gsd (read back with the csv module)
+    show them with their mean exposure, checked against scipy.stats.lognorm
+    (reference library; no unexposed share here); the others say "shared",
+    and one sentence under the table names the strata with their own."""
+    html = render_report(single, figures=False)
+    _, rows = table_with(html, "attributable cases by stratum")
+    cells = {r[0]: r[-1] for r in rows}
+    given = list(csv.DictReader(io.StringIO(STRATA)))
+    own = [r["stratum"] for r in given if r["gm"]]
+    assert len(own) == 2
+    for r in given:
+        if not r["gm"]:
+            assert cells[r["stratum"]] == "shared"
+            continue
+        gm, gsd = float(r["gm"]), float(r["gsd"])
+        mean = stats.lognorm(s=np.log(gsd), scale=gm).mean()
+        assert cells[r["stratum"]] == (f"own: GM {num(gm)} {UNIT}, GSD {num(gsd)}; "
+                                       f"mean exposure {num(mean)} {UNIT}")
+    sentence = (f"{own[0]} and {own[1]} had their own exposure descriptions in the burden "
+                "table and the other strata use the shared exposure distribution")
+    assert escape(sentence) in html
+    assert "South &lt;b&gt;" in html and "South <b>" not in html
 
 
 def test_scenario_table_by_stratum(single):
     """Every stratum's PIF and cases averted per scenario, with intervals,
     exactly as in the results; user text is escaped."""
-    d = single.to_dict()
+    b = single.burden
     html = render_report(single, figures=False)
     header, rows = table_with(html, "cases averted by each scenario")
     names = [s["name"] for s in SCENARIOS]
     assert header == ["Stratum"] + [f"{n}: {w}" for n in names for w in ("PIF",
                                                                           "cases averted")]
-    records = d["burden"]["strata"] + [{**d["burden"]["total"], "stratum": "Total"}]
-    for row, r in zip(rows, records):
-        expected = [r["stratum"]]
-        for s in r["scenarios"]:
-            expected += [estimate_text(s["pif"]), estimate_text(s["averted"], cases)]
+    records = [(s.stratum, s) for s in b.strata] + [("Total", b.total)]
+    for row, (label, r) in zip(rows, records):
+        assert [e.name for e in r.scenarios] == names
+        expected = [label]
+        for e in r.scenarios:
+            expected += [estimate_text(e.pif), estimate_text(e.averted, cases)]
         assert row == expected
     assert "Cut &lt;25%&gt;" in html and "Cut <25%>" not in html
 
@@ -243,64 +272,63 @@ def test_every_fraction_table_has_intervals(single):
     """Key numbers, the scenarios of the attribution section, the
     uncertainty table and the continuous row of the categorical comparison
     all carry the 95% interval of the results."""
-    d = single.to_dict()
     html = render_report(single, figures=False)
-    paf = interval(d["paf"]["lower"], d["paf"]["upper"])
+    paf = interval(single.paf.lower, single.paf.upper)
     found = html_tables(html)
     key = next(r for c, h, r in found if h[:2] == ["Quantity", "Estimate"])
     assert key[0][2] == paf
-    for row, s in zip(key[1:], d["scenarios"]):
-        assert row[2] == interval(s["pif"]["lower"], s["pif"]["upper"])
+    for row, s in zip(key[1:], single.scenarios):
+        assert row[2] == interval(s.pif.lower, s.pif.upper)
     _, rows = table_with(html, "Scenarios")
-    assert [r[3] for r in rows] == [interval(s["pif"]["lower"], s["pif"]["upper"])
-                                    for s in d["scenarios"]]
+    assert [r[3] for r in rows] == [interval(s.pif.lower, s.pif.upper)
+                                    for s in single.scenarios]
     _, rows = table_with(html, "Categorical against continuous PAF")
-    assert rows[-1][1] == estimate_text(d["paf"])
+    assert rows[-1][1] == estimate_text(single.paf)
 
 
 def test_width_by_source_table(single):
     """One row per source varied alone, widest first, then all sources
     together; the share is width / full width; with strata the interval of
     the total attributable cases is beside it."""
-    d = single.to_dict()
-    unc = d["uncertainty"]
-    widths = sorted(unc["width_by_source"], key=lambda r: -r["width"])
-    assert {r["source"] for r in widths} == {"curve", "exposure", "minimum_risk"}
+    unc = single.uncertainty
+    widths = sorted(unc.width_by_source, key=lambda r: -r.width)
+    assert {r.source for r in widths} == {"curve", "exposure", "minimum_risk"}
+    assert unc.minimum_risk_varied  # minimum_risk is a range in base()
     html = render_report(single, figures=False)
     header, rows = table_with(html, "which input drives the width")
-    full = unc["width_all"]
+    full = unc.width_all
     for row, r in zip(rows, widths + [full]):
         cells = dict(zip(header, row))
-        assert cells["95% interval of the PAF"] == interval(r["lower"], r["upper"])
-        assert cells["Share of the full width"] == f"{100 * r['width'] / full['width']:.0f}%"
-        assert cells["Attributable cases, 95% interval"] == interval(
-            r["attributable"]["lower"], r["attributable"]["upper"], cases)
+        assert cells["95% interval of the PAF"] == interval(r.lower, r.upper)
+        assert cells["Share of the full width"] == f"{100 * r.width / full.width:.0f}%"
+        assert cells["Attributable cases, 95% interval"] == interval(*r.attributable, cases)
     assert rows[-1][0] == "all sources together"
     # the full interval is the total PAF's (strata given), as in the burden table
-    total = estimate_of(d["burden"]["total"], "paf")
-    assert (full["lower"], full["upper"]) == pytest.approx((total["lower"], total["upper"]),
-                                                           rel=1e-12)
+    total = single.burden.total.paf
+    assert (full.lower, full.upper) == pytest.approx((total.lower, total.upper), rel=1e-12)
+    assert "the minimum-risk level (uniform over its range)" in html
     csv_rows = as_csv(tables.width_by_source_table(single.uncertainty))
-    assert [float(r["width"]) for r in csv_rows] == [r["width"] for r in unc["width_by_source"]]
+    json_rows = single.to_dict()["uncertainty"]["width_by_source"]
+    assert [float(r["width"]) for r in csv_rows] == [r["width"] for r in json_rows]
 
 
 def test_outcomes_side_by_side(outcomes):
     """One column per outcome holding that outcome's PAF, PIFs, cases and
     attributable cases with intervals, exactly as in the results."""
-    d = outcomes.to_dict()
-    names = [o["name"] for o in d["outcomes"]]
+    names = [name for name, _ in outcomes.outcomes]
+    runs = [o for _, o in outcomes.outcomes]
     html = render_report(outcomes, figures=False)
     header, rows = table_with(html, "PAF, PIF and cases per outcome")
     assert header == ["", *names]
     row = {r[0]: r[1:] for r in rows}
-    assert row["PAF"] == [estimate_text(o["paf"]) for o in d["outcomes"]]
+    assert row["PAF"] == [estimate_text(o.paf) for o in runs]
     for s in SCENARIOS:
         assert row[f"PIF, {s['name']}"] == [
-            estimate_text(next(x["pif"] for x in o["scenarios"] if x["name"] == s["name"]))
-            for o in d["outcomes"]]
-    totals = [o["burden"]["total"] for o in d["outcomes"]]
-    assert row["Attributable cases"] == [estimate_text(t["attributable"], cases) for t in totals]
-    assert row["Cases (all strata)"] == [cases(t["cases"]) for t in totals]
+            estimate_text(next(x.pif for x in o.scenarios if x.name == s["name"]))
+            for o in runs]
+    totals = [o.burden.total for o in runs]
+    assert row["Attributable cases"] == [estimate_text(t.attributable, cases) for t in totals]
+    assert row["Cases (all strata)"] == [cases(t.cases) for t in totals]
     # one stratum table per outcome
     for n in names:
         table_with(html, f"{n}: attributable cases by stratum")

@@ -13,6 +13,9 @@ import matplotlib
 
 matplotlib.use("Agg")
 
+import csv  # noqa: E402
+import io  # noqa: E402
+
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402
@@ -149,6 +152,14 @@ def test_dose_sensitivity_table(spline):
     assert len(rows) == len(variants) >= 3
     used = [r for r in rows if r[0].endswith("(used)")]
     assert len(used) == 1 and used[0][0].startswith("band midpoint")
+    # the record marks the rule applied: without a dose column, the default
+    # "given" assigns each closed band its midpoint (l + u) / 2 (definition)
+    applied = [v for v in spline.dose_sensitivity if v.used]
+    assert [v.label for v in applied] == ["midpoint"]
+    bands = list(csv.DictReader(io.StringIO(STUDY)))
+    assert "dose" not in bands[0]
+    mids = [(float(b["lower"]) + float(b["upper"])) / 2 for b in bands if b["upper"]]
+    np.testing.assert_allclose(applied[0].doses[:len(mids)], mids, rtol=1e-15)
     for row, v in zip(rows, variants):
         cells = dict(zip(header, row))
         assert cells["PAF"] == pct(v["paf"])

@@ -4,17 +4,22 @@ appear only when the results hold what they show."""
 from __future__ import annotations
 
 import base64
+import csv
 import dataclasses
 import datetime as dt
+import math
+import tomllib
 from html import escape
 from html.parser import HTMLParser
+from pathlib import Path
 
 import pytest
-from test_outputs_cases import SCENARIO_NAMES, make_results
+from scipy import stats
+from test_outputs_cases import SCENARIO_NAMES, make_results, table_with
 
-from doseattr.results import Estimate
 from doseattr.outputs import report
 from doseattr.outputs.report import render_report
+from doseattr.results import BurdenResult, Estimate, StratumExposure, StratumResult
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 
@@ -138,19 +143,73 @@ def test_uncertainty_section_only_with_intervals(results):
     assert f"{report.pct(0.8 * p)} to {report.pct(1.2 * p)}" in text
 
 
-def test_burden_section_from_contract_keys():
-    """burden.strata / burden.total as the API notes define them."""
-    d = {"burden": {"strata": [
-        {"stratum": "North <A>", "cases": 120.0,
-         "attributable": {"estimate": 12.5, "lower": 9.0, "upper": 16.0}, "paf": 0.104},
-        {"stratum": "South", "cases": 80.0,
-         "attributable": {"estimate": 6.0, "lower": 4.0, "upper": 8.5}, "paf": 0.075}],
-        "total": {"cases": 200.0, "attributable": {"estimate": 18.5, "lower": 14.0,
-                                                   "upper": 23.0}, "paf": 0.0925}}}
-    html = report.burden_section(d, {})
+def test_burden_section_from_typed_records():
+    """Strata and total as the results layer records them (numbers invented:
+    the test checks that the cells show them, formatted and escaped; the
+    total PAF is total attributable over total cases, 18.5 / 200)."""
+    shared = StratumExposure(False, "lognormal", {"gm": 10.0, "gsd": 2.0}, 12.0)
+    strata = (StratumResult("North <A>", 120.0, Estimate(0.104),
+                            Estimate(12.5, 9.0, 16.0), exposure=shared),
+              StratumResult("South", 80.0, Estimate(0.075), Estimate(6.0, 4.0, 8.5),
+                            exposure=shared))
+    total = StratumResult("total", 200.0, Estimate(18.5 / 200.0), Estimate(18.5, 14.0, 23.0))
+    html = report.burden_section(BurdenResult(strata, total), "ug/m3", {})
     assert escape("North <A>") in html and "<A>" not in html
     assert "12.5" in html and "9 to 16" in html and "Total" in html and "9.25%" in html
-    assert report.burden_section({}, {}) == ""
+    header, rows = table_with(html, "attributable cases by stratum")
+    assert header[-1] == "Exposure"
+    assert [r[-1] for r in rows] == ["shared", "shared", report.NA]
+    assert "own exposure" not in html  # no sentence when every stratum shares the exposure
+    assert report.burden_section(None, "ug/m3", {}) == ""
+
+
+DEMO = Path(__file__).resolve().parents[1] / "data_demo"
+
+
+def demo_strata() -> list[dict[str, str]]:
+    """The rows of the demo's burden table (invented demo data), read with
+    the standard library's csv module; ``#`` lines are comments."""
+    with open(DEMO / "districts.csv", encoding="utf-8", newline="") as fh:
+        return list(csv.DictReader(line for line in fh if not line.startswith("#")))
+
+
+@pytest.fixture(scope="module")
+def demo():
+    from doseattr.analysis import load_analysis, run_analysis
+
+    return run_analysis(load_analysis(DEMO / "analysis.toml"))
+
+
+def test_demo_report_shows_each_districts_exposure(demo):
+    """Quarryside has its own GM and GSD in districts.csv; the report says
+    so beside its PAF, with its mean exposure, and the other districts
+    say "shared". The mean is checked against scipy.stats.lognorm (reference
+    library) with the demo's unexposed share at zero:
+    (1 - u) x GM exp(ln(GSD)^2 / 2)."""
+    with open(DEMO / "analysis.toml", "rb") as fh:
+        unexposed = tomllib.load(fh)["exposure"]["unexposed"]
+    html = render_report(demo, figures=False)
+    header, rows = table_with(html, "attributable cases by stratum")
+    cells = {r[0]: dict(zip(header, r)) for r in rows}
+    given = demo_strata()
+    own = [r["stratum"] for r in given if r["gm"]]
+    assert own == ["Quarryside"]
+    for r in given:
+        cell = cells[r["stratum"]]["Exposure"]
+        if not r["gm"]:
+            assert cell == "shared"
+            continue
+        gm, gsd = float(r["gm"]), float(r["gsd"])
+        mean = (1 - unexposed) * stats.lognorm(s=math.log(gsd), scale=gm).mean()
+        assert cell == (f"own: GM {report.num(gm)} {demo.unit}, GSD {report.num(gsd)}; "
+                        f"mean exposure {report.num(mean)} {demo.unit}")
+    assert cells["Total"]["Exposure"] == report.NA
+    # PAFs differ exactly where exposures do
+    pafs = {cells[r["stratum"]]["PAF"] for r in given if not r["gm"]}
+    assert len(pafs) == 1 and cells["Quarryside"]["PAF"] not in pafs
+    text = "".join(parse(html).text)
+    assert ("Quarryside had its own exposure description in the burden table and the other "
+            "strata use the shared exposure distribution") in text
 
 
 def test_figures_false_has_no_images(results):

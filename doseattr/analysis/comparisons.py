@@ -39,9 +39,12 @@ def curve_variants(analysis: Analysis, exposure, built: BuiltCurve, paf_value: f
         comparison = tuple(
             CurveVariant(spec.model, built.curve, paf_value, main_doses) if name == spec.model
             else _variant(analysis, spec, exposure, name, model=name) for name in models)
-    rules = (("given",) if spec.table.has_dose else ()) + DOSE_RULES
+    has_dose = spec.table.has_dose
+    rules = (("given",) if has_dose else ()) + DOSE_RULES
+    # without a dose column, "given" assigns every band its midpoint
+    applied = "midpoint" if spec.dose_rule == "given" and not has_dose else spec.dose_rule
     sensitivity = tuple(
-        CurveVariant(rule, built.curve, paf_value, main_doses) if rule == spec.dose_rule
+        CurveVariant(rule, built.curve, paf_value, main_doses) if rule == applied
         else _variant(analysis, spec, exposure, rule, dose_rule=rule) for rule in rules)
     return comparison, sensitivity
 

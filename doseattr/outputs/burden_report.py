@@ -1,31 +1,42 @@
 """The report's uncertainty, attributable-cases and outcomes sections.
 
 Every estimate is shown with its 95% interval where the results hold one.
-Everything is read from the results dictionary (``Results.to_dict()``);
+Everything is read from the run's typed records
+(:class:`~doseattr.results.UncertaintySection`,
+:class:`~doseattr.results.BurdenResult`, the outcomes' ``Results``);
 figures are passed in as PNG bytes by name.
 """
 
 from __future__ import annotations
 
-from typing import Any
+from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
 
 from doseattr.outputs.markup import (
     NA,
     estimate_text,
-    image,
+    figure,
     interval,
     num,
     para,
     pct,
     table,
     with_unit,
+    worded,
 )
-from doseattr.outputs.records import (
-    burden_blocks,
-    estimate_of,
-    scenario_effects,
-    width_by_source,
+from doseattr.outputs.text import UNIT_PARAMETERS
+from doseattr.results import (
+    AttributionSection,
+    BurdenResult,
+    Estimate,
+    SourceWidth,
+    StratumExposure,
+    StratumResult,
+    UncertaintySection,
 )
+
+if TYPE_CHECKING:  # pragma: no cover
+    from doseattr.results import Results
 
 SOURCE_NAMES = {
     "curve": "the curve's coefficients (their fitted normal distribution, or the curve's own "
@@ -40,94 +51,124 @@ SOURCE_NAMES = {
 SOURCE_LABELS = {"curve": "curve coefficients", "exposure": "exposure parameters",
                  "minimum_risk": "minimum-risk level", "cases": "observed cases (Poisson)"}
 
+#: How the exposure columns of a burden table read in the report.
+GIVEN_NAMES = {"gm": "GM", "gsd": "GSD", "mean": "mean", "sd": "SD", "shape": "shape",
+               "scale": "scale"}
 
-def cases(v: Any) -> str:
+#: One burden table: the outcome's name (``None`` for the analysis's own) and its strata.
+BurdenBlock = tuple[str | None, BurdenResult]
+
+
+def cases(v: float | None) -> str:
     """A number of cases: whole numbers above 100, else 3 significant figures."""
     if v is None:
         return NA
-    return f"{v:,.0f}" if abs(v) >= 100 else num(v, 3)
+    return f"{v:,.0f}" if abs(v) >= 100 else num(float(v), 3)
 
 
-def uncertainty_section(d: dict, images: dict) -> str:
-    paf = d["paf"]
-    if paf.get("lower") is None:
+def burden_blocks(burden: BurdenResult | None,
+                  outcomes: Sequence[tuple[str, BurdenResult | None]] = ()) -> list[BurdenBlock]:
+    """``(outcome name or None, burden)`` for every burden table of a run.
+
+    With ``[[outcome]]`` blocks, one per outcome that has strata; the
+    analysis's own burden is added in front only when it is not the first
+    outcome's (a file with its own ``[curve]`` and ``[burden]`` beside the
+    outcomes).
+    """
+    blocks: list[BurdenBlock] = [(name, b) for name, b in outcomes
+                                 if b is not None and _has_strata(b)]
+    if burden is not None and _has_strata(burden) and not (blocks and burden == blocks[0][1]):
+        blocks.insert(0, (None, burden))
+    return blocks
+
+
+def _has_strata(burden: BurdenResult) -> bool:
+    return len(burden.strata) > 0
+
+
+def uncertainty_section(u: UncertaintySection | None, a: AttributionSection,
+                        images: Mapping[str, bytes], *, strata: bool = False,
+                        outcomes: Sequence[tuple[str, UncertaintySection | None]] = ()) -> str:
+    """Intervals of the PAF and the PIFs of ``a``, how they were drawn
+    (``u``) and which input drives their width; ``strata`` when the run has
+    a burden table (Poisson variation of the cases is then drawn),
+    ``outcomes`` each outcome's own uncertainty."""
+    paf = a.paf
+    if paf.lower is None:
         return ""
-    rows = [["PAF", pct(paf["estimate"]), interval(paf["lower"], paf["upper"]),
-             pct(paf.get("mcse"), 2)]]
-    for s in d.get("scenarios", []):
-        p = s["pif"]
-        rows.append([f"PIF, {s['name']}", pct(p["estimate"]),
-                     interval(p.get("lower"), p.get("upper")), pct(p.get("mcse"), 2)])
-    unc = d.get("uncertainty") or {}
+    rows = [["PAF", pct(paf.estimate), interval(paf.lower, paf.upper), pct(paf.mcse, 2)]]
+    for s in a.scenarios:
+        p = s.pif
+        rows.append([f"PIF, {s.name}", pct(p.estimate), interval(p.lower, p.upper),
+                     pct(p.mcse, 2)])
     parts = []
-    if unc.get("draws"):
+    if u is not None and u.draws:
         parts.append(para(f"Intervals are the 2.5th and 97.5th percentiles of "
-                          f"{unc['draws']} Monte Carlo draws"
-                          + (f" (seed {unc['seed']})" if unc.get("seed") is not None else "")
-                          + "; the Monte Carlo SE is the simulation error of the estimate."))
-    names = [SOURCE_NAMES.get(str(x), str(x)) for x in unc.get("sources") or []
-             if str(x) not in _fixed_sources(d)]
+                          f"{int(u.draws)} Monte Carlo draws (seed {int(u.seed)}); the Monte "
+                          f"Carlo SE is the simulation error of the estimate."))
+    fixed = _fixed_sources(u, strata)
+    names = [] if u is None else [worded(SOURCE_NAMES, x) for x in u.sources if x not in fixed]
     if names:
         parts.append(para("Sources of uncertainty drawn: " + "; ".join(names) + "."))
-    if d.get("outcomes"):
+    if outcomes:
         parts.append(para("The PAF and PIFs below are those of the results above the outcomes "
                           "(see the notes under Key numbers); each outcome's own intervals are "
                           "in the outcomes table."))
     parts.append(table(["Quantity", "Estimate", "95% interval", "Monte Carlo SE"], rows))
-    parts.append(image(images.get("paf_draws"),
-                       "Monte Carlo draws of the PAF, with the estimate and the 2.5th and "
-                       "97.5th percentiles."))
-    parts.append(width_block(d))
+    parts.append(figure(images, "paf_draws",
+                        "Monte Carlo draws of the PAF, with the estimate and the 2.5th and "
+                        "97.5th percentiles."))
+    parts.append(width_block(u, strata=strata, outcomes=outcomes))
     return "".join(parts)
 
 
-def _fixed_sources(d: dict) -> set[str]:
+def _fixed_sources(u: UncertaintySection | None, strata: bool) -> set[str]:
     """Sources named by the core but not varied in this run."""
-    fixed = {"minimum_risk"} if d.get("minimum_risk_range") is None else set()
-    if not burden_blocks(d):
+    fixed = set() if u is not None and u.minimum_risk_varied else {"minimum_risk"}
+    if not strata:
         fixed.add("cases")
     return fixed
 
 
-def width_block(d: dict) -> str:
+def width_block(u: UncertaintySection | None, *, strata: bool,
+                outcomes: Sequence[tuple[str, UncertaintySection | None]] = ()) -> str:
     """Which input drives the width of the interval: one table for the
     analysis, or one per outcome when there are several."""
-    outcomes = [o for o in d.get("outcomes") or [] if width_by_source(o)]
-    tables = ([width_table(o, f"{o.get('name')}: ") for o in outcomes] if outcomes
-              else [width_table(d, "")])
+    own = [(name, o) for name, o in outcomes if o is not None and o.width_by_source]
+    tables = ([width_table(o, f"{name}: ") for name, o in own] if own
+              else [width_table(u, "")])
     if not any(tables):
         return ""
     what = ("the total PAF over the strata (total attributable over total cases)"
-            if burden_blocks(d) else "the PAF")
+            if strata else "the PAF")
     return "".join(tables) + para(
         f"Each row reruns the Monte Carlo draws with one source of uncertainty varying and the "
         f"others held at their estimates, and gives the 95% interval of {what}. The widths "
         f"of the rows need not add up to the full width.")
 
 
-def width_table(d: dict, prefix: str) -> str:
+def width_table(u: UncertaintySection | None, prefix: str) -> str:
     """The overall PAF's interval with one source of uncertainty varied at a
     time, widest first, beside the interval with all of them
-    (``uncertainty.width_all``); with strata also the interval of the total
-    attributable cases. The overall PAF is the burden's total PAF when the
-    analysis has strata, else the PAF."""
-    unc = d.get("uncertainty") or {}
-    rows_in = sorted(width_by_source(d), key=lambda r: -(r.get("width") or 0.0))
-    if not rows_in:
+    (``UncertaintySection.width_all``); with strata also the interval of the
+    total attributable cases. The overall PAF is the burden's total PAF when
+    the analysis has strata, else the PAF."""
+    if u is None or not u.width_by_source:
         return ""
-    full = unc.get("width_all") if isinstance(unc.get("width_all"), dict) else None
-    if full:
-        rows_in.append({**full, "source": "all sources together"})
-    width = (full or {}).get("width")
-    cases_too = any(isinstance(r.get("attributable"), dict) for r in rows_in)
+    rows_in: list[tuple[str, SourceWidth]] = [
+        (worded(SOURCE_LABELS, w.source), w)
+        for w in sorted(u.width_by_source, key=lambda w: -w.width)]
+    full = u.width_all
+    if full is not None:
+        rows_in.append(("all sources together", full))
+    width = None if full is None else full.width
+    cases_too = any(w.attributable is not None for _, w in rows_in)
     rows = []
-    for r in rows_in:
-        row = [SOURCE_LABELS.get(str(r.get("source")), str(r.get("source"))),
-               interval(r.get("lower"), r.get("upper")), _points(r.get("width")),
-               NA if not width or r.get("width") is None else f"{100 * r['width'] / width:.0f}%"]
+    for label, w in rows_in:
+        row = [label, interval(w.lower, w.upper), _points(w.width),
+               NA if not width else f"{100 * w.width / width:.0f}%"]
         if cases_too:
-            att = r.get("attributable") or {}
-            row += [interval(att.get("lower"), att.get("upper"), cases)]
+            row += [NA if w.attributable is None else interval(*w.attributable, cases)]
         rows.append(row)
     header = ["Source varied alone", "95% interval of the PAF", "Width",
               "Share of the full width"] + (["Attributable cases, 95% interval"]
@@ -136,62 +177,101 @@ def width_table(d: dict, prefix: str) -> str:
                                        "(each source varied alone, widest first)")
 
 
-def _points(v: Any) -> str:
-    return NA if v is None else f"{100 * v:.3g} points"
+def _points(v: float) -> str:
+    return f"{100 * v:.3g} points"
 
 
-def burden_section(d: dict, images: dict) -> str:
-    """Per outcome: attributable cases and PAF by stratum and in total, and
-    the cases each scenario averts, all with intervals."""
+def burden_section(burden: BurdenResult | None, unit: str | None,
+                   images: Mapping[str, bytes], *,
+                   outcomes: Sequence[tuple[str, BurdenResult | None]] = ()) -> str:
+    """Per outcome: attributable cases and PAF by stratum and in total
+    (with each stratum's exposure), and the cases each scenario averts, all
+    with intervals. ``outcomes`` holds each outcome's own burden."""
     parts = []
-    for name, burden in burden_blocks(d):
+    for name, b in burden_blocks(burden, outcomes):
         prefix = f"{name}: " if name else ""
-        parts.append(strata_table(burden, f"{prefix}attributable cases by stratum"))
-        parts.append(scenarios_table(burden, f"{prefix}cases averted by each scenario"))
+        parts.append(strata_table(b, unit, f"{prefix}attributable cases by stratum"))
+        parts.append(own_exposure_text(b))
+        parts.append(scenarios_table(b, f"{prefix}cases averted by each scenario"))
     if not parts:
         return ""
-    parts.append(image(images.get("burden"),
-                       "Attributable cases by stratum (left) and, in total, all cases "
-                       "attributable to exposure above the minimum-risk level and the cases "
-                       "each scenario averts (right); whiskers are 95% intervals."))
+    parts.append(figure(images, "burden",
+                        "Attributable cases by stratum (left) and, in total, all cases "
+                        "attributable to exposure above the minimum-risk level and the cases "
+                        "each scenario averts (right); whiskers are 95% intervals."))
     parts.append(para("Totals are sums over the strata draw by draw, so their intervals are "
                       "consistent with the strata; the total PAF is the total attributable over "
                       "the total cases."))
     return "".join(p for p in parts if p)
 
 
-def strata_table(burden: dict, caption: str) -> str:
-    rows = [_stratum_row(str(s.get("stratum")), s) for s in burden["strata"]]
-    if burden.get("total"):
-        rows.append(_stratum_row("Total", burden["total"]))
+def strata_table(burden: BurdenResult, unit: str | None, caption: str) -> str:
+    """One row per stratum and the total: cases, attributable cases and PAF
+    with their intervals, and the exposure the stratum's fractions used."""
+    rows = [_stratum_row(s.stratum, s, unit) for s in burden.strata]
+    rows.append(_stratum_row("Total", burden.total, unit))
     return table(["Stratum", "Cases", "Attributable cases", "95% interval", "PAF",
-                  "95% interval"], rows, caption=caption)
+                  "95% interval", "Exposure"], rows, caption=caption)
 
 
-def _stratum_row(label: str, r: dict) -> list[str]:
-    att = estimate_of(r, "attributable") or {}
-    paf = estimate_of(r, "paf") or {}
-    return [label, cases(r.get("cases")), cases(att.get("estimate")),
-            interval(att.get("lower"), att.get("upper"), cases), pct(paf.get("estimate")),
-            interval(paf.get("lower"), paf.get("upper"))]
+def _stratum_row(label: str, r: StratumResult, unit: str | None) -> list[str]:
+    att, paf = r.attributable, r.paf
+    return [label, cases(r.cases), cases(att.estimate),
+            interval(att.lower, att.upper, cases), pct(paf.estimate),
+            interval(paf.lower, paf.upper), stratum_exposure_text(r.exposure, unit)]
 
 
-def scenarios_table(burden: dict, caption: str) -> str:
+def stratum_exposure_text(e: StratumExposure | None, unit: str | None) -> str:
+    """``"shared"``, or the stratum's own description as the burden table
+    gave it with its mean, e.g. ``"own: GM 18.5 ug/m3, GSD 2.1; mean
+    exposure 23.14 ug/m3"``; a dash for the total."""
+    if e is None:
+        return NA
+    if not e.own:
+        return "shared"
+    given = e.parameters if e.given is None else e.given
+    described = ", ".join(f"{worded(GIVEN_NAMES, k)} {_given_value(k, v, unit)}"
+                          for k, v in given.items())
+    return f"own: {described}; mean exposure {with_unit(float(e.mean), unit)}"
+
+
+def _given_value(name: str, value: float, unit: str | None) -> str:
+    carries_unit = name in UNIT_PARAMETERS
+    return with_unit(float(value), unit) if carries_unit else num(float(value))
+
+
+def own_exposure_text(burden: BurdenResult) -> str:
+    """One sentence naming the strata with their own exposure description
+    (from the burden table); empty when every stratum uses the shared one."""
+    own = [s.stratum for s in burden.strata if s.exposure is not None and s.exposure.own]
+    if not own:
+        return ""
+    if len(own) == len(burden.strata):
+        return para("Every stratum had its own exposure description in the burden table, so "
+                    "their PAFs differ only through exposure (mean exposures count the "
+                    "unexposed share at zero).")
+    names = own[0] if len(own) == 1 else ", ".join(own[:-1]) + " and " + own[-1]
+    whose = "its own exposure description" if len(own) == 1 else \
+        "their own exposure descriptions"
+    return para(f"{names} had {whose} in the burden table and the other strata use the shared "
+                f"exposure distribution, so their PAFs differ only through exposure (mean "
+                f"exposures count the unexposed share at zero).")
+
+
+def scenarios_table(burden: BurdenResult, caption: str) -> str:
     """One row per stratum (and the total), one column pair per scenario:
     the PIF and the cases averted, each with its interval."""
-    records = list(burden["strata"])
-    if burden.get("total"):
-        records.append({**burden["total"], "stratum": "Total"})
-    names = [s["name"] for s in scenario_effects(records[0])] if records else []
+    records = [(s.stratum, s) for s in burden.strata] + [("Total", burden.total)]
+    names = [e.name for e in records[0][1].scenarios]
     if not names:
         return ""
     rows = []
-    for r in records:
-        effects = {s["name"]: s for s in scenario_effects(r)}
-        row = [str(r.get("stratum"))]
+    for label, r in records:
+        row = [label]
         for n in names:
-            e = effects.get(n) or {}
-            row += [estimate_text(e.get("pif")), estimate_text(e.get("averted"), cases)]
+            e = next((x for x in r.scenarios if x.name == n), None)
+            row += [estimate_text(None if e is None else e.pif),
+                    estimate_text(None if e is None else e.averted, cases)]
         rows.append(row)
     header = ["Stratum"]
     for n in names:
@@ -199,65 +279,66 @@ def scenarios_table(burden: dict, caption: str) -> str:
     return table(header, rows, caption=caption)
 
 
-def outcomes_section(d: dict, images: dict) -> str:
+def outcomes_section(results: Results, images: Mapping[str, bytes]) -> str:
     """Several outcomes side by side: one column per outcome."""
-    outcomes = d.get("outcomes") or []
-    if len(outcomes) < 1:
+    outcomes = results.outcomes
+    if not outcomes:
         return ""
-    unit = d.get("unit")
-    header = [""] + [str(o.get("name")) for o in outcomes]
-    rows = [["RR curve"] + [_curve_text(o.get("curve") or {}) for o in outcomes],
-            ["PAF"] + [estimate_text(o.get("paf")) for o in outcomes]]
-    names = list(dict.fromkeys(s["name"] for o in outcomes for s in o.get("scenarios") or []))
+    unit = results.unit
+    header = [""] + [name for name, _ in outcomes]
+    rows = [["RR curve"] + [_curve_text(o) for _, o in outcomes],
+            ["PAF"] + [estimate_text(o.paf) for _, o in outcomes]]
+    names = list(dict.fromkeys(s.name for _, o in outcomes for s in o.scenarios))
     for n in names:
-        rows.append([f"PIF, {n}"] + [estimate_text(_scenario(o, n)) for o in outcomes])
-    totals = [(o.get("burden") or {}).get("total") for o in outcomes]
-    if any(totals):
-        rows.append(["Cases (all strata)"] + [cases((t or {}).get("cases")) for t in totals])
-        rows.append(["Attributable cases"] + [estimate_text(estimate_of(t, "attributable"), cases)
-                                              if t else NA for t in totals])
+        rows.append([f"PIF, {n}"] + [estimate_text(_scenario_pif(o, n)) for _, o in outcomes])
+    totals = [None if o.burden is None else o.burden.total for _, o in outcomes]
+    if any(t is not None for t in totals):
+        rows.append(["Cases (all strata)"] + [NA if t is None else cases(t.cases)
+                                              for t in totals])
+        rows.append(["Attributable cases"] + [NA if t is None else
+                                              estimate_text(t.attributable, cases)
+                                              for t in totals])
         for n in names:
             rows.append([f"Cases averted, {n}"] + [_averted(t, n) for t in totals])
-    m = with_unit(d.get("minimum_risk"), unit)
-    rng = d.get("minimum_risk_range")
+    m = with_unit(float(results.minimum_risk), unit)
+    rng = results.minimum_risk_range
     if rng:
-        m += f", the middle of the range {with_unit(rng[0], unit)} to {with_unit(rng[1], unit)}"
+        m += (f", the middle of the range {with_unit(float(rng[0]), unit)} to "
+              f"{with_unit(float(rng[1]), unit)}")
     text = (f"Each outcome has its own relative-risk curve and strata; the exposure, the "
             f"scenarios and the minimum-risk level ({m}) are shared.")
     return (para(text) + table(header, rows, caption="PAF, PIF and cases per outcome")
-            + image(images.get("outcome_curves"),
-                    "The relative-risk curve of each outcome, side by side on the same axes, "
-                    "with its study's band estimates."))
+            + figure(images, "outcome_curves",
+                     "The relative-risk curve of each outcome, side by side on the same axes, "
+                     "with its study's band estimates."))
 
 
-def outcome_warnings(d: dict) -> list[str]:
+def outcome_warnings(results: Results) -> list[str]:
     """Each outcome's warnings that are not already among the top-level
     ones (those are the first outcome's, or the file's own curve's), named
     by outcome."""
-    shown = set(d.get("warnings") or [])
-    return [f"{o.get('name')}: {w}" for o in d.get("outcomes") or []
-            for w in o.get("warnings") or [] if w not in shown]
+    shown = set(results.warnings)
+    return [f"{name}: {w}" for name, o in results.outcomes for w in o.warnings
+            if w not in shown]
 
 
-def _curve_text(c: dict) -> str:
-    fit = c.get("p_value")
-    text = str(c.get("model") or NA)
-    if c.get("q") is not None:
-        text += f" (fit p = {num(fit, 3)})" if fit is not None else " (fit: 0 df)"
+def _curve_text(o: Results) -> str:
+    c = o.curve
+    text = c.model.name
+    if c.fit is not None:
+        p = c.fit.p_value
+        text += f" (fit p = {num(float(p), 3)})" if p is not None else " (fit: 0 df)"
     return text
 
 
-def _scenario(o: dict, name: str) -> dict | None:
-    for s in o.get("scenarios") or []:
-        if s.get("name") == name:
-            return s.get("pif")
-    return None
+def _scenario_pif(o: Results, name: str) -> Estimate | None:
+    return next((s.pif for s in o.scenarios if s.name == name), None)
 
 
-def _averted(total: dict | None, name: str) -> str:
-    if not total:
+def _averted(total: StratumResult | None, name: str) -> str:
+    if total is None:
         return NA
-    for s in scenario_effects(total):
-        if s["name"] == name:
-            return estimate_text(s["averted"], cases)
+    for s in total.scenarios:
+        if s.name == name:
+            return estimate_text(s.averted, cases)
     return NA

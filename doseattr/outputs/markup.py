@@ -7,8 +7,12 @@ pass plain text, never markup.
 from __future__ import annotations
 
 import base64
+import math
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from html import escape
-from typing import Any, Iterable, Sequence
+from typing import Any
+
+from doseattr.results import Estimate
 
 NA = "\u2013"  # en dash for "not applicable"
 
@@ -32,7 +36,14 @@ def pct(value: Any, digits: int = 3) -> str:
     return text.rstrip(".") + "%"
 
 
-def interval(lower: Any, upper: Any, fmt=pct) -> str:
+def finite(value: Any) -> float | None:
+    """``value`` as a float, or ``None`` when it is not finite (an open
+    band limit, the empty interval of a reference band)."""
+    v = float(value)
+    return v if math.isfinite(v) else None
+
+
+def interval(lower: Any, upper: Any, fmt: Callable[[Any], str] = pct) -> str:
     if lower is None or upper is None:
         return NA
     return f"{fmt(lower)} to {fmt(upper)}"
@@ -81,24 +92,38 @@ def bullets(lines: Iterable[str]) -> str:
     return "<ul>" + "".join(f"<li>{escape(s)}</li>" for s in lines) + "</ul>"
 
 
-def notes_list(notes: Any, heading: str | None = None) -> str:
+def notes_list(notes: Iterable[str], heading: str | None = None) -> str:
     """Small print on how the inputs were read, when there is any."""
-    notes = [str(n) for n in notes or [] if n]
-    if not notes:
+    lines = [str(n) for n in notes if n]
+    if not lines:
         return ""
     head = f"<p>{escape(heading)}</p>" if heading else ""
-    return f'<div class="notes">{head}{bullets(notes)}</div>'
+    return f'<div class="notes">{head}{bullets(lines)}</div>'
 
 
-def estimate_text(est: Any, fmt=pct) -> str:
-    """``"9.46% (4.42% to 17.0%)"`` from an estimate dict; the estimate
-    alone without limits; a dash for ``None``."""
-    if not isinstance(est, dict):
-        return fmt(est)
-    text = fmt(est.get("estimate"))
-    if est.get("lower") is not None and est.get("upper") is not None:
-        text += f" ({interval(est['lower'], est['upper'], fmt)})"
+def estimate_text(est: Estimate | None, fmt: Callable[[Any], str] = pct) -> str:
+    """``"9.46% (4.42% to 17.0%)"`` from an estimate; the estimate alone
+    without limits; a dash for ``None``."""
+    if est is None:
+        return NA
+    text = fmt(est.estimate)
+    if est.lower is not None and est.upper is not None:
+        text += f" ({interval(est.lower, est.upper, fmt)})"
     return text
+
+
+def figure(images: Mapping[str, bytes], name: str, alt: str) -> str:
+    """The figure ``name`` of ``images`` with its caption, or ``""`` when
+    it was not drawn."""
+    return image(images[name], alt) if name in images else ""
+
+
+def worded(wording: Mapping[str, str], key: str, default: str | None = None) -> str:
+    """How ``key`` reads in the report (``wording[key]``), else ``default``
+    (``key`` itself when not given)."""
+    if key in wording:
+        return wording[key]
+    return key if default is None else default
 
 
 def warning_box(lines: Iterable[str], heading: str = "Warning:") -> str:

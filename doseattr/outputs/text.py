@@ -8,7 +8,10 @@ results object carries none.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:  # pragma: no cover
+    from doseattr.results import Results
 
 #: What each way of building the covariance of the study's log RRs means.
 COVARIANCE_MEANING = {
@@ -31,6 +34,9 @@ COVARIANCE_MEANING = {
 #: Exposure parameters that carry the exposure unit (the others are pure numbers).
 PARAMETER_UNITS = {"gm": True, "gsd": False, "shape": False, "scale": True,
                    "mean": True, "sd": True}
+
+#: The parameters of :data:`PARAMETER_UNITS` that carry the exposure unit.
+UNIT_PARAMETERS = frozenset(k for k, v in PARAMETER_UNITS.items() if v)
 
 DEFAULT_CAUTIONS = (
     "A PAF counts cases as caused by the exposure only if the relative-risk curve is causal "
@@ -99,43 +105,42 @@ EXTRA_REFERENCES = {
 REFERENCES = BASE_REFERENCES
 
 
-def references(d: dict) -> list[str]:
+def references(results: Results) -> list[str]:
     """The fixed references plus those the analysis used."""
     refs = list(BASE_REFERENCES)
-    curve = d.get("curve") or {}
-    if curve.get("covariance_method") == "effective-counts":
+    curve = results.curve
+    if curve.fit is not None and curve.fit.covariance_method == "effective-counts":
         refs.append(EXTRA_REFERENCES["effective-counts"])
-    models = [curve.get("model")] + [v.get("model") for v in d.get("model_comparison") or []]
+    models = [curve.model.name] + [v.curve.model.name for v in results.model_comparison
+                                   if v.curve is not None]
     if "spline" in models:
         refs.append(EXTRA_REFERENCES["spline"])
-    exposure = d.get("exposure") or {}
-    if exposure.get("censored") or exposure.get("substitution"):
+    e = results.exposure_section
+    fit = e.exposure.fit
+    if (fit is not None and fit.n > 0 and fit.censored) or e.substitution:
         refs.append(EXTRA_REFERENCES["censored"])
-    if len(exposure.get("fits") or []) > 1:
+    if len(e.fits) > 1:
         refs.append(EXTRA_REFERENCES["aic"])
     return refs
 
 
-def computed_paragraph(d: dict) -> str:
-    """One paragraph saying what was computed, from the results dictionary."""
-    c, e = d.get("curve") or {}, d.get("exposure") or {}
-    unit = d.get("unit") or ""
-    m = d.get("minimum_risk")
-    m_text = f"{_g(m)} {unit}".strip() if m is not None else "the minimum-risk level"
-    source = "fitted to a study's category-level estimates" if c.get("source") == "fitted" \
+def computed_paragraph(results: Results) -> str:
+    """One paragraph saying what was computed."""
+    c, unit = results.curve, results.unit or ""
+    m_text = f"{_g(results.minimum_risk)} {unit}".strip()
+    source = "fitted to a study's category-level estimates" if c.source == "fitted" \
         else "entered as published"
-    n = len(d.get("scenarios") or [])
-    text = (f"This report combines a {c.get('model', '')} relative-risk curve ({source}) with "
-            f"the {e.get('family', '')} distribution of exposure in the population to estimate "
-            f"the share of cases attributable to exposure above the minimum-risk level of "
-            f"{m_text} (the population attributable fraction, PAF)")
+    n = len(results.scenarios)
+    text = (f"This report combines a {c.model.name} relative-risk curve ({source}) with "
+            f"the {results.exposure.family.name} distribution of exposure in the population to "
+            f"estimate the share of cases attributable to exposure above the minimum-risk level "
+            f"of {m_text} (the population attributable fraction, PAF)")
     if n:
         text += (f", the share that each of {n} exposure-reduction scenario"
                  f"{'s' if n != 1 else ''} would prevent (the potential impact fraction, PIF)")
-    if d.get("categorical"):
-        text += ", and how the classic multi-category formula compares with the continuous result"
+    text += ", and how the classic multi-category formula compares with the continuous result"
     return text + "."
 
 
-def _g(value: Any) -> str:
+def _g(value: float) -> str:
     return f"{float(value):g}"

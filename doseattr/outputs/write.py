@@ -169,7 +169,7 @@ def _produce(results: Any, folder: Path, *, figures: bool,
             rel = Path(FIGURE_FOLDER) / f"{name}.png"
             (folder / rel).write_bytes(png)
             written.append(rel)
-    html = render_report(results, images=images, data=data)
+    html = render_report(results, images=images)
     (folder / "report.html").write_text(html, encoding="utf-8")
     written.append(Path("report.html"))
     written.append(_analysis_copy(results, folder))
