@@ -39,7 +39,6 @@ from doseattr.outputs import gallery, tables  # noqa: E402
 from doseattr.outputs.burden_figures import OWN_MARK, OWN_NOTE  # noqa: E402
 from doseattr.outputs.burden_report import cases  # noqa: E402
 from doseattr.outputs.markup import estimate_text, interval, num, pct  # noqa: E402
-from doseattr.outputs.records import estimate_of  # noqa: E402
 from doseattr.outputs.report import render_report  # noqa: E402
 
 DRAWS = 200
@@ -89,16 +88,6 @@ def _close_figures():
     plt.close("all")
 
 
-def test_estimate_of_reads_both_layouts():
-    """A fraction as an estimate object, or as a number with its interval
-    beside it (``paf`` and ``paf_interval``)."""
-    est = {"estimate": 0.1, "lower": 0.05, "upper": 0.2, "mcse": 0.001}
-    assert estimate_of({"paf": est}, "paf") == est
-    assert estimate_of({"paf": 0.1, "paf_interval": est}, "paf") == est
-    assert estimate_of({"paf": 0.1}, "paf") == {"estimate": 0.1}
-    assert estimate_of({}, "paf") is None
-
-
 def test_paf_draws_histogram(single):
     """The histogram holds every draw of results.propagation (40 bins, as
     numpy.histogram of the same draws in percent gives them); the marked
@@ -136,7 +125,7 @@ def test_burden_figure_bars_and_whiskers(outcomes):
     """One row per outcome: attributable cases per stratum with their
     interval (left); all attributable and each scenario's averted cases in
     total with intervals (right). Every number is the results'."""
-    figure = gallery._burden(gallery.burden_blocks(outcomes))
+    figure = gallery._burden(outcomes.burden_blocks)
     axes = [ax for ax in figure.axes if ax.get_visible()]
     assert len(axes) == 4
     for (left, right), (name, o) in zip(zip(axes[::2], axes[1::2]), outcomes.outcomes):
@@ -176,7 +165,7 @@ def test_burden_figure_marks_strata_with_their_own_exposure(outcomes):
     """Exactly the strata whose row in the burden table gives gm and gsd
     carry the mark, and the legend explains it; the second outcome's table
     has no exposure columns, so its panel has neither."""
-    figure = gallery._burden(gallery.burden_blocks(outcomes))
+    figure = gallery._burden(outcomes.burden_blocks)
     left = [ax for ax in figure.axes if ax.get_visible()][::2]
     assert marked_strata(left[0]) == own_exposure_strata(STRATA) == ["South <b>",
                                                                      "East & hills"]
@@ -194,7 +183,7 @@ def test_demo_burden_figure_marks_quarryside():
 
     demo = Path(__file__).resolve().parent.parent / "data_demo"
     r = doseattr.run_analysis(doseattr.load_analysis(demo / "analysis.toml"))
-    figure = gallery._burden(gallery.burden_blocks(r))
+    figure = gallery._burden(r.burden_blocks)
     strata_ax = figure.axes[0]
     own = own_exposure_strata((demo / "districts.csv").read_text(encoding="utf-8"))
     assert own == ["Quarryside"]
@@ -351,7 +340,7 @@ def test_burden_csv_files(outcomes):
     """burden.csv: one row per outcome and stratum plus the totals, the PAF
     as estimate and limits; burden_scenarios.csv: one row per outcome,
     stratum (and total) and scenario. Values are the results' exactly."""
-    blocks = tables.burden_blocks(outcomes)
+    blocks = outcomes.burden_blocks
     assert [n for n, _ in blocks] == [n for n, _ in outcomes.outcomes]
     rows = as_csv(tables.burden_blocks_table(blocks, UNIT))
     n_rows = sum(len(o.burden.strata) + 1 for _, o in outcomes.outcomes)

@@ -159,12 +159,12 @@ def test_burden_blocks_of_outcomes():
     outcomes = (("Asthma", dataclasses.replace(base, burden=b1)),
                 ("COPD", dataclasses.replace(base, burden=b2)))
     run = dataclasses.replace(base, burden=b1, outcomes=outcomes)
-    blocks = tables.burden_blocks(run)
+    blocks = run.burden_blocks
     assert [(n, b) for n, b in blocks] == [("Asthma", b1), ("COPD", b2)]
     assert blocks[0][1] is b1 and blocks[1][1] is b2
     copy = burden_of(*b1.strata)
     assert copy is not b1 and copy == b1
-    assert tables.burden_blocks(dataclasses.replace(run, burden=copy)) == blocks
+    assert (dataclasses.replace(run, burden=copy)).burden_blocks == blocks
 
     table = tables.burden_blocks_table(blocks, UNIT)
     mean = f"exposure_mean ({UNIT})"
@@ -185,7 +185,7 @@ def test_burden_blocks_of_outcomes():
     assert rows[1]["exposure_shape"] == "" and rows[0]["exposure_shape"] == ""
 
     top = burden_of(stratum("Centre", 30.0, 0.05, ln, ln))
-    beside = tables.burden_blocks(dataclasses.replace(run, burden=top))
+    beside = (dataclasses.replace(run, burden=top)).burden_blocks
     assert [n for n, _ in beside] == [None, "Asthma", "COPD"] and beside[0][1] is top
     table = tables.burden_blocks_table(beside, UNIT)
     # the outcome column keeps the place it had in this case: after the burden columns
@@ -199,7 +199,7 @@ def test_burden_blocks_of_outcomes():
     assert float(scen[-1]["averted_estimate"]) == b2.total.scenarios[0].averted.estimate
     single = as_csv(tables.burden_scenarios_table(b1))
     assert "outcome" not in single[0] and float(single[0]["pif_estimate"]) == 0.05
-    assert tables.burden_blocks(base) == [] and tables.burden_blocks_table([], UNIT) is None
+    assert base.burden_blocks == [] and tables.burden_blocks_table([], UNIT) is None
     assert "burden.csv" not in tables.all_tables(base)
 
 

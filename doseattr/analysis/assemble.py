@@ -4,6 +4,7 @@ work them out again)."""
 
 from __future__ import annotations
 
+import dataclasses
 from typing import Any
 
 import numpy as np
@@ -14,7 +15,6 @@ from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.results.records import (AnyExposure, CurveSection, CurveVariant, ExposureSection,
                                       ExposureVariant, FamilyFit, GoodnessOfFit,
                                       StratumExposure, SubstitutionResult, Workers)
-from doseattr.results.serialize import nonlinearity_p
 
 
 def share_above(exposure: AnyExposure, dose: float | None) -> float | None:
@@ -74,6 +74,10 @@ def workers(w: Any) -> Workers | None:
 def curve_section(curve: Curve, exposure: AnyExposure, bands: Any,
                   comparison: tuple[CurveVariant, ...],
                   sensitivity: tuple[CurveVariant, ...]) -> CurveSection:
+    """The curve section; each variant is marked ``used`` when it is the
+    analysis's own curve and given its spline non-linearity test."""
+    comparison = tuple(_variant(v, curve) for v in comparison)
+    sensitivity = tuple(_variant(v, curve) for v in sensitivity)
     return CurveSection(curve, bands, comparison, sensitivity, nonlinearity_p(curve),
                         share_above(exposure, curve.max_dose),
                         share_above(exposure, curve.data_max))
@@ -90,6 +94,11 @@ def exposure_section(curve: Curve, exposure: AnyExposure, *,
                            comparison, substitution, workers(worker_totals), parametric)
 
 
+def _variant(v: CurveVariant, main: Curve) -> CurveVariant:
+    return dataclasses.replace(v, used=v.used or v.curve is main,
+                               nonlinearity_p=None if v.curve is None else nonlinearity_p(v.curve))
+
+
 def stratum_exposure(exposure: AnyExposure, shared: AnyExposure,
                      given: dict[str, float] | None) -> StratumExposure:
     """The exposure of one stratum, and whether it is its own."""
@@ -97,6 +106,20 @@ def stratum_exposure(exposure: AnyExposure, shared: AnyExposure,
                            {k: float(v) for k, v in exposure.parameters.items()},
                            exposure_mean(exposure),
                            None if given is None else {k: float(v) for k, v in given.items()})
+
+
+def nonlinearity_p(curve: Curve) -> float | None:
+    """p-value of the Wald test that a spline is linear (``None`` for other
+    models): core :func:`~doseattr.core.curves.spline.nonlinearity_test`."""
+    if curve.model.name != "spline":
+        return None
+    from doseattr.core.curves.spline import nonlinearity_test
+    from doseattr.errors import ModelError
+
+    try:
+        return float(nonlinearity_test(curve)[2])
+    except ModelError:
+        return None
 
 
 def _float(value: Any) -> float | None:

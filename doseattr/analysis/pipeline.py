@@ -117,8 +117,6 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
     notes.extend(point.notes)
     warnings.extend(_extrapolation(analysis, curve, exposure, notes))
     comparison, sensitivity = curve_variants(analysis, exposure, built, point.paf)
-    sensitivity = tuple(dataclasses.replace(v, used=v.curve is curve) for v in sensitivity)
-    comparison = tuple(dataclasses.replace(v, used=v.curve is curve) for v in comparison)
     with divergence(analysis):
         mc = _monte_carlo(analysis, curve, exposure, scenarios, point, p.strata, progress)
     notes.extend(mc.notes + _range_note(analysis))

@@ -25,6 +25,7 @@ from doseattr.outputs.markup import (
     worded,
 )
 from doseattr.outputs.text import UNIT_PARAMETERS
+from doseattr.results.records import BurdenBlock, burden_blocks
 from doseattr.results import (
     AttributionSection,
     BurdenResult,
@@ -56,7 +57,6 @@ GIVEN_NAMES = {"gm": "GM", "gsd": "GSD", "mean": "mean", "sd": "SD", "shape": "s
                "scale": "scale"}
 
 #: One burden table: the outcome's name (``None`` for the analysis's own) and its strata.
-BurdenBlock = tuple[str | None, BurdenResult]
 
 
 def cases(v: float | None) -> str:
@@ -64,26 +64,6 @@ def cases(v: float | None) -> str:
     if v is None:
         return NA
     return f"{v:,.0f}" if abs(v) >= 100 else num(float(v), 3)
-
-
-def burden_blocks(burden: BurdenResult | None,
-                  outcomes: Sequence[tuple[str, BurdenResult | None]] = ()) -> list[BurdenBlock]:
-    """``(outcome name or None, burden)`` for every burden table of a run.
-
-    With ``[[outcome]]`` blocks, one per outcome that has strata; the
-    analysis's own burden is added in front only when it is not the first
-    outcome's (a file with its own ``[curve]`` and ``[burden]`` beside the
-    outcomes).
-    """
-    blocks: list[BurdenBlock] = [(name, b) for name, b in outcomes
-                                 if b is not None and _has_strata(b)]
-    if burden is not None and _has_strata(burden) and not (blocks and burden == blocks[0][1]):
-        blocks.insert(0, (None, burden))
-    return blocks
-
-
-def _has_strata(burden: BurdenResult) -> bool:
-    return len(burden.strata) > 0
 
 
 def uncertainty_section(u: UncertaintySection | None, a: AttributionSection,

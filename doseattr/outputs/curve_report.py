@@ -32,7 +32,6 @@ from doseattr.outputs.markup import (
 )
 from doseattr.outputs.text import COVARIANCE_MEANING
 from doseattr.results import BandTable, CurveSection, CurveVariant
-from doseattr.results.serialize import nonlinearity_p
 
 
 def curve_section(s: CurveSection, unit: str | None, images: Mapping[str, bytes], *,
@@ -187,7 +186,7 @@ def model_comparison_block(s: CurveSection, images: Mapping[str, bytes], *, paf:
     rows = []
     for v in variants:
         label = v.label + (" (used)" if v.used else "")
-        lin = None if v.curve is None else nonlinearity_p(v.curve)
+        lin = v.nonlinearity_p
         rows.append([label, _coefficients(v), *_fit_cells(v), num(lin, 3),
                      pct(v.paf), _difference(v.paf, paf, v.used), v.problem or ""])
     header = ["Model", "Coefficients (SE)", "Q / df", "p (fit)", "p (non-linearity)", "PAF",

@@ -58,7 +58,7 @@ def render_figures(results: Results) -> dict[str, bytes]:
         "contribution": lambda: _contribution(results.attribution, exposure.is_empirical, unit),
         "categorical": lambda: _categorical(results.categorical),
         "paf_draws": lambda: _paf_draws(results.uncertainty, results.attribution.paf),
-        "burden": lambda: _burden(burden_blocks(results)),
+        "burden": lambda: _burden(results.burden_blocks),
     }
     out = {}
     for name in FIGURE_NAMES:
@@ -211,23 +211,6 @@ def _paf_draws(uncertainty: UncertaintySection | None, paf: Estimate) -> Figure 
     return _figure(ax)
 
 
-def burden_blocks(results: Results) -> list[tuple[str | None, BurdenResult]]:
-    """``(outcome name or None, burden)`` for every burden table in the results.
-
-    With ``[[outcome]]`` blocks, one per outcome that has strata; the
-    top-level burden is added in front only when it is not the first
-    outcome's own (a file with its own ``[curve]`` and ``[burden]`` beside
-    the outcomes).
-    """
-    blocks: list[tuple[str | None, BurdenResult]] = [
-        (name, o.burden) for name, o in results.outcomes
-        if o.burden is not None and o.burden.strata]
-    top = results.burden
-    if top is not None and top.strata and not (blocks and top == blocks[0][1]):
-        blocks.insert(0, (None, top))
-    return blocks
-
-
 @dataclass(frozen=True)
 class Bars:
     """One bar chart's numbers: names (top first), estimates, interval
@@ -308,7 +291,6 @@ def _burden(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure | None:
 
 __all__ = [
     "FIGURE_NAMES",
-    "burden_blocks",
     "burden_panels",
     "model_panels",
     "other_models",

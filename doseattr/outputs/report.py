@@ -26,7 +26,6 @@ from numpy.typing import NDArray
 from doseattr import __version__
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.outputs.burden_report import (
-    burden_blocks,
     burden_section,
     cases,
     outcome_warnings,
@@ -299,8 +298,7 @@ def render_report(results: Results, *, images: Mapping[str, bytes] | None = None
     date = date or report_date()
     unit = results.unit
     a = results.attribution
-    strata = bool(burden_blocks(results.burden,
-                                [(name, o.burden) for name, o in results.outcomes]))
+    strata = bool(results.burden_blocks)
     sections = [
         section("summary", "Key numbers",
                 para(computed_paragraph(results)) + _outcomes_hint(results)

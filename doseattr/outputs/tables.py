@@ -22,16 +22,15 @@ import numpy as np
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
 from doseattr.results.estimate import Estimate
-from doseattr.results.records import (AttributionSection, BurdenResult, CurveSection,
+from doseattr.results.records import (AttributionSection, BurdenBlock, BurdenResult,
+                                      CurveSection,
                                       CurveVariant, ExposureSection, StratumExposure,
                                       StratumResult, UncertaintySection, Workers)
 from doseattr.results.run import Results
-from doseattr.results.serialize import nonlinearity_p
 
 Table = tuple[list[str], list[list[Any]]]
 #: One burden table of the run: the outcome's name (``None`` for the
 #: analysis's own ``[burden]``) and its strata.
-BurdenBlock = tuple[str | None, BurdenResult]
 
 ESTIMATE_COLUMNS = ["estimate", "lower", "upper", "mcse"]
 BURDEN_COLUMNS = ["stratum", "cases", "population", *[f"paf_{c}" for c in ESTIMATE_COLUMNS],
@@ -185,24 +184,6 @@ def exposure_fits_table(section: ExposureSection) -> Table:
     return header, rows
 
 
-def burden_blocks(results: Results) -> list[BurdenBlock]:
-    """``(outcome name or None, burden)`` for every burden table of a run.
-
-    With ``[[outcome]]`` blocks, one per outcome that has strata; the
-    analysis's own burden is put in front only when it is not the first
-    outcome's (a file with its own ``[curve]`` and ``[burden]`` beside the
-    outcomes; without its own ``[curve]`` the top level is the first
-    outcome's run).
-    """
-    blocks: list[BurdenBlock] = [(name, o.burden) for name, o in results.outcomes
-                                 if o.burden is not None and o.burden.strata]
-    top = results.burden
-    if top is not None and top.strata and not (
-            blocks and (top is blocks[0][1] or top == blocks[0][1])):
-        blocks.insert(0, (None, top))
-    return blocks
-
-
 def burden_table(burden: BurdenResult, unit: str | None) -> Table:
     """Attributable cases by stratum and in total, one burden
     (:func:`burden_blocks_table`)."""
@@ -305,7 +286,7 @@ def _variant_table(variants: Sequence[CurveVariant], label: str, unit: str | Non
                      None if fit is None else _float(fit.q),
                      None if fit is None else int(fit.df),
                      None if fit is None else _float(fit.p_value),
-                     None if c is None else _float(nonlinearity_p(c)), _float(v.paf),
+                     _float(v.nonlinearity_p), _float(v.paf),
                      v.problem])
     return header, rows
 
@@ -368,7 +349,7 @@ def all_tables(results: Results) -> dict[str, Table]:
         "categorical_paf.csv": categorical_paf_table(results.categorical),
         "convergence.csv": convergence_table(results.categorical),
     }
-    blocks = burden_blocks(results)
+    blocks = results.burden_blocks
     optional = {
         "burden.csv": burden_blocks_table(blocks, unit),
         "burden_scenarios.csv": burden_scenarios_blocks_table(blocks),

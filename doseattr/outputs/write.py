@@ -32,7 +32,6 @@ from typing import Any, Iterable, Iterator, Sequence
 
 from doseattr.errors import InputError
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
-from doseattr.outputs.records import workers_source
 from doseattr.outputs.tables import all_tables, write_csv
 
 FIGURE_FOLDER = "figures"

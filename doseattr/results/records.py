@@ -9,7 +9,7 @@ them. They hold numbers, strings and the core's own frozen objects (a
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -76,6 +76,7 @@ class CurveVariant:
     doses: FloatArray | None = None
     problem: str | None = None
     used: bool = False
+    nonlinearity_p: float | None = None
 
 
 @dataclass(frozen=True)
@@ -267,6 +268,29 @@ class BurdenResult:
     @property
     def any_own_exposure(self) -> bool:
         return any(s.exposure is not None and s.exposure.own for s in self.strata)
+
+
+#: One burden table of a run: the outcome's name (``None`` for the
+#: analysis's own) and its attributable cases.
+BurdenBlock = tuple["str | None", BurdenResult]
+
+
+def burden_blocks(top: BurdenResult | None,
+                  outcomes: Sequence[tuple[str, BurdenResult | None]] = ()) -> list[BurdenBlock]:
+    """``(outcome name or None, burden)`` for every burden table of a run.
+
+    With ``[[outcome]]`` blocks, one per outcome that has strata; the
+    analysis's own burden is put in front only when it is not the first
+    outcome's (a file with its own ``[curve]`` and ``[burden]`` beside the
+    outcomes; without its own ``[curve]`` the top level is the first
+    outcome's run).
+    """
+    blocks: list[BurdenBlock] = [(name, b) for name, b in outcomes
+                                 if b is not None and len(b.strata) > 0]
+    if top is not None and len(top.strata) > 0 and not (
+            blocks and (top is blocks[0][1] or top == blocks[0][1])):
+        blocks.insert(0, (None, top))
+    return blocks
 
 
 @dataclass(frozen=True, eq=False)

@@ -20,7 +20,8 @@ from doseattr.core.exposure.base import Exposure
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import pct
-from doseattr.results.records import (AnyExposure, AttributionSection, BandTable, BurdenResult,
+from doseattr.results.records import (AnyExposure, AttributionSection, BandTable, BurdenBlock,
+                                      BurdenResult, burden_blocks,
                                       CurveSection, CurveVariant, ExposureSection,
                                       ExposureVariant, RunInputs, ScenarioResult,
                                       SourceWidth, SubstitutionResult, UncertaintySection,
@@ -176,6 +177,11 @@ class Results:
     def analysis_copy(self) -> tuple[str, bytes] | None:
         """``(kind, bytes)`` of the analysis as read, or ``None``."""
         return None if self.inputs is None else (self.inputs.copy_kind, self.inputs.copy_bytes)
+
+    @property
+    def burden_blocks(self) -> list[BurdenBlock]:
+        """Every burden table of the run (:func:`~doseattr.results.records.burden_blocks`)."""
+        return burden_blocks(self.burden, [(n, o.burden) for n, o in self.outcomes])
 
     def scenario_averted(self, name: str) -> Estimate | None:
         """Total averted cases of scenario ``name`` (``None`` without

@@ -116,7 +116,7 @@ def curve_variant_dict(v: CurveVariant) -> dict[str, Any]:
             "q": None if fit is None else num(fit.q),
             "df": None if fit is None else int(fit.df),
             "p_value": None if fit is None else num(fit.p_value),
-            "nonlinearity_p": None if c is None else num(nonlinearity_p(c)),
+            "nonlinearity_p": num(v.nonlinearity_p),
             "paf": num(v.paf), "problem": v.problem, "used": v.used}
 
 
@@ -259,17 +259,3 @@ def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:
              "mean_intensity": num(m)}
             for name, c, d, m in zip(w.worker, w.cumulative, w.duration_years,
                                      w.mean_intensity, strict=True)]
-
-
-def nonlinearity_p(curve: Curve) -> float | None:
-    """p-value of the Wald test that a spline is linear (``None`` for other
-    models): core :func:`~doseattr.core.curves.spline.nonlinearity_test`."""
-    if curve.model.name != "spline":
-        return None
-    from doseattr.core.curves.spline import nonlinearity_test
-    from doseattr.errors import ModelError
-
-    try:
-        return float(nonlinearity_test(curve)[2])
-    except ModelError:
-        return None
