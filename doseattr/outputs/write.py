@@ -21,6 +21,7 @@ interruption leaves the previous run as it was and no temporary folder.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import secrets
@@ -31,6 +32,7 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator, Sequence
 
 from doseattr.errors import InputError
+from doseattr.results.run import Results
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
 from doseattr.outputs.tables import all_tables, write_csv
 
@@ -38,13 +40,21 @@ FIGURE_FOLDER = "figures"
 HINT = "give a folder of its own, for example --out results"
 
 
-def results_json(results: Any, data: dict | None = None) -> str:
+def results_json(results: Results) -> str:
     """results.json text; ``ValueError`` if any number is NaN or infinite."""
-    data = results.to_dict() if data is None else data
-    return json.dumps(data, indent=2, allow_nan=False) + "\n"
+    return json.dumps(results.to_dict(), indent=2, allow_nan=False) + "\n"
 
 
-def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = True,
+def with_command(results: Results, command: Sequence[str]) -> Results:
+    """The same results with ``provenance.command`` set to the command line."""
+    if results.inputs is None:
+        return results
+    provenance = {**results.inputs.provenance, "command": [str(a) for a in command]}
+    return dataclasses.replace(results,
+                               inputs=dataclasses.replace(results.inputs, provenance=provenance))
+
+
+def write_outputs(results: Results, out_dir: str | os.PathLike, *, figures: bool = True,
                   command: Sequence[str] | None = None) -> list[Path]:
     """Write results.json, CSV tables, figures, report.html, the analysis
     copy and manifest.json to ``out_dir`` (see the module notes for which
@@ -53,7 +63,7 @@ def write_outputs(results: Any, out_dir: str | os.PathLike, *, figures: bool = T
     Parameters
     ----------
     results
-        A ``Results`` object (``to_dict()``, core objects for figures).
+        The record of a finished run (:class:`~doseattr.results.run.Results`).
     out_dir
         Destination folder; created if missing (with missing parents).
     figures
@@ -142,25 +152,22 @@ def _refuse_foreign(out: Path, text: str) -> None:
                          "file", location=out_location(text))
 
 
-def _produce(results: Any, folder: Path, *, figures: bool,
+def _produce(results: Results, folder: Path, *, figures: bool,
              command: Sequence[str] | None) -> list[Path]:
     """Write every output into ``folder``; return paths relative to it."""
     from doseattr.outputs.gallery import render_figures
     from doseattr.outputs.report import render_report
 
-    data = results.to_dict()
-    if command is not None and isinstance(data.get("provenance"), dict):
-        data["provenance"]["command"] = [str(a) for a in command]
+    if command is not None:
+        results = with_command(results, command)
     written = [Path("results.json")]
-    (folder / "results.json").write_text(results_json(results, data), encoding="utf-8")
+    (folder / "results.json").write_text(results_json(results), encoding="utf-8")
     tables = all_tables(results)
     for name, table in tables.items():
         write_csv(folder / name, table)
         written.append(Path(name))
-    summary = getattr(results, "summary", None)
-    if callable(summary):
-        (folder / "summary.txt").write_text(summary().rstrip() + "\n", encoding="utf-8")
-        written.append(Path("summary.txt"))
+    (folder / "summary.txt").write_text(results.summary().rstrip() + "\n", encoding="utf-8")
+    written.append(Path("summary.txt"))
     images = render_figures(results) if figures else {}
     if images:
         (folder / FIGURE_FOLDER).mkdir()
@@ -175,10 +182,12 @@ def _produce(results: Any, folder: Path, *, figures: bool,
     return written
 
 
-def _analysis_copy(results: Any, folder: Path) -> Path:
+def _analysis_copy(results: Results, folder: Path) -> Path:
     """The analysis as read: ``analysis.toml`` (the file's bytes) or, for
     an analysis given as a dictionary, ``analysis.json`` (the canonical
     JSON whose SHA-256 is ``provenance.analysis_sha256``)."""
+    if results.inputs is None:  # refused by write_outputs before anything is written
+        raise InputError("these results record no inputs", location="results")
     kind, data = results.inputs.copy_kind, results.inputs.copy_bytes
     rel = Path("analysis.toml" if kind == "file" else "analysis.json")
     (folder / rel).write_bytes(data)
