@@ -122,7 +122,9 @@ def test_pct_formatting():
 def test_cautions_never_missing():
     r = make_results(cautions=())
     html = render_report(r, figures=False)
-    for caution in report.DEFAULT_CAUTIONS:
+    from doseattr.results.cautions import CAUTIONS
+
+    for caution in CAUTIONS:
         assert escape(caution) in html
 
 

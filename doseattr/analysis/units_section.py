@@ -31,6 +31,7 @@ from doseattr.analysis.specs import (BinnedExposure, CurveSpec, DrawsCurve, Ente
                                      PercentilesExposure, PointsCurve, ShapeCurve,
                                      SummaryExposure, TableCurve)
 from doseattr.analysis.tables import BurdenTable
+from doseattr.core.exposure.registry import unit_parameters
 from doseattr.errors import ModelError
 
 
@@ -210,8 +211,8 @@ def _shape_in_unit(spec: ShapeCurve, f: float) -> dict[str, Any]:
             "cov": tuple(tuple(float(v) for v in row) for row in cov)}
 
 
-#: Exposure parameters that are doses (the rest are dimensionless).
-DOSE_PARAMETERS = ("gm", "mean", "sd", "scale")
+#: Exposure parameters and summary statistics that are doses (core registry).
+DOSE_PARAMETERS = unit_parameters()
 
 
 def convert_exposure(spec: ExposureSpec, conv: Conversion, unit: str | None) -> ExposureSpec:

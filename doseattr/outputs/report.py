@@ -25,6 +25,7 @@ from numpy.typing import NDArray
 
 from doseattr import __version__
 from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.results.cautions import CAUTIONS
 from doseattr.outputs.burden_report import (
     burden_section,
     cases,
@@ -53,7 +54,6 @@ from doseattr.outputs.markup import (  # noqa: F401  (num, pct, NA used by calle
     worded,
 )
 from doseattr.outputs.text import (
-    DEFAULT_CAUTIONS,
     METHODS_TEXT,
     computed_paragraph,
     references,
@@ -239,7 +239,7 @@ def _at(values: NDArray[np.float64], i: int) -> float | None:
 
 
 def cautions_section(results: Results) -> str:
-    cautions = list(results.cautions) or list(DEFAULT_CAUTIONS)
+    cautions = list(results.cautions) or list(CAUTIONS)  # never a report without them
     return '<div class="cautions">' + bullets(cautions) + "</div>"
 
 

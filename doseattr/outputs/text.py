@@ -2,13 +2,14 @@
 
 Kept apart from the page layout so the text can be read and revised in one
 place. The cautions shown in a report are those of the results
-(``results.cautions``); :data:`DEFAULT_CAUTIONS` is used only when a
-results object carries none.
+(``results.cautions``, worded once in :mod:`doseattr.results.cautions`).
 """
 
 from __future__ import annotations
 
 from typing import TYPE_CHECKING
+
+from doseattr.core.exposure.registry import unit_parameters
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results
@@ -31,23 +32,9 @@ COVARIANCE_MEANING = {
                "confidence interval.",
 }
 
-#: Exposure parameters that carry the exposure unit (the others are pure numbers).
-PARAMETER_UNITS = {"gm": True, "gsd": False, "shape": False, "scale": True,
-                   "mean": True, "sd": True}
-
-#: The parameters of :data:`PARAMETER_UNITS` that carry the exposure unit.
-UNIT_PARAMETERS = frozenset(k for k, v in PARAMETER_UNITS.items() if v)
-
-DEFAULT_CAUTIONS = (
-    "A PAF counts cases as caused by the exposure only if the relative-risk curve is causal "
-    "and free of confounding. With confounder-adjusted RRs, Miettinen's case-based formula "
-    "(the sum over exposure levels of the share of cases at each level times (RR - 1)/RR) "
-    "is the consistent one.",
-    "The study's relative risks are assumed to apply to this population.",
-    "Results that depend on exposures beyond the range of the curve's data are extrapolation.",
-    "Exposure limits, and any decision taken on these numbers, belong to local regulations "
-    "and licensed professionals.",
-)
+#: Exposure parameters and summary statistics that carry the exposure unit
+#: (declared by the core's families; the others are pure numbers).
+UNIT_PARAMETERS = unit_parameters()
 
 METHODS_TEXT = (
     "Relative-risk curve. A curve fitted from a study's category-level estimates uses one "

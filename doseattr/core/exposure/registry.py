@@ -23,6 +23,18 @@ def dose_parameters(family: str | Family) -> tuple[str, ...]:
     return get_family(family).dose_params
 
 
+#: Summary statistics an exposure may be given by that are in its unit.
+SUMMARY_STATISTICS_IN_UNIT = ("mean", "sd")
+
+
+def unit_parameters() -> frozenset[str]:
+    """Every parameter name of a registered family, and every summary
+    statistic, that is in the exposure's unit (what a change of unit
+    multiplies, and what a report prints with the unit)."""
+    names = {p for fam in FAMILIES.values() for p in fam.dose_params}
+    return frozenset(names | set(SUMMARY_STATISTICS_IN_UNIT))
+
+
 def get_family(family: str | Family) -> Family:
     """The family called ``family`` (a Family instance is returned as is)."""
     if isinstance(family, Family):
