@@ -42,13 +42,14 @@ DEFAULT_SEED = 1
 #: an optional ``<name>_se``; required fixed settings); ``threshold`` is
 #: optional for both.
 SHAPE_KEYS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
-    "saturating-exponential": (("alpha", "gamma", "delta"), ()),
-    "log-logistic-weighted": (("theta",), ("scale", "midpoint", "spread"))}
+    # param_names is a plain class attribute on every registered model
+    name: (tuple(cls.param_names), cls.shape_settings)  # type: ignore[arg-type]
+    for name, cls in MODELS.items() if cls.shape_settings is not None}
 #: Models of the core registry that are entered as published shapes.
 SHAPE_MODELS = tuple(name for name in MODELS if name in SHAPE_KEYS)
 #: Models of the core registry that can be fitted to a study table (all
 #: but the published shapes and the curve given as points).
-FITTED_MODELS = tuple(name for name in MODELS if name not in SHAPE_KEYS and name != "points")
+FITTED_MODELS = tuple(name for name, cls in MODELS.items() if cls.fits_table)
 #: Exposure families of the core registry, in its order.
 FITTED_FAMILIES = tuple(FAMILIES)
 #: Designs for which effective counts can be reconstructed.

@@ -31,6 +31,7 @@ from doseattr.analysis.specs import (BinnedExposure, CurveSpec, DrawsCurve, Ente
                                      PercentilesExposure, PointsCurve, ShapeCurve,
                                      SummaryExposure, TableCurve)
 from doseattr.analysis.tables import BurdenTable
+from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import unit_parameters
 from doseattr.errors import ModelError
 
@@ -197,7 +198,8 @@ def _shape_in_unit(spec: ShapeCurve, f: float) -> dict[str, Any]:
     :math:`\partial\gamma'/\partial\gamma = f^{-\delta}`,
     :math:`\partial\gamma'/\partial\delta = -\gamma f^{-\delta}\ln f`.
     """
-    settings = {k: v * f if k in ("threshold", "scale", "midpoint", "spread") else v
+    doses = MODELS[spec.model].dose_settings
+    settings = {k: v * f if k in doses else v
                 for k, v in spec.settings.items()}
     coef, cov = np.array(spec.coef), np.array(spec.cov)
     if spec.model == "saturating-exponential":

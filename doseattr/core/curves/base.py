@@ -66,6 +66,14 @@ class CurveModel(ABC):
 
     name: ClassVar[str]
     linear: ClassVar[bool] = False
+    #: Whether the model can be fitted to a study's bands (the published
+    #: shapes and the curve given as points are entered, not fitted).
+    fits_table: ClassVar[bool] = True
+    #: A published shape entered with its coefficients: the fixed settings
+    #: it requires (beside the optional ``threshold``).
+    shape_settings: ClassVar[tuple[str, ...] | None] = None
+    #: Fixed settings that are doses (they scale with a change of unit).
+    dose_settings: ClassVar[tuple[str, ...]] = ()
 
     def __init__(self, *, reference_dose: float = 0.0) -> None:
         self.reference_dose = float(reference_dose)

@@ -36,6 +36,8 @@ class PointsCurve(CurveModel):
     (:func:`points_curve`, :func:`curve_from_draws`), not for fitting.
     """
 
+    fits_table = False
+
     name = "points"
     linear = True
 

@@ -9,7 +9,7 @@ the papers' supplements before use.
 
 from __future__ import annotations
 
-from typing import cast
+from typing import ClassVar, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -28,6 +28,10 @@ def _positive(value: float, what: str, model: str) -> float:
 
 class _ThresholdShape(CurveModel):
     """Shared threshold handling: ``z = max(0, x - threshold)``."""
+
+    fits_table = False
+    shape_settings: ClassVar[tuple[str, ...] | None] = ()
+    dose_settings: ClassVar[tuple[str, ...]] = ("threshold",)
 
     def __init__(self, *, reference_dose: float = 0.0, threshold: float = 0.0) -> None:
         super().__init__(reference_dose=reference_dose)
@@ -116,6 +120,8 @@ class LogLogisticWeighted(_ThresholdShape):
     name = "log-logistic-weighted"
     linear = True
     param_names = ("theta",)
+    shape_settings = ("scale", "midpoint", "spread")
+    dose_settings = ("threshold", "scale", "midpoint", "spread")
 
     def __init__(self, *, reference_dose: float = 0.0, threshold: float = 0.0,
                  scale: float, midpoint: float, spread: float) -> None:
