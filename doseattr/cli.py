@@ -24,10 +24,10 @@ import signal
 import sys
 import threading
 import warnings
+from collections.abc import Iterator, Sequence
 from contextlib import ExitStack, contextmanager, nullcontext
 from importlib import resources
 from pathlib import Path
-from typing import Iterator, Sequence
 
 from doseattr import __version__
 from doseattr.errors import DoseattrError, DoseattrWarning, InputError

@@ -39,7 +39,7 @@ class InputError(DoseattrError):
         prefix = ": ".join(parts)
         return f"{prefix}: {self.message}" if prefix else self.message
 
-    def at(self, *, source: str | None = None, location: str | None = None) -> "InputError":
+    def at(self, *, source: str | None = None, location: str | None = None) -> InputError:
         """Return a copy with the file or location filled in where missing."""
         return InputError(self.message, source=self.source or source,
                           location=self.location or location)

@@ -27,8 +27,8 @@ from __future__ import annotations
 import argparse
 import math
 import platform
-import time
 import resource
+import time
 
 import numpy as np
 from scipy import integrate, stats

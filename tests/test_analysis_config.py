@@ -9,8 +9,8 @@ from __future__ import annotations
 import re
 
 import pytest
-
 from analysis_helpers import ANALYSIS, BANDS, MEASUREMENTS, replace_section, write_case
+
 from doseattr.analysis.config import analysis_from_dict, load_analysis
 from doseattr.errors import InputError
 

@@ -10,16 +10,26 @@ import dataclasses
 import typing
 
 import pytest
+from analysis_helpers import BANDS, MEASUREMENTS
 
 from doseattr.analysis import build, check, schema, units_section
 from doseattr.analysis.config import analysis_from_dict
-from doseattr.analysis.specs import (BinnedExposure, CurveSpec, DrawsCurve, EnteredCurve,
-                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
-                                     PercentilesExposure, PointsCurve, ShapeCurve,
-                                     SummaryExposure, TableCurve)
+from doseattr.analysis.specs import (
+    BinnedExposure,
+    CurveSpec,
+    DrawsCurve,
+    EnteredCurve,
+    ExposureSpec,
+    HistoriesExposure,
+    MeasuredExposure,
+    PercentilesExposure,
+    PointsCurve,
+    ShapeCurve,
+    SummaryExposure,
+    TableCurve,
+)
 from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import FAMILIES
-from analysis_helpers import BANDS, MEASUREMENTS
 
 POINTS = "dose,rr,ci_lower,ci_upper\n0,1,,\n10,1.20,1.05,1.37\n25,1.45,1.20,1.75\n"
 DRAWS = "dose,d1,d2,d3\n0,1,1,1\n20,1.10,1.30,1.20\n50,1.30,1.70,1.40\n"

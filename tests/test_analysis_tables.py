@@ -7,8 +7,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from analysis_helpers import BANDS, MEASUREMENTS, write_case
+
 from doseattr.analysis.config import load_analysis
 from doseattr.analysis.tables import read_measurements, read_study_table
 from doseattr.errors import InputError

@@ -8,9 +8,12 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import integrate, stats
 
-from doseattr.core.attribution.categorical import (band_means, band_shares,
-                                                   categorical_comparison,
-                                                   multi_category_paf)
+from doseattr.core.attribution.categorical import (
+    band_means,
+    band_shares,
+    categorical_comparison,
+    multi_category_paf,
+)
 from doseattr.core.attribution.contribution import burden_density
 from doseattr.core.attribution.fractions import paf
 from doseattr.core.curves.base import Curve

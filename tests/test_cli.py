@@ -14,8 +14,8 @@ import sys
 from pathlib import Path
 
 import pytest
-
 from analysis_helpers import ANALYSIS, BANDS, write_case
+
 from doseattr.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -95,7 +95,7 @@ def test_usage_error_exits_2(capsys):
 
 def test_demo_runs_end_to_end(tmp_path, capsys):
     out_dir = tmp_path / "demo"
-    code, out, err = _run(["demo", "--out", out_dir], capsys)
+    code, _out, err = _run(["demo", "--out", out_dir], capsys)
     assert code == 0, err
     data = json.loads((out_dir / "results.json").read_text())
     assert 0 < data["paf"]["estimate"] < 1

@@ -16,8 +16,11 @@ import pytest
 import statsmodels.api as sm
 from scipy.stats import norm
 
-from doseattr.core.curves.covariance import (greenland_longnecker, independent_covariance,
-                                             var_log_rr_from_ci)
+from doseattr.core.curves.covariance import (
+    greenland_longnecker,
+    independent_covariance,
+    var_log_rr_from_ci,
+)
 from doseattr.errors import ModelError
 
 Z95 = norm.ppf(0.975)
@@ -178,7 +181,7 @@ def test_var_from_ci_formula():
     z = norm.ppf(0.95)
     np.testing.assert_allclose(var_log_rr_from_ci(rr, lo, hi, level=0.90),
                                ((np.log(hi) - np.log(lo)) / (2 * z)) ** 2, rtol=1e-14)
-    with pytest.raises(ModelError, match="contain|inside"):
+    with pytest.raises(ModelError, match=r"contain|inside"):
         var_log_rr_from_ci(2.5, 1.1, 2.2)
 
 

@@ -8,8 +8,12 @@ import statsmodels.api as sm
 from doseattr.core.curves.covariance import LogRRCovariance
 from doseattr.core.curves.fit import fit_curve
 from doseattr.core.curves.loglinear import LogLinear
-from doseattr.core.curves.spline import (HARRELL_QUANTILES, RestrictedCubicSpline,
-                                         default_knots, nonlinearity_test)
+from doseattr.core.curves.spline import (
+    HARRELL_QUANTILES,
+    RestrictedCubicSpline,
+    default_knots,
+    nonlinearity_test,
+)
 from doseattr.errors import ModelError
 
 KNOTS = np.array([1.0, 3.0, 5.0, 8.0])
@@ -57,7 +61,8 @@ def test_truncated_power_formula_written_out():
     x = np.linspace(0.0, 15.0, 61)
 
     def s2(v):
-        p = lambda z: np.maximum(z, 0.0) ** 3
+        def p(z):
+            return np.maximum(z, 0.0) ** 3
         return (p(v - t1) - p(v - t2) * (t3 - t1) / (t3 - t2)
                 + p(v - t3) * (t2 - t1) / (t3 - t2)) / (t3 - t1) ** 2
 

@@ -125,7 +125,7 @@ def spline_log_rr(x, b):
 
 
 def test_spline_fit_matches_a_second_construction(spline):
-    b, info, q, p_nonlin, cov = _spline_reference()
+    b, _info, q, p_nonlin, cov = _spline_reference()
     c = spline["curve"]
     assert c["model"] == "spline"
     np.testing.assert_allclose(c["log_rr_covariance"], cov, rtol=1e-6)

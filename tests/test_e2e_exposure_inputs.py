@@ -16,10 +16,8 @@ from datetime import date, timedelta
 
 import numpy as np
 import pytest
-from scipy import stats
-
 from e2e_helpers import expect_excess, run_api, run_cli
-
+from scipy import stats
 
 # ======================================================================================
 # Work histories, a 4-year lag, a worker whose only job falls inside the lag.
@@ -81,7 +79,7 @@ def test_workers_csv_has_hand_computed_cumulative_exposure(histories):
     folder, res = histories
     cum, dur = hand_cumulative()
     with open(folder / "out" / "workers.csv", newline="") as fh:
-        rows = [r for r in csv.DictReader(line for line in fh if not line.startswith("#"))]
+        rows = list(csv.DictReader(line for line in fh if not line.startswith("#")))
     assert {"worker", "cumulative", "duration_years", "mean_intensity"} <= set(rows[0])
     got = {r["worker"]: r for r in rows}
     assert sorted(got) == sorted(cum)

@@ -56,7 +56,7 @@ def attributable(excess, dist, *, unexposed=0.0, kinks=(), scenarios=()) -> tupl
     e0 = (1 - unexposed) * expect_positive(excess, dist, kinks)
     pifs = []
     for g, gkinks in scenarios:
-        eg = (1 - unexposed) * expect_positive(lambda x: excess(g(x)), dist, list(kinks) + list(gkinks))
+        eg = (1 - unexposed) * expect_positive(lambda x, g=g: excess(g(x)), dist, list(kinks) + list(gkinks))
         pifs.append((e0 - eg) / (1 + e0))
     return e0 / (1 + e0), pifs
 
@@ -187,7 +187,7 @@ def test_linear_err_entered_as_published(case_a):
 
 
 def test_gamma_linear_paf_and_every_scenario_kind(case_a):
-    dist, *_, paf, pifs, _ = _case_a_reference()
+    _dist, *_, paf, pifs, _ = _case_a_reference()
     # reference: scipy.integrate.quad over scipy.stats.gamma.pdf, split at the kinks
     assert case_a["paf"]["estimate"] == pytest.approx(paf, rel=QUAD_RTOL)
     names = [s["name"] for s in case_a["scenarios"]]
@@ -497,7 +497,7 @@ def test_fitted_curve_paf_pif_and_contribution(case_d):
     """PAF and PIF by quad over the weighted lognormal with the unexposed
     share: RR_m(x) - 1 = expm1(b (min(max(x, m), 28) - m)), m = 2.5.
     The burden density of issue 2 item 5 is (1 - u) f(x)(RR_m(x) - 1)/E[RR_m(X)]."""
-    gm, gsd, u, b, *_ = _case_d_reference()
+    _gm, _gsd, u, b, *_ = _case_d_reference()
     p = case_d["exposure"]["parameters"]
     dist = lognormal(p["gm"], p["gsd"])  # the project's fit, checked above
     m, top = 2.5, 28.0
@@ -597,7 +597,7 @@ def _case_e_reference():
 
 
 def test_power_with_offset_fitted_to_case_control(case_e):
-    b, var_b, q, rr, cov, *_ = _case_e_reference()
+    b, var_b, q, _rr, cov, *_ = _case_e_reference()
     c = case_e["curve"]
     assert c["model"] == "power"
     np.testing.assert_allclose(c["log_rr_covariance"], cov, rtol=1e-6)

@@ -12,9 +12,8 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
-
 from e2e_helpers import expect_excess, run_api, run_cli
+from scipy import stats
 
 Z975 = stats.norm.ppf(0.975)  # scipy.stats
 

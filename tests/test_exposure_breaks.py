@@ -134,7 +134,7 @@ def test_gamma_exponential_tilt_reproduces_the_mgf():
     for k, theta, c in [(2.0, 1.5, 0.6), (0.7, 3.0, 0.3), (5.0, 1.0, 0.95)]:
         p = np.array([k, theta])
         t = fam.tilted_log_breaks(p, exp_growth(c))
-        got = gauss_on_breaks(t, lambda tt: c * np.exp(tt) + fam.log_density_log(tt.ravel(), p).reshape(tt.shape))
+        got = gauss_on_breaks(t, lambda tt, c=c, p=p: c * np.exp(tt) + fam.log_density_log(tt.ravel(), p).reshape(tt.shape))
         np.testing.assert_allclose(got, (1 - c * theta) ** (-k), rtol=1e-8)
 
 

@@ -13,8 +13,12 @@ from scipy import integrate, stats
 from scipy.special import gammainc, gammaincc, gammaln
 
 from doseattr.core.exposure import FAMILIES, Gamma, LogNormal, Weibull, get_family
-from doseattr.core.exposure.incomplete_gamma import (log_gammainc, log_gammainc_series, log_gammaincc,
-                                                     log_gammaincc_cf)
+from doseattr.core.exposure.incomplete_gamma import (
+    log_gammainc,
+    log_gammainc_series,
+    log_gammaincc,
+    log_gammaincc_cf,
+)
 from doseattr.errors import ModelError
 
 

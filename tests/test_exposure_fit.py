@@ -194,6 +194,6 @@ def test_fit_best_picks_the_lowest_aic():
             for n in ("lognormal", "gamma", "weibull")}
     assert e.family.name == min(aics, key=aics.get)
     assert {f.name for f, _, _ in e.alternatives} == set(aics) - {e.family.name}
-    for fam, params, fit in e.alternatives:
+    for fam, _params, fit in e.alternatives:
         np.testing.assert_allclose(fit.aic, aics[fam.name], rtol=1e-6)
     assert "lowest AIC" in e.notes[0]

@@ -7,8 +7,14 @@ import pytest
 from scipy import stats
 from statsmodels.imputation import ros
 
-from doseattr.core.exposure import (fit_measurements, from_gm_gsd, goodness_of_fit, qq_points,
-                                    ros_plotting_positions, substitute_nondetects)
+from doseattr.core.exposure import (
+    fit_measurements,
+    from_gm_gsd,
+    goodness_of_fit,
+    qq_points,
+    ros_plotting_positions,
+    substitute_nondetects,
+)
 from doseattr.errors import ModelError
 
 

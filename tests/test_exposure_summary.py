@@ -5,7 +5,13 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from doseattr.core.exposure import fit_bins, from_gm_gsd, from_mean_sd, from_parameters, from_percentiles
+from doseattr.core.exposure import (
+    fit_bins,
+    from_gm_gsd,
+    from_mean_sd,
+    from_parameters,
+    from_percentiles,
+)
 from doseattr.errors import ModelError
 
 FAMILIES = ["lognormal", "gamma", "weibull"]

@@ -4,8 +4,14 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from doseattr.core.exposure.units import (MOLAR_VOLUME_L, concentration_unit, conversion_factor, convert,
-                                          convert_cumulative, cumulative_unit)
+from doseattr.core.exposure.units import (
+    MOLAR_VOLUME_L,
+    concentration_unit,
+    conversion_factor,
+    convert,
+    convert_cumulative,
+    cumulative_unit,
+)
 from doseattr.errors import ModelError
 
 

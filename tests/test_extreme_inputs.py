@@ -291,7 +291,7 @@ def test_empirical_histories_accept_one_or_two_exposed_workers(capsys, tmp_path,
     from datetime import date
 
     table = "worker,start,end,intensity\n" + "".join(f"{w},{s},{e},{c}\n" for w, s, e, c in jobs)
-    toml = (f'unit = "mg/m3-years"\n[curve]\nmodel = "log-linear"\nrr = 1.5\nper = 1\n'
+    toml = ('unit = "mg/m3-years"\n[curve]\nmodel = "log-linear"\nrr = 1.5\nper = 1\n'
             '[exposure]\nhistories = "jobs.csv"\nas_of = "2024-01-01"\nlag_years = 4\n'
             'family = "empirical"\n[attribution]\nminimum_risk = 0\n')
     code, err, res = outcome(capsys, tmp_path, toml, {"jobs.csv": table})

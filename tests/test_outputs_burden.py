@@ -15,15 +15,15 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import csv  # noqa: E402
-import io  # noqa: E402
-from html import escape  # noqa: E402
+import csv
+import io
+from html import escape
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from scipy import stats  # noqa: E402
-from test_outputs_cases import (  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from scipy import stats
+from test_outputs_cases import (
     STRATA,
     STRATA_2,
     STUDY,
@@ -33,13 +33,13 @@ from test_outputs_cases import (  # noqa: E402
     run_pipeline,
     table_with,
 )
-from test_outputs_tables import as_csv  # noqa: E402
+from test_outputs_tables import as_csv
 
-from doseattr.outputs import gallery, tables  # noqa: E402
-from doseattr.outputs.burden_figures import OWN_MARK, OWN_NOTE  # noqa: E402
-from doseattr.outputs.burden_report import cases  # noqa: E402
-from doseattr.outputs.markup import estimate_text, interval, num, pct  # noqa: E402
-from doseattr.outputs.report import render_report  # noqa: E402
+from doseattr.outputs import gallery, tables
+from doseattr.outputs.burden_figures import OWN_MARK, OWN_NOTE
+from doseattr.outputs.burden_report import cases
+from doseattr.outputs.markup import estimate_text, interval, num, pct
+from doseattr.outputs.report import render_report
 
 DRAWS = 200
 SCENARIOS = [{"name": "Cap 40", "cap": 40.0}, {"name": "Cut <25%>", "scale": 0.75}]
@@ -331,7 +331,7 @@ def test_outcome_curves_side_by_side(outcomes):
     axes = [ax for ax in figure.axes if ax.get_visible()]
     assert len(axes) == len(outcomes.outcomes) == 2
     for ax, (name, r) in zip(axes, outcomes.outcomes):
-        line = [ln for ln in ax.get_lines() if ln.get_gid() == "fitted-rr"][0]
+        line = next(ln for ln in ax.get_lines() if ln.get_gid() == "fitted-rr")
         np.testing.assert_allclose(line.get_ydata(), r.curve.rr(line.get_xdata()), rtol=1e-12)
         assert name in ax.get_title() and pct(r.paf.estimate) in ax.get_title()
 

@@ -15,10 +15,9 @@ import pytest
 from reference_integrals import expect_over
 from scipy import stats
 
-from doseattr.analysis.config import analysis_from_dict
 from doseattr.analysis.assemble import curve_section, exposure_section
+from doseattr.analysis.config import analysis_from_dict
 from doseattr.analysis.pipeline import run_inputs
-from doseattr.results import AttributionSection, BandTable, Estimate, Results, ScenarioResult
 from doseattr.core.attribution.categorical import categorical_comparison
 from doseattr.core.attribution.contribution import burden_density
 from doseattr.core.attribution.fractions import paf, pif
@@ -27,6 +26,7 @@ from doseattr.core.curves.covariance import greenland_longnecker, var_log_rr_fro
 from doseattr.core.curves.fit import fit_curve
 from doseattr.core.curves.loglinear import LogLinear
 from doseattr.core.exposure.fit import fit_measurements
+from doseattr.results import AttributionSection, BandTable, Estimate, Results, ScenarioResult
 
 UNIT = "ug/m3"
 # Invented study bands (inputs only).

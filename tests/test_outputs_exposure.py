@@ -17,23 +17,23 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from scipy import stats  # noqa: E402
-from test_outputs_cases import (  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from scipy import stats
+from test_outputs_cases import (
     STUDY,
     UNIT,
     measurements_csv,
     run_pipeline,
     table_with,
 )
-from test_outputs_tables import as_csv  # noqa: E402
+from test_outputs_tables import as_csv
 
-from doseattr.core.exposure.nondetects import ros_plotting_positions  # noqa: E402
-from doseattr.outputs import figures, gallery, tables  # noqa: E402
-from doseattr.outputs.markup import num, pct, signed_points  # noqa: E402
-from doseattr.outputs.report import render_report  # noqa: E402
+from doseattr.core.exposure.nondetects import ros_plotting_positions
+from doseattr.outputs import figures, gallery, tables
+from doseattr.outputs.markup import num, pct, signed_points
+from doseattr.outputs.report import render_report
 
 LIMIT = 3.0
 HALF = 0.5
@@ -259,7 +259,7 @@ def test_empirical_figure_has_no_fitted_density(empirical):
     labels = [t.get_text() for t in ax.get_legend().get_texts()]
     assert any("weighted" in t and "mean" in t for t in labels)
     d = empirical.to_dict()
-    compared = [f for f in d["exposure"]["fits"]]
+    compared = list(d["exposure"]["fits"])
     for f in compared:
         line = lines[f"compare-{f['family']}"]
         assert line.get_linestyle() == ":" and "comparison only" in line.get_label()

@@ -12,15 +12,15 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from matplotlib.axes import Axes  # noqa: E402
-from scipy import integrate, stats  # noqa: E402
-from test_outputs_cases import DOSE, RR, UNIT, make_exposure, make_results  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from matplotlib.axes import Axes
+from scipy import integrate, stats
+from test_outputs_cases import DOSE, RR, UNIT, make_exposure, make_results
 
-from doseattr.outputs import figures  # noqa: E402
-from doseattr.outputs.gallery import render_figures  # noqa: E402
+from doseattr.outputs import figures
+from doseattr.outputs.gallery import render_figures
 
 
 @pytest.fixture(scope="module")
@@ -96,10 +96,10 @@ def test_plot_curve_shows_study_bands_at_assigned_doses(results):
 
 
 def test_plot_curve_uses_given_axes(results):
-    fig, ax = plt.subplots()
+    _fig, ax = plt.subplots()
     assert figures.plot_curve(results.curve, ax=ax) is ax
     assert by_gid(ax, "fitted-rr") is not None
-    assert not [c for c in ax.containers]  # no band table, no error bars
+    assert not list(ax.containers)  # no band table, no error bars
 
 
 def test_plot_exposure_density_matches_scipy(results):
@@ -218,7 +218,7 @@ def test_plot_strata_whiskers():
     bars = sorted((p for p in ax.patches if p.get_gid() == "strata-bars"),
                   key=lambda p: -p.get_y())
     assert [p.get_width() for p in bars] == [10.0, 4.0, 7.5]
-    seg = [c for c in ax.collections if c.get_gid() == "strata-whiskers"][0].get_segments()
+    seg = next(c for c in ax.collections if c.get_gid() == "strata-whiskers").get_segments()
     assert sorted((s[0][0], s[1][0]) for s in seg) == [(6.0, 9.0), (8.0, 12.0)]
     assert [t.get_text() for t in ax.get_yticklabels()] == ["north", "south", "east"]
 

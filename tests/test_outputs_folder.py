@@ -16,8 +16,8 @@ import os
 from pathlib import Path
 
 import pytest
-
 from analysis_helpers import ANALYSIS, BANDS, write_case
+
 from doseattr.cli import main
 from doseattr.errors import InputError
 from doseattr.outputs import figures as figure_module
@@ -367,7 +367,7 @@ def test_results_write_follows_the_same_rules(tmp_path):
     with pytest.raises(InputError, match="holds the input"):
         results.write(tmp_path / "case", figures=False)
     (out / "mine.txt").write_text("x")
-    with pytest.raises(InputError, match="'mine.txt' was not written by doseattr"):
+    with pytest.raises(InputError, match=r"'mine\.txt' was not written by doseattr"):
         results.write(out, figures=False)
     assert (out / "mine.txt").read_text() == "x"
     _no_hidden_siblings(out)

@@ -13,14 +13,14 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import csv  # noqa: E402
-import io  # noqa: E402
+import csv
+import io
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from scipy import stats  # noqa: E402
-from test_outputs_cases import (  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from scipy import stats
+from test_outputs_cases import (
     STEP_STUDY,
     STUDY,
     UNIT,
@@ -28,11 +28,11 @@ from test_outputs_cases import (  # noqa: E402
     run_pipeline,
     table_with,
 )
-from test_outputs_tables import as_csv  # noqa: E402
+from test_outputs_tables import as_csv
 
-from doseattr.outputs import gallery, tables  # noqa: E402
-from doseattr.outputs.markup import num, pct, signed_points  # noqa: E402
-from doseattr.outputs.report import render_report  # noqa: E402
+from doseattr.outputs import gallery, tables
+from doseattr.outputs.markup import num, pct, signed_points
+from doseattr.outputs.report import render_report
 
 MODELS = ["log-linear", "linear", "power"]
 
@@ -94,7 +94,7 @@ def test_model_panels_draw_each_model_with_the_band_estimates(spline):
         x = line.get_xdata()
         np.testing.assert_allclose(line.get_ydata(), v.curve.rr(x), rtol=1e-12)
         assert pct(v.paf) in ax.get_title() and v.label in ax.get_title()
-        points = [c for c in ax.containers if c.get_label().startswith("study")][0].lines[0]
+        points = next(c for c in ax.containers if c.get_label().startswith("study")).lines[0]
         np.testing.assert_array_equal(points.get_xdata(), np.asarray(v.doses)[~ref])
         np.testing.assert_array_equal(points.get_ydata(), spline.band_table.rr[~ref])
     # one shared dose axis
@@ -188,7 +188,7 @@ def test_poor_fit_warning_and_reported_against_fitted(step):
     html = render_report(step, figures=False)
     assert "Poor fit:" in html and "fits the study&#x27;s band estimates poorly" in html
     assert f"Q = {num(fit.q, 4)} on {fit.df} degrees of freedom, p = {num(p, 3)}" in html
-    header, rows = table_with(html, "reported against fitted RR")
+    _header, rows = table_with(html, "reported against fitted RR")
     exposed = [r for r in rows if "(reference)" not in r[2]]
     np.testing.assert_array_equal([r[2] for r in exposed],
                                   [num(v) for v in np.exp(fit.log_rr)])

@@ -270,7 +270,7 @@ def test_empirical_exposure_plots():
     cum = np.cumsum(excess) / excess.sum()
     con = Contribution(x, excess / (1 + excess.sum()), cum, None, excess.sum() / (1 + excess.sum()))
     ax = figures.plot_contribution(con, unit="ppm", cumulative=True)
-    line = [ln for ln in ax.get_lines() if ln.get_gid() == "burden-cumulative"][0]
+    line = next(ln for ln in ax.get_lines() if ln.get_gid() == "burden-cumulative")
     np.testing.assert_allclose(line.get_ydata(), 100 * cum, rtol=1e-14)
     assert line.get_ydata()[-1] == pytest.approx(100.0, rel=1e-12)
     assert figures.is_empirical(ex) and figures.curve_extent(make_curve(), exposure=ex) > 0

@@ -216,7 +216,7 @@ def test_existing_folder_with_user_files_is_refused(results, tmp_path):
     (out / "notes.txt").write_text("mine")
     (out / "results.json").write_text("{\"old\": true}")
     before = _snapshot(out)
-    with pytest.raises(InputError, match="'notes.txt' was not written by doseattr"):
+    with pytest.raises(InputError, match=r"'notes\.txt' was not written by doseattr"):
         write_outputs(results, out, figures=False)
     assert _snapshot(out) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]

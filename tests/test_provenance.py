@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy
 import pytest
 import scipy
+from analysis_helpers import ANALYSIS, BANDS, MEASUREMENTS
 
 import doseattr
-from analysis_helpers import ANALYSIS, BANDS, MEASUREMENTS
 from doseattr.cli import main
 
 STRATA = "stratum,cases\nNorth,120\nSouth,80\n"

@@ -70,8 +70,9 @@ def test_totals_are_sums_of_strata_draw_by_draw():
 def test_same_seed_same_draws_and_other_seed_differs():
     curve = Curve(LinearExcess(), np.array([0.05]), np.array([[0.0001]]))
     strata = [Stratum("a", 10.0, gamma_exposure())]
-    run = lambda seed: propagate(curve, strata, [], draws=200, rng=np.random.default_rng(seed),
-                                 minimum_risk=(0.0, 1.0)).paf
+    def run(seed):
+        return propagate(curve, strata, [], draws=200, rng=np.random.default_rng(seed),
+                                     minimum_risk=(0.0, 1.0)).paf
     assert np.array_equal(run(5), run(5))
     assert not np.array_equal(run(5), run(6))
 

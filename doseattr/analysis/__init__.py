@@ -7,8 +7,7 @@ Public entry points: :func:`load_analysis`, :func:`analysis_from_dict`,
 
 from doseattr.analysis.config import Analysis, analysis_from_dict, load_analysis
 from doseattr.analysis.pipeline import run_analysis
-from doseattr.results import (Estimate, Results, ScenarioResult, SourceWidth,
-                              SubstitutionResult)
+from doseattr.results import Estimate, Results, ScenarioResult, SourceWidth, SubstitutionResult
 
 __all__ = ["Analysis", "Estimate", "Results", "ScenarioResult", "SourceWidth",
            "SubstitutionResult", "analysis_from_dict", "load_analysis", "run_analysis"]

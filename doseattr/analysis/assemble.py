@@ -12,9 +12,18 @@ import numpy as np
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
 from doseattr.core.exposure.empirical import EmpiricalExposure
-from doseattr.results.records import (AnyExposure, CurveSection, CurveVariant, ExposureSection,
-                                      ExposureVariant, FamilyFit, GoodnessOfFit,
-                                      StratumExposure, SubstitutionResult, Workers)
+from doseattr.results.records import (
+    AnyExposure,
+    CurveSection,
+    CurveVariant,
+    ExposureSection,
+    ExposureVariant,
+    FamilyFit,
+    GoodnessOfFit,
+    StratumExposure,
+    SubstitutionResult,
+    Workers,
+)
 
 
 def share_above(exposure: AnyExposure, dose: float | None) -> float | None:

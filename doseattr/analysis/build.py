@@ -15,24 +15,35 @@ naming the file and key (or table) the values came from.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from typing import TYPE_CHECKING, Any, Callable, Iterator, TypeAlias, cast
+from typing import TYPE_CHECKING, Any, TypeAlias, cast
 
 import numpy as np
 
 from doseattr.analysis.config import Analysis, ScenarioSpec
 from doseattr.analysis.csvfile import FloatArray
-from doseattr.results.records import BandTable
 from doseattr.analysis.schema import key_location
-from doseattr.analysis.specs import (FITTED_FAMILIES, BinnedExposure, DrawsCurve, EnteredCurve,
-                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
-                                     PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
+from doseattr.analysis.specs import (
+    FITTED_FAMILIES,
+    BinnedExposure,
+    DrawsCurve,
+    EnteredCurve,
+    HistoriesExposure,
+    MeasuredExposure,
+    PercentilesExposure,
+    PointsCurve,
+    ShapeCurve,
+    SummaryExposure,
+    TableCurve,
+)
 from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
 from doseattr.core.curves.base import Curve, CurveModel
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
+from doseattr.results.records import BandTable
 
 if TYPE_CHECKING:
     from doseattr.core.curves.covariance import LogRRCovariance
@@ -129,8 +140,12 @@ def band_doses(t: StudyTable, rule: str, exposure: AnyExposure | None = None, *,
     median of the population's fitted exposure distribution (its exposed
     part). ``source`` is the analysis file, named when the rule cannot be
     used."""
-    from doseattr.core.curves.doses import (DistributionRule, TableRule, assign_doses,
-                                            distribution_doses)
+    from doseattr.core.curves.doses import (
+        DistributionRule,
+        TableRule,
+        assign_doses,
+        distribution_doses,
+    )
 
     if rule in ("given", "midpoint"):
         with as_input_error(t.source, "columns 'lower', 'upper', 'dose'"):
@@ -155,8 +170,12 @@ def band_doses(t: StudyTable, rule: str, exposure: AnyExposure | None = None, *,
 def log_rr_covariance(spec: TableCurve,
                       t: StudyTable) -> tuple[LogRRCovariance, list[str], list[str]]:
     """Covariance of the non-reference log RRs, with warnings and notes."""
-    from doseattr.core.curves.covariance import (Design, greenland_longnecker,
-                                                 independent_covariance, var_log_rr_from_ci)
+    from doseattr.core.curves.covariance import (
+        Design,
+        greenland_longnecker,
+        independent_covariance,
+        var_log_rr_from_ci,
+    )
     from doseattr.core.curves.effective_counts import effective_counts
 
     ref = t.reference

@@ -18,11 +18,16 @@ import numpy as np
 from doseattr.analysis.assemble import stratum_exposure as stratum_exposure_record
 from doseattr.analysis.build import as_input_error
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.intervals import (SOURCES, burden_spec, interval, minimum_risk_range,
-                                         progress_bar)
+from doseattr.analysis.intervals import (
+    SOURCES,
+    burden_spec,
+    interval,
+    minimum_risk_range,
+    progress_bar,
+)
+from doseattr.errors import InputError
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import BurdenResult, StratumEffect, StratumResult
-from doseattr.errors import InputError
 
 
 def burden_strata(analysis: Analysis, exposure) -> list:

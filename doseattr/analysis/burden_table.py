@@ -9,8 +9,16 @@ from pathlib import Path
 
 import numpy as np
 
-from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, below_sqrt_max, cell_error,
-                                       number, read_raw, require_columns)
+from doseattr.analysis.csvfile import (
+    FloatArray,
+    RawTable,
+    Row,
+    below_sqrt_max,
+    cell_error,
+    number,
+    read_raw,
+    require_columns,
+)
 from doseattr.errors import InputError
 
 #: Per-stratum exposure columns that may override the shared exposure.

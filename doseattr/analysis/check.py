@@ -11,20 +11,36 @@ section what a run would compute. Nothing here draws or writes.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any, Callable, Literal
+from collections.abc import Callable
+from typing import Any, Literal
 
 import numpy as np
 
-from doseattr.analysis.build import (BuiltCurve, BuiltExposure, as_input_error, build_curve,
-                                     build_exposure, build_scenarios)
+from doseattr.analysis.build import (
+    BuiltCurve,
+    BuiltExposure,
+    as_input_error,
+    build_curve,
+    build_exposure,
+    build_scenarios,
+)
 from doseattr.analysis.burden_run import burden_strata
+from doseattr.analysis.burden_table import BurdenTable
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
-from doseattr.analysis.burden_table import BurdenTable
-from doseattr.analysis.specs import (BinnedExposure, DrawsCurve, EnteredCurve,
-                                     HistoriesExposure, MeasuredExposure, PercentilesExposure,
-                                     PointsCurve, ShapeCurve, SummaryExposure, TableCurve)
+from doseattr.analysis.specs import (
+    BinnedExposure,
+    DrawsCurve,
+    EnteredCurve,
+    HistoriesExposure,
+    MeasuredExposure,
+    PercentilesExposure,
+    PointsCurve,
+    ShapeCurve,
+    SummaryExposure,
+    TableCurve,
+)
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import ConvergenceError, DivergenceError, FloatRangeError, InputError

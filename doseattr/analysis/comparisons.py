@@ -13,10 +13,10 @@ import numpy as np
 
 from doseattr.analysis.build import BuiltCurve, CurveInputs, fit_substituted, fit_table_curve
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.specs import HistoriesExposure, MeasuredExposure, TableCurve
 from doseattr.analysis.intervals import finite
-from doseattr.results.records import CurveVariant, ExposureVariant, SubstitutionResult
+from doseattr.analysis.specs import HistoriesExposure, MeasuredExposure, TableCurve
 from doseattr.errors import DoseattrError, InputError
+from doseattr.results.records import CurveVariant, ExposureVariant, SubstitutionResult
 
 DOSE_RULES = ("midpoint", "band-mean", "band-median")
 
@@ -86,7 +86,7 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
     for fam, params, alt in others:
         other = Exposure(fam, np.asarray(params, dtype=float), unexposed)
         out.append(_exposure_variant(fam.name, other.parameters, getattr(alt, "aic", None),
-                                     lambda: paf(curve, other, minimum_risk=m)))
+                                     lambda other=other: paf(curve, other, minimum_risk=m)))
     if not empirical_main:
         out.append(_empirical_variant(analysis, spec, curve, built_exposure))
     return tuple(out)

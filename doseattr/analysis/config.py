@@ -35,20 +35,38 @@ from __future__ import annotations
 import os
 import re
 import tomllib
+from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
-from typing import Any, Iterator, Mapping
+from typing import Any
 
 from doseattr.analysis import schema
 from doseattr.analysis.curve_section import parse_curve
 from doseattr.analysis.exposure_section import parse_exposure, require_cumulative_unit
 from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
-from doseattr.analysis.specs import (DEFAULT_SEED, MAX_DRAWS, MIN_DRAWS, Analysis,
-                                     AttributionSpec, BurdenSpec, CurveSpec, ExposureSpec,
-                                     HistoriesExposure, OutcomeSpec, ScenarioSpec,
-                                     UncertaintySpec)
+from doseattr.analysis.specs import (
+    DEFAULT_SEED,
+    MAX_DRAWS,
+    MIN_DRAWS,
+    Analysis,
+    AttributionSpec,
+    BurdenSpec,
+    CurveSpec,
+    ExposureSpec,
+    HistoriesExposure,
+    OutcomeSpec,
+    ScenarioSpec,
+    UncertaintySpec,
+)
 from doseattr.analysis.tables import read_burden
-from doseattr.analysis.units_section import (Conversion, Units, conversion, convert_burden,
-                                             convert_curve, convert_exposure, read_units)
+from doseattr.analysis.units_section import (
+    Conversion,
+    Units,
+    conversion,
+    convert_burden,
+    convert_curve,
+    convert_exposure,
+    read_units,
+)
 from doseattr.errors import InputError
 
 __all__ = ["Analysis", "AttributionSpec", "BurdenSpec", "CurveSpec", "ExposureSpec",

@@ -22,9 +22,10 @@ import csv
 import difflib
 import math
 import sys
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Literal, Sequence, overload
+from typing import Literal, overload
 
 import numpy as np
 from numpy.typing import NDArray

@@ -7,12 +7,26 @@ from __future__ import annotations
 from typing import Any
 
 from doseattr.analysis.schema import Context, nonnegative, only_one, suggest
-from doseattr.analysis.specs import (EFFECTIVE_COUNT_DESIGNS, FITTED_MODELS, SHAPE_KEYS,
-                                     SHAPE_MODELS,
-                                     CurveSpec, DrawsCurve, EnteredCurve, PointsCurve,
-                                     ShapeCurve, TableCurve)
-from doseattr.analysis.tables import (PointsTable, StudyTable, design_from_counts, read_draws_table,
-                                      read_points_table, read_study_table)
+from doseattr.analysis.specs import (
+    EFFECTIVE_COUNT_DESIGNS,
+    FITTED_MODELS,
+    SHAPE_KEYS,
+    SHAPE_MODELS,
+    CurveSpec,
+    DrawsCurve,
+    EnteredCurve,
+    PointsCurve,
+    ShapeCurve,
+    TableCurve,
+)
+from doseattr.analysis.tables import (
+    PointsTable,
+    StudyTable,
+    design_from_counts,
+    read_draws_table,
+    read_points_table,
+    read_study_table,
+)
 from doseattr.errors import InputError
 
 
@@ -165,9 +179,8 @@ def _entered_curve(c: dict[str, Any], entered: str, ctx: Context) -> EnteredCurv
         raise ctx.error("the power model's exponent has no dose increment; remove 'per'",
                         "curve", "per")
     value = float(c[entered])
-    if model == "log-linear" or entered == "rr":
-        if value <= 0:
-            raise ctx.error(f"RR must be greater than 0, got {value:g}", "curve", entered)
+    if (model == "log-linear" or entered == "rr") and value <= 0:
+        raise ctx.error(f"RR must be greater than 0, got {value:g}", "curve", entered)
     ci = None
     if "ci" in c:
         lo, hi = (float(v) for v in c["ci"])

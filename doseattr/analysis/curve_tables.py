@@ -8,8 +8,15 @@ from pathlib import Path
 
 import numpy as np
 
-from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, number,
-                                       read_raw, require_columns)
+from doseattr.analysis.csvfile import (
+    FloatArray,
+    RawTable,
+    Row,
+    cell_error,
+    number,
+    read_raw,
+    require_columns,
+)
 from doseattr.errors import InputError
 
 

@@ -8,14 +8,20 @@ from datetime import date
 from typing import Any
 
 from doseattr.analysis import schema
-from doseattr.analysis.schema import Context
-from doseattr.analysis.specs import (FITTED_FAMILIES, SUMMARY_KEYS, BinnedExposure,
-                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
-                                     PercentilesExposure, SummaryExposure)
 from doseattr.analysis.exposure_tables import read_tasks
+from doseattr.analysis.schema import Context
+from doseattr.analysis.specs import (
+    FITTED_FAMILIES,
+    SUMMARY_KEYS,
+    BinnedExposure,
+    ExposureSpec,
+    HistoriesExposure,
+    MeasuredExposure,
+    PercentilesExposure,
+    SummaryExposure,
+)
 from doseattr.analysis.tables import read_bins, read_histories, read_measurements
 from doseattr.errors import InputError, ModelError
-
 
 #: Ways of describing the exposure and the keys that give each.
 EXPOSURE_MODES: dict[str, tuple[str, ...]] = {
@@ -43,7 +49,7 @@ def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
     mode = given[0]
     for key in modes[mode]:
         if key not in e:
-            other = [k for k in modes[mode] if k != key][0]
+            other = next(k for k in modes[mode] if k != key)
             raise ctx.error(f"missing key '{key}' ({other} and {key} go together)",
                             "exposure", key)
     for key in ("as_of", "lag_years", "tasks"):

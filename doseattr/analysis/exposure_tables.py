@@ -9,8 +9,17 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, check_band_order,
-                                       number, read_raw, require_columns, shown)
+from doseattr.analysis.csvfile import (
+    FloatArray,
+    RawTable,
+    Row,
+    cell_error,
+    check_band_order,
+    number,
+    read_raw,
+    require_columns,
+    shown,
+)
 from doseattr.errors import InputError
 
 
@@ -93,7 +102,7 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
 
 
 def read_histories(path: str | Path, source: str | None = None, *,
-                   tasks: "TasksTable | None" = None) -> HistoriesTable:
+                   tasks: TasksTable | None = None) -> HistoriesTable:
     """Read work histories: columns ``worker``, ``start``, ``end`` (ISO dates;
     ``end`` is the first day no longer in the job) and ``intensity`` (an
     8-hour TWA, 0 or more). Refuses an end before its start and two jobs of

@@ -19,16 +19,16 @@ from __future__ import annotations
 import dataclasses
 import math
 import sys
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
-from typing import Callable, Iterator, Sequence
 
 import numpy as np
 
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.specs import BurdenSpec, UncertaintySpec
+from doseattr.errors import DoseattrError
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import ScenarioResult, SourceWidth
-from doseattr.errors import DoseattrError
 
 #: Inputs whose uncertainty is propagated in the main run (the core's names).
 SOURCES = ("curve", "exposure", "minimum_risk")

@@ -19,15 +19,18 @@ import dataclasses
 
 import numpy as np
 
+from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.analysis.build import BuiltCurve
 from doseattr.analysis.burden_run import run_burden
 from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_all
-from doseattr.analysis.comparisons import (curve_variants, exposure_variants,
-                                           substitution_results)
+from doseattr.analysis.comparisons import curve_variants, exposure_variants, substitution_results
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.intervals import (population_intervals, source_width,
-                                         uncertainty_notes, width_by_source)
-from doseattr.analysis.assemble import curve_section, exposure_section
+from doseattr.analysis.intervals import (
+    population_intervals,
+    source_width,
+    uncertainty_notes,
+    width_by_source,
+)
 from doseattr.analysis.tables import StudyTable
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.attribution.contribution import Contribution
@@ -35,8 +38,13 @@ from doseattr.core.uncertainty.propagate import Stratum
 from doseattr.errors import DoseattrError
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
-from doseattr.results.records import (AttributionSection, BurdenResult, RunInputs,
-                                      ScenarioResult, UncertaintySection)
+from doseattr.results.records import (
+    AttributionSection,
+    BurdenResult,
+    RunInputs,
+    ScenarioResult,
+    UncertaintySection,
+)
 from doseattr.results.run import Results
 
 #: A population share above the data range larger than this gets a warning

@@ -13,8 +13,9 @@ import hashlib
 import json
 import os
 import platform
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
-from typing import Any, Iterator, Mapping
+from typing import Any
 
 from doseattr.analysis.schema import SECTIONS, key_location
 

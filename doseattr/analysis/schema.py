@@ -14,9 +14,10 @@ import difflib
 import math
 import os
 import sys
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any
 
 from doseattr.analysis.specs import FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
 from doseattr.errors import InputError

@@ -23,12 +23,20 @@ from ``unit``, the unit the file gave the section in).
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import date
-from typing import Any, Mapping, TypeAlias
+from typing import Any, TypeAlias
 
-from doseattr.analysis.tables import (BinsTable, BurdenTable, DrawsTable, HistoriesTable,
-                                      Measurements, PointsTable, StudyTable)
+from doseattr.analysis.tables import (
+    BinsTable,
+    BurdenTable,
+    DrawsTable,
+    HistoriesTable,
+    Measurements,
+    PointsTable,
+    StudyTable,
+)
 from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import FAMILIES
 

@@ -18,13 +18,26 @@ import numpy as np
 from numpy.typing import NDArray
 
 from doseattr.analysis.burden_table import BurdenTable, read_burden
-from doseattr.analysis.csvfile import (FloatArray, RawTable, Row, cell_error, check_band_order,
-                                       near_column, number, read_raw, require_columns, shown,
-                                       below_sqrt_max)
-from doseattr.analysis.curve_tables import (DrawsTable, PointsTable, read_draws_table,
-                                            read_points_table)
-from doseattr.analysis.exposure_tables import (BinsTable, HistoriesTable, read_bins,
-                                               read_histories)
+from doseattr.analysis.csvfile import (
+    FloatArray,
+    RawTable,
+    Row,
+    below_sqrt_max,
+    cell_error,
+    check_band_order,
+    near_column,
+    number,
+    read_raw,
+    require_columns,
+    shown,
+)
+from doseattr.analysis.curve_tables import (
+    DrawsTable,
+    PointsTable,
+    read_draws_table,
+    read_points_table,
+)
+from doseattr.analysis.exposure_tables import BinsTable, HistoriesTable, read_bins, read_histories
 from doseattr.errors import InputError
 
 __all__ = ["BinsTable", "BurdenTable", "DrawsTable", "HistoriesTable", "Measurements",

@@ -21,15 +21,26 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from typing import Any, Callable, Mapping
+from collections.abc import Callable, Mapping
+from typing import Any
 
 import numpy as np
 
 from doseattr.analysis.schema import Context
-from doseattr.analysis.specs import (BinnedExposure, CurveSpec, DrawsCurve, EnteredCurve,
-                                     ExposureSpec, HistoriesExposure, MeasuredExposure,
-                                     PercentilesExposure, PointsCurve, ShapeCurve,
-                                     SummaryExposure, TableCurve)
+from doseattr.analysis.specs import (
+    BinnedExposure,
+    CurveSpec,
+    DrawsCurve,
+    EnteredCurve,
+    ExposureSpec,
+    HistoriesExposure,
+    MeasuredExposure,
+    PercentilesExposure,
+    PointsCurve,
+    ShapeCurve,
+    SummaryExposure,
+    TableCurve,
+)
 from doseattr.analysis.tables import BurdenTable
 from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import unit_parameters

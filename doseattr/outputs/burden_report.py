@@ -25,7 +25,6 @@ from doseattr.outputs.markup import (
     worded,
 )
 from doseattr.outputs.text import UNIT_PARAMETERS
-from doseattr.results.records import BurdenBlock, burden_blocks
 from doseattr.results import (
     AttributionSection,
     BurdenResult,
@@ -35,6 +34,7 @@ from doseattr.results import (
     StratumResult,
     UncertaintySection,
 )
+from doseattr.results.records import burden_blocks
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results

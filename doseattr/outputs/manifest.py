@@ -33,7 +33,7 @@ def manifest_text(folder: Path, relative: list[Path]) -> str:
 
     files = [{"path": rel.as_posix(), "size": (folder / rel).stat().st_size,
               "sha256": sha256_file(folder / rel)} for rel in relative]
-    now = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0)
+    now = _dt.datetime.now(_dt.UTC).replace(microsecond=0)
     data = {"format": FORMAT, "format_version": FORMAT_VERSION, "doseattr_version": __version__,
             "written_utc": now.isoformat().replace("+00:00", "Z"), "files": files}
     return json.dumps(data, indent=2) + "\n"

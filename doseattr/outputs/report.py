@@ -25,7 +25,6 @@ from numpy.typing import NDArray
 
 from doseattr import __version__
 from doseattr.core.attribution.categorical import CategoricalComparison
-from doseattr.results.cautions import CAUTIONS
 from doseattr.outputs.burden_report import (
     burden_section,
     cases,
@@ -36,7 +35,7 @@ from doseattr.outputs.burden_report import (
 from doseattr.outputs.css import CSS
 from doseattr.outputs.curve_report import curve_section
 from doseattr.outputs.exposure_report import exposure_section
-from doseattr.outputs.markup import (  # noqa: F401  (num, pct, NA used by callers)
+from doseattr.outputs.markup import (
     NA,
     bullets,
     definition_list,
@@ -65,6 +64,7 @@ from doseattr.results import (
     Results,
     ScenarioResult,
 )
+from doseattr.results.cautions import CAUTIONS
 
 
 # ---------------------------------------------------------------- sections
@@ -257,7 +257,7 @@ def report_date() -> _dt.date:
     (the reproducible-builds convention)."""
     epoch = os.getenv("SOURCE_DATE_EPOCH", "").strip()
     if epoch.isdigit():
-        return _dt.datetime.fromtimestamp(int(epoch), tz=_dt.timezone.utc).date()
+        return _dt.datetime.fromtimestamp(int(epoch), tz=_dt.UTC).date()
     return _dt.date.today()
 
 

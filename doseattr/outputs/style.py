@@ -9,8 +9,8 @@ functions so that importing :mod:`doseattr.outputs` does not pick a backend.
 from __future__ import annotations
 
 import io
+from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Iterator
 
 #: Okabe-Ito colours by role.
 COLORS = {
@@ -67,13 +67,13 @@ def new_axes(ax=None, size: tuple[float, float] = (8.0, 3.6)):
     if ax is not None:
         return ax
     plt = pyplot()
-    fig, ax = plt.subplots(figsize=size, layout="constrained")
+    _fig, ax = plt.subplots(figsize=size, layout="constrained")
     return ax
 
 
 def outside_legend(ax, **kwargs) -> None:
     """Legend to the right of the axes, so it never hides data."""
-    handles, labels = ax.get_legend_handles_labels()
+    handles, _labels = ax.get_legend_handles_labels()
     if handles:
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0, **kwargs)
 

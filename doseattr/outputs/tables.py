@@ -22,10 +22,18 @@ import numpy as np
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
 from doseattr.results.estimate import Estimate
-from doseattr.results.records import (AttributionSection, BurdenBlock, BurdenResult,
-                                      CurveSection,
-                                      CurveVariant, ExposureSection, StratumExposure,
-                                      StratumResult, UncertaintySection, Workers)
+from doseattr.results.records import (
+    AttributionSection,
+    BurdenBlock,
+    BurdenResult,
+    CurveSection,
+    CurveVariant,
+    ExposureSection,
+    StratumExposure,
+    StratumResult,
+    UncertaintySection,
+    Workers,
+)
 from doseattr.results.run import Results
 
 Table = tuple[list[str], list[list[Any]]]

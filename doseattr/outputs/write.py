@@ -27,14 +27,14 @@ import os
 import secrets
 import shutil
 import signal
-from contextlib import contextmanager
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager, suppress
 from pathlib import Path
-from typing import Any, Iterable, Iterator, Sequence
 
 from doseattr.errors import InputError
-from doseattr.results.run import Results
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
 from doseattr.outputs.tables import all_tables, write_csv
+from doseattr.results.run import Results
 
 FIGURE_FOLDER = "figures"
 HINT = "give a folder of its own, for example --out results"
@@ -249,7 +249,5 @@ def _make_parents(folder: Path) -> list[Path]:
 
 
 def _try_rmdir(p: Path) -> None:
-    try:
+    with suppress(OSError):
         p.rmdir()
-    except OSError:
-        pass

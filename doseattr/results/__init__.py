@@ -6,11 +6,21 @@ Imports only the numerical core.
 """
 
 from doseattr.results.estimate import Estimate
-from doseattr.results.records import (AttributionSection, BandTable, BurdenResult,
-                                      CurveSection, CurveVariant, ExposureSection,
-                                      ExposureVariant, ScenarioResult, SourceWidth,
-                                      StratumExposure, StratumResult, SubstitutionResult,
-                                      UncertaintySection)
+from doseattr.results.records import (
+                                      AttributionSection,
+                                      BandTable,
+                                      BurdenResult,
+                                      CurveSection,
+                                      CurveVariant,
+                                      ExposureSection,
+                                      ExposureVariant,
+                                      ScenarioResult,
+                                      SourceWidth,
+                                      StratumExposure,
+                                      StratumResult,
+                                      SubstitutionResult,
+                                      UncertaintySection,
+)
 from doseattr.results.run import Results
 
 __all__ = ["AttributionSection", "BandTable", "BurdenResult", "CurveSection", "CurveVariant",

@@ -20,12 +20,24 @@ from doseattr.core.exposure.base import Exposure
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import pct
-from doseattr.results.records import (AnyExposure, AttributionSection, BandTable, BurdenBlock,
-                                      BurdenResult, burden_blocks,
-                                      CurveSection, CurveVariant, ExposureSection,
-                                      ExposureVariant, RunInputs, ScenarioResult,
-                                      SourceWidth, SubstitutionResult, UncertaintySection,
-                                      Workers)
+from doseattr.results.records import (
+    AnyExposure,
+    AttributionSection,
+    BandTable,
+    BurdenBlock,
+    BurdenResult,
+    CurveSection,
+    CurveVariant,
+    ExposureSection,
+    ExposureVariant,
+    RunInputs,
+    ScenarioResult,
+    SourceWidth,
+    SubstitutionResult,
+    UncertaintySection,
+    Workers,
+    burden_blocks,
+)
 
 
 @dataclass(frozen=True, eq=False)

@@ -17,11 +17,23 @@ from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import json_safe, matrix, num, nums, params
-from doseattr.results.records import (AttributionSection, BandTable, BurdenResult,
-                                      CurveSection, CurveVariant, ExposureSection,
-                                      ExposureVariant, FamilyFit, GoodnessOfFit, SourceWidth,
-                                      StratumExposure, StratumResult, SubstitutionResult,
-                                      UncertaintySection, Workers)
+from doseattr.results.records import (
+    AttributionSection,
+    BandTable,
+    BurdenResult,
+    CurveSection,
+    CurveVariant,
+    ExposureSection,
+    ExposureVariant,
+    FamilyFit,
+    GoodnessOfFit,
+    SourceWidth,
+    StratumExposure,
+    StratumResult,
+    SubstitutionResult,
+    UncertaintySection,
+    Workers,
+)
 
 if TYPE_CHECKING:
     from doseattr.results.run import Results

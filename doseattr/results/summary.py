@@ -5,7 +5,8 @@ aligned tables."""
 from __future__ import annotations
 
 import textwrap
-from typing import TYPE_CHECKING, Sequence
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -17,7 +18,7 @@ if TYPE_CHECKING:  # pragma: no cover
 WIDTH = 78
 
 
-def render(r: "Results", brief: bool = False) -> str:
+def render(r: Results, brief: bool = False) -> str:
     """The summary text; ``brief`` keeps only the PAF and scenario lines."""
     unit = r.unit
     lines = [r.title or "doseattr results", f"unit: {unit}", ""]
@@ -40,7 +41,7 @@ def render(r: "Results", brief: bool = False) -> str:
     return "\n".join(lines)
 
 
-def _curve(r: "Results") -> list[str]:
+def _curve(r: Results) -> list[str]:
     c = r.curve
     se = np.sqrt(np.maximum(np.diag(c.cov), 0.0))
     out = [f"Curve: {c.model.name} ({c.model.describe()}), {c.source}"]
@@ -59,7 +60,7 @@ def _curve(r: "Results") -> list[str]:
     return out
 
 
-def _exposure(r: "Results") -> list[str]:
+def _exposure(r: Results) -> list[str]:
     ex = r.exposure
     if r.is_empirical:
         n = 0 if ex.fit is None else ex.fit.n
@@ -77,7 +78,7 @@ def _exposure(r: "Results") -> list[str]:
     return out
 
 
-def _substitution(r: "Results") -> list[str]:
+def _substitution(r: Results) -> list[str]:
     """Substitution of non-detects, compared with the censored fit."""
     if not r.substitution:
         return []
@@ -91,7 +92,7 @@ def _substitution(r: "Results") -> list[str]:
                                         "difference (points)"], rows)
 
 
-def _categorical(r: "Results") -> list[str]:
+def _categorical(r: Results) -> list[str]:
     cat = r.categorical
     edges = np.concatenate([[0.0], cat.cutpoints])
     labels = [f"{a:g}-{b:g}" for a, b in zip(edges[:-1], cat.cutpoints)]
@@ -106,7 +107,7 @@ def _categorical(r: "Results") -> list[str]:
     return out
 
 
-def _burden(r: "Results") -> list[str]:
+def _burden(r: Results) -> list[str]:
     """Attributable cases by stratum, with the exposure each stratum used."""
     b = r.burden
     if b is None:
@@ -130,7 +131,7 @@ def _stratum_exposure(e: StratumExposure | None) -> str:
     return "own: " + ", ".join(f"{k} {v:.4g}" for k, v in given.items())
 
 
-def _variants(r: "Results") -> list[str]:
+def _variants(r: Results) -> list[str]:
     """PAF under other models, dose rules and exposure descriptions."""
     out = []
     for title, rows in (("PAF by curve model", r.model_comparison),
@@ -150,7 +151,7 @@ def _variants(r: "Results") -> list[str]:
     return out
 
 
-def _widths(r: "Results") -> list[str]:
+def _widths(r: Results) -> list[str]:
     """The overall PAF's 95% interval with one source varying at a time."""
     if not r.width_by_source:
         return []

@@ -31,9 +31,10 @@ fixed-rule quadrature that is vectorised over per-draw panel limits.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Callable, cast
+from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray

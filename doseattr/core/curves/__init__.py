@@ -7,10 +7,13 @@ module of the same name; import it from
 """
 
 from doseattr.core.curves.base import Curve, CurveFit, CurveModel, Growth
-from doseattr.core.curves.covariance import (LogRRCovariance, greenland_longnecker,
-                                             independent_covariance, var_log_rr_from_ci)
-from doseattr.core.curves.doses import (BandDoses, assign_doses, band_mean_doses,
-                                        distribution_doses)
+from doseattr.core.curves.covariance import (
+                                             LogRRCovariance,
+                                             greenland_longnecker,
+                                             independent_covariance,
+                                             var_log_rr_from_ci,
+)
+from doseattr.core.curves.doses import BandDoses, assign_doses, band_mean_doses, distribution_doses
 from doseattr.core.curves.fit import fit_curve
 from doseattr.core.curves.points import curve_from_draws, points_curve
 from doseattr.core.curves.published import entered_curve, published_curve
@@ -18,10 +21,26 @@ from doseattr.core.curves.registry import MODELS, make_model, model_names
 from doseattr.core.curves.spline import default_knots, nonlinearity_test
 
 __all__ = [
-    "BandDoses", "Curve", "CurveFit", "CurveModel", "Growth", "LogRRCovariance", "MODELS",
-    "assign_doses", "band_mean_doses", "curve_from_draws", "default_knots",
-    "distribution_doses", "entered_curve", "fit_curve",
-    "greenland_longnecker", "independent_covariance", "make_model", "model_names",
-    "nonlinearity_test",
-    "points_curve", "published_curve", "var_log_rr_from_ci",
+                                             "MODELS",
+                                             "BandDoses",
+                                             "Curve",
+                                             "CurveFit",
+                                             "CurveModel",
+                                             "Growth",
+                                             "LogRRCovariance",
+                                             "assign_doses",
+                                             "band_mean_doses",
+                                             "curve_from_draws",
+                                             "default_knots",
+                                             "distribution_doses",
+                                             "entered_curve",
+                                             "fit_curve",
+                                             "greenland_longnecker",
+                                             "independent_covariance",
+                                             "make_model",
+                                             "model_names",
+                                             "nonlinearity_test",
+                                             "points_curve",
+                                             "published_curve",
+                                             "var_log_rr_from_ci",
 ]

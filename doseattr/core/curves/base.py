@@ -45,7 +45,7 @@ class Growth:
     rate: FloatArray
 
     @staticmethod
-    def bounded() -> "Growth":
+    def bounded() -> Growth:
         return Growth("bounded", np.zeros(()))
 
 

@@ -20,8 +20,9 @@ open-ended top band (``upper = inf``)
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable, Literal, cast
+from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike

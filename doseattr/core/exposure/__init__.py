@@ -19,15 +19,43 @@ from doseattr.core.exposure.histories import WorkerExposure, cumulative_exposure
 from doseattr.core.exposure.lognormal import LogNormal
 from doseattr.core.exposure.nondetects import ros_plotting_positions, substitute_nondetects
 from doseattr.core.exposure.registry import FAMILIES, dose_parameters, family_names, get_family
-from doseattr.core.exposure.summary import fit_bins, from_gm_gsd, from_mean_sd, from_parameters, from_percentiles
+from doseattr.core.exposure.summary import (
+    fit_bins,
+    from_gm_gsd,
+    from_mean_sd,
+    from_parameters,
+    from_percentiles,
+)
 from doseattr.core.exposure.unexposed import estimate_unexposed, unexposed_from_count
 from doseattr.core.exposure.weibull import Weibull
 
 __all__ = [
-    "Exposure", "ExposureFit", "Family", "FAMILIES", "get_family", "family_names", "dose_parameters",
-    "LogNormal", "Gamma", "Weibull",
-    "fit_measurements", "fit_best", "from_parameters", "from_gm_gsd", "from_mean_sd",
-    "from_percentiles", "fit_bins", "goodness_of_fit", "qq_points", "ros_plotting_positions",
-    "substitute_nondetects", "EmpiricalExposure", "empirical", "estimate_unexposed",
-    "unexposed_from_count", "WorkerExposure", "cumulative_exposure", "twa_8h",
+    "FAMILIES",
+    "EmpiricalExposure",
+    "Exposure",
+    "ExposureFit",
+    "Family",
+    "Gamma",
+    "LogNormal",
+    "Weibull",
+    "WorkerExposure",
+    "cumulative_exposure",
+    "dose_parameters",
+    "empirical",
+    "estimate_unexposed",
+    "family_names",
+    "fit_best",
+    "fit_bins",
+    "fit_measurements",
+    "from_gm_gsd",
+    "from_mean_sd",
+    "from_parameters",
+    "from_percentiles",
+    "get_family",
+    "goodness_of_fit",
+    "qq_points",
+    "ros_plotting_positions",
+    "substitute_nondetects",
+    "twa_8h",
+    "unexposed_from_count",
 ]

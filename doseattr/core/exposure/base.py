@@ -15,13 +15,13 @@ broadcasts against ``t`` or ``x`` of shape ``(N,)`` or ``(D, N)``.
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
-from dataclasses import dataclass, field
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import Any, ClassVar, TypeAlias, cast
 
 import numpy as np
-from scipy.special import polygamma
 from numpy.typing import ArrayLike, NDArray
+from scipy.special import polygamma
 
 from doseattr.core.curves.base import Growth
 from doseattr.errors import ModelError
@@ -49,7 +49,7 @@ def log1p_square(x: float) -> float:
 MIN_RELATIVE_LOG_SPREAD = 1e-6
 
 
-def check_usable(fam: "Family", params: FloatArray,
+def check_usable(fam: Family, params: FloatArray,
                  hint: str = "give a smaller spread or a smaller scale") -> None:
     r"""Refuse parameters the numerics cannot carry: a mean beyond the float
     range (about 1.8e308), or a spread of ``ln X`` too narrow to resolve in

@@ -23,11 +23,13 @@ from scipy import stats
 from scipy.special import gammainc, gammaincc, gammaincinv, gammaln
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import PositiveFamily, FloatArray, pcol
-from doseattr.core.exposure.incomplete_gamma import (log_gamma_break_quantiles, log_gammainc,
-                                                     log_gammaincc)
+from doseattr.core.exposure.base import FloatArray, PositiveFamily, pcol
+from doseattr.core.exposure.incomplete_gamma import (
+    log_gamma_break_quantiles,
+    log_gammainc,
+    log_gammaincc,
+)
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
-
 
 _HALF_LOG_2PI = 0.5 * np.log(2 * np.pi)
 

@@ -25,7 +25,7 @@ from scipy import stats
 from scipy.special import log_ndtr, ndtr, ndtri
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import log1p_square, Z_BREAKS, Family, FloatArray, pcol
+from doseattr.core.exposure.base import Z_BREAKS, Family, FloatArray, log1p_square, pcol
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
 from doseattr.errors import ModelError
 

@@ -9,8 +9,9 @@ is the asymptotic covariance of the internal parameters.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable, cast
+from typing import cast
 
 import numpy as np
 from scipy.optimize import minimize

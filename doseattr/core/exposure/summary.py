@@ -14,7 +14,7 @@ r"""Exposure distributions from published summaries.
 
 from __future__ import annotations
 
-from typing import Mapping
+from collections.abc import Mapping
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -180,7 +180,7 @@ def fit_bins(family: str | Family, lower: ArrayLike, upper: ArrayLike, counts: A
     shares = total is None and n.sum() <= 1 + 1e-9
     warns = ("shares without a total number of people: no standard errors; give the total",) if shares else ()
     fit = ExposureFit(method="grouped maximum likelihood", loglik=best.loglik,
-                      aic=2 * len(fam.param_names) - 2 * best.loglik, n=0 if shares else int(round(n.sum())),
+                      aic=2 * len(fam.param_names) - 2 * best.loglik, n=0 if shares else round(n.sum()),
                       values=lo, upper=hi, weights=n, cov_internal=None if shares else best.cov,
                       warnings=warns + best.warnings)
     params = fam.from_internal(best.theta)

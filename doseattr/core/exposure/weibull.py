@@ -25,7 +25,7 @@ from scipy.optimize import brentq
 from scipy.special import gammaln
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import log1p_square, Z_BREAKS, PositiveFamily, FloatArray, pcol
+from doseattr.core.exposure.base import Z_BREAKS, FloatArray, PositiveFamily, log1p_square, pcol
 from doseattr.core.exposure.gamma import gamma_between
 from doseattr.core.exposure.incomplete_gamma import LOWER_P, UPPER_Q, log_gamma_break_quantiles
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse

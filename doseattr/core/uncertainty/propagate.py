@@ -19,21 +19,31 @@ integrated once.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Callable, Sequence, cast
+from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
 
-from doseattr.core.attribution.fractions import (empirical_excess_draws, excess_draws,
-                                                 paf_from_excess, pif_from_excess)
+from doseattr.core.attribution.fractions import (
+    empirical_excess_draws,
+    excess_draws,
+    paf_from_excess,
+    pif_from_excess,
+)
 from doseattr.core.attribution.scenarios import Scenario
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
 from doseattr.core.exposure.empirical import EmpiricalExposure
-from doseattr.core.uncertainty.sampling import (ExposureDraws, case_draws, curve_draws,
-                                                exposure_draws, fixed_exposure,
-                                                minimum_risk_draws)
+from doseattr.core.uncertainty.sampling import (
+    ExposureDraws,
+    case_draws,
+    curve_draws,
+    exposure_draws,
+    fixed_exposure,
+    minimum_risk_draws,
+)
 
 FloatArray = NDArray[np.float64]
 AnyExposure = Exposure | EmpiricalExposure
