@@ -25,6 +25,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.core.curves.registry import MODELS, model_names
 from doseattr.core.exposure import fit_best
 from doseattr.core.exposure.registry import FAMILIES, dose_parameters, family_names
@@ -167,3 +168,39 @@ def test_fit_best_tries_every_registered_family():
     e = fit_best(x)
     tried = {e.family.name} | {fam.name for fam, _, _ in e.alternatives}
     assert tried == set(family_names())
+
+
+# -- scenario types ---------------------------------------------------------------
+@pytest.mark.parametrize("kind", list(SCENARIO_KINDS))
+def test_every_scenario_type_is_tested_and_accepted(kind):
+    """A registered scenario type has tests (``tests/test_attribution_*.py``
+    naming its class or kind) and is a key of ``[[scenario]]`` (the schema
+    reads the registry)."""
+    from doseattr.analysis.schema import SECTIONS
+
+    cls = SCENARIO_KINDS[kind]
+    assert cls.kind == kind
+    assert _modules_naming("test_attribution_", cls.__name__, kind), kind
+    assert kind in SECTIONS["scenario"]
+
+
+@pytest.mark.parametrize("kind, good, bad", [
+    ("cap", 15.0, 0.0), ("scale", 0.8, 1.5), ("reduce_by", 2.0, -1.0)])
+def test_scenario_values_are_checked_where_declared(tmp_path, kind, good, bad):
+    """Each type's own rule (common practice: a cap and a reduction are
+    positive amounts, a scale factor lies in (0, 1]) refuses the bad value
+    with one line naming the scenario's key, and accepts the good one."""
+    from doseattr.analysis.config import analysis_from_dict
+    from doseattr.errors import InputError
+
+    def analysis(value):
+        return analysis_from_dict({
+            "unit": "ug/m3", "curve": {"model": "linear", "err": 0.01},
+            "exposure": {"gm": 8.0, "gsd": 2.0},
+            "scenario": [{"name": "s", kind: value}]}, base_dir=tmp_path)
+
+    assert analysis(good).scenarios[0].kind == kind
+    with pytest.raises(InputError, match=rf"key '{kind}'"):
+        analysis(bad)
+    assert SCENARIO_KINDS[kind].value_problem(good) is None
+    assert SCENARIO_KINDS[kind].value_problem(bad) is not None

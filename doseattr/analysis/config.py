@@ -67,6 +67,7 @@ from doseattr.analysis.units_section import (
     convert_exposure,
     read_units,
 )
+from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.errors import InputError
 
 __all__ = ["Analysis", "AttributionSpec", "BurdenSpec", "CurveSpec", "ExposureSpec",
@@ -231,26 +232,21 @@ def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec
         if "name" not in block:
             raise ctx.error("missing key 'name' (a short label for the scenario)", "scenario",
                             "name", i)
-        kinds = [k for k in ("cap", "scale", "reduce_by") if k in block]
+        kinds = [k for k in SCENARIO_KINDS if k in block]
         if len(kinds) != 1:
             found = f"found {' and '.join(kinds)}" if kinds else "found none"
-            raise ctx.error(f"give exactly one of cap, scale or reduce_by ({found})",
-                            "scenario", kinds[1] if len(kinds) > 1 else "cap", i)
+            *first, last = SCENARIO_KINDS
+            raise ctx.error(f"give exactly one of {', '.join(first)} or {last} ({found})",
+                            "scenario", kinds[1] if len(kinds) > 1 else first[0], i)
         kind, name = kinds[0], block["name"].strip()
         if name in names:
             raise ctx.error(f"scenario name '{name}' is used twice (also in [[scenario]] "
                             f"{names[name] + 1})", "scenario", "name", i)
         names[name] = i
         value = float(block[kind])
-        if kind == "scale" and not 0 < value <= 1:
-            raise ctx.error(f"scale multiplies everyone's exposure and must be in (0, 1] (0.8 "
-                            f"is a 20% cut), got {value:g}", "scenario", "scale", i)
-        if kind == "cap" and value <= 0:
-            raise ctx.error(f"cap is a limit value and must be above 0, got {value:g}",
-                            "scenario", "cap", i)
-        if kind == "reduce_by" and value <= 0:
-            raise ctx.error(f"reduce_by is an amount of exposure removed and must be above 0, "
-                            f"got {value:g}", "scenario", "reduce_by", i)
+        problem = SCENARIO_KINDS[kind].value_problem(value)
+        if problem is not None:
+            raise ctx.error(problem, "scenario", kind, i)
         out.append(ScenarioSpec(name=name, kind=kind, value=value, index=i))
     return tuple(out)
 

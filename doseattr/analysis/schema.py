@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from doseattr.analysis.specs import FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
+from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.errors import InputError
 
 #: Models ``[curve] model`` takes: those of the core registry that can be
@@ -112,9 +113,7 @@ SECTIONS: dict[str, dict[str, Key]] = {
     },
     "scenario": {
         "name": Key("text"),
-        "cap": Key("number"),
-        "scale": Key("number"),
-        "reduce_by": Key("number"),
+        **{kind: Key("number") for kind in SCENARIO_KINDS},
     },
     "uncertainty": {
         "draws": Key("integer"),

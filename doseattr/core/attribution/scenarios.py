@@ -27,6 +27,12 @@ class Scenario:
     name: str = ""
     kind: ClassVar[str] = "scenario"
 
+    @classmethod
+    def value_problem(cls, value: float) -> str | None:
+        """Why ``value`` cannot be this scenario's setting (``None``: it can);
+        the analysis layer shows it against the scenario's key."""
+        return None
+
     def apply(self, x: FloatArray, minimum_risk: ArrayLike) -> FloatArray:
         """Counterfactual exposure g(x)."""
         raise NotImplementedError
@@ -52,6 +58,10 @@ class Cap(Scenario):
     """Exposure capped at a limit value: g(x) = min(x, L)."""
 
     kind: ClassVar[str] = "cap"
+
+    @classmethod
+    def value_problem(cls, value: float) -> str | None:
+        return None if value > 0 else f"cap is a limit value and must be above 0, got {value:g}"
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.value) and self.value >= 0):
@@ -79,6 +89,13 @@ class Scale(Scenario):
 
     kind: ClassVar[str] = "scale"
 
+    @classmethod
+    def value_problem(cls, value: float) -> str | None:
+        if 0 < value <= 1:
+            return None
+        return (f"scale multiplies everyone's exposure and must be in (0, 1] (0.8 is a 20% cut), "
+                f"got {value:g}")
+
     def __post_init__(self) -> None:
         if not (0 < self.value <= 1):
             raise ModelError(f"scale must be in (0, 1], got {self.value}")
@@ -105,6 +122,12 @@ class ReduceBy(Scenario):
     which carries no excess risk)."""
 
     kind: ClassVar[str] = "reduce_by"
+
+    @classmethod
+    def value_problem(cls, value: float) -> str | None:
+        if value > 0:
+            return None
+        return f"reduce_by is an amount of exposure removed and must be above 0, got {value:g}"
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.value) and self.value >= 0):
