@@ -117,7 +117,7 @@ def prepare_all(analysis: Analysis) -> PreparedAll:
         with outcome_location(i, outcome.name):
             runs.append((outcome.name, prepare(sub, built_exposure=shared)))
     top = None
-    if "curve" in (analysis.settings or {}):
+    if analysis.own_curve:
         top = prepare(dataclasses.replace(analysis, outcomes=()), built_exposure=shared)
     return PreparedAll(top, tuple(runs))
 

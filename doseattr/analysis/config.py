@@ -153,7 +153,8 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     return Analysis(unit=data["unit"].strip(), curve=curve, exposure=exposure,
                     attribution=attribution, scenarios=scenarios, title=data.get("title"),
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
-                    base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight)
+                    base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight,
+                    own_curve="curve" in data)
 
 
 def _curve(c: dict[str, Any], ctx: Context, units: Units) -> CurveSpec:

@@ -317,7 +317,8 @@ class Analysis:
 
     ``source`` is the analysis file as given (``None`` for a dictionary);
     ``base_dir`` the folder its paths are relative to; ``settings`` the
-    parsed TOML as read.
+    parsed TOML as read (for provenance only: what was hashed and which
+    tables it names; every other reader uses the checked specs).
     """
 
     unit: str
@@ -333,6 +334,9 @@ class Analysis:
     base_dir: str = "."
     settings: Mapping[str, Any] | None = None
     molecular_weight: float | None = None
+    #: False when the file has no [curve] of its own and ``curve`` is the
+    #: first outcome's (its results then stand for the top level).
+    own_curve: bool = True
 
     @property
     def notes(self) -> tuple[str, ...]:
