@@ -84,7 +84,7 @@ def interval(estimate: float, draws: np.ndarray, what: str) -> Estimate:
     from doseattr.core.uncertainty.summary import summarise
 
     i = summarise(estimate, checked(draws, what))
-    return Estimate(i.estimate, i.lower, i.upper, i.mcse)
+    return Estimate(i.estimate, i.lower, i.upper, i.mcse, i.lower_mcse, i.upper_mcse)
 
 
 def limits(estimate: Estimate) -> tuple[float, float]:

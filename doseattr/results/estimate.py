@@ -14,14 +14,17 @@ class Estimate:
 
     ``estimate`` is the value at the point estimates of every input;
     ``lower``/``upper`` are the 2.5th and 97.5th percentiles of the Monte
-    Carlo draws and ``mcse`` the Monte Carlo standard error of the draws'
-    mean; all three stay ``None`` until uncertainty is propagated.
+    Carlo draws, ``mcse`` the Monte Carlo standard error of the draws'
+    mean and ``lower_mcse``/``upper_mcse`` those of the two limits; all
+    stay ``None`` until uncertainty is propagated.
     """
 
     estimate: float
     lower: float | None = None
     upper: float | None = None
     mcse: float | None = None
+    lower_mcse: float | None = None
+    upper_mcse: float | None = None
 
     @property
     def has_interval(self) -> bool:

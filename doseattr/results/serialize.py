@@ -1,7 +1,8 @@
 """``results.json``: generated here, and only here, from the run's records.
 
 Schema version "2.0" (published as ``results.schema.json`` in this
-package). Every estimate is one object ``{estimate, lower, upper, mcse}``;
+package). Every estimate is one object ``{estimate, lower, upper, mcse,
+lower_mcse, upper_mcse}``;
 every number is a plain float or ``None``; a NaN or infinity reaching this
 module is a bug and is refused (:func:`~doseattr.results.numbers.num`).
 """
@@ -81,7 +82,8 @@ def results_dict(r: Results) -> dict[str, Any]:
 
 def estimate_dict(e: Estimate) -> dict[str, float | None]:
     return {"estimate": num(e.estimate), "lower": num(e.lower), "upper": num(e.upper),
-            "mcse": num(e.mcse)}
+            "mcse": num(e.mcse), "lower_mcse": num(e.lower_mcse),
+            "upper_mcse": num(e.upper_mcse)}
 
 
 def attribution_dict(a: AttributionSection, burden: BurdenResult | None) -> dict[str, Any]:
