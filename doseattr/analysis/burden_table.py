@@ -19,6 +19,7 @@ from doseattr.analysis.csvfile import (
     read_raw,
     require_columns,
 )
+from doseattr.core.exposure.registry import lower_bound
 from doseattr.errors import InputError
 
 #: Per-stratum exposure columns that may override the shared exposure.
@@ -100,12 +101,11 @@ def _stratum_exposure(raw: RawTable, row: Row, pairs) -> dict[str, float] | None
             raise cell_error(raw, row, col, f"incomplete exposure: {other} is given but {col} is "
                         "empty (fill both, or leave both empty to use the shared exposure)")
     va, vb = number(raw, row, a), number(raw, row, b)
-    if va <= 0:
-        raise cell_error(raw, row, a, f"{a} must be above 0, got {va:g}")
-    if b == "gsd" and vb <= 1:
-        raise cell_error(raw, row, b, f"GSD must be greater than 1, got {vb:g}")
-    if vb <= 0:
-        raise cell_error(raw, row, b, f"{b} must be above 0, got {vb:g}")
+    for col, v in ((a, va), (b, vb)):
+        low = lower_bound(col)
+        if v <= low:
+            what = "GSD must be greater than" if col == "gsd" else f"{col} must be above"
+            raise cell_error(raw, row, col, f"{what} {low:g}, got {v:g}")
     return {a: va, b: vb}
 
 

@@ -229,18 +229,20 @@ def _either(names: tuple[str, ...]) -> str:
 
 
 def _check_summary(values: dict[str, float], ctx: Context) -> None:
+    from doseattr.core.exposure.registry import lower_bound
+
     for key, v in values.items():
+        low = lower_bound(key)  # the families' declared bounds
+        if v > low:
+            continue
         if key == "gsd":
-            if v <= 1:
-                raise ctx.error(f"GSD must be greater than 1 (a GSD of 1 means no spread), got "
-                                f"{v:g}", "exposure", "gsd")
-        elif key in ("gm", "mean"):
-            if v <= 0:
-                what = "negative exposure" if v < 0 else "zero"
-                raise ctx.error(f"{key} must be greater than 0, got {v:g} ({what})",
-                                "exposure", key)
-        elif v <= 0:
-            raise ctx.error(f"{key} must be greater than 0, got {v:g}", "exposure", key)
+            raise ctx.error(f"GSD must be greater than {low:g} (a GSD of 1 means no spread), "
+                            f"got {v:g}", "exposure", "gsd")
+        if key in ("gm", "mean"):
+            what = "negative exposure" if v < 0 else "zero"
+            raise ctx.error(f"{key} must be greater than {low:g}, got {v:g} ({what})",
+                            "exposure", key)
+        raise ctx.error(f"{key} must be greater than {low:g}, got {v:g}", "exposure", key)
 
 
 def require_cumulative_unit(unit: str, ctx: Context) -> None:

@@ -35,6 +35,15 @@ def unit_parameters() -> frozenset[str]:
     return frozenset(names | set(SUMMARY_STATISTICS_IN_UNIT))
 
 
+def lower_bound(parameter: str) -> float:
+    """The open lower bound of a parameter or summary statistic: the one
+    every registered family that has it declares (0 for the mean and SD)."""
+    lows = {fam.bounds[parameter][0] for fam in FAMILIES.values() if parameter in fam.bounds}
+    if len(lows) > 1:
+        raise ModelError(f"families disagree on the lower bound of {parameter!r}: {sorted(lows)}")
+    return lows.pop() if lows else 0.0
+
+
 def get_family(family: str | Family) -> Family:
     """The family called ``family`` (a Family instance is returned as is)."""
     if isinstance(family, Family):
