@@ -87,6 +87,33 @@ table = "strata.csv"
 """
 
 
+OUTCOMES = """\
+unit = "ug/m3"
+[exposure]
+gm = 9.0
+gsd = 2.0
+[uncertainty]
+draws = 200
+[[outcome]]
+name = "A"
+[outcome.curve]
+model = "linear"
+err = 0.03
+ci = [0.01, 0.05]
+[outcome.burden]
+table = "strata.csv"
+[[outcome]]
+name = "B"
+[outcome.curve]
+model = "log-linear"
+rr = 1.1
+per = 10
+max_dose = 50
+[outcome.burden]
+table = "strata.csv"
+"""
+
+
 def _results(tmp_path: Path, text: str, cli: bool = True) -> tuple[dict, Path]:
     """results.json as written by the command line (``cli``), or the same
     dictionary through a JSON round trip (quicker: no report)."""
@@ -214,31 +241,7 @@ def test_histories_keys_and_workers_csv(tmp_path):
 
 
 def test_outcomes_hold_the_same_keys(tmp_path):
-    text = """\
-    unit = "ug/m3"
-    [exposure]
-    gm = 9.0
-    gsd = 2.0
-    [uncertainty]
-    draws = 200
-    [[outcome]]
-    name = "A"
-    [outcome.curve]
-    model = "linear"
-    err = 0.03
-    ci = [0.01, 0.05]
-    [outcome.burden]
-    table = "strata.csv"
-    [[outcome]]
-    name = "B"
-    [outcome.curve]
-    model = "log-linear"
-    rr = 1.1
-    per = 10
-    max_dose = 50
-    [outcome.burden]
-    table = "strata.csv"
-    """
+    text = OUTCOMES
     d, _ = _results(tmp_path, text)
     assert [o["name"] for o in d["outcomes"]] == ["A", "B"]
     for o in d["outcomes"]:

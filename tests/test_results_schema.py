@@ -16,6 +16,7 @@ from pathlib import Path
 import pytest
 from schema_check import problems
 from test_analysis_contract import FULL, _results
+from test_analysis_contract import OUTCOMES as CONTRACT_OUTCOMES
 
 from doseattr.analysis.config import load_analysis
 from doseattr.analysis.pipeline import run_analysis
@@ -23,29 +24,8 @@ from doseattr.results.schema import results_schema
 from doseattr.results.serialize import SCHEMA_VERSION
 
 DEMO = Path(__file__).resolve().parent.parent / "data_demo" / "analysis.toml"
-OUTCOMES = """\
-unit = "ug/m3"
-[exposure]
-gm = 9.0
-gsd = 2.0
-[uncertainty]
-draws = 200
-[[outcome]]
-name = "A"
-[outcome.curve]
-model = "linear"
-err = 0.03
-ci = [0.01, 0.05]
-[outcome.burden]
-table = "strata.csv"
-[[outcome]]
-name = "B"
-[outcome.curve]
-model = "log-linear"
-rr = 1.1
-per = 10
-max_dose = 50
-"""
+# Two outcomes, the second without a burden table of its own.
+OUTCOMES = CONTRACT_OUTCOMES.rsplit("[outcome.burden]", 1)[0]
 HISTORIES = ('unit = "mg/m3-years"\n[curve]\nmodel = "linear"\nerr = 0.02\n'
              '[exposure]\nhistories = "h.csv"\nas_of = "2020-01-01"\nlag_years = 5\n')
 
