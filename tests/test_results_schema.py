@@ -87,6 +87,13 @@ def test_stratum_exposure_is_shown(demo):
     assert "exposure" not in demo["burden"]["total"]
 
 
+def test_schema_1_keys_are_kept(demo):
+    """``paf_interval``, named by earlier issues beside a plain-number
+    ``paf``, stays: the same estimate object as ``paf`` now is."""
+    for row in demo["burden"]["strata"] + [demo["burden"]["total"]]:
+        assert row["paf_interval"] == row["paf"] and isinstance(row["paf"], dict)
+
+
 def test_summary_shows_the_stratum_exposure():
     """summary.txt lists each stratum with 'own: gm 18.5, gsd 2.1' for the
     demo's Quarryside (its row of data_demo/districts.csv) and 'shared' for

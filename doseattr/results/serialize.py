@@ -251,7 +251,11 @@ def stratum_exposure_dict(e: StratumExposure | None) -> dict[str, Any] | None:
 
 def stratum_dict(s: StratumResult) -> dict[str, Any]:
     return {"stratum": s.stratum, "cases": num(s.cases), "population": num(s.population),
-            "paf": estimate_dict(s.paf), "attributable": estimate_dict(s.attributable),
+            "paf": estimate_dict(s.paf),
+            # schema 1.0 had the interval here beside a plain-number paf; kept
+            # (the same object as paf) for readers of the keys earlier issues named
+            "paf_interval": estimate_dict(s.paf),
+            "attributable": estimate_dict(s.attributable),
             "exposure": stratum_exposure_dict(s.exposure),
             "scenarios": [{"name": e.name, "pif": estimate_dict(e.pif),
                            "averted": estimate_dict(e.averted)} for e in s.scenarios]}
