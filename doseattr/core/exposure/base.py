@@ -21,7 +21,6 @@ from typing import Any, ClassVar, TypeAlias, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy.special import polygamma
 
 from doseattr.core.curves.base import Growth
 from doseattr.errors import ModelError
@@ -63,23 +62,9 @@ def check_usable(fam: Family, params: FloatArray,
         shown = ", ".join(f"{n} {v:.6g}" for n, v in zip(fam.param_names, params))
         raise ModelError(f"{fam.name} with {shown} has a mean beyond the float range (about "
                          f"1.8e308); {hint}")
-    if fam.name == "lognormal":
-        gm, gsd = (float(v) for v in params)
-        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(gm))
-        if np.log(gsd) < need:
-            raise ModelError(f"gsd {gsd!r} is too close to 1 for gm {gm:g}: a log-scale spread "
-                             f"below 1e-6 x |ln gm| cannot be resolved in double precision; give "
-                             f"gsd >= {np.exp(need) * (1 + 1e-12):.10g}")
-    elif fam.name in ("gamma", "weibull"):
-        k = float(params[0])
-        spread = (float(np.sqrt(polygamma(1, k))) if fam.name == "gamma"
-                  else float(np.pi / (k * np.sqrt(6.0))))
-        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(mean))
-        if spread < need:
-            raise ModelError(f"{fam.name} with shape {k:.6g} is too narrow for its mean "
-                             f"{mean:.6g}: the SD of ln X, {spread:.3g}, is below 1e-6 x "
-                             f"|ln mean| = {need:.3g}, which double precision cannot resolve; "
-                             "give a larger spread (a smaller shape, a larger sd)")
+    problem = fam.narrow_spread_problem(params, mean)
+    if problem is not None:
+        raise ModelError(problem)
 
 
 def pcol(params: ArrayLike, j: int) -> FloatArray:
@@ -157,6 +142,23 @@ class Family(ABC):
 
     @abstractmethod
     def mean(self, params: ArrayLike) -> FloatArray: ...
+
+    @abstractmethod
+    def log_sd(self, params: ArrayLike) -> float:
+        """Standard deviation of ln X (one parameter vector)."""
+
+    def narrow_spread_problem(self, params: ArrayLike, mean: float) -> str | None:
+        """Why the spread of ln X is too narrow for double precision
+        (below :data:`MIN_RELATIVE_LOG_SPREAD` x |ln mean|), or ``None``."""
+        p = np.asarray(params, dtype=float)
+        spread = self.log_sd(p)
+        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(mean))
+        if spread >= need:
+            return None
+        return (f"{self.name} with {self.param_names[0]} {float(p[0]):.6g} is too narrow for its "
+                f"mean {mean:.6g}: the SD of ln X, {spread:.3g}, is below 1e-6 x |ln mean| = "
+                f"{need:.3g}, which double precision cannot resolve; give a larger spread (a "
+                f"smaller {self.param_names[0]}, a larger sd)")
 
     @abstractmethod
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:

@@ -20,7 +20,7 @@ from typing import Any, cast
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
-from scipy.special import gammainc, gammaincc, gammaincinv, gammaln
+from scipy.special import gammainc, gammaincc, gammaincinv, gammaln, polygamma
 
 from doseattr.core.curves.base import Growth
 from doseattr.core.exposure.base import FloatArray, PositiveFamily, pcol
@@ -108,6 +108,10 @@ class Gamma(PositiveFamily):
     def mean(self, params: ArrayLike) -> FloatArray:
         p = np.asarray(params, dtype=float)
         return cast(FloatArray, p[..., 0] * p[..., 1])
+
+    def log_sd(self, params: ArrayLike) -> float:
+        r""":math:`\sqrt{\psi_1(k)}` (Johnson, Kotz & Balakrishnan 1994, from memory)."""
+        return float(np.sqrt(polygamma(1, float(np.asarray(params, dtype=float)[0]))))
 
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         k, theta = pcol(params, 0), pcol(params, 1)

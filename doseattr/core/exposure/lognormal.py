@@ -25,7 +25,14 @@ from scipy import stats
 from scipy.special import log_ndtr, ndtr, ndtri
 
 from doseattr.core.curves.base import Growth
-from doseattr.core.exposure.base import Z_BREAKS, Family, FloatArray, log1p_square, pcol
+from doseattr.core.exposure.base import (
+    MIN_RELATIVE_LOG_SPREAD,
+    Z_BREAKS,
+    Family,
+    FloatArray,
+    log1p_square,
+    pcol,
+)
 from doseattr.core.exposure.tilt import merge, positive_rate, refuse
 from doseattr.errors import ModelError
 
@@ -105,6 +112,20 @@ class LogNormal(Family):
         p = np.asarray(params, dtype=float)
         s = np.log(p[..., 1])
         return cast(FloatArray, p[..., 0] * np.exp(0.5 * s * s))
+
+    def log_sd(self, params: ArrayLike) -> float:
+        """ln GSD."""
+        return float(np.log(np.asarray(params, dtype=float)[1]))
+
+    def narrow_spread_problem(self, params: ArrayLike, mean: float) -> str | None:
+        """The lognormal compares ln GSD with |ln GM| and names the GSD needed."""
+        gm, gsd = (float(v) for v in np.asarray(params, dtype=float))
+        need = MIN_RELATIVE_LOG_SPREAD * abs(np.log(gm))
+        if np.log(gsd) >= need:
+            return None
+        return (f"gsd {gsd!r} is too close to 1 for gm {gm:g}: a log-scale spread below 1e-6 x "
+                f"|ln gm| cannot be resolved in double precision; give gsd >= "
+                f"{np.exp(need) * (1 + 1e-12):.10g}")
 
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         mu, s = self._mu_s(params)

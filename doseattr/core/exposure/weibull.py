@@ -97,6 +97,10 @@ class Weibull(PositiveFamily):
         p = np.asarray(params, dtype=float)
         return cast(FloatArray, p[..., 1] * np.exp(gammaln(1 + 1 / p[..., 0])))
 
+    def log_sd(self, params: ArrayLike) -> float:
+        r""":math:`\pi / (k\sqrt 6)` (Johnson, Kotz & Balakrishnan 1994, from memory)."""
+        return float(np.pi / (float(np.asarray(params, dtype=float)[0]) * np.sqrt(6.0)))
+
     def partial_mean(self, a: ArrayLike, b: ArrayLike, params: ArrayLike) -> FloatArray:
         k = pcol(params, 0)
         ea, eb = self._e(a, params), self._e(b, params)
