@@ -41,14 +41,28 @@ def burden_strata(analysis: Analysis, exposure) -> list:
                                                 table.lines)]
 
 
+#: Name of the stratum carried at index 0 of the burden's draws: the whole
+#: population over the shared exposure, with 0 cases so that the totals are
+#: the strata's alone.
+POPULATION = "population"
+
+
 def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: bool, *,
                shared) -> tuple[BurdenResult, Any]:
     """Attributable cases per stratum and in total, with their Monte Carlo
     draws (``None`` without ``[uncertainty]``); ``shared`` is the
-    population's exposure, which a stratum without its own uses."""
-    from doseattr.core.uncertainty.propagate import point_values, propagate
+    population's exposure, which a stratum without its own uses.
+
+    The draws hold the population over the shared exposure at index 0
+    (with 0 cases), then the strata: one set of draws of the curve, the
+    minimum-risk level and each exposure serves them all (common random
+    numbers), so a stratum with the shared exposure has the population's
+    PAF draw by draw, and scenarios and strata differ only by what differs.
+    """
+    from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate
 
     transforms = [sc for _, sc in scenarios]
+    strata = [Stratum(POPULATION, 0.0, shared), *strata]
     point = point_values(curve, strata, transforms, analysis.attribution.minimum_risk)
     draws = None
     u = analysis.uncertainty
@@ -64,9 +78,9 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
     table = burden_spec(analysis).table
     pop = table.population
     rows = tuple(dataclasses.replace(
-        _row(name, float(table.cases[s]), point, draws, names, s,
+        _row(name, float(table.cases[s]), point, draws, names, s + 1,
              None if pop is None else float(pop[s])),
-        exposure=stratum_exposure_record(strata[s].exposure, shared, table.exposure[s]))
+        exposure=stratum_exposure_record(strata[s + 1].exposure, shared, table.exposure[s]))
         for s, name in enumerate(table.strata))
     overall = _row("total", float(table.cases.sum()), point, draws, names, None,
                    None if pop is None else float(pop.sum()))

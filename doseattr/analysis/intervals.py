@@ -49,11 +49,20 @@ def population_intervals(analysis: Analysis, curve, exposure, scenarios, paf_val
                          rng=np.random.default_rng(u.seed),
                          minimum_risk=minimum_risk_range(analysis),
                          sources=SOURCES, progress=tick)
+    paf, results = population_estimates(prop, paf_value, scenario_results)
+    return prop, paf, results
+
+
+def population_estimates(prop, paf_value: float,
+                         scenario_results: tuple[ScenarioResult, ...]
+                         ) -> tuple[Estimate, tuple[ScenarioResult, ...]]:
+    """The population's PAF and each scenario's PIF with their intervals,
+    from the draws of the stratum at index 0 of ``prop``."""
     paf = interval(paf_value, prop.paf[0], "PAF")
     results = tuple(dataclasses.replace(r, pif=interval(r.pif.estimate, prop.pif[r.name][0],
                                                         f"PIF of {r.name}"))
                     for r in scenario_results)
-    return prop, paf, results
+    return paf, results
 
 
 def settings(analysis: Analysis) -> UncertaintySpec:

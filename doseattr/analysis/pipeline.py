@@ -26,6 +26,7 @@ from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_a
 from doseattr.analysis.comparisons import curve_variants, exposure_variants, substitution_results
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import (
+    population_estimates,
     population_intervals,
     source_width,
     uncertainty_notes,
@@ -39,6 +40,8 @@ from doseattr.errors import DoseattrError
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (
+    CASE_WEIGHTED_PAF,
+    POPULATION_PAF,
     AttributionSection,
     BurdenResult,
     RunInputs,
@@ -202,17 +205,20 @@ def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
         analysis, curve, strata, scenarios, progress, shared=exposure)
     if analysis.uncertainty is None:
         return _MonteCarlo(Estimate(point.paf), point.scenarios, burden=burden)
-    prop, paf, scenario_results = population_intervals(
-        analysis, curve, exposure, scenarios, point.paf, point.scenarios, progress)
-    if strata is None:
+    if strata is None or burden is None or burden_draws is None:
+        prop, paf, scenario_results = population_intervals(
+            analysis, curve, exposure, scenarios, point.paf, point.scenarios, progress)
         strata, overall, draws = [Stratum("population", 1.0, exposure)], point.paf, prop
-    elif burden is not None:
-        overall, draws = burden.total.paf.estimate, burden_draws
+    else:  # the population is stratum 0 of the burden's draws (common random numbers)
+        prop = draws = burden_draws
+        paf, scenario_results = population_estimates(prop, point.paf, point.scenarios)
+        overall = burden.total.paf.estimate
     widths = width_by_source(analysis, curve, strata, overall, progress)
     u = analysis.uncertainty
     section = UncertaintySection(int(u.draws), int(u.seed), 0.95, widths,
                                  source_width(analysis, "all", overall, draws), prop,
-                                 analysis.attribution.minimum_risk_range is not None)
+                                 analysis.attribution.minimum_risk_range is not None,
+                                 POPULATION_PAF if burden is None else CASE_WEIGHTED_PAF)
     return _MonteCarlo(paf, scenario_results, section, burden,
                        uncertainty_notes(analysis, curve, exposure))
 

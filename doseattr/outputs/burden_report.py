@@ -153,8 +153,9 @@ def width_table(u: UncertaintySection | None, prefix: str) -> str:
     header = ["Source varied alone", "95% interval of the PAF", "Width",
               "Share of the full width"] + (["Attributable cases, 95% interval"]
                                             if cases_too else [])
-    return table(header, rows, caption=f"{prefix}which input drives the width of the interval "
-                                       "(each source varied alone, widest first)")
+    what = f" of the {u.explains}" if u.explains else ""
+    return table(header, rows, caption=f"{prefix}which input drives the width of the interval"
+                                       f"{what} (each source varied alone, widest first)")
 
 
 def _points(v: float) -> str:

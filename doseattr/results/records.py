@@ -210,6 +210,9 @@ class UncertaintySection:
     width_all: SourceWidth | None
     propagation: Any = None
     minimum_risk_varied: bool = False
+    #: Which PAF ``width_by_source`` explains (:data:`POPULATION_PAF` or
+    #: :data:`CASE_WEIGHTED_PAF`).
+    explains: str = ""
 
     @property
     def sources(self) -> tuple[str, ...]:
@@ -268,6 +271,15 @@ class BurdenResult:
     @property
     def any_own_exposure(self) -> bool:
         return any(s.exposure is not None and s.exposure.own for s in self.strata)
+
+
+#: What each headline fraction is: the PAF of the whole population over the
+#: shared exposure distribution, and the burden's total (attributable over
+#: observed cases, so weighted by each stratum's cases and computed over each
+#: stratum's own exposure where it has one).
+POPULATION_PAF = "population PAF over the shared exposure distribution"
+CASE_WEIGHTED_PAF = ("case-weighted PAF over the strata (total attributable cases over total "
+                     "observed cases)")
 
 
 #: One burden table of a run: the outcome's name (``None`` for the

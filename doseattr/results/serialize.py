@@ -19,6 +19,8 @@ from doseattr.core.curves.base import Curve
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import json_safe, matrix, num, nums, params
 from doseattr.results.records import (
+    CASE_WEIGHTED_PAF,
+    POPULATION_PAF,
     AttributionSection,
     BandTable,
     BurdenResult,
@@ -90,7 +92,8 @@ def attribution_dict(a: AttributionSection, burden: BurdenResult | None) -> dict
     """``paf``, ``minimum_risk``, ``minimum_risk_range`` and ``scenarios``
     (``averted``: the burden's total averted cases)."""
     rng = a.minimum_risk_range
-    return {"paf": estimate_dict(a.paf), "minimum_risk": num(a.minimum_risk),
+    return {"paf": estimate_dict(a.paf), "paf_label": POPULATION_PAF,
+            "minimum_risk": num(a.minimum_risk),
             "minimum_risk_range": None if rng is None else [num(v) for v in rng],
             "scenarios": [{"name": s.name, "kind": s.kind, "value": num(s.value),
                            "description": s.description, "pif": estimate_dict(s.pif),
@@ -238,6 +241,7 @@ def uncertainty_dict(u: UncertaintySection | None) -> dict[str, Any] | None:
         return None
     return {"draws": int(u.draws), "seed": int(u.seed), "level": num(u.level),
             "sources": list(u.sources), "minimum_risk_varied": bool(u.minimum_risk_varied),
+            "width_by_source_explains": u.explains,
             "width_by_source": [source_width_dict(w) for w in u.width_by_source],
             "width_all": None if u.width_all is None else source_width_dict(u.width_all)}
 
@@ -267,7 +271,8 @@ def burden_dict(b: BurdenResult | None) -> dict[str, Any] | None:
     total = stratum_dict(b.total)
     total.pop("stratum")
     total.pop("exposure")
-    return {"strata": [stratum_dict(s) for s in b.strata], "total": total}
+    return {"strata": [stratum_dict(s) for s in b.strata], "total": total,
+            "total_label": CASE_WEIGHTED_PAF}
 
 
 def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:

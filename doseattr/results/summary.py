@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from doseattr.results.records import StratumExposure
+from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF, StratumExposure
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results.run import Results
@@ -23,6 +23,9 @@ def render(r: Results, brief: bool = False) -> str:
     unit = r.unit
     lines = [r.title or "doseattr results", f"unit: {unit}", ""]
     lines.append(f"PAF (minimum-risk level {r.minimum_risk:g} {unit}): {r.paf.text()}")
+    if r.burden is not None:
+        lines += textwrap.wrap(f"(the {POPULATION_PAF}; the burden table's total, "
+                               f"{r.burden.total.paf.text()}, is the {CASE_WEIGHTED_PAF})", WIDTH)
     if r.scenarios:
         lines.append("")
         lines += table(["scenario", "change", "PIF"],
@@ -157,7 +160,9 @@ def _widths(r: Results) -> list[str]:
         return []
     rows = [[w.source, f"{100 * w.lower:.2f}% to {100 * w.upper:.2f}%", f"{100 * w.width:.2f}"]
             for w in r.width_by_source + ((r.width_all,) if r.width_all else ())]
-    return ["", "Width of the PAF's 95% interval by source of uncertainty"] + table(
+    explains = r.uncertainty.explains if r.uncertainty is not None else ""
+    return ["", "Width of the PAF's 95% interval by source of uncertainty"
+            + (f" (the {explains})" if explains else "")] + table(
         ["varying", "interval", "width (points)"], rows)
 
 
