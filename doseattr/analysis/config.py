@@ -264,8 +264,14 @@ def _uncertainty(u: dict[str, Any], ctx: Context) -> UncertaintySpec:
     seed = u.get("seed", DEFAULT_SEED)
     if seed < 0:
         raise ctx.error(f"seed must be 0 or more, got {seed}", "uncertainty", "seed")
+    precision = u.get("precision")
+    if precision is not None and not 0 < precision < 0.1:
+        raise ctx.error(f"precision is the largest Monte Carlo standard error wanted for an "
+                        f"interval limit of a fraction, above 0 and below 0.1 (0.001 is a tenth "
+                        f"of a percentage point), got {precision:g}", "uncertainty", "precision")
     return UncertaintySpec(draws=int(draws), seed=int(seed), seed_given="seed" in u,
-                           poisson_cases=bool(u.get("poisson_cases", False)))
+                           poisson_cases=bool(u.get("poisson_cases", False)),
+                           precision=None if precision is None else float(precision))
 
 
 def _burden(b: dict[str, Any], ctx: Context, conv: Conversion) -> BurdenSpec:

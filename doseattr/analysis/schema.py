@@ -120,6 +120,7 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "seed": Key("integer"),
         "allow_many_draws": Key("bool", help="permit more than MAX_DRAWS draws"),
         "poisson_cases": Key("bool", help="Poisson variation of the observed cases"),
+        "precision": Key("number", help="largest Monte Carlo SE of an interval limit"),
     },
     "burden": {
         "table": Key("path"),

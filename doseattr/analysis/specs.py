@@ -292,6 +292,9 @@ class UncertaintySpec:
     seed: int = DEFAULT_SEED
     seed_given: bool = False
     poisson_cases: bool = False
+    #: Largest Monte Carlo standard error allowed for a fraction's interval
+    #: limit; the draws are raised until it holds (``None``: not asked).
+    precision: float | None = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -76,16 +76,19 @@ def uncertainty_section(u: UncertaintySection | None, a: AttributionSection,
     paf = a.paf
     if paf.lower is None:
         return ""
-    rows = [["PAF", pct(paf.estimate), interval(paf.lower, paf.upper), pct(paf.mcse, 2)]]
+    rows = [["PAF", pct(paf.estimate), interval(paf.lower, paf.upper), _limit_errors(paf)]]
     for s in a.scenarios:
         p = s.pif
         rows.append([f"PIF, {s.name}", pct(p.estimate), interval(p.lower, p.upper),
-                     pct(p.mcse, 2)])
+                     _limit_errors(p)])
     parts = []
     if u is not None and u.draws:
         parts.append(para(f"Intervals are the 2.5th and 97.5th percentiles of "
-                          f"{int(u.draws)} Monte Carlo draws (seed {int(u.seed)}); the Monte "
-                          f"Carlo SE is the simulation error of the estimate."))
+                          f"{int(u.draws)} Monte Carlo draws (seed {int(u.seed)}). The estimate "
+                          "is computed at the inputs' point values and does not depend on the "
+                          "draws; the Monte Carlo SEs are those of the two limits (how much "
+                          "each would move with another seed, from the order statistics of "
+                          "the draws)."))
     fixed = _fixed_sources(u, strata)
     names = [] if u is None else [worded(SOURCE_NAMES, x) for x in u.sources if x not in fixed]
     if names:
@@ -94,7 +97,8 @@ def uncertainty_section(u: UncertaintySection | None, a: AttributionSection,
         parts.append(para("The PAF and PIFs below are those of the results above the outcomes "
                           "(see the notes under Key numbers); each outcome's own intervals are "
                           "in the outcomes table."))
-    parts.append(table(["Quantity", "Estimate", "95% interval", "Monte Carlo SE"], rows))
+    parts.append(table(["Quantity", "Estimate", "95% interval",
+                        "Monte Carlo SE of the limits"], rows))
     parts.append(figure(images, "paf_draws",
                         "Monte Carlo draws of the PAF, with the estimate and the 2.5th and "
                         "97.5th percentiles."))
@@ -156,6 +160,11 @@ def width_table(u: UncertaintySection | None, prefix: str) -> str:
     what = f" of the {u.explains}" if u.explains else ""
     return table(header, rows, caption=f"{prefix}which input drives the width of the interval"
                                        f"{what} (each source varied alone, widest first)")
+
+
+def _limit_errors(e: Estimate) -> str:
+    """``"0.14% / 0.30%"``: the Monte Carlo SE of the lower and upper limit."""
+    return f"{pct(e.lower_mcse, 2)} / {pct(e.upper_mcse, 2)}"
 
 
 def _points(v: float) -> str:
