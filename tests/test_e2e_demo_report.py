@@ -197,4 +197,4 @@ def test_uncertainty_numbers(demo):
     r = row(rows, "PAF")
     agrees(r[1], data["paf"]["estimate"])
     agrees(r[2], data["paf"]["lower"], data["paf"]["upper"])
-    agrees(r[3], data["paf"]["mcse"])
+    agrees(r[3], data["paf"]["lower_mcse"], data["paf"]["upper_mcse"])  # the limits' MCSE
