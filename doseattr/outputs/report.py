@@ -65,6 +65,7 @@ from doseattr.results import (
     ScenarioResult,
 )
 from doseattr.results.cautions import CAUTIONS
+from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF
 
 
 # ---------------------------------------------------------------- sections
@@ -76,7 +77,9 @@ def key_numbers(results: Results) -> str:
     has_ci = paf.lower is not None or any(s.pif.lower is not None for s in a.scenarios)
     header = ["Quantity", "Estimate"] + (["95% interval"] if has_ci else [])
     m = with_unit(float(a.minimum_risk), results.unit)
-    rows = [[f"PAF: share of cases attributable to exposure above {m}", pct(paf.estimate)]
+    label = f" ({POPULATION_PAF})" if results.burden is not None else ""
+    rows = [[f"PAF: share of cases attributable to exposure above {m}{label}",
+             pct(paf.estimate)]
             + ([interval(paf.lower, paf.upper)] if has_ci else [])]
     for s in a.scenarios:
         rows.append([f"PIF: share of cases prevented by scenario \u201c{s.name}\u201d",
@@ -86,7 +89,7 @@ def key_numbers(results: Results) -> str:
         total = results.burden.total
         att = total.attributable
         rows.append([f"Attributable cases in all strata (total PAF "
-                     f"{pct(total.paf.estimate)})", cases(att.estimate)]
+                     f"{pct(total.paf.estimate)}, the {CASE_WEIGHTED_PAF})", cases(att.estimate)]
                     + ([interval(att.lower, att.upper, cases)] if has_ci else []))
         for s in a.scenarios:
             averted = s.averted
