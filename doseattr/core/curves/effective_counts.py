@@ -141,9 +141,10 @@ def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
     :math:`A_i = 1/(v_i - 1/A_0)`, :math:`A_0/\sum A = s_0`, covariance
     :math:`1/A_0`; with ``share_of="totals"`` the share is of person-time,
     :math:`T_i \propto A_i/RR_i`. Each share falls monotonically as
-    :math:`c` grows (reference cells shrink, the others grow). Cumulative incidence (risk ratios) is treated as incidence
-    rate: the binomial shared term :math:`1/A_0 - 1/N_0` needs the group sizes,
-    which the ratios and CIs do not give, so the covariance is overstated by
+    :math:`c` grows (reference cells shrink, the others grow). Cumulative
+    incidence (risk ratios) is treated as incidence rate: the binomial
+    shared term :math:`1/A_0 - 1/N_0` needs the group sizes, which the
+    ratios and CIs do not give, so the covariance is overstated by
     :math:`1/N_0` (a rare-disease approximation, noted in the result).
 
     Defaults (assumptions, noted in the result), used only for what is not
