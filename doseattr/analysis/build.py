@@ -176,7 +176,7 @@ def log_rr_covariance(spec: TableCurve,
         independent_covariance,
         var_log_rr_from_ci,
     )
-    from doseattr.core.curves.effective_counts import effective_counts
+    from doseattr.core.curves.effective_counts import effective_counts, table_conditions
 
     ref = t.reference
     nonref = np.arange(t.n_bands) != ref
@@ -199,11 +199,16 @@ def log_rr_covariance(spec: TableCurve,
         return cov, warnings, notes
     if spec.covariance == "effective-counts":
         with as_input_error(t.source, "columns 'rr', 'ci_lower', 'ci_upper'"):
-            cov = effective_counts(t.rr, full_var, ref=ref, design=design)
+            given = table_conditions(ref=ref, design=design, cases=t.counts.get("cases"),
+                                     totals=t.counts.get(DESIGN_TOTALS[design]))
+            cov = effective_counts(t.rr, full_var, ref=ref, design=design,
+                                   case_ratio=given.case_ratio,
+                                   reference_share=given.reference_share,
+                                   share_of=given.share_of)
         if cov.method == "effective-counts":
             notes.append("covariance of the log RRs from effective counts reconstructed from "
                          "the RRs and CIs (Hamling et al. 2008, Stat Med 27:954)")
-            notes.extend(cov.notes)
+            notes.extend(given.notes + cov.notes)
             return cov, warnings, notes
         warnings.append(f"{'; '.join(cov.notes)}; this usually understates the uncertainty "
                         "of the curve")

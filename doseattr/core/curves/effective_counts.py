@@ -5,13 +5,16 @@ gives only ratios and confidence intervals, find pseudo-counts whose crude
 ratios equal the reported ones and whose Woolf variances equal the reported
 ones; their shared reference cells give the covariance. The two extra
 conditions that pin the counts down are the overall ratio of cases to
-non-cases and the share of the reference band (from memory of the paper;
-the defaults below are this project's assumptions and are reported).
+non-cases and the share of the reference band (from memory of the paper).
+When the table gives counts or totals, :func:`table_conditions` takes the two
+conditions from them; the defaults are this project's assumptions, used only
+for what the table does not give, and are reported.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Literal, cast
 
 import numpy as np
@@ -23,14 +26,103 @@ from doseattr.core.curves.base import FloatArray
 from doseattr.core.curves.covariance import LogRRCovariance, independent_covariance
 from doseattr.errors import ModelError
 
+Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]
+#: Whose share of the reference band is known: ``"cases"`` or ``"totals"``
+#: (non-cases for case-control, person-time for incidence rate).
+ShareOf = Literal["cases", "totals"]
+
 #: Bracket for the logit-scale unknowns (expit(+-60) is 1e-26 from the ends).
 BRACKET = 60.0
 
 
+@dataclass(frozen=True)
+class SideConditions:
+    """The two conditions beside the RRs and CIs, and where they came from.
+
+    ``case_ratio`` is total cases over total non-cases (case-control only);
+    ``reference_share`` is the reference band's share of the cases or of the
+    totals (``share_of``; ``None`` for the design's usual one); ``notes`` say which table totals were used.
+    """
+
+    case_ratio: float | None = None
+    reference_share: float | None = None
+    share_of: ShareOf | None = None
+    notes: tuple[str, ...] = ()
+
+
+def table_conditions(*, ref: int, design: Design = "case-control",
+                     cases: ArrayLike | None = None, totals: ArrayLike | None = None,
+                     total_cases: float | None = None,
+                     total_noncases: float | None = None) -> SideConditions:
+    r"""Side conditions from whatever counts or totals the table gives.
+
+    Per band (table order, NaN where unknown): ``cases`` :math:`A_i` and
+    ``totals`` :math:`B_i` (controls for case-control, person-time for
+    incidence rate). Overall: ``total_cases`` :math:`\sum A`,
+    ``total_noncases`` :math:`\sum B` (case-control); a sum over bands
+    stands in for a missing overall total when every band is known.
+
+    * case ratio :math:`R = \sum A / \sum B` (case-control, both totals known);
+    * reference share :math:`B_0/\sum B` when the reference band's totals and
+      their sum are known, else :math:`A_0/\sum A` from the cases (for
+      incidence rate the cases' share first, then person-time's).
+
+    These are the two conditions of Hamling et al. (2008, Stat Med 27:954;
+    from memory). On a crude table (ratios and Woolf or Poisson variances
+    from the counts) the counts solving them are the table's counts, so the
+    covariance equals Greenland & Longnecker's (1992, Am J Epidemiol 135:1301).
+    A condition nothing gives is left ``None`` (the defaults apply).
+    """
+    a = _optional(cases, "cases")
+    b = _optional(totals, "totals")
+    what = "controls" if design == "case-control" else "person-time"
+    sum_a, from_a = _total(a, total_cases, "cases")
+    sum_b, from_b = _total(b, total_noncases, what)
+    notes: list[str] = []
+    ratio = share = None
+    share_of: ShareOf | None = None
+    if design == "case-control" and sum_a is not None and sum_b is not None:
+        ratio = sum_a / sum_b
+        notes.append(f"effective counts take the case ratio {ratio:.4g} from the table's "
+                     f"{from_a} and {from_b}")
+    shares = [(b, sum_b, what, from_b, "totals"), (a, sum_a, "cases", from_a, "cases")]
+    if design != "case-control":
+        shares.reverse()     # the cases' share is the one the rate variances rest on
+    for per_band, total, who, source, of in shares:
+        if per_band is not None and total is not None and np.isfinite(per_band[ref]):
+            share, share_of = float(per_band[ref]) / total, cast(ShareOf, of)
+            notes.append(f"effective counts take the reference band's share of {who} "
+                         f"({share:.4g}) from the table's reference-band {who} and {source}")
+            break
+    return SideConditions(ratio, share, share_of, tuple(notes))
+
+
+def _optional(x: ArrayLike | None, what: str) -> FloatArray | None:
+    if x is None:
+        return None
+    arr = np.atleast_1d(np.asarray(x, dtype=float))
+    known = arr[np.isfinite(arr)]
+    if np.any(known <= 0):
+        raise ModelError(f"{what} must be positive where given")
+    return arr
+
+
+def _total(per_band: FloatArray | None, overall: float | None,
+           what: str) -> tuple[float | None, str]:
+    """An overall total: as given, else the sum over bands when all are known."""
+    if overall is not None:
+        if not (np.isfinite(overall) and overall > 0):
+            raise ModelError(f"total {what} must be positive, got {overall}")
+        return float(overall), f"total {what}"
+    if per_band is not None and np.all(np.isfinite(per_band)):
+        return float(per_band.sum()), f"{what} summed over the bands"
+    return None, ""
+
+
 def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
-                     design: Literal["case-control", "incidence-rate",
-                                     "cumulative-incidence"] = "case-control",
+                     design: Design = "case-control",
                      case_ratio: float | None = None, reference_share: float | None = None,
+                     share_of: ShareOf | None = None,
                      fallback: bool = True) -> LogRRCovariance:
     r"""Covariance of log RRs from effective counts (Hamling et al. 2008).
 
@@ -43,16 +135,21 @@ def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
               \quad A_0 = \frac{1 + q}{c}, \quad B_0 = \frac{1 + q}{c\,q}
 
     and :math:`(c, q)` solve :math:`B_0/\sum B = s_0` (``reference_share``)
-    and :math:`\sum A / \sum B = R` (``case_ratio``); the covariance is
+    and :math:`\sum A / \sum B = R` (``case_ratio``), or with
+    ``share_of="cases"`` :math:`A_0/\sum A = s_0`; the covariance is
     :math:`c` off the diagonal. Incidence rate: :math:`v_i = 1/A_i + 1/A_0`,
     :math:`A_i = 1/(v_i - 1/A_0)`, :math:`A_0/\sum A = s_0`, covariance
-    :math:`1/A_0`. Cumulative incidence (risk ratios) is treated as incidence
-    rate: the binomial shared term :math:`1/A_0 - 1/N_0` needs the group sizes,
-    which the ratios and CIs do not give, so the covariance is overstated by
+    :math:`1/A_0`; with ``share_of="totals"`` the share is of person-time,
+    :math:`T_i \propto A_i/RR_i`. Each share falls monotonically as
+    :math:`c` grows (reference cells shrink, the others grow). Cumulative
+    incidence (risk ratios) is treated as incidence rate: the binomial
+    shared term :math:`1/A_0 - 1/N_0` needs the group sizes, which the
+    ratios and CIs do not give, so the covariance is overstated by
     :math:`1/N_0` (a rare-disease approximation, noted in the result).
 
-    Defaults (assumptions, noted in the result): ``case_ratio`` 1 and
-    ``reference_share`` 1/B (B bands). If no counts exist, returns the
+    Defaults (assumptions, noted in the result), used only for what is not
+    given (see :func:`table_conditions` for taking them from a table):
+    ``case_ratio`` 1 and ``reference_share`` 1/B (B bands). If no counts exist, returns the
     independent covariance with a note (``fallback=True``) or raises
     :class:`ModelError`.
 
@@ -63,15 +160,15 @@ def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
         (``ref``) has RR 1 and its variance is ignored.
     """
     rr, var = _validate(rr, var_log_rr, ref)
-    solved, case_ratio, share, notes = _assumptions(design, rr.size, case_ratio,
-                                                    reference_share)
+    solved, held, case_ratio, share, notes = _assumptions(
+        design, rr.size, case_ratio, reference_share, share_of)
     others = np.delete(np.arange(rr.size), ref)
     try:
         if solved == "case-control":
             assert case_ratio is not None  # _assumptions sets it for case-control
-            a, b, shared = _case_control(rr[others], var[others], share, case_ratio)
+            a, b, shared = _case_control(rr[others], var[others], share, case_ratio, held)
         else:
-            a, b, shared = _incidence_rate(rr[others], var[others], share)
+            a, b, shared = _incidence_rate(rr[others], var[others], share, held)
     except ModelError as err:
         if not fallback:
             raise
@@ -84,8 +181,8 @@ def effective_counts(rr: ArrayLike, var_log_rr: ArrayLike, *, ref: int,
                            pseudo_totals=_in_table_order(b, ref), notes=notes)
 
 
-def _assumptions(design: str, bands: int, case_ratio: float | None,
-                 share: float | None) -> tuple[str, float | None, float, tuple[str, ...]]:
+def _assumptions(design: str, bands: int, case_ratio: float | None, share: float | None,
+                 share_of: str | None) -> tuple[str, str, float | None, float, tuple[str, ...]]:
     """Design actually solved, the two side conditions, and notes on defaults."""
     if design not in ("case-control", "incidence-rate", "cumulative-incidence"):
         raise ModelError(f"effective counts support 'case-control', 'incidence-rate' and "
@@ -95,6 +192,8 @@ def _assumptions(design: str, bands: int, case_ratio: float | None,
         design = "incidence-rate"
         notes.append("risk ratios treated like rate ratios for the effective counts "
                      "(rare-disease approximation; slightly overstates the covariance)")
+    if share is None or share_of is None:
+        share_of = "totals" if design == "case-control" else "cases"
     if share is None:
         share = 1.0 / bands
         who = "non-cases" if design == "case-control" else "cases"
@@ -102,15 +201,17 @@ def _assumptions(design: str, bands: int, case_ratio: float | None,
     if design == "case-control" and case_ratio is None:
         case_ratio = 1.0
         notes.append("effective counts assume as many cases as non-cases")
+    if share_of not in ("cases", "totals"):
+        raise ModelError(f"share_of must be 'cases' or 'totals', not {share_of!r}")
     if not 0 < share < 1:
         raise ModelError(f"reference_share must lie between 0 and 1, got {share}")
     if case_ratio is not None and not (np.isfinite(case_ratio) and case_ratio > 0):
         raise ModelError(f"case_ratio must be positive, got {case_ratio}")
-    return design, case_ratio, share, tuple(notes)
+    return design, share_of, case_ratio, share, tuple(notes)
 
 
-def _case_control(rr: FloatArray, v: FloatArray, share: float,
-                  ratio: float) -> tuple[FloatArray, FloatArray, float]:
+def _case_control(rr: FloatArray, v: FloatArray, share: float, ratio: float,
+                  share_of: str = "totals") -> tuple[FloatArray, FloatArray, float]:
     """Nested root finding: for each q the share fixes c (monotone), then q
     solves the case ratio. Returns cells with the reference first."""
     vmin = v.min()
@@ -123,8 +224,9 @@ def _case_control(rr: FloatArray, v: FloatArray, share: float,
         return a, b, c
 
     def share_gap(s: float, q: float) -> float:
-        _, b, _ = cells(s, q)
-        return float(np.log(b[0] / b.sum()) - np.log(share))
+        a, b, _ = cells(s, q)
+        held = b if share_of == "totals" else a
+        return float(np.log(held[0] / held.sum()) - np.log(share))
 
     def solve_c(q: float) -> float:
         return _root(lambda s: share_gap(s, q), "reference share")
@@ -138,8 +240,8 @@ def _case_control(rr: FloatArray, v: FloatArray, share: float,
     return cells(solve_c(q), q)
 
 
-def _incidence_rate(rr: FloatArray, v: FloatArray,
-                    share: float) -> tuple[FloatArray, FloatArray, float]:
+def _incidence_rate(rr: FloatArray, v: FloatArray, share: float,
+                    share_of: str = "cases") -> tuple[FloatArray, FloatArray, float]:
     """``1/A_0 = vmin expit(s)``; the share of cases in the reference band
     falls from 1 to 0 as ``s`` grows. Person-time in units making the
     reference rate 1."""
@@ -149,7 +251,11 @@ def _incidence_rate(rr: FloatArray, v: FloatArray,
         gap = (v - vmin) + vmin * expit(-s)
         return cast(FloatArray, np.r_[1.0 / (vmin * expit(s)), 1.0 / gap])
 
-    s = _root(lambda s: float(np.log(cases(s)[0] / cases(s).sum()) - np.log(share)),
+    def held(s: float) -> FloatArray:
+        a = cases(s)
+        return a if share_of == "cases" else cast(FloatArray, a / np.r_[1.0, rr])
+
+    s = _root(lambda s: float(np.log(held(s)[0] / held(s).sum()) - np.log(share)),
               "reference share")
     a = cases(s)
     return a, cast(FloatArray, a / np.r_[1.0, rr]), cast(float, 1.0 / a[0])

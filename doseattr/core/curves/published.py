@@ -3,6 +3,9 @@ an exponent, or coefficients with their covariance or draws."""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import cast
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.stats import norm
@@ -15,6 +18,76 @@ from doseattr.errors import ModelError
 
 #: Relative asymmetry of a CI about its estimate above which a note is added.
 ASYMMETRY_NOTE = 0.1
+#: Relative asymmetry below which an ERR's CI counts as symmetric and the
+#: draws stay normal (the shifted-log limits then differ from the normal
+#: ones by less than this share of the CI width).
+SYMMETRIC_TOL = 1e-9
+
+
+@dataclass(frozen=True)
+class ShiftedLogCurve(Curve):
+    r"""A linear ERR curve whose slope is drawn on a shifted log scale.
+
+    With the published ERR :math:`b` and CI :math:`(lo, hi)` longer on one
+    side, write (for a CI longer above, ``side = +1``) :math:`a = b - lo`,
+    :math:`u = hi - b`, :math:`d = u - a > 0`; mirror everything for a CI
+    longer below (``side = -1``). On the scale :math:`\log(\beta + c)` with
+
+    .. math:: c = \frac{a u}{d} - b, \quad \log(lo + c) = \log\frac{a^2}{d},
+              \quad \log(b + c) = \log\frac{a u}{d}, \quad
+              \log(hi + c) = \log\frac{u^2}{d}
+
+    the CI is symmetric about the estimate (solve
+    :math:`(b + c)^2 = (lo + c)(hi + c)`; derived here). So
+    :math:`\log(\beta + c) \sim N(\log(b + c), \sigma^2)` with
+    :math:`\sigma = \log(u/a)/z` puts the median at :math:`b` and the
+    :math:`(1 \mp level)/2` quantiles at the published limits:
+
+    .. math:: \beta = b + \text{side}\,\frac{a u}{d}\,
+              \operatorname{expm1}(\text{side}\,\sigma Z), \quad Z \sim N(0, 1)
+
+    increasing in :math:`Z` on both sides, so the draws keep the order of
+    the normal draws they are made from (a three-parameter, shifted
+    lognormal: Aitchison & Brown 1957, *The Lognormal Distribution*, from
+    memory). As :math:`d \to 0` this tends to :math:`b + (u/z) Z`, the
+    normal draws. ``scale`` is :math:`a u/d` per unit dose and ``log_sd`` is
+    :math:`\sigma`; ``cov`` keeps the half-width standard error for
+    reporting.
+    """
+
+    side: float = 1.0
+    scale: float = 0.0
+    log_sd: float = 0.0
+
+    def from_normal(self, z: ArrayLike) -> FloatArray:
+        """Slope draws ``(n, 1)`` from standard normal draws ``z``."""
+        z = np.asarray(z, dtype=float).reshape(-1, 1)
+        move = self.side * np.expm1(self.side * self.log_sd * z)
+        return cast(FloatArray, self.coef[0] + self.scale * move)
+
+    def rr_interval(self, x: ArrayLike,
+                    level: float = 0.95) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """RR(x) with the pointwise interval at the slope's quantiles (the RR
+        is monotone in the slope), so the published limits come back."""
+        z = norm.ppf(0.5 + level / 2)
+        ends = self.from_normal([-z, z])
+        at = [self.rr(x, coef=e) for e in ends]
+        return self.rr(x), np.minimum(*at), np.maximum(*at)
+
+
+def symmetrizing_scale(value: float, lo: float, hi: float,
+                       level: float = 0.95) -> tuple[float, float, float] | None:
+    """``(side, a u / d, sigma)`` of :class:`ShiftedLogCurve` for an estimate
+    and its CI, or ``None`` when the CI is symmetric (within
+    :data:`SYMMETRIC_TOL` of its width)."""
+    below, above = value - lo, hi - value
+    if abs(above - below) <= SYMMETRIC_TOL * (hi - lo) or min(below, above) <= 0:
+        return None
+    side = 1.0 if above > below else -1.0
+    a, u = (below, above) if side > 0 else (above, below)
+    d = u - a
+    z = norm.ppf(0.5 + level / 2.0)
+    return side, a * u / d, float(np.log1p(d / a) / z)
 
 
 def published_curve(model: str | CurveModel, *, rr: float | None = None,
@@ -29,14 +102,15 @@ def published_curve(model: str | CurveModel, *, rr: float | None = None,
       :math:`se = (\log hi - \log lo) / (2 z)/per` (CI of the RR).
     - ``"linear"``: :math:`b = ERR/per`, :math:`se = (hi - lo)/(2 z)/per`
       with the CI on the ERR scale; ``rr`` may be given instead
-      (:math:`ERR = RR - 1`, CI of the RR).
+      (:math:`ERR = RR - 1`, CI of the RR). A CI asymmetric about the ERR
+      gives a :class:`ShiftedLogCurve`, whose draws reproduce both limits.
     - ``"power"``: :math:`b` = ``exponent``, :math:`se = (hi - lo)/(2 z)`;
       ``offset`` is the dose offset ``c`` of :class:`Power`.
 
     :math:`z = \Phi^{-1}((1 + level)/2)`. Without ``ci`` the curve carries
     no uncertainty (zero covariance) and a note says so. Common practice for
     entering published estimates; the CI is assumed symmetric on the scale
-    named above.
+    named above, except for the linear model's (see :class:`ShiftedLogCurve`).
     """
     if not (np.isfinite(per) and per > 0):
         raise ModelError(f"'per' must be a positive dose increment, got {per}")
@@ -65,8 +139,31 @@ def published_curve(model: str | CurveModel, *, rr: float | None = None,
         raise ModelError(f"the standard error from ci ({slope_se:.3g} per unit dose) has a "
                          f"square beyond the float range; it must be below "
                          f"{np.sqrt(np.finfo(float).max):.3g}: check ci and per")
-    return entered_curve(obj, [slope], cov=[[slope_se * slope_se]], max_dose=max_dose,
-                         data_max=data_max, notes=notes)
+    curve = entered_curve(obj, [slope], cov=[[slope_se * slope_se]], max_dose=max_dose,
+                          data_max=data_max, notes=notes)
+    skew = None if name != "linear" or ci is None else _linear_skew(rr, err, ci, level)
+    if skew is None:
+        return curve
+    side, scale, log_sd = skew
+    shift = scale - side * coef          # c of ShiftedLogCurve, on the ERR scale
+    note = (f"the published CI of the excess relative risk is asymmetric about the estimate; "
+            f"its draws are made on the scale log({'' if side > 0 else '-'}ERR + {shift:.4g}) "
+            f"(ERR per {per:g}), where the CI is symmetric: a shifted lognormal with median at "
+            f"the estimate and the published limits as its {(1 - level) / 2:.1%} and "
+            f"{(1 + level) / 2:.1%} percentiles (the standard error shown is the CI "
+            f"half-width over z)")
+    return ShiftedLogCurve(curve.model, curve.coef, curve.cov, max_dose=curve.max_dose,
+                           data_max=curve.data_max, source=curve.source,
+                           notes=(*curve.notes, note), side=side, scale=scale / per,
+                           log_sd=log_sd)
+
+
+def _linear_skew(rr: float | None, err: float | None, ci: tuple[float, float],
+                 level: float) -> tuple[float, float, float] | None:
+    """Shifted-log parameters of an entered ERR (or RR - 1) and its CI, on the ERR scale."""
+    shift = 0.0 if err is not None else 1.0
+    value = err if err is not None else cast(float, rr) - 1.0
+    return symmetrizing_scale(float(value), ci[0] - shift, ci[1] - shift, level)
 
 
 def entered_curve(model: CurveModel, coef: ArrayLike, *, cov: ArrayLike | None = None,
@@ -141,7 +238,7 @@ def _notes(name: str, ci: tuple[float, float] | None, rr: float | None,
         lo, hi, value = np.log(lo), np.log(hi), np.log(rr)
     else:
         value = next(v for v in (err, rr, exponent) if v is not None)
-    if abs((hi - value) - (value - lo)) > ASYMMETRY_NOTE * (hi - lo):
+    if name != "linear" and abs((hi - value) - (value - lo)) > ASYMMETRY_NOTE * (hi - lo):
         return ("the published CI is asymmetric about the estimate; its half-width was "
                 "used as a normal standard error",)
     return ()

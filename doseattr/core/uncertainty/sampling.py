@@ -2,7 +2,10 @@
 
 * Curve coefficients: the curve's own draws when it came as sampled curves,
   otherwise the multivariate normal approximation N(coef, cov) of the fit
-  (asymptotic normality of GLS / maximum-likelihood estimates).
+  (asymptotic normality of GLS / maximum-likelihood estimates). A linear
+  ERR entered with an asymmetric CI maps those normal draws onto its shifted
+  lognormal (:class:`~doseattr.core.curves.published.ShiftedLogCurve`), so
+  the draws' percentiles are the published limits.
 * Exposure parameters: the asymptotic normal of the maximum-likelihood fit
   on the internal (log) scale, ``theta ~ N(theta_hat, I^-1)``, mapped back,
   which keeps positive parameters positive. Distributions entered as
@@ -20,6 +23,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from doseattr.core.curves.base import Curve
+from doseattr.core.curves.published import ShiftedLogCurve
 from doseattr.core.exposure.base import Exposure
 from doseattr.core.exposure.empirical import EmpiricalExposure
 
@@ -39,16 +43,23 @@ class ExposureDraws:
 
 
 def curve_draws(curve: Curve, n: int, rng: np.random.Generator) -> FloatArray:
-    """Coefficient draws ``(n, p)``.
+    r"""Coefficient draws ``(n, p)``.
 
     A curve supplied as sampled draws is used as it is when ``n`` equals
-    the number of draws, and resampled with replacement otherwise.
+    the number of draws, and resampled with replacement otherwise. A
+    :class:`~doseattr.core.curves.published.ShiftedLogCurve` draws
+    :math:`b + side \cdot s \cdot (e^{side \cdot \sigma Z} - 1)` from the
+    same standard normals ``Z`` the normal path would use.
     """
     if curve.draws is not None:
         k = curve.draws.shape[0]
         idx = np.arange(n) if n == k else rng.integers(0, k, size=n)
         return np.asarray(curve.draws[idx], dtype=float)
-    return rng.multivariate_normal(curve.coef, curve.cov, size=n, method="eigh")
+    draws = rng.multivariate_normal(curve.coef, curve.cov, size=n, method="eigh")
+    if isinstance(curve, ShiftedLogCurve):
+        # the same normal numbers, standardised, then mapped monotonically
+        return curve.from_normal((draws - curve.coef) / np.sqrt(curve.cov[0, 0]))
+    return draws
 
 
 def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
