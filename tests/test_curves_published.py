@@ -31,7 +31,9 @@ def test_fine_particles_hrapie():
 def test_radon_linear_err():
     """Source: Darby et al. (2005), BMJ 330:223, ERR 8.4% (3.0 to 15.8%) per
     100 Bq/m3 (methods guide). slope = 0.084/100, se = (0.158 - 0.030)/(2 z)/100;
-    the CI is asymmetric about 0.084, so a note must say the half-width was used."""
+    the CI is asymmetric about 0.084, so a note must say so (the reported SE is
+    the half-width; the draws follow the asymmetric CI:
+    tests/test_curves_published_asymmetric.py)."""
     curve = published_curve("linear", err=0.084, ci=(0.030, 0.158), per=100.0)
     np.testing.assert_allclose(curve.coef, [0.00084], rtol=1e-14)
     np.testing.assert_allclose(np.sqrt(curve.cov[0, 0]), 0.128 / (2 * Z95) / 100, rtol=1e-12)

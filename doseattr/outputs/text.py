@@ -21,9 +21,10 @@ COVARIANCE_MEANING = {
         "correlation was reconstructed from the study's counts by the method of Greenland & "
         "Longnecker (1992), keeping the reported variances on the diagonal."),
     "effective-counts": (
-        "The study gave no counts; effective counts consistent with the reported RRs and "
-        "confidence intervals (Hamling et al. 2008) were used to reconstruct the correlation "
-        "between the band estimates."),
+        "Effective counts consistent with the reported RRs and confidence intervals "
+        "(Hamling et al. 2008), built from the table's own totals where it gives them (the "
+        "notes say which), were used to reconstruct the correlation between the band "
+        "estimates."),
     "independent": (
         "The band estimates were treated as uncorrelated because no counts could be used. "
         "They share one reference group and are in fact correlated, so the coefficient and "
