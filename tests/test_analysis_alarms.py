@@ -153,6 +153,24 @@ def test_median_outside_the_data_range(tmp_path, factor, due):
         assert "check the units" in _has(r, SCALE)[0]
 
 
+@pytest.mark.parametrize("factor", [1e-3, 1.0])
+def test_median_of_weighted_values_outside_the_data_range(tmp_path, factor):
+    """The same with family = "empirical": the median is the weighted
+    values' own (equal weights, 8 values: the 4th smallest, 11.0, by the
+    smallest-value-reaching-one-half rule), so 1000-fold smaller is below
+    2 / 10 and the values as they are lie within 2 to 55."""
+    median = factor * float(np.sort(VALUES)[3])
+    due = median < 2 / 10
+    assert due == (factor == 1e-3)
+    text = "value\n" + "".join(f"{v * factor:g}\n" for v in VALUES)
+    r = _run(tmp_path, {"curve": TABLE_CURVE,
+                        "exposure": {"table": "m.csv", "family": "empirical"}},
+             {"b.csv": BANDS, "m.csv": text})
+    assert bool(_has(r, SCALE)) == due
+    if due:
+        assert f"median {median:.3g} ug/m3" in _has(r, SCALE)[0]
+
+
 # -- comparisons that disagree ------------------------------------------------------
 CONCAVE = ("5,10,7,2.0,1.6,2.5\n10,20,14,2.1,1.7,2.6\n20,40,28,2.2,1.75,2.77\n"
            "40,,55,2.3,1.6,3.3\n")
@@ -240,8 +258,41 @@ def test_paf_above_the_highest_dose_with_data(tmp_path, gm):
     lines = _has(r, EXTRAPOLATED)
     assert bool(lines) == due
     if due:
-        share = float(lines[0].split("%")[0]) / 100
+        share = float(lines[0].removeprefix("about ").split("%")[0]) / 100
         assert share == pytest.approx(above / (above + below), abs=0.01)
+
+
+@pytest.mark.parametrize("low, high, due", [(2, 6, True), (8, 1, False)])
+def test_paf_of_weighted_values_above_the_highest_dose_with_data(tmp_path, low, high, due):
+    """family = "empirical", ``low`` values at 5 and ``high`` at 30, RR 1.5
+    per 10 flat above 20: the excess above 20 is high x (RR(20) - 1)
+    against low x (RR(5) - 1) below (sums over the values, exactly)."""
+    b = math.log(1.5) / 10
+    above, below = high * math.expm1(20 * b), low * math.expm1(5 * b)
+    assert (above / (above + below) > 0.5) == due
+    text = "value\n" + "5\n" * low + "30\n" * high
+    r = _run(tmp_path, {"curve": {"model": "log-linear", "rr": 1.5, "per": 10, "max_dose": 20,
+                                  "beyond": "flat"},
+                        "exposure": {"table": "m.csv", "family": "empirical"}},
+             {"m.csv": text})
+    lines = _has(r, EXTRAPOLATED)
+    assert bool(lines) == due
+    if due:
+        assert lines[0].startswith(f"about {100 * above / (above + below):.3g}% of the PAF")
+
+
+@pytest.mark.parametrize("pafs, due", [
+    ([("a", -0.01), ("b", 0.05)], True),    # opposite signs always disagree
+    ([("a", 0.092), ("b", 0.055)], True),   # the issue's 9.2% vs 5.5%
+    ([("a", 0.10), ("b", 0.12), ("c", None)], False),  # 1.2 < 4/3; None not computed
+    ([("a", 0.10)], False),                 # nothing to compare with
+])
+def test_comparison_rule(pafs, due):
+    """max - min > min|PAF| / 3, i.e. max/min > 4/3 for positive PAFs (the
+    issue's rule, applied to given numbers)."""
+    from doseattr.analysis.alarms import comparison_alarms
+
+    assert bool(comparison_alarms("model comparison", "model", pafs)) == due
 
 
 # -- where the warnings reach -------------------------------------------------------
@@ -254,6 +305,19 @@ def test_warnings_reach_the_summary_and_python_warnings(tmp_path):
     with pytest.warns(DoseattrWarning, match="J-shape"):
         r = run_analysis(a)
     assert "".join(_has(r, NEGATIVE)[0].split()) in "".join(r.summary().split())
+
+
+def test_each_outcome_gets_its_own(tmp_path):
+    """Two outcomes over one exposure: only the one with RR per 0.01 (PAF
+    >= 1 - 2 exp(-9 b) > 0.99, as in the first test) is warned about, and
+    the run issues it with the outcome's name."""
+    a = analysis_from_dict({"unit": "ug/m3", "exposure": EXPOSURE, "outcome": [
+        {"name": "A", "curve": LOGLIN}, {"name": "B", "curve": {**LOGLIN, "per": 0.01}}]},
+        tmp_path)
+    with pytest.warns(DoseattrWarning, match=r"outcome 'B': the PAF is 100% \(above 0.99\)"):
+        r = run_analysis(a)
+    by_name = dict(r.outcomes)
+    assert _has(by_name["B"], HIGH) and not _has(by_name["A"], HIGH)
 
 
 def test_demo_raises_none_of_them():

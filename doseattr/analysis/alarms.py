@@ -184,7 +184,9 @@ def extrapolation_alarms(contribution: Contribution, curve: Curve, exposure: Any
     :math:`C` is a step function over weighted values and is interpolated
     on the grid of a fitted distribution; a ``data_max`` beyond that grid
     (the exposed population's 99.9th percentile) is not checked. A PAF of
-    0 or less has no share to speak of.
+    0 or less has no share to speak of. On the grid the share is accurate
+    to about the change of :math:`C` between two grid points, hence
+    "about" in the text.
     """
     d = curve.data_max
     x, cum = contribution.x, contribution.cumulative
@@ -200,7 +202,7 @@ def extrapolation_alarms(contribution: Contribution, curve: Curve, exposure: Any
     share = 1.0 - below
     if not share > EXTRAPOLATED_SHARE:
         return []
-    return [f"{100 * share:.3g}% of the PAF comes from exposures above {d:g} {unit}, the highest "
+    return [f"about {100 * share:.3g}% of the PAF comes from exposures above {d:g} {unit}, the highest "
             "dose with data, so the result rests on extrapolation of the curve; check how the "
             "curve is extended there (beyond, max_dose) and report the result as an "
             "extrapolation"]
