@@ -20,6 +20,7 @@ import math
 
 import numpy as np
 
+from doseattr.analysis.alarms import result_alarms
 from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.analysis.build import BuiltCurve
 from doseattr.analysis.burden_run import run_burden
@@ -130,6 +131,11 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
     notes.extend(point.notes)
     warnings.extend(_extrapolation(analysis, curve, exposure, notes))
     comparison, sensitivity = curve_variants(analysis, exposure, built, point.paf)
+    families = exposure_variants(analysis, curve, exposure, built_exposure, point.paf)
+    warnings.extend(result_alarms(
+        curve, exposure, analysis.attribution.minimum_risk, analysis.unit, paf=point.paf,
+        scenarios=point.scenarios, model_comparison=comparison, dose_sensitivity=sensitivity,
+        exposure_comparison=families, contribution=point.contribution))
     with divergence(analysis):
         analysis, mc = _monte_carlo_to_precision(analysis, curve, exposure, scenarios, point,
                                                  p.strata, progress)
@@ -144,7 +150,7 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
         curve_section=curve_section(curve, exposure, built.bands, comparison, sensitivity),
         exposure_section=exposure_section(
             curve, exposure,
-            comparison=exposure_variants(analysis, curve, exposure, built_exposure, point.paf),
+            comparison=families,
             substitution=substitution_results(analysis, curve, exposure, point.paf),
             worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits)),
         attribution=attribution, categorical=point.categorical,
