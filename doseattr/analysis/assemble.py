@@ -100,7 +100,9 @@ def exposure_section(curve: Curve, exposure: AnyExposure, *,
                            share_above(exposure, curve.max_dose),
                            share_above(exposure, curve.data_max),
                            goodness_of_fit(exposure.fit), family_fits(exposure, parametric),
-                           comparison, substitution, workers(worker_totals), parametric)
+                           comparison, substitution, workers(worker_totals), parametric,
+                           weights=getattr(exposure.fit, "weights_meaning", None),
+                           effective_n=_float(getattr(exposure.fit, "effective_n", None)))
 
 
 def _variant(v: CurveVariant, main: Curve) -> CurveVariant:

@@ -396,7 +396,7 @@ def _with_unexposed(exposure: Exposure, unexposed: float) -> BuiltExposure:
 def _measured(spec: MeasuredExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
     m = spec.measurements
     return _fit_values(spec.family, family, m.values, m.detected, m.weights, m.source,
-                       spec.unexposed)
+                       spec.unexposed, weight_meaning=spec.weights or "frequency")
 
 
 def _binned(spec: BinnedExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
@@ -447,7 +447,8 @@ def _summary(spec: SummaryExposure, family: FamilyChoice, src: str | None) -> Bu
 
 def _fit_values(name: str, family: FamilyChoice, values: FloatArray, detected: np.ndarray,
                 weights: FloatArray | None, source: str, unexposed: float,
-                workers: WorkerExposure | None = None) -> BuiltExposure:
+                workers: WorkerExposure | None = None, *,
+                weight_meaning: str = "frequency") -> BuiltExposure:
     """Fit ``family`` (named ``name`` in the file) to values; exact zeros
     give the unexposed share (core
     :func:`~doseattr.core.exposure.unexposed.estimate_unexposed`)."""
@@ -455,7 +456,7 @@ def _fit_values(name: str, family: FamilyChoice, values: FloatArray, detected: n
     from doseattr.core.exposure.unexposed import estimate_unexposed
 
     if family == "empirical":
-        return _empirical(values, weights, source, unexposed, workers)
+        return _empirical(values, weights, source, unexposed, workers, weight_meaning)
     notes = []
     zero = np.asarray(values) == 0
     if zero.any():
@@ -470,16 +471,19 @@ def _fit_values(name: str, family: FamilyChoice, values: FloatArray, detected: n
     with as_input_error(source, "column 'value'",
                         f"the {name} distribution cannot be fitted: "):
         if family == "best":
-            exposure = fit_best(values, detected=det, weights=weights, families=FITTED_FAMILIES)
+            exposure = fit_best(values, detected=det, weights=weights, families=FITTED_FAMILIES,
+                                weight_meaning=weight_meaning)
         else:
-            exposure = fit_measurements(family, values, detected=det, weights=weights)
+            exposure = fit_measurements(family, values, detected=det, weights=weights,
+                                        weight_meaning=weight_meaning)
     if unexposed:
         exposure = dataclasses.replace(exposure, unexposed=unexposed)
     return BuiltExposure(exposure, workers, tuple(notes))
 
 
 def _empirical(values: FloatArray, weights: FloatArray | None, source: str, unexposed: float,
-               workers: WorkerExposure | None = None) -> BuiltExposure:
+               workers: WorkerExposure | None = None,
+               weight_meaning: str = "importance") -> BuiltExposure:
     """The weighted values themselves (core
     :func:`~doseattr.core.exposure.empirical.empirical`; zeros stay as
     points at zero exposure), with the parametric families fitted to the
@@ -487,7 +491,8 @@ def _empirical(values: FloatArray, weights: FloatArray | None, source: str, unex
     from doseattr.core.exposure.empirical import empirical
 
     with as_input_error(source, "column 'value'"):
-        exposure = empirical(values, weights, unexposed=unexposed, source="measurements")
+        exposure = empirical(values, weights, unexposed=unexposed, source="measurements",
+                             weight_meaning=weight_meaning)
     notes = [f"family = \"empirical\": the PAF is the weighted mean of RR over the "
              f"{values.size} values of {source}, with no fitted distribution"]
     fits, why = _comparison_fits(values, weights)
@@ -520,7 +525,8 @@ def fit_substituted(spec: MeasuredExposure, exposure: Exposure, fraction: float)
     m = spec.measurements
     values = substitute_nondetects(m.values, m.detected, fraction)
     built = _fit_values(spec.family, exposure.family, values, np.ones(values.size, bool),
-                        m.weights, m.source, spec.unexposed)
+                        m.weights, m.source, spec.unexposed,
+                        weight_meaning=spec.weights or "frequency")
     return built.exposure
 
 

@@ -7,6 +7,8 @@ from __future__ import annotations
 from datetime import date
 from typing import Any
 
+import numpy as np
+
 from doseattr.analysis import schema
 from doseattr.analysis.exposure_tables import read_tasks
 from doseattr.analysis.schema import Context
@@ -20,7 +22,8 @@ from doseattr.analysis.specs import (
     PercentilesExposure,
     SummaryExposure,
 )
-from doseattr.analysis.tables import read_bins, read_histories, read_measurements
+from doseattr.analysis.tables import Measurements, read_bins, read_histories, read_measurements
+from doseattr.core.exposure.sandwich import WEIGHT_MEANINGS, kish_effective_n
 from doseattr.errors import InputError, ModelError
 
 #: Ways of describing the exposure and the keys that give each.
@@ -55,7 +58,7 @@ def parse_exposure(e: dict[str, Any], ctx: Context) -> ExposureSpec:
     for key in ("as_of", "lag_years", "tasks"):
         if key in e and mode != "histories":
             raise ctx.error(f"'{key}' goes with histories = \"FILE.csv\"", "exposure", key)
-    for key in ("detected", "weight"):
+    for key in ("detected", "weight", "weights"):
         if key in e and mode != "table":
             raise ctx.error(f"'{key}' names a column of the measurement table (table = ...)",
                             "exposure", key)
@@ -105,8 +108,52 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
                          source=path,
                          location="column 'value'")
     fractions = _substitution(e, censored, path, ctx)
+    meaning = _weight_meaning(e, data, family, path, ctx)
+    if meaning is not None:
+        notes.append(_weights_note(meaning, data, family))
     return MeasuredExposure(family=family, unexposed=unexposed, measurements=data,
-                            substitution=fractions, notes=tuple(notes) + data.notes)
+                            substitution=fractions, notes=tuple(notes) + data.notes,
+                            weights=meaning)
+
+
+def _weight_meaning(e: dict[str, Any], data: Measurements, family: str, path: str,
+                    ctx: Context) -> str | None:
+    """``[exposure] weights``: ``"importance"`` by default when the table
+    has weights, ``None`` when it has none (the key is then an error)."""
+    if data.weights is None:
+        if "weights" in e:
+            raise ctx.error(f"weights = \"{e['weights']}\" says what the weight column means, "
+                            f"but {path} has no column '{e.get('weight', 'weight')}'; remove "
+                            "this key or add the column", "exposure", "weights")
+        return None
+    meaning = str(e.get("weights", "importance"))
+    if meaning not in WEIGHT_MEANINGS:  # the schema checks it first; kept for direct callers
+        raise ctx.error(f"weights must be \"importance\" or \"frequency\", got \"{meaning}\"",
+                        "exposure", "weights")
+    return meaning
+
+
+def _weights_note(meaning: str, data: Measurements, family: str) -> str:
+    """Which meaning of the weights was used, with the Kish effective
+    sample size (:func:`~doseattr.core.exposure.sandwich.kish_effective_n`)
+    of the values the exposure uses (the positive ones for a fitted family,
+    whose zeros give the unexposed share)."""
+    assert data.weights is not None
+    keep = np.ones(data.n, bool) if family == "empirical" else data.values > 0
+    n, kish = int(keep.sum()), kish_effective_n(data.weights[keep])
+    size = f"Kish effective sample size {kish:.1f} of {n} values"
+    if family == "empirical":
+        how = ("the bootstrap resamples rows with equal chance and keeps each row's weight"
+               if meaning == "importance" else
+               "the bootstrap draws rows with chances proportional to their weights")
+    else:
+        how = ("the fit's covariance is the sandwich estimator for weighted likelihoods "
+               "(Binder 1983)" if meaning == "importance" else
+               f"the fit's covariance treats the {n} values as equally informative (inverse "
+               "observed information)")
+    what = ("population weights (the default with a weight column)" if meaning == "importance"
+            else "counts of identical measurements")
+    return f"[exposure] weights = \"{meaning}\": {what}; {how}; {size}"
 
 
 def _substitution(e: dict[str, Any], censored: int, path: str,

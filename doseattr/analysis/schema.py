@@ -21,6 +21,7 @@ from typing import Any
 
 from doseattr.analysis.specs import FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS
+from doseattr.core.exposure.sandwich import WEIGHT_MEANINGS
 from doseattr.errors import InputError
 
 #: Models ``[curve] model`` takes: those of the core registry that can be
@@ -103,6 +104,9 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "lag_years": Key("number"),
         "detected": Key("text", help="name of the detected column"),
         "weight": Key("text", help="name of the weight column"),
+        "weights": Key("text", WEIGHT_MEANINGS,
+                       help="what the weights are: importance (population weights, the "
+                            "default) or frequency (counts of identical measurements)"),
         "unit": Key("text", help="unit of the exposure values (default: the file's unit)"),
         "substitution": Key("numbers", help="fractions of the detection limit to substitute "
                                             "for comparison, e.g. [0.5]"),

@@ -192,10 +192,13 @@ class _Exposure:
 @dataclass(frozen=True, eq=False, kw_only=True)
 class MeasuredExposure(_Exposure):
     """``family`` fitted to ``measurements``; ``substitution`` lists
-    fractions of the detection limit to substitute for a comparison fit."""
+    fractions of the detection limit to substitute for a comparison fit;
+    ``weights`` says what the weight column means (``"frequency"`` or
+    ``"importance"``; ``None`` when the table has no weights)."""
 
     measurements: Measurements
     substitution: tuple[float, ...] = ()
+    weights: str | None = None
 
     @property
     def source(self) -> str:

@@ -156,6 +156,9 @@ class ExposureSection:
 
     ``mean`` counts the unexposed at zero; ``zero_share`` is the unexposed
     share plus, for weighted values, the weighted share of zeros.
+    ``weights`` is what the measurements' weights mean (``"frequency"`` or
+    ``"importance"``; ``None`` without weights) and ``effective_n`` their
+    Kish effective sample size (``None`` without weights).
     """
 
     exposure: AnyExposure
@@ -169,6 +172,8 @@ class ExposureSection:
     substitution: tuple[SubstitutionResult, ...]
     workers: Workers | None
     parametric_fits: tuple[Exposure, ...] = ()
+    weights: str | None = None
+    effective_n: float | None = None
 
     @property
     def is_empirical(self) -> bool:

@@ -205,6 +205,8 @@ def exposure_dict(s: ExposureSection) -> dict[str, Any]:
         "n": int(fit.n) if fit is not None and has_data else None,
         "detected": int(fit.detected) if fit is not None and has_data else None,
         "censored": int(fit.censored) if fit is not None and has_data else None,
+        "weights": s.weights,
+        "effective_n": num(s.effective_n),
         "loglik": None if fit is None else num(fit.loglik),
         "aic": None if fit is None else num(fit.aic),
         "goodness_of_fit": gof_dict(s.goodness_of_fit),

@@ -240,7 +240,11 @@ class ExposureFit:
     ``values``/``detected``/``weights`` keep the data the fit used, for
     plots (``detected`` false marks a value that is a detection limit).
     ``cov_internal`` is the asymptotic covariance of the internal
-    parameters (from the observed information), or ``None``.
+    parameters (the inverse observed information, or the sandwich for
+    importance weights: :mod:`doseattr.core.exposure.sandwich`), or
+    ``None``. ``weights_meaning`` is ``"frequency"`` or ``"importance"``
+    for weighted data and ``None`` for unweighted or grouped data;
+    ``effective_n`` is then the Kish effective sample size.
     """
 
     method: str
@@ -256,6 +260,8 @@ class ExposureFit:
     cov_internal: FloatArray | None = None
     gof: dict[str, Any] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    weights_meaning: str | None = None
+    effective_n: float | None = None
 
 
 #: Another family's fit to the same data: ``(family, params, fit)``.

@@ -22,6 +22,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from doseattr.core.exposure.base import Alternative, ExposureFit, FloatArray
+from doseattr.core.exposure.sandwich import check_meaning, kish_effective_n
 from doseattr.errors import ModelError
 
 
@@ -40,13 +41,18 @@ EMPIRICAL = EmpiricalFamily()
 
 @dataclass(frozen=True)
 class EmpiricalExposure:
-    """Weighted exposure values (build with :func:`empirical`)."""
+    """Weighted exposure values (build with :func:`empirical`).
+
+    ``weights_meaning`` is ``"frequency"``, ``"importance"`` or ``None``
+    (no weights given); it sets what :meth:`bootstrap` resamples.
+    """
 
     values: FloatArray
     weights: FloatArray
     unexposed: float = 0.0
     source: str = "measurements"
     notes: tuple[str, ...] = ()
+    weights_meaning: str | None = None
     alternatives: ClassVar[tuple[Alternative, ...]] = ()
 
     def __post_init__(self) -> None:
@@ -68,8 +74,10 @@ class EmpiricalExposure:
     @property
     def fit(self) -> ExposureFit:
         n = self.values.size
+        kish = None if self.weights_meaning is None else kish_effective_n(self.weights)
         return ExposureFit(method="empirical (weighted values)", n=n, detected=n, values=self.values,
-                           detected_mask=np.ones(n, bool), weights=self.weights)
+                           detected_mask=np.ones(n, bool), weights=self.weights,
+                           weights_meaning=self.weights_meaning, effective_n=kish)
 
     @property
     def zero_share(self) -> float:
@@ -89,22 +97,46 @@ class EmpiricalExposure:
         return 1.0 - self.cdf(x)
 
     def bootstrap(self, rng: np.random.Generator, draws: int) -> tuple[FloatArray, FloatArray]:
-        """Resampled points, ``(values, weights)`` each of shape ``(draws, n)``.
+        r"""Resampled points, ``(values, weights)`` each of shape ``(draws, n)``.
 
-        Rows are drawn with replacement, each keeping its weight, and the
-        weights are renormalised per draw (Efron 1979, Ann Stat 7:1, from memory; applied
-        to weighted rows). Survey design (strata, clusters) is ignored;
-        ``unexposed`` stays fixed.
+        Importance weights (and equal weights): the ``n`` rows are drawn
+        uniformly with replacement, each keeping its weight, and the weights
+        are renormalised per draw: the with-replacement bootstrap of the
+        sampled units of a survey (Efron 1979, Ann Stat 7:1; Rao & Wu 1988,
+        JASA 83:231, with the rescaling they add left out; both from
+        memory). For a weighted mean its variance is
+        :math:`\sum_i w_i^2 (x_i - ar x_w)^2 / (\sum w)^2`, the sandwich
+        (linearisation) variance, so unequal weights widen the interval as
+        the Kish effective sample size says.
+
+        Frequency weights (each weight counts identical values, the total
+        normalised to ``n``): ``n`` rows are drawn with probabilities
+        proportional to the weights and weighted equally, which is the
+        ordinary bootstrap of the ``n`` values the weights stand for; a
+        weighted mean then varies as :math:`\mathrm{Var}_w(x) / n`, the
+        frequency-weight variance of the parametric fit. (Keeping the
+        weights would give the importance-weight variance, too wide for
+        frequency weights.)
+
+        Survey design (strata, clusters) is ignored; ``unexposed`` stays fixed.
         """
-        idx = rng.integers(0, self.values.size, size=(int(draws), self.values.size))
+        n = self.values.size
+        if self.weights_meaning == "frequency" and not np.allclose(self.weights, 1.0 / n):
+            idx = rng.choice(n, size=(int(draws), n), p=self.weights)
+            return self.values[idx], np.full(idx.shape, 1.0 / n)
+        idx = rng.integers(0, n, size=(int(draws), n))
         w = self.weights[idx]
         return self.values[idx], w / w.sum(axis=1, keepdims=True)
 
 
 def empirical(values: ArrayLike, weights: ArrayLike | None = None, *, unexposed: float = 0.0,
-              source: str = "measurements") -> EmpiricalExposure:
+              source: str = "measurements",
+              weight_meaning: str = "importance") -> EmpiricalExposure:
     """Build an :class:`EmpiricalExposure`; ModelError on negative or
-    non-finite values, non-positive weights, or ``unexposed`` outside [0, 1)."""
+    non-finite values, non-positive weights, ``unexposed`` outside [0, 1),
+    or a ``weight_meaning`` other than ``"frequency"``/``"importance"``
+    (ignored without ``weights``)."""
+    meaning = None if weights is None else check_meaning(weight_meaning)
     x = np.asarray(values, dtype=float)
     if x.ndim != 1 or x.size == 0 or not np.all(np.isfinite(x)) or np.any(x < 0):
         raise ModelError("empirical exposure needs a non-empty list of finite values >= 0")
@@ -113,4 +145,4 @@ def empirical(values: ArrayLike, weights: ArrayLike | None = None, *, unexposed:
         raise ModelError(f"weights must be {x.size} positive numbers, one per value")
     if not 0 <= unexposed < 1:
         raise ModelError(f"unexposed share must be in [0, 1), got {unexposed}")
-    return EmpiricalExposure(x, w / w.sum(), float(unexposed), source)
+    return EmpiricalExposure(x, w / w.sum(), float(unexposed), source, weights_meaning=meaning)

@@ -10,10 +10,15 @@ Statistics for Censored Environmental Data, 2nd ed. 2012):
     \ell(\theta) = \sum_{i\,\mathrm{detected}} w_i \ln f(x_i; \theta)
                  + \sum_{i\,\mathrm{censored}} w_i \ln F(x_i; \theta).
 
-Weights are normalised to sum to the number of values: they express how
-much each value represents relative to the others (survey or sampling
-weights), not extra sample size, so standard errors reflect the number of
-measurements. Several detection limits in one dataset need nothing special.
+Weights are normalised to sum to the number of values. What they mean sets
+the covariance of the internal parameters
+(:mod:`doseattr.core.exposure.sandwich`): frequency weights keep the inverse
+weighted observed information, whose standard errors reflect the number of
+measurements; importance (population) weights take the sandwich
+:math:`A^{-1} B A^{-1}` of Binder (1983, Int Stat Rev 51:279, from memory),
+whose standard errors reflect the unequal weights (about the Kish
+effective sample size). Several detection limits in one dataset need
+nothing special.
 """
 
 from __future__ import annotations
@@ -27,6 +32,7 @@ from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArra
 from doseattr.core.exposure.gof import goodness_of_fit
 from doseattr.core.exposure.mle import Maximum, covariance, maximise
 from doseattr.core.exposure.registry import FAMILIES, get_family
+from doseattr.core.exposure.sandwich import check_meaning, kish_effective_n, sandwich, scores
 from doseattr.errors import ConvergenceError, FitError, ModelError
 
 
@@ -83,6 +89,16 @@ def measurement_loglik(family: Family, params: ArrayLike, data: Measurements) ->
     return float(np.dot(data.w[d], dens) + np.dot(data.w[~d], below))
 
 
+def measurement_terms(family: Family, params: ArrayLike, data: Measurements) -> FloatArray:
+    """Each value's unweighted contribution to :func:`measurement_loglik`:
+    its log density when detected, its log CDF when a detection limit."""
+    d = data.detected
+    out = np.empty(data.x.size)
+    out[d] = family.logpdf(data.x[d], params)
+    out[~d] = family.logcdf(data.x[~d], params)
+    return out
+
+
 def _maximum(family: Family, data: Measurements) -> Maximum:
     def loglik(theta: FloatArray) -> float:
         return measurement_loglik(family, family.from_internal(theta), data)
@@ -94,6 +110,22 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
         return Maximum(theta, loglik(theta), cov, warns)
     start = family.to_internal(family.start(data.x, data.w))
     return maximise(loglik, start, what=f"{family.name} fit")
+
+
+def robust_covariance(family: Family, data: Measurements, best: Maximum) -> Maximum:
+    """``best`` with its covariance replaced by the sandwich for importance
+    weights (:func:`~doseattr.core.exposure.sandwich.sandwich`), scores by
+    central differences of :func:`measurement_terms`."""
+    if best.cov is None:
+        return best
+    with np.errstate(all="ignore"):
+        s = scores(lambda th: measurement_terms(family, family.from_internal(th), data), best.theta)
+    cov = sandwich(best.cov, s, data.w)
+    if cov is None:
+        return replace(best, cov=None, warnings=best.warnings + (
+            "the per-value scores are not finite at the fit: no sandwich covariance, the fit "
+            "has no standard errors",))
+    return replace(best, cov=cov)
 
 
 def _method(data: Measurements) -> str:
@@ -111,7 +143,8 @@ def _warnings(data: Measurements) -> tuple[str, ...]:
 
 
 def fit_measurements(family: str | Family, values: ArrayLike, *, detected: ArrayLike | None = None,
-                     weights: ArrayLike | None = None) -> Exposure:
+                     weights: ArrayLike | None = None,
+                     weight_meaning: str = "frequency") -> Exposure:
     """Fit ``family`` to measurements by weighted, left-censored ML.
 
     Parameters
@@ -125,20 +158,30 @@ def fit_measurements(family: str | Family, values: ArrayLike, *, detected: Array
         Boolean mask, default all true.
     weights
         Positive weights, normalised here to sum to ``len(values)``.
+    weight_meaning
+        ``"frequency"`` (each weight counts identical values: covariance
+        from the inverse observed information) or ``"importance"``
+        (population weights: the sandwich covariance). Ignored without
+        ``weights``.
 
     Returns
     -------
     Exposure
         With ``fit`` holding loglik, AIC (``2p - 2 loglik``), counts, data,
-        ``cov_internal`` (inverse observed information on the internal scale),
-        a goodness-of-fit summary and warnings.
+        ``cov_internal`` (covariance on the internal scale, as
+        ``weight_meaning`` says), ``weights_meaning`` and ``effective_n``
+        (Kish; both ``None`` without weights), a goodness-of-fit summary and
+        warnings.
     """
+    meaning = check_meaning(weight_meaning) if weights is not None else None
     fam = get_family(family)
     data = prepare(values, detected, weights)
     try:
         best = _maximum(fam, data)
     except ConvergenceError as exc:
         raise FitError(str(exc)) from None
+    if meaning == "importance":
+        best = robust_covariance(fam, data, best)
     params = fam.from_internal(best.theta)
     fam.check(params)
     check_usable(fam, params, "check the largest values (and their unit) or use "
@@ -147,24 +190,29 @@ def fit_measurements(family: str | Family, values: ArrayLike, *, detected: Array
         method=_method(data), loglik=best.loglik, aic=2 * len(params) - 2 * best.loglik,
         n=data.x.size, detected=int(data.detected.sum()), censored=data.n_censored,
         values=data.x, detected_mask=data.detected, weights=data.w, cov_internal=best.cov,
-        warnings=_warnings(data) + best.warnings)
+        warnings=_warnings(data) + best.warnings, weights_meaning=meaning,
+        effective_n=None if meaning is None else kish_effective_n(data.w))
     fit = replace(fit, gof=goodness_of_fit(Exposure(fam, params, fit=fit)))
     return Exposure(fam, params, fit=fit, source="measurements")
 
 
 def fit_best(values: ArrayLike, *, detected: ArrayLike | None = None, weights: ArrayLike | None = None,
-             families: tuple[str, ...] | None = None) -> Exposure:
+             families: tuple[str, ...] | None = None,
+             weight_meaning: str = "frequency") -> Exposure:
     """Fit each family (default: every registered one, :data:`FAMILIES`) and
-    keep the one with the lowest AIC.
+    keep the one with the lowest AIC (``weight_meaning`` as for
+    :func:`fit_measurements`).
 
     The others go to ``Exposure.alternatives`` as ``(family, params, fit)``;
     a family whose search fails to converge is skipped with a note.
     """
+    check_meaning(weight_meaning)
     fits: list[Exposure] = []
     failed: list[str] = []
     for name in tuple(FAMILIES) if families is None else families:
         try:
-            fits.append(fit_measurements(name, values, detected=detected, weights=weights))
+            fits.append(fit_measurements(name, values, detected=detected, weights=weights,
+                                         weight_meaning=weight_meaning))
         except (ConvergenceError, ModelError) as err:
             failed.append(f"{name} not fitted: {err}")
     if not fits:

@@ -68,15 +68,28 @@ def _bfgs_then_simplex(neg: LogLik, theta0: FloatArray) -> FloatArray:
     return cast(FloatArray, res.x)
 
 
-def covariance(loglik: LogLik, theta: FloatArray) -> tuple[FloatArray | None, tuple[str, ...]]:
-    """Inverse observed information at ``theta``; ``None`` with a warning
-    when the information is not positive definite."""
+#: Why a fit has no covariance.
+NOT_POSITIVE = ("the observed information is not positive definite: the fit has no standard "
+                "errors (parameters poorly determined by the data)")
+
+
+def information(loglik: LogLik, theta: FloatArray) -> FloatArray | None:
+    """Observed information (minus the Hessian of ``loglik``) at ``theta``,
+    symmetrised; ``None`` when it is not finite and positive definite."""
     info = approx_hess3(np.asarray(theta, dtype=float), _negative(loglik))
     info = 0.5 * (info + info.T)
     if np.all(np.isfinite(info)) and np.all(np.linalg.eigvalsh(info) > 0):
-        return np.linalg.inv(info), ()
-    return None, ("the observed information is not positive definite: the fit has no standard "
-                  "errors (parameters poorly determined by the data)",)
+        return cast(FloatArray, info)
+    return None
+
+
+def covariance(loglik: LogLik, theta: FloatArray) -> tuple[FloatArray | None, tuple[str, ...]]:
+    """Inverse observed information at ``theta``; ``None`` with a warning
+    when the information is not positive definite."""
+    info = information(loglik, theta)
+    if info is not None:
+        return cast(FloatArray, np.linalg.inv(info)), ()
+    return None, (NOT_POSITIVE,)
 
 
 def maximise(loglik: LogLik, theta0: FloatArray, *, what: str) -> Maximum:
