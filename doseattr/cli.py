@@ -116,10 +116,9 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     analysis = load_analysis(path)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
-    with warnings.catch_warnings():
-        # the summary, results.json and the report list them; Python's own
-        # warning lines would only repeat them on standard error
-        warnings.simplefilter("ignore", DoseattrWarning)
+    with warnings.catch_warnings(record=True) as caught:
+        # shown once each below, as our own lines rather than Python's
+        warnings.simplefilter("always", DoseattrWarning)
         results = run_analysis(analysis, progress=not quiet)
     _same_inputs(read, results.provenance, path)  # as the run finished
     _same_inputs(read, provenance(analysis), path)  # and now, before writing
@@ -128,6 +127,11 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
     except OSError as exc:
         raise InputError(f"cannot write the outputs: {exc.strerror or exc}",
                          location=out_location(out)) from None
+    for w in caught:  # on standard error even with --quiet: they may change a decision
+        if issubclass(w.category, DoseattrWarning):
+            print(f"doseattr: warning: {w.message}", file=sys.stderr)
+        else:  # not ours: as Python would have shown it
+            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
     if not quiet:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")

@@ -21,12 +21,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from reference_integrals import expect_over
 from scipy import stats
 
 from doseattr.analysis.config import analysis_from_dict
 from doseattr.analysis.pipeline import run_analysis
 from doseattr.errors import DoseattrWarning
-from tests.reference_integrals import expect_over
 
 LOGLIN = {"model": "log-linear", "rr": 1.1, "per": 10, "max_dose": 50, "beyond": "flat"}
 EXPOSURE = {"gm": 9.0, "gsd": 2.0}
@@ -331,3 +331,22 @@ def test_demo_raises_none_of_them():
         r = run_analysis(load_analysis(demo))
     for fragment in (HIGH, NEGATIVE, SCALE, COMPARE, EXTRAPOLATED):
         assert not _has(r, fragment)
+
+
+@pytest.mark.parametrize("quiet", [False, True])
+def test_the_command_line_prints_each_warning_on_standard_error(tmp_path, capsys, quiet):
+    """``doseattr run`` shows each results warning once on standard error,
+    as its own line, with or without --quiet; results.json lists it too."""
+    import json
+
+    from doseattr.cli import main
+
+    (tmp_path / "p.csv").write_text(J_POINTS)
+    (tmp_path / "a.toml").write_text('unit = "ug/m3"\n[curve]\npoints = "p.csv"\n[exposure]\n'
+                                     + "".join(f"{k} = {v}\n" for k, v in J_EXPOSURE.items()))
+    argv = ["run", str(tmp_path / "a.toml"), "--out", str(tmp_path / "out")]
+    assert main(argv + (["--quiet"] if quiet else [])) == 0
+    err = capsys.readouterr().err.splitlines()
+    written = json.loads((tmp_path / "out" / "results.json").read_text())["warnings"]
+    assert err == [f"doseattr: warning: {w}" for w in written]
+    assert any(NEGATIVE in line for line in err)
