@@ -42,6 +42,7 @@ from doseattr.core.uncertainty.propagate import Stratum
 from doseattr.errors import DoseattrError
 from doseattr.results.cautions import CAUTIONS
 from doseattr.results.estimate import Estimate
+from doseattr.results.numbers import share_text
 from doseattr.results.records import (
     CASE_WEIGHTED_PAF,
     POPULATION_PAF,
@@ -357,7 +358,7 @@ def _extrapolation(analysis: Analysis, curve, exposure, notes: list[str]) -> lis
                        "results at high exposure are extrapolation")
         return out
     share = float(np.asarray(exposure.sf(np.array([curve.data_max]))).reshape(-1)[0])
-    where = (f"{100 * share:.2g}% of the population is exposed above {curve.data_max:g} {unit}, "
+    where = (f"{share_text(share)} of the population is exposed above {curve.data_max:g} {unit}, "
              "the highest dose with data")
     if curve.max_dose is not None:
         how = f"; the RR is held flat above {curve.max_dose:g} {unit}"

@@ -78,6 +78,17 @@ def pct(v: float | None) -> str:
     return "-" if v is None else f"{100 * v:.2f}%"
 
 
+def share_text(v: float) -> str:
+    """A population share in percent with two significant figures, never in
+    exponent form (``"0.19%"``, ``"12%"``, ``"100%"``)."""
+    p = 100 * float(v)
+    if p >= 99.5:
+        return f"{p:.3g}%"  # 99.9% is not 100%
+    if p >= 10:
+        return f"{p:.0f}%"
+    return f"{p:.2g}%" if p >= 1e-4 else f"{p:.1e}%"
+
+
 def sig(v: float | None) -> str:
     """Four significant digits, or ``"-"`` for ``None``."""
     return "-" if v is None else f"{v:.4g}"

@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from doseattr.results.numbers import share_text
 from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF, StratumExposure
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -57,7 +58,7 @@ def _curve(r: Results) -> list[str]:
     share = r.share_beyond_max_dose
     if c.max_dose is not None and share is not None:
         out.append(f"RR held flat above {c.max_dose:g} {r.unit} "
-                   f"({100 * share:.2g}% of the population above)")
+                   f"({share_text(share)} of the population above)")
     else:
         out.append("RR formula extended over all exposures")
     return out
