@@ -141,7 +141,8 @@ def test_build_uses_the_study_tables_counts_and_says_so(tmp_path):
     path = tmp_path / "bands.csv"
     path.write_text("\n".join(rows) + "\n")
     table = read_study_table(path, design="case-control")
-    spec = SimpleNamespace(covariance="effective-counts", design="case-control")
+    spec = SimpleNamespace(covariance="effective-counts", design="case-control",
+                           total_cases=None, total_noncases=None)
     cov, warnings, notes = log_rr_covariance(spec, table)
     assert cov.method == "effective-counts" and warnings == []
     np.testing.assert_allclose(cov.cov[0, 1], 1 / CASES[0] + 1 / CONTROLS[0], rtol=1e-7)

@@ -200,7 +200,9 @@ def log_rr_covariance(spec: TableCurve,
     if spec.covariance == "effective-counts":
         with as_input_error(t.source, "columns 'rr', 'ci_lower', 'ci_upper'"):
             given = table_conditions(ref=ref, design=design, cases=t.counts.get("cases"),
-                                     totals=t.counts.get(DESIGN_TOTALS[design]))
+                                     totals=t.counts.get(DESIGN_TOTALS[design]),
+                                     total_cases=spec.total_cases,
+                                     total_noncases=spec.total_noncases)
             cov = effective_counts(t.rr, full_var, ref=ref, design=design,
                                    case_ratio=given.case_ratio,
                                    reference_share=given.reference_share,

@@ -100,11 +100,41 @@ def _fitted_curve(c: dict[str, Any], ctx: Context) -> TableCurve:
             raise ctx.error(f"'{name}' is not a model that can be fitted to a table; use "
                             f"{', '.join(FITTED_MODELS)}{suggest(name, FITTED_MODELS)}",
                             "curve", "compare_models")
+    total_cases, total_noncases = _study_totals(c, design, covariance, ctx)
     return TableCurve(model=model, beyond=beyond, table=table, design=design,
                      dose_rule=c.get("dose", "given"), covariance=covariance,
                      offset=float(c.get("offset", 0.0)), max_dose=max_dose, knots=knots,
                      knot_count=knot_count, compare_models=compare,
-                     notes=tuple(notes) + table.notes)
+                     notes=tuple(notes) + table.notes, total_cases=total_cases,
+                     total_noncases=total_noncases)
+
+
+#: The key of the study's total non-cases for each design with effective counts.
+TOTAL_KEYS = {"case-control": "total_controls", "incidence-rate": "total_person_time"}
+
+
+def _study_totals(c: dict[str, Any], design: str | None, covariance: str,
+                  ctx: Context) -> tuple[float | None, float | None]:
+    """``total_cases`` and the design's total of non-cases, for effective
+    counts only (Hamling et al. 2008 use them for the case ratio and, with
+    a reference band's count, its share)."""
+    given = [k for k in ("total_cases", *TOTAL_KEYS.values()) if k in c]
+    if not given:
+        return None, None
+    if covariance != "effective-counts":
+        raise ctx.error(f"'{given[0]}' is used by effective counts only; add covariance = "
+                        "\"effective-counts\" or remove it", "curve", given[0])
+    wrong = [k for k in TOTAL_KEYS.values() if k in c and k != TOTAL_KEYS.get(design or "")]
+    if wrong:
+        raise ctx.error(f"'{wrong[0]}' does not go with design = \"{design}\"; give "
+                        f"{TOTAL_KEYS.get(design or '', 'total_controls')}", "curve", wrong[0])
+    values = []
+    for key in ("total_cases", TOTAL_KEYS[design or "case-control"]):
+        v = c.get(key)
+        if v is not None and not v > 0:
+            raise ctx.error(f"{key} must be above 0, got {v:g}", "curve", key)
+        values.append(None if v is None else float(v))
+    return values[0], values[1]
 
 
 def _covariance_choice(c: dict[str, Any], table: StudyTable, design: str | None, path: str,

@@ -105,6 +105,11 @@ class TableCurve(_Curve):
     knots: tuple[float, ...] | None = None
     knot_count: int = 3
     compare_models: tuple[str, ...] = ()
+    #: The study's totals for effective counts when the table has no count
+    #: columns: total cases, and total controls (case-control) or
+    #: person-time (incidence rate).
+    total_cases: float | None = None
+    total_noncases: float | None = None
 
     @property
     def source(self) -> str:
