@@ -26,6 +26,7 @@ import numpy as np
 
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.specs import BurdenSpec, UncertaintySpec
+from doseattr.core.uncertainty.sampling import small_sample_df
 from doseattr.errors import DoseattrError
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import ScenarioResult, SourceWidth
@@ -200,8 +201,15 @@ def uncertainty_notes(analysis: Analysis, curve, exposure) -> list[str]:
         varied.append("curve coefficients from their fitted normal distribution")
     if isinstance(exposure, EmpiricalExposure):
         varied.append("the exposure values by a weighted bootstrap of the rows")
-    elif exposure.fit is not None and getattr(exposure.fit, "cov_internal", None) is not None:
-        varied.append("exposure parameters from the asymptotic normal of the fit (log scale)")
+    elif exposure.fit is not None and exposure.fit.cov_internal is not None:
+        df = small_sample_df(exposure)
+        if df is None:
+            varied.append("exposure parameters from the asymptotic normal of the fit (log "
+                          "scale)")
+        else:
+            varied.append(f"exposure parameters from a multivariate t with {df:.3g} degrees of "
+                          "freedom (Kish effective sample size less the parameters) around the "
+                          "fit, its sandwich covariance scaled by n_eff/(n_eff - p) (log scale)")
     if analysis.attribution.minimum_risk_range is not None:
         varied.append("the minimum-risk level, uniform over its range")
     if u.poisson_cases:

@@ -18,6 +18,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -72,8 +73,42 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
     if cov is None:
         return ExposureDraws(params=np.broadcast_to(exposure.params, (n, exposure.params.size)))
     theta = exposure.family.to_internal(exposure.params)
-    draws = rng.multivariate_normal(theta, cov, size=n, method="eigh")
+    df = small_sample_df(exposure)
+    if df is None:
+        draws = rng.multivariate_normal(theta, cov, size=n, method="eigh")
+    else:
+        draws = multivariate_t(theta, cov * _hc1(exposure), df, n, rng)
     return ExposureDraws(params=exposure.family.from_internal(draws), varies=True)
+
+
+def small_sample_df(exposure: Exposure) -> float | None:
+    """Degrees of freedom for an importance-weighted fit's draws: the Kish
+    effective sample size less the number of parameters (``None`` for
+    other fits, whose draws stay normal)."""
+    fit = exposure.fit
+    if fit is None or fit.weights_meaning != "importance" or fit.effective_n is None:
+        return None
+    return max(float(fit.effective_n) - exposure.params.size, 3.0)
+
+
+def _hc1(exposure: Exposure) -> float:
+    """n_eff / (n_eff - p): the small-sample factor of a sandwich covariance
+    (MacKinnon & White 1985, J Econometrics 29:305, HC1; from memory)."""
+    fit = exposure.fit
+    assert fit is not None and fit.effective_n is not None
+    p = exposure.params.size
+    return float(fit.effective_n) / max(float(fit.effective_n) - p, 1.0)
+
+
+def multivariate_t(mean: FloatArray, scale: FloatArray, df: float, n: int,
+                   rng: np.random.Generator) -> FloatArray:
+    r"""``n`` draws of a multivariate t with location ``mean``, scale matrix
+    ``scale`` and ``df`` degrees of freedom: :math:`\mu + Z\sqrt{\nu/W}`,
+    :math:`Z \sim N(0, \Sigma)`, :math:`W \sim \chi^2_\nu` (Kotz &
+    Nadarajah 2004, Multivariate t Distributions; from memory)."""
+    z = rng.multivariate_normal(np.zeros_like(mean), scale, size=n, method="eigh")
+    w = rng.chisquare(df, size=n)
+    return cast(FloatArray, mean + z * np.sqrt(df / w)[:, None])
 
 
 def fixed_exposure(exposure: Exposure | EmpiricalExposure, n: int) -> ExposureDraws:
