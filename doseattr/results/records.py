@@ -247,13 +247,26 @@ class StratumEffect:
     name: str
     pif: Estimate
     averted: Estimate
+    #: Averted cases per ``rate_per`` people (``None`` without population).
+    averted_rate: Estimate | None = None
+    #: Averted years of life lost (``None`` without life expectancy).
+    averted_yll: Estimate | None = None
 
 
 @dataclass(frozen=True)
 class StratumResult:
-    """Attributable cases in one stratum (or the total): observed cases,
-    PAF, attributable cases and each scenario's effect; ``exposure`` is
-    ``None`` for the total."""
+    """Attributable cases in one row of the burden table (a stratum, or a
+    stratum and group) or in a sum of rows (a group across strata, a
+    stratum across groups, an outcome, all outcomes).
+
+    ``paf`` is the fraction that turned the cases into attributable cases
+    under the burden's method (attributable over cases, draw by draw, for
+    a sum); ``rate`` the baseline rate as given (per ``rate_per``, ``None``
+    when the row gave cases); ``attributable_rate`` attributable cases per
+    ``rate_per`` people (``None`` without population); ``yll`` attributable
+    deaths times remaining life expectancy (``None`` without it);
+    ``exposure`` is ``None`` for a sum of rows.
+    """
 
     stratum: str
     cases: float
@@ -262,6 +275,11 @@ class StratumResult:
     scenarios: tuple[StratumEffect, ...] = ()
     population: float | None = None
     exposure: StratumExposure | None = None
+    group: str | None = None
+    rate: float | None = None
+    attributable_rate: Estimate | None = None
+    yll: Estimate | None = None
+    life_expectancy: float | None = None
 
 
 @dataclass(frozen=True)
@@ -272,10 +290,44 @@ class BurdenResult:
 
     strata: tuple[StratumResult, ...]
     total: StratumResult
+    #: ``"paf"`` (cases x PAF) or ``"impact-function"`` (cases x E[1 - 1/RR]).
+    method: str = "paf"
+    rate_per: float = 100_000.0
+    #: Each group summed across strata (empty without a ``group`` column).
+    groups: tuple[StratumResult, ...] = ()
+    #: Each stratum summed across its groups (empty without groups).
+    stratum_totals: tuple[StratumResult, ...] = ()
 
     @property
     def any_own_exposure(self) -> bool:
         return any(s.exposure is not None and s.exposure.own for s in self.strata)
+
+    @property
+    def has_groups(self) -> bool:
+        return any(s.group is not None for s in self.strata)
+
+    @property
+    def has_yll(self) -> bool:
+        return self.total.yll is not None
+
+    @property
+    def has_rates(self) -> bool:
+        return self.total.attributable_rate is not None
+
+
+#: The two ways from fractions to attributable cases (``[burden] method``).
+BURDEN_METHODS = ("paf", "impact-function")
+
+#: What each method computes and assumes, for the report's methods section.
+METHOD_TEXT = {
+    "paf": ("attributable = observed cases x PAF, with PAF = 1 - 1/E[RR_m(X)]: the observed "
+            "rate is taken as the rate of the whole exposed population (comparative risk "
+            "assessment; Murray et al. 2003, Popul Health Metr 1:1)"),
+    "impact-function": ("attributable = observed cases x E[1 - 1/RR_m(X)]: the health impact "
+                        "function applied to each person's own exposure, which takes the "
+                        "observed rate as the rate at each person's exposure (Kunzli et al. "
+                        "2000, Lancet 356:795; from memory)"),
+}
 
 
 #: What each headline fraction is: the PAF of the whole population over the

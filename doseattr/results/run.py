@@ -33,6 +33,7 @@ from doseattr.results.records import (
     RunInputs,
     ScenarioResult,
     SourceWidth,
+    StratumResult,
     SubstitutionResult,
     UncertaintySection,
     Workers,
@@ -61,6 +62,13 @@ class Results:
         Attributable cases by stratum and in total, or ``None``.
     outcomes
         ``(name, Results)`` for each ``[[outcome]]``, side by side.
+    grand_total
+        Attributable cases, rates and years of life lost summed over every
+        outcome's burden draw by draw (``None`` without outcomes with
+        ``[burden]``).
+    group_runs
+        For an outcome with group-specific curves: ``(groups, Results)``
+        of each curve (its curve, population PAF and rows); empty otherwise.
     warnings, cautions, notes
         Problems with this run; the standing cautions on interpreting any
         PAF; how inputs were interpreted.
@@ -78,6 +86,8 @@ class Results:
     uncertainty: UncertaintySection | None = None
     burden: BurdenResult | None = None
     outcomes: tuple[tuple[str, Results], ...] = ()
+    grand_total: StratumResult | None = None
+    group_runs: tuple[tuple[tuple[str, ...], Results], ...] = ()
     warnings: tuple[str, ...] = ()
     cautions: tuple[str, ...] = CAUTIONS
     notes: tuple[str, ...] = ()

@@ -1,6 +1,6 @@
 """``results.json``: generated here, and only here, from the run's records.
 
-Schema version "2.0" (published as ``results.schema.json`` in this
+Schema version "2.1" (published as ``results.schema.json`` in this
 package). Every estimate is one object ``{estimate, lower, upper, mcse,
 lower_mcse, upper_mcse}``;
 every number is a plain float or ``None``; a NaN or infinity reaching this
@@ -41,7 +41,7 @@ from doseattr.results.records import (
 if TYPE_CHECKING:
     from doseattr.results.run import Results
 
-SCHEMA_VERSION = "2.0"
+SCHEMA_VERSION = "2.1"
 
 #: The keys an outcome repeats from the top level.
 OUTCOME_KEYS = ("paf", "minimum_risk", "scenarios", "curve", "categorical", "burden",
@@ -68,7 +68,7 @@ def results_dict(r: Results) -> dict[str, Any]:
                          "median": num(a.contribution.median)},
         "bands": bands_list(r.curve_section.bands),
         "uncertainty": uncertainty_dict(r.uncertainty),
-        "burden": burden_dict(r.burden),
+        "burden": burden_dict(r.burden, r.grand_total),
         "outcomes": [outcome_dict(name, o) for name, o in r.outcomes],
         "workers": workers_list(r.exposure_section.workers),
         "exposure_comparison": [exposure_variant_dict(v) for v in r.exposure_section.comparison],
@@ -104,7 +104,10 @@ def attribution_dict(a: AttributionSection, burden: BurdenResult | None) -> dict
 def outcome_dict(name: str, r: Results) -> dict[str, Any]:
     """One outcome's results: the same keys as the top level."""
     d = results_dict(r)
-    return {"name": name, **{k: d[k] for k in OUTCOME_KEYS}}
+    return {"name": name, **{k: d[k] for k in OUTCOME_KEYS},
+            "group_curves": [{"groups": list(groups), "curve": curve_dict(g.curve_section),
+                              "paf": estimate_dict(g.attribution.paf)}
+                             for groups, g in r.group_runs]}
 
 
 def bands_list(b: BandTable | None) -> list[dict[str, Any]] | None:
@@ -255,26 +258,54 @@ def stratum_exposure_dict(e: StratumExposure | None) -> dict[str, Any] | None:
             "mean": num(e.mean), "given": None if e.given is None else params(e.given)}
 
 
+def _maybe(e: Estimate | None) -> dict[str, float | None] | None:
+    return None if e is None else estimate_dict(e)
+
+
 def stratum_dict(s: StratumResult) -> dict[str, Any]:
-    return {"stratum": s.stratum, "cases": num(s.cases), "population": num(s.population),
+    return {"stratum": s.stratum, "group": s.group, "cases": num(s.cases),
+            "population": num(s.population), "rate": num(s.rate),
+            "life_expectancy": num(s.life_expectancy),
             "paf": estimate_dict(s.paf),
             # schema 1.0 had the interval here beside a plain-number paf; kept
             # (the same object as paf) for readers of the keys earlier issues named
             "paf_interval": estimate_dict(s.paf),
             "attributable": estimate_dict(s.attributable),
+            "attributable_rate": _maybe(s.attributable_rate),
+            "yll": _maybe(s.yll),
             "exposure": stratum_exposure_dict(s.exposure),
             "scenarios": [{"name": e.name, "pif": estimate_dict(e.pif),
-                           "averted": estimate_dict(e.averted)} for e in s.scenarios]}
+                           "averted": estimate_dict(e.averted),
+                           "averted_rate": _maybe(e.averted_rate),
+                           "averted_yll": _maybe(e.averted_yll)} for e in s.scenarios]}
 
 
-def burden_dict(b: BurdenResult | None) -> dict[str, Any] | None:
-    if b is None:
+def _sum_dict(s: StratumResult) -> dict[str, Any]:
+    """A sum of rows: the row keys without the row's own exposure and life
+    expectancy."""
+    d = stratum_dict(s)
+    for key in ("exposure", "life_expectancy", "rate"):
+        d.pop(key)
+    return d
+
+
+def burden_dict(b: BurdenResult | None,
+                grand_total: StratumResult | None = None) -> dict[str, Any] | None:
+    if b is None and grand_total is None:
         return None
-    total = stratum_dict(b.total)
-    total.pop("stratum")
-    total.pop("exposure")
-    return {"strata": [stratum_dict(s) for s in b.strata], "total": total,
-            "total_label": CASE_WEIGHTED_PAF}
+    d: dict[str, Any] = {"method": "paf", "rate_per": None, "strata": [], "total": None,
+                         "groups": [], "stratum_totals": [],
+                         "total_label": CASE_WEIGHTED_PAF}
+    if b is not None:
+        total = _sum_dict(b.total)
+        total.pop("stratum")
+        d.update(method=b.method, rate_per=num(b.rate_per),
+                 strata=[stratum_dict(s) for s in b.strata], total=total,
+                 groups=[_sum_dict(g) for g in b.groups],
+                 stratum_totals=[_sum_dict(g) for g in b.stratum_totals])
+    if grand_total is not None:
+        d["grand_total"] = _sum_dict(grand_total)
+    return d
 
 
 def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:
