@@ -11,23 +11,23 @@ PAF is :math:`\sum_s A_s / \sum_s N_s` (core
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 
 from doseattr.analysis.assemble import stratum_exposure as stratum_exposure_record
 from doseattr.analysis.build import as_input_error
+from doseattr.analysis.burden_sums import Quantity, RowDraws, row_result, sum_result
 from doseattr.analysis.config import Analysis
 from doseattr.analysis.intervals import (
     SOURCES,
     burden_spec,
-    interval,
     minimum_risk_range,
     progress_bar,
 )
 from doseattr.errors import InputError
-from doseattr.results.estimate import Estimate
-from doseattr.results.records import BurdenResult, StratumEffect, StratumResult
+from doseattr.results.records import BurdenResult, StratumResult
 
 
 def burden_strata(analysis: Analysis, exposure) -> list:
@@ -47,70 +47,130 @@ def burden_strata(analysis: Analysis, exposure) -> list:
 POPULATION = "population"
 
 
+@dataclasses.dataclass(frozen=True, eq=False)
+class BurdenRun:
+    """One burden table's results: the records, the draws of every row
+    (:class:`~doseattr.analysis.burden_sums.RowDraws`), the core
+    propagation of the population (index 0) and the rows under the
+    burden's method, and that of the population's PAF (the same object
+    for the ``"paf"`` method); the propagations are ``None`` without
+    ``[uncertainty]``."""
+
+    result: BurdenResult
+    rows: RowDraws
+    draws: Any
+    population_draws: Any
+
+
+def streams(analysis: Analysis, stream: int | None) -> dict[str, np.random.Generator]:
+    """The generators of one burden run. Every run draws the minimum-risk
+    level and the exposures from ``[seed, 1]``, so that runs of different
+    curves share them; a run of an ``[[outcome]]`` block (``stream`` = its
+    index) draws its curve and Poisson cases from streams of its own."""
+    u = analysis.uncertainty
+    assert u is not None
+    out = {"rng": np.random.default_rng([u.seed, 1])}
+    if stream is not None:
+        out["curve_rng"] = np.random.default_rng([u.seed, 1, 1, stream])
+        out["case_rng"] = np.random.default_rng([u.seed, 1, 2, stream])
+    return out
+
+
 def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: bool, *,
-               shared) -> tuple[BurdenResult, Any]:
-    """Attributable cases per stratum and in total, with their Monte Carlo
-    draws (``None`` without ``[uncertainty]``); ``shared`` is the
-    population's exposure, which a stratum without its own uses.
+               shared, stream: int | None = None) -> BurdenRun:
+    """Attributable cases per row of the burden table and in total, with
+    their Monte Carlo draws; ``shared`` is the population's exposure, which
+    a row without its own uses.
 
     The draws hold the population over the shared exposure at index 0
-    (with 0 cases), then the strata: one set of draws of the curve, the
+    (with 0 cases), then the rows: one set of draws of the curve, the
     minimum-risk level and each exposure serves them all (common random
-    numbers), so a stratum with the shared exposure has the population's
-    PAF draw by draw, and scenarios and strata differ only by what differs.
+    numbers), so a row with the shared exposure has the population's
+    fraction draw by draw, and scenarios and rows differ only by what
+    differs. With ``method = "impact-function"`` the population's PAF
+    (``1 - 1/E[RR]``) is drawn again from the same seeds (so the same draws).
     """
     from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate
 
+    spec = burden_spec(analysis)
+    method = getattr(spec, "method", "paf")
     transforms = [sc for _, sc in scenarios]
     strata = [Stratum(POPULATION, 0.0, shared), *strata]
-    point = point_values(curve, strata, transforms, analysis.attribution.minimum_risk)
-    draws = None
+    m = analysis.attribution.minimum_risk
+    point = point_values(curve, strata, transforms, m, method)
+    draws = population = None
     u = analysis.uncertainty
     if u is not None:
         sources = SOURCES + (("cases",) if u.poisson_cases else ())
         total = u.draws * len({id(s.exposure) for s in strata}) * (1 + len(transforms))
         with progress_bar(total, progress) as tick:
             draws = propagate(curve, strata, transforms, draws=u.draws,
-                              rng=np.random.default_rng([u.seed, 1]),
                               minimum_risk=minimum_risk_range(analysis), sources=sources,
-                              progress=tick)
-    names = [sc.name for sc in transforms]
-    table = burden_spec(analysis).table
-    pop = table.population
-    rows = tuple(dataclasses.replace(
-        _row(name, float(table.cases[s]), point, draws, names, s + 1,
-             None if pop is None else float(pop[s])),
-        exposure=stratum_exposure_record(strata[s + 1].exposure, shared, table.exposure[s]))
-        for s, name in enumerate(table.strata))
-    overall = _row("total", float(table.cases.sum()), point, draws, names, None,
-                   None if pop is None else float(pop.sum()))
-    return BurdenResult(rows, overall), draws
+                              progress=tick, method=method, **streams(analysis, stream))
+        population = draws
+        if method != "paf":
+            population = propagate(curve, strata[:1], transforms, draws=u.draws,
+                                   minimum_risk=minimum_risk_range(analysis), sources=SOURCES,
+                                   **streams(analysis, stream))
+    rows = row_draws(spec, point, draws)
+    rate_per = getattr(spec, "rate_per", 100_000.0)
+    records = tuple(dataclasses.replace(
+        row_result(rows, s, rate_per), rate=_rate(spec.table, s),
+        exposure=stratum_exposure_record(strata[s + 1].exposure, shared, spec.table.exposure[s]))
+        for s in range(len(rows)))
+    return BurdenRun(burden_result(rows, records, method, rate_per), rows, draws, population)
 
 
-def _row(name: str, cases: float, point, draws, names: list[str], s: int | None,
-         population: float | None) -> StratumResult:
-    """Stratum ``s`` (``None`` for the total) as a :class:`StratumResult`."""
-
-    def est(attr: str, scenario: str | None = None) -> Estimate:
-        value = float(np.ravel(_pick(point, attr, s, scenario))[0])
-        if draws is None:
-            return Estimate(value)
-        return interval(value, _pick(draws, attr, s, scenario), "burden")
-
-    return StratumResult(name, cases, est("paf"), est("attributable"),
-                         tuple(StratumEffect(n, est("pif", n), est("averted", n))
-                               for n in names),
-                         population)
+def _rate(table, s: int) -> float | None:
+    rates = getattr(table, "rates", None)
+    if rates is None or np.isnan(rates[s]):
+        return None
+    return float(rates[s])
 
 
-def _pick(prop, attr: str, s: int | None, scenario: str | None) -> np.ndarray:
-    """One output of a core ``Propagation``: stratum ``s`` or the total."""
-    if s is None:
-        if attr in ("paf", "attributable"):
-            return getattr(prop, f"total_{attr}")
-        return getattr(prop, f"total_{attr}")(scenario)
-    value = getattr(prop, attr)
-    return (value[scenario] if scenario is not None else value)[s]
+def row_draws(spec, point, draws) -> RowDraws:
+    """The rows of the burden table (indices 1.. of the propagations)."""
+    table = spec.table
+    n = len(table.strata)
+
+    def q(attr: str, scenario: str | None = None) -> Quantity:
+        def pick(prop):
+            value = getattr(prop, attr)
+            return np.asarray((value[scenario] if scenario is not None else value)[1:])
+        return Quantity(pick(point)[:, 0], None if draws is None else pick(draws))
+
+    groups = getattr(table, "groups", None)
+    le = getattr(table, "life_expectancy", None)
+    names = list(point.pif)
+    return RowDraws(
+        tuple(table.strata), tuple(groups) if groups is not None else (None,) * n,
+        np.full(n, np.nan) if table.population is None else np.asarray(table.population, float),
+        np.full(n, np.nan) if le is None else np.asarray(le, float),
+        q("cases"), q("paf"), q("attributable"), {k: q("pif", k) for k in names},
+        {k: q("averted", k) for k in names})
+
+
+def burden_result(rows: RowDraws, records: Sequence[StratumResult], method: str,
+                  rate_per: float) -> BurdenResult:
+    """The burden of ``rows`` (each already a record): the total, each group
+    across strata and each stratum across groups (with groups only)."""
+    groups: tuple[StratumResult, ...] = ()
+    strata_sums: tuple[StratumResult, ...] = ()
+    if any(g is not None for g in rows.groups):
+        groups = tuple(sum_result(rows.take(_where(rows.groups, g)), "all strata", g, rate_per)
+                       for g in _unique(rows.groups))
+        strata_sums = tuple(sum_result(rows.take(_where(rows.strata, s)), s, None, rate_per)
+                            for s in _unique(rows.strata))
+    return BurdenResult(tuple(records), sum_result(rows, "total", None, rate_per), method,
+                        rate_per, groups, strata_sums)
+
+
+def _unique(items: Sequence) -> list:
+    return list(dict.fromkeys(items))
+
+
+def _where(items: Sequence, value) -> list[int]:
+    return [i for i, v in enumerate(items) if v == value]
 
 
 def stratum_exposure(analysis: Analysis, shared, override: dict | None, line: int):

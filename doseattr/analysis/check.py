@@ -60,6 +60,8 @@ class Prepared:
     paf: float
     pifs: tuple[float, ...]
     warnings: tuple[str, ...] = ()
+    #: Index of the ``[[outcome]]`` block (its own curve and case streams).
+    stream: int | None = None
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -115,7 +117,8 @@ def prepare_all(analysis: Analysis) -> PreparedAll:
         sub = dataclasses.replace(analysis, curve=outcome.curve, burden=outcome.burden,
                                   outcomes=())
         with outcome_location(i, outcome.name):
-            runs.append((outcome.name, prepare(sub, built_exposure=shared)))
+            runs.append((outcome.name, dataclasses.replace(
+                prepare(sub, built_exposure=shared), stream=i)))
     top = None
     if analysis.own_curve:
         top = prepare(dataclasses.replace(analysis, outcomes=()), built_exposure=shared)

@@ -156,7 +156,7 @@ def varying_sources(analysis: Analysis, curve, strata: Sequence) -> tuple[str, .
 
 
 def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
-                    progress: bool) -> tuple[SourceWidth, ...]:
+                    progress: bool, method: str = "paf") -> tuple[SourceWidth, ...]:
     """The 95% interval of the overall PAF (total attributable over total
     cases with ``[burden]``, else the PAF) with one source varying at a
     time; one entry per source that varies."""
@@ -170,7 +170,7 @@ def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
             prop = propagate(curve, strata, [], draws=u.draws,
                              rng=np.random.default_rng([u.seed, 2, i]),
                              minimum_risk=minimum_risk_range(analysis), sources=(source,),
-                             progress=tick)
+                             progress=tick, method=method)
             out.append(source_width(analysis, source, point, prop))
     return tuple(out)
 

@@ -24,6 +24,7 @@ from doseattr.analysis.alarms import result_alarms
 from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.analysis.build import BuiltCurve
 from doseattr.analysis.burden_run import run_burden
+from doseattr.analysis.burden_sums import RowDraws
 from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_all
 from doseattr.analysis.comparisons import curve_variants, exposure_variants, substitution_results
 from doseattr.analysis.config import Analysis
@@ -117,6 +118,11 @@ def _warn(results: Results) -> None:
 
 def _run_prepared(p: Prepared, progress: bool) -> Results:
     """Compute every result of one checked analysis (no ``[[outcome]]``)."""
+    return _run_block(p, progress)[0]
+
+
+def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
+    """:func:`_run_prepared`, with the draws of the burden table's rows."""
     analysis = p.analysis
     built_exposure = p.built_exposure
     exposure = built_exposure.exposure
@@ -139,7 +145,7 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
         exposure_comparison=families, contribution=point.contribution))
     with divergence(analysis):
         analysis, mc = _monte_carlo_to_precision(analysis, curve, exposure, scenarios, point,
-                                                 p.strata, progress)
+                                                 p.strata, progress, p.stream)
     notes.extend(mc.notes + _range_note(analysis))
     scenario_results = tuple(dataclasses.replace(s, averted=_averted(mc.burden, s.name))
                              for s in mc.scenarios)
@@ -156,7 +162,8 @@ def _run_prepared(p: Prepared, progress: bool) -> Results:
             worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits)),
         attribution=attribution, categorical=point.categorical,
         uncertainty=mc.uncertainty, burden=mc.burden,
-        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes)))
+        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes))
+    ), mc.rows
 
 
 def _averted(burden: BurdenResult | None, name: str) -> Estimate | None:
@@ -205,32 +212,38 @@ class _MonteCarlo:
     uncertainty: UncertaintySection | None = None
     burden: BurdenResult | None = None
     notes: list[str] = dataclasses.field(default_factory=list)
+    rows: RowDraws | None = None
 
 
 def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
-                 strata: list | None, progress: bool) -> _MonteCarlo:
+                 strata: list | None, progress: bool, stream: int | None = None) -> _MonteCarlo:
     """PAF and PIF intervals, attributable cases, and which input drives
     the width of the overall PAF's interval (``strata`` from the checks)."""
-    burden, burden_draws = (None, None) if strata is None else run_burden(
-        analysis, curve, strata, scenarios, progress, shared=exposure)
+    run = None if strata is None else run_burden(
+        analysis, curve, strata, scenarios, progress, shared=exposure, stream=stream)
+    burden = None if run is None else run.result
+    rows = None if run is None else run.rows
     if analysis.uncertainty is None:
-        return _MonteCarlo(Estimate(point.paf), point.scenarios, burden=burden)
-    if strata is None or burden is None or burden_draws is None:
+        return _MonteCarlo(Estimate(point.paf), point.scenarios, burden=burden, rows=rows)
+    method = "paf"
+    if strata is None or run is None or run.draws is None:
         prop, paf, scenario_results = population_intervals(
             analysis, curve, exposure, scenarios, point.paf, point.scenarios, progress)
         strata, overall, draws = [Stratum("population", 1.0, exposure)], point.paf, prop
     else:  # the population is stratum 0 of the burden's draws (common random numbers)
-        prop = draws = burden_draws
-        paf, scenario_results = population_estimates(prop, point.paf, point.scenarios)
-        overall = burden.total.paf.estimate
-    widths = width_by_source(analysis, curve, strata, overall, progress)
+        prop = draws = run.draws
+        paf, scenario_results = population_estimates(run.population_draws, point.paf,
+                                                     point.scenarios)
+        overall = run.result.total.paf.estimate
+        method = run.result.method
+    widths = width_by_source(analysis, curve, strata, overall, progress, method=method)
     u = analysis.uncertainty
     section = UncertaintySection(int(u.draws), int(u.seed), 0.95, widths,
                                  source_width(analysis, "all", overall, draws), prop,
                                  analysis.attribution.minimum_risk_range is not None,
                                  POPULATION_PAF if burden is None else CASE_WEIGHTED_PAF)
     return _MonteCarlo(paf, scenario_results, section, burden,
-                       uncertainty_notes(analysis, curve, exposure))
+                       uncertainty_notes(analysis, curve, exposure), rows)
 
 
 #: Most draws ``[uncertainty] precision`` may raise the run to.
@@ -238,15 +251,15 @@ PRECISION_CAP = MAX_DRAWS
 
 
 def _monte_carlo_to_precision(analysis: Analysis, curve, exposure, scenarios, point: _Point,
-                              strata: list | None,
-                              progress: bool) -> tuple[Analysis, _MonteCarlo]:
+                              strata: list | None, progress: bool,
+                              stream: int | None = None) -> tuple[Analysis, _MonteCarlo]:
     """:func:`_monte_carlo`, then, with ``[uncertainty] precision``, again
     with more draws until every interval limit of a fraction has a Monte
     Carlo standard error below it or :data:`PRECISION_CAP` draws are
     reached. The MCSE of a limit falls as 1/sqrt(draws), so each step asks
     for (MCSE / precision)^2 times the draws, 1.2 times over, between 2 and
     16 times more. Returns the analysis as run (its draws) and the results."""
-    mc = _monte_carlo(analysis, curve, exposure, scenarios, point, strata, progress)
+    mc = _monte_carlo(analysis, curve, exposure, scenarios, point, strata, progress, stream)
     u = analysis.uncertainty
     if u is None or u.precision is None:
         return analysis, mc
@@ -255,7 +268,7 @@ def _monte_carlo_to_precision(analysis: Analysis, curve, exposure, scenarios, po
         factor = min(16.0, max(2.0, 1.2 * (worst / target) ** 2))
         u = dataclasses.replace(u, draws=int(min(PRECISION_CAP, math.ceil(u.draws * factor))))
         analysis = dataclasses.replace(analysis, uncertainty=u)
-        mc = _monte_carlo(analysis, curve, exposure, scenarios, point, strata, progress)
+        mc = _monte_carlo(analysis, curve, exposure, scenarios, point, strata, progress, stream)
         worst = _worst_limit_mcse(mc)
     mc.notes.append(_precision_note(target, start, u.draws, worst))
     return analysis, mc

@@ -107,7 +107,9 @@ class Propagation:
 def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scenario], *,
               draws: int, rng: np.random.Generator, minimum_risk: tuple[float, float],
               sources: Sequence[str] = SOURCES,
-              progress: Callable[[int], None] | None = None) -> Propagation:
+              progress: Callable[[int], None] | None = None, method: str = "paf",
+              curve_rng: np.random.Generator | None = None,
+              case_rng: np.random.Generator | None = None) -> Propagation:
     """Draws of PAF, PIF and attributable cases for every stratum.
 
     Parameters
@@ -119,50 +121,101 @@ def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scena
         drives the width of an interval.
     progress
         Called with the number of integrals finished, after each batch.
+    method
+        ``"paf"``: the fractions are :math:`1 - 1/E[RR_m(X)]` and
+        :math:`1 - E[RR_m(g(X))]/E[RR_m(X)]`; ``"impact-function"``: they
+        are :math:`E[1 - 1/RR_m(X)]` and :math:`E[1 - RR_m(g(X))/RR_m(X)]`
+        (:mod:`doseattr.core.attribution.impact`).
+    curve_rng, case_rng
+        Separate generators for the curve coefficients and the Poisson
+        cases. With them, ``rng`` draws only the minimum-risk level and the
+        exposures, so runs of different curves (or of different strata)
+        that pass the same ``rng`` seed share those draws exactly (common
+        random numbers across curves) while their curves and cases stay
+        independent. Without them every draw comes from ``rng``.
     """
     assert set(sources) <= set(SOURCES), sources
+    assert method in METHODS, method
     assert len({s.name for s in strata}) == len(strata), "stratum names must be unique"
     n = int(draws)
-    coef = curve_draws(curve, n, rng) if "curve" in sources else np.broadcast_to(curve.coef, (n, curve.coef.size))
+    coef = (curve_draws(curve, n, rng if curve_rng is None else curve_rng) if "curve" in sources
+            else np.broadcast_to(curve.coef, (n, curve.coef.size)))
     lo, hi = minimum_risk
     m = minimum_risk_draws(lo, hi, n, rng) if "minimum_risk" in sources else np.full(n, 0.5 * (lo + hi))
     exposures = _unique_exposures(strata)
     ex_draws = {key: (exposure_draws(e, n, rng) if "exposure" in sources else fixed_exposure(e, n))
                 for key, e in exposures.items()}
-    cases = case_draws(np.array([s.cases for s in strata]), n, rng, "cases" in sources)
-    excess: dict[tuple[int, str | None], FloatArray] = {}
-    for key, e in exposures.items():
-        for scn in (None, *scenarios):
-            excess[key, None if scn is None else scn.name] = _excess(curve, coef, e, ex_draws[key], m, scn)
-            if progress is not None:
-                progress(n)
-    keys = [id(s.exposure) for s in strata]
-    paf = np.stack([paf_from_excess(excess[k, None]) for k in keys])
-    pif = {scn.name: np.stack([pif_from_excess(excess[k, None], excess[k, scn.name]) for k in keys])
-           for scn in scenarios}
-    return Propagation(tuple(s.name for s in strata), np.asarray(cases, dtype=float), paf,
-                       paf * cases, pif, {k: v * cases for k, v in pif.items()}, tuple(sources))
+    cases = case_draws(np.array([s.cases for s in strata]), n,
+                       rng if case_rng is None else case_rng, "cases" in sources)
+    fractions = _fractions(method, curve, coef, exposures, ex_draws, m, scenarios, progress, n)
+    return _assemble(strata, scenarios, np.asarray(cases, dtype=float), fractions, tuple(sources))
 
 
 def point_values(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scenario],
-                 minimum_risk: float) -> Propagation:
+                 minimum_risk: float, method: str = "paf") -> Propagation:
     """The same outputs at the point estimates of every input (one "draw")."""
-    coef = curve.coef[None, :]
+    assert method in METHODS, method
     exposures = _unique_exposures(strata)
-    excess = {(key, None if scn is None else scn.name):
-              _excess(curve, coef, e, fixed_exposure(e, 1), np.array([minimum_risk]), scn)
-              for key, e in exposures.items() for scn in (None, *scenarios)}
+    fixed = {key: fixed_exposure(e, 1) for key, e in exposures.items()}
+    fractions = _fractions(method, curve, curve.coef[None, :], exposures, fixed,
+                           np.array([minimum_risk]), scenarios, None, 1)
     cases = np.array([[s.cases] for s in strata], dtype=float)
+    return _assemble(strata, scenarios, cases, fractions, ())
+
+
+#: The two ways from fractions to attributable cases.
+METHODS = ("paf", "impact-function")
+
+#: (exposure key, scenario name or None) -> fraction draws (D,)
+_Fractions = dict[tuple[int, "str | None"], FloatArray]
+
+
+def _fractions(method: str, curve: Curve, coef: FloatArray, exposures: dict[int, AnyExposure],
+               ex_draws: dict[int, ExposureDraws], m: FloatArray,
+               scenarios: Sequence[Scenario], progress: Callable[[int], None] | None,
+               n: int) -> _Fractions:
+    """The attributable fraction (key ``None``) and each scenario's
+    averted fraction per unique exposure, by ``method``."""
+    out: _Fractions = {}
+    for key, e in exposures.items():
+        if method == "paf":
+            excess = {None if scn is None else scn.name: _excess(curve, coef, e, ex_draws[key], m, scn)
+                      for scn in (None, *scenarios)}
+            out[key, None] = paf_from_excess(excess[None])
+            for scn in scenarios:
+                out[key, scn.name] = pif_from_excess(excess[None], excess[scn.name])
+        else:
+            for scn in (None, *scenarios):
+                out[key, None if scn is None else scn.name] = _impact(curve, coef, e, ex_draws[key],
+                                                                      m, scn)
+        if progress is not None:
+            progress(n * (1 + len(scenarios)))
+    return out
+
+
+def _assemble(strata: Sequence[Stratum], scenarios: Sequence[Scenario], cases: FloatArray,
+              fractions: _Fractions, sources: tuple[str, ...]) -> Propagation:
     keys = [id(s.exposure) for s in strata]
-    paf = np.stack([paf_from_excess(excess[k, None]) for k in keys])
-    pif = {scn.name: np.stack([pif_from_excess(excess[k, None], excess[k, scn.name]) for k in keys])
-           for scn in scenarios}
+    paf = np.stack([fractions[k, None] for k in keys])
+    pif = {scn.name: np.stack([fractions[k, scn.name] for k in keys]) for scn in scenarios}
     return Propagation(tuple(s.name for s in strata), cases, paf, paf * cases, pif,
-                       {k: v * cases for k, v in pif.items()}, ())
+                       {k: v * cases for k, v in pif.items()}, sources)
 
 
 def _unique_exposures(strata: Sequence[Stratum]) -> dict[int, AnyExposure]:
     return {id(s.exposure): s.exposure for s in strata}
+
+
+def _impact(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
+            m: FloatArray, scenario: Scenario | None) -> FloatArray:
+    from doseattr.core.attribution.impact import empirical_impact_draws, impact_draws
+
+    if isinstance(exposure, EmpiricalExposure):
+        assert ex.values is not None and ex.weights is not None
+        return empirical_impact_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
+                                      m, scenario)
+    assert ex.params is not None
+    return impact_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
 
 
 def _excess(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
