@@ -147,7 +147,7 @@ def row_draws(spec, point, draws) -> RowDraws:
         np.full(n, np.nan) if table.population is None else np.asarray(table.population, float),
         np.full(n, np.nan) if le is None else np.asarray(le, float),
         q("cases"), q("paf"), q("attributable"), {k: q("pif", k) for k in names},
-        {k: q("averted", k) for k in names})
+        {k: q("averted", k) for k in names}, tuple(table.lines))
 
 
 def burden_result(rows: RowDraws, records: Sequence[StratumResult], method: str,

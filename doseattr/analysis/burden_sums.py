@@ -72,6 +72,8 @@ class RowDraws:
     attributable: Quantity
     pif: dict[str, Quantity]
     averted: dict[str, Quantity]
+    #: Line of each row in its burden table (to restore the table's order).
+    lines: tuple[int, ...] = ()
 
     def take(self, idx: Sequence[int]) -> RowDraws:
         i = list(idx)
@@ -79,7 +81,8 @@ class RowDraws:
                         self.population[i], self.life_expectancy[i], self.cases.take(i),
                         self.fraction.take(i), self.attributable.take(i),
                         {k: v.take(i) for k, v in self.pif.items()},
-                        {k: v.take(i) for k, v in self.averted.items()})
+                        {k: v.take(i) for k, v in self.averted.items()},
+                        tuple(self.lines[k] for k in i) if self.lines else ())
 
     @staticmethod
     def concat(parts: Sequence[RowDraws]) -> RowDraws:
@@ -92,7 +95,8 @@ class RowDraws:
             Quantity.concat([p.fraction for p in parts]),
             Quantity.concat([p.attributable for p in parts]),
             {k: Quantity.concat([p.pif[k] for p in parts]) for k in names},
-            {k: Quantity.concat([p.averted[k] for p in parts]) for k in names})
+            {k: Quantity.concat([p.averted[k] for p in parts]) for k in names},
+            tuple(line for p in parts for line in p.lines))
 
     def __len__(self) -> int:
         return len(self.strata)
@@ -117,9 +121,11 @@ def row_result(rows: RowDraws, r: int, rate_per: float) -> StratumResult:
                          life_expectancy=None if np.isnan(le) else le)
 
 
-def sum_result(rows: RowDraws, label: str, group: str | None, rate_per: float) -> StratumResult:
-    """The sum of ``rows`` (every one of them), draw by draw."""
-    pop = float(rows.population.sum())
+def sum_result(rows: RowDraws, label: str, group: str | None, rate_per: float,
+               population: float | None = None) -> StratumResult:
+    """The sum of ``rows`` (every one of them), draw by draw; the rates are
+    per ``population`` when given, else per the rows' summed population."""
+    pop = float(rows.population.sum()) if population is None else population
     cases = _sum(rows.cases)
     scenarios = tuple(StratumEffect(
         name, _est(_ratio(_sum(rows.averted[name]), cases, rows.pif[name], rows.cases),

@@ -31,10 +31,12 @@ from doseattr.analysis.intervals import finite
 from doseattr.analysis.schema import key_location
 from doseattr.analysis.specs import (
     BinnedExposure,
+    BurdenSpec,
     DrawsCurve,
     EnteredCurve,
     HistoriesExposure,
     MeasuredExposure,
+    OutcomeSpec,
     PercentilesExposure,
     PointsCurve,
     ShapeCurve,
@@ -114,7 +116,7 @@ def prepare_all(analysis: Analysis) -> PreparedAll:
     shared = build_exposure(analysis)  # one fit, shared by every outcome
     runs = []
     for i, outcome in enumerate(analysis.outcomes):
-        sub = dataclasses.replace(analysis, curve=outcome.curve, burden=outcome.burden,
+        sub = dataclasses.replace(analysis, curve=outcome.curve, burden=block_burden(outcome),
                                   outcomes=())
         with outcome_location(i, outcome.name):
             runs.append((outcome.name, dataclasses.replace(
@@ -123,6 +125,17 @@ def prepare_all(analysis: Analysis) -> PreparedAll:
     if analysis.own_curve:
         top = prepare(dataclasses.replace(analysis, outcomes=()), built_exposure=shared)
     return PreparedAll(top, tuple(runs))
+
+
+def block_burden(outcome: OutcomeSpec) -> BurdenSpec | None:
+    """The rows of an ``[[outcome]]`` block's burden table that its curve
+    applies to: those of its ``groups``, or every row."""
+    burden = outcome.burden
+    if burden is None or outcome.groups is None:
+        return burden
+    table = burden.table
+    rows = [r for r, g in enumerate(table.groups) if g in outcome.groups]
+    return dataclasses.replace(burden, table=table.subset(rows))
 
 
 def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) -> Prepared:

@@ -136,14 +136,14 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     if "exposure" not in data:
         raise InputError("missing section [exposure]", source=source)
     exposure, conv = _exposure(data["exposure"], ctx, units)
-    outcomes = _outcomes(data.get("outcome", []), ctx, units, conv)
+    burden = _burden(data["burden"], ctx, conv) if "burden" in data else None
+    outcomes = _outcomes(data.get("outcome", []), ctx, units, conv, burden)
     if "curve" not in data and not outcomes:
         raise InputError("missing section [curve]", source=source)
     curve = _curve(data["curve"], ctx, units) if "curve" in data else outcomes[0].curve
     attribution = _attribution(data.get("attribution", {}), ctx)
     scenarios = _scenarios(data.get("scenario", []), ctx)
     uncertainty = _uncertainty(data["uncertainty"], ctx) if "uncertainty" in data else None
-    burden = _burden(data["burden"], ctx, conv) if "burden" in data else None
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
     if (uncertainty is not None and uncertainty.poisson_cases and burden is None
@@ -284,17 +284,16 @@ def _burden(b: dict[str, Any], ctx: Context, conv: Conversion) -> BurdenSpec:
 
 
 def _outcomes(blocks: list[dict[str, Any]], ctx: Context, units: Units,
-              conv: Conversion) -> tuple[OutcomeSpec, ...]:
+              conv: Conversion, top_burden: BurdenSpec | None) -> tuple[OutcomeSpec, ...]:
     """``[[outcome]]`` blocks, each with ``name``, ``[outcome.curve]`` (keys
-    as in [curve]) and optionally ``[outcome.burden]`` (keys as in [burden])."""
-    out, names = [], set()
+    as in [curve]), optionally ``[outcome.burden]`` (keys as in [burden])
+    and ``groups``: blocks with one name and disjoint groups are one
+    outcome with group-specific curves (:func:`_check_groups`)."""
+    out = []
     for i, block in enumerate(blocks):
         if "name" not in block:
             raise ctx.error("missing key 'name'", "outcome", "name", i)
         name = block["name"].strip()
-        if name in names:
-            raise ctx.error(f"outcome name '{name}' is used twice", "outcome", "name", i)
-        names.add(name)
         if "curve" not in block:
             raise ctx.error("missing [outcome.curve] (the outcome's RR curve, keys as in "
                             "[curve])", "outcome", "curve", i)
@@ -305,8 +304,93 @@ def _outcomes(blocks: list[dict[str, Any]], ctx: Context, units: Units,
             if "burden" in block:
                 schema.check_section(block["burden"], "burden", source=ctx.source)
                 burden = _burden(block["burden"], ctx, conv)
-        out.append(OutcomeSpec(name, curve, burden))
+        groups = _groups(block, ctx, i)
+        out.append(OutcomeSpec(name, curve, burden or top_burden, groups))
+    _check_groups(out, ctx, top_burden)
     return tuple(out)
+
+
+def _groups(block: dict[str, Any], ctx: Context, i: int) -> tuple[str, ...] | None:
+    if "groups" not in block:
+        return None
+    groups = tuple(str(g).strip() for g in block["groups"])
+    if not groups or any(not g for g in groups):
+        raise ctx.error("groups must list one or more group labels of the burden table, "
+                        "for example groups = [\"65-74\", \"75+\"]", "outcome", "groups", i)
+    twice = sorted({g for g in groups if groups.count(g) > 1})
+    if twice:
+        raise ctx.error(f"group '{twice[0]}' is listed twice", "outcome", "groups", i)
+    return groups
+
+
+def _check_groups(outcomes: list[OutcomeSpec], ctx: Context,
+                  top_burden: BurdenSpec | None) -> None:
+    """Blocks of one name must each carry ``groups``, disjoint, of one
+    burden table with a ``group`` column; every row of that table is
+    covered by exactly one of them and every listed group has rows."""
+    by_name: dict[str, list[int]] = {}
+    for i, o in enumerate(outcomes):
+        by_name.setdefault(o.name, []).append(i)
+    for name, idx in by_name.items():
+        blocks = [outcomes[i] for i in idx]
+        if len(idx) > 1 and any(b.groups is None for b in blocks):
+            raise ctx.error(f"outcome name '{name}' is used twice; blocks that share a name "
+                            "need groups = [...] (disjoint groups of the burden table) to "
+                            "give group-specific curves", "outcome", "name", idx[1])
+        if all(b.groups is None for b in blocks):
+            continue
+        table = _group_table(name, idx, outcomes, ctx, top_burden)
+        _check_cover(name, idx, outcomes, table, ctx)
+
+
+def _group_table(name: str, idx: list[int], outcomes: list[OutcomeSpec], ctx: Context,
+                 top_burden: BurdenSpec | None):
+    """The one burden table of an outcome with groups."""
+    tables = [(i, (outcomes[i].burden or top_burden)) for i in idx]
+    for i, spec in tables:
+        if spec is None:
+            raise ctx.error(f"outcome '{name}' has groups but no burden table; add [burden] "
+                            "(or [outcome.burden]) with a group column", "outcome", "groups", i)
+    first_i, first = tables[0]
+    assert first is not None
+    for i, spec in tables[1:]:
+        assert spec is not None
+        if spec.table.source != first.table.source:
+            raise ctx.error(f"the blocks of outcome '{name}' use different burden tables "
+                            f"({first.table.source} and {spec.table.source}); give them one "
+                            "table", "outcome", "burden", i)
+    table = first.table
+    if getattr(table, "groups", None) is None:
+        raise ctx.error(f"outcome '{name}' has groups, but {table.source} has no group "
+                        "column; add one (a label per row) or remove groups", "outcome",
+                        "groups", first_i)
+    return table
+
+
+def _check_cover(name: str, idx: list[int], outcomes: list[OutcomeSpec], table,
+                 ctx: Context) -> None:
+    present = set(table.groups)
+    owner: dict[str, int] = {}
+    for i in idx:
+        groups = outcomes[i].groups
+        if groups is None:
+            raise ctx.error(f"outcome '{name}': every block needs groups once one has them",
+                            "outcome", "groups", i)
+        for g in groups:
+            if g in owner:
+                raise ctx.error(f"group '{g}' of outcome '{name}' is in two blocks "
+                                f"([[outcome]] {owner[g] + 1} and {i + 1}); each group "
+                                "takes one curve", "outcome", "groups", i)
+            if g not in present:
+                raise ctx.error(f"group '{g}' has no row in {table.source} (its groups: "
+                                f"{', '.join(sorted(present))})", "outcome", "groups", i)
+            owner[g] = i
+    for r, g in enumerate(table.groups):
+        if g not in owner:
+            raise InputError(f"no curve of outcome '{name}' covers group '{g}'; add it to "
+                             "the groups of one of its [[outcome]] blocks",
+                             source=table.source, location=f"row {table.lines[r]}, column "
+                             "'group'")
 
 
 @contextmanager

@@ -144,7 +144,7 @@ def varying_sources(analysis: Analysis, curve, strata: Sequence) -> tuple[str, .
 
     def exposure_varies(e) -> bool:
         if isinstance(e, EmpiricalExposure):
-            return e.values.size > 1
+            return not e.census and e.values.size > 1
         return e.fit is not None and e.fit.cov_internal is not None
 
     low, high = minimum_risk_range(analysis)

@@ -396,15 +396,22 @@ def _unique(items: list[str]) -> list[str]:
 
 
 def _with_outcomes(analysis: Analysis, prepared: PreparedAll, progress: bool) -> Results:
-    """Run every ``[[outcome]]`` with the shared exposure, scenarios and
-    settings (all checked beforehand). The top-level results are those of
+    """Run every ``[[outcome]]`` block with the shared exposure, scenarios and
+    settings (all checked beforehand), merge blocks of one outcome and sum
+    every outcome's burden within draws. The top-level results are those of
     the file's own [curve], or of the first outcome when the file has none."""
     from doseattr.analysis.config import outcome_location
+    from doseattr.analysis.outcome_sums import Block, grand_total, merge_outcome
 
-    runs = []
+    blocks = []
     for i, (name, p) in enumerate(prepared.outcomes):
         with outcome_location(i, name):
-            runs.append((name, _run_prepared(p, progress)))
+            blocks.append(Block(name, analysis.outcomes[i].groups, *_run_block(p, progress)))
+    blocks = _same_draws(blocks, prepared, progress)
+    runs = []
+    for name in dict.fromkeys(b.name for b in blocks):
+        results, rows = merge_outcome([b for b in blocks if b.name == name])
+        runs.append((name, results, rows))
     if prepared.top is not None:
         top = _run_prepared(prepared.top, progress)
     else:
@@ -412,4 +419,30 @@ def _with_outcomes(analysis: Analysis, prepared: PreparedAll, progress: bool) ->
         note = (f"the file has no [curve] of its own: the results above the outcomes are those "
                 f"of the first outcome, '{runs[0][0]}'")
         top = dataclasses.replace(first, notes=first.notes + (note,))
-    return dataclasses.replace(top, outcomes=tuple(runs))
+    return dataclasses.replace(top, outcomes=tuple((n, r) for n, r, _ in runs),
+                               grand_total=grand_total(runs))
+
+
+def _same_draws(blocks: list, prepared: PreparedAll, progress: bool) -> list:
+    """With ``[uncertainty] precision`` the blocks may end with different
+    numbers of draws; their rows are summed draw by draw, so the blocks
+    with fewer are run again with the most (no precision loop)."""
+    counts = [b.results.uncertainty.draws for b in blocks
+              if b.results.uncertainty is not None and b.rows is not None]
+    if len(set(counts)) <= 1:
+        return blocks
+    most = max(counts)
+    out = []
+    for b, (_, p) in zip(blocks, prepared.outcomes, strict=True):
+        u = b.results.uncertainty
+        if u is None or b.rows is None or u.draws == most:
+            out.append(b)
+            continue
+        spec = dataclasses.replace(p.analysis.uncertainty, draws=most, precision=None)
+        again = dataclasses.replace(p, analysis=dataclasses.replace(p.analysis, uncertainty=spec))
+        results, rows = _run_block(again, progress)
+        note = (f"run again with {most} draws (its precision needed {u.draws}) so that the "
+                "outcomes' totals are summed draw by draw")
+        out.append(dataclasses.replace(b, results=dataclasses.replace(
+            results, notes=results.notes + (note,)), rows=rows))
+    return out

@@ -137,6 +137,7 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "name": Key("text"),
         "curve": Key("table"),
         "burden": Key("table"),
+        "groups": Key("texts", help="the burden table's groups this curve applies to"),
     },
 }
 

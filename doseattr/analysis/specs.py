@@ -320,6 +320,8 @@ class OutcomeSpec:
     name: str
     curve: CurveSpec
     burden: BurdenSpec | None = None
+    #: The burden table's groups this curve applies to (``None``: every row).
+    groups: tuple[str, ...] | None = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -10,7 +10,8 @@
   on the internal (log) scale, ``theta ~ N(theta_hat, I^-1)``, mapped back,
   which keeps positive parameters positive. Distributions entered as
   numbers have no sampling error and stay fixed.
-* Empirical exposure: a weighted bootstrap of the rows.
+* Empirical exposure: a weighted bootstrap of the rows (none for a census,
+  whose points are the whole population).
 * Minimum-risk level: uniform over ``[low, high]``.
 * Observed cases: optionally Poisson with the observed count as mean.
 """
@@ -67,6 +68,8 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
                    rng: np.random.Generator) -> ExposureDraws:
     """Exposure parameter draws (see module docstring)."""
     if isinstance(exposure, EmpiricalExposure):
+        if exposure.census:
+            return fixed_exposure(exposure, n)
         values, weights = exposure.bootstrap(rng, n)
         return ExposureDraws(values=values, weights=weights, varies=exposure.values.size > 1)
     cov = None if exposure.fit is None else exposure.fit.cov_internal
