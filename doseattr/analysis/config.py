@@ -44,6 +44,8 @@ from doseattr.analysis.curve_section import parse_curve
 from doseattr.analysis.exposure_section import parse_exposure, require_cumulative_unit
 from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
 from doseattr.analysis.specs import (
+    BURDEN_METHODS,
+    DEFAULT_RATE_PER,
     DEFAULT_SEED,
     MAX_DRAWS,
     MIN_DRAWS,
@@ -275,12 +277,24 @@ def _uncertainty(u: dict[str, Any], ctx: Context) -> UncertaintySpec:
 
 
 def _burden(b: dict[str, Any], ctx: Context, conv: Conversion) -> BurdenSpec:
-    """``[burden]``; per-stratum exposure columns are in the [exposure] unit."""
+    """``[burden]``: ``table``, ``rate_per`` (people a rate is given per,
+    default 100000) and ``method`` (``"paf"`` or ``"impact-function"``);
+    per-stratum exposure columns are in the [exposure] unit."""
     if "table" not in b:
-        raise ctx.error("missing key 'table' (a CSV with columns stratum and cases)", "burden",
-                        "table")
+        raise ctx.error("missing key 'table' (a CSV with columns stratum and cases, or "
+                        "stratum, population and rate)", "burden", "table")
+    rate_per = float(b.get("rate_per", DEFAULT_RATE_PER))
+    if not rate_per > 0:
+        raise ctx.error(f"rate_per must be above 0 (the rate column gives cases per rate_per "
+                        f"people per year, for example 100000), got {rate_per:g}",
+                        "burden", "rate_per")
+    method = b.get("method", BURDEN_METHODS[0])
+    if method not in BURDEN_METHODS:  # the schema refuses it first; kept for direct calls
+        raise ctx.error(f"'{method}' is not one of {', '.join(BURDEN_METHODS)}", "burden",
+                        "method")
     path = ctx.path(b["table"], "burden", "table")
-    return BurdenSpec(convert_burden(read_burden(path, path), conv))
+    table = convert_burden(read_burden(path, path, rate_per=rate_per), conv)
+    return BurdenSpec(table, method=method, rate_per=rate_per)
 
 
 def _outcomes(blocks: list[dict[str, Any]], ctx: Context, units: Units,

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from doseattr.analysis.specs import FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
+from doseattr.analysis.specs import BURDEN_METHODS, FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.core.exposure.sandwich import WEIGHT_MEANINGS
 from doseattr.errors import InputError
@@ -131,7 +131,9 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "precision": Key("number", help="largest Monte Carlo SE of an interval limit"),
     },
     "burden": {
-        "table": Key("path"),
+        "table": Key("path", help="CSV of strata: cases, or population and rate"),
+        "rate_per": Key("number", help="people a rate is given per (default 100000)"),
+        "method": Key("text", BURDEN_METHODS, help="from fractions to cases (default paf)"),
     },
     "outcome": {
         "name": Key("text"),

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 from datetime import date
 from typing import Any, TypeAlias
 
+from doseattr.analysis.burden_table import DEFAULT_RATE_PER
 from doseattr.analysis.tables import (
     BinsTable,
     BurdenTable,
@@ -305,11 +306,22 @@ class UncertaintySpec:
     precision: float | None = None
 
 
+#: Ways from fractions to cases, ``[burden] method``: ``"paf"``
+#: (attributable = cases x PAF) or ``"impact-function"`` (attributable =
+#: cases x E[1 - 1/RR(X)]).
+BURDEN_METHODS = ("paf", "impact-function")
+
+
 @dataclass(frozen=True, eq=False)
 class BurdenSpec:
-    """``[burden]``: strata with observed cases (and optional exposure)."""
+    """``[burden]``: strata with observed cases, or population and rates
+    per ``rate_per`` people (and optional groups, life expectancy and
+    exposure), and the ``method`` from fractions to cases (one of
+    :data:`BURDEN_METHODS`)."""
 
     table: BurdenTable
+    method: str = "paf"
+    rate_per: float = DEFAULT_RATE_PER
 
 
 @dataclass(frozen=True, eq=False)
