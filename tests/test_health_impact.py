@@ -49,9 +49,16 @@ def _hif(gm, gsd, b):
     return val
 
 
-def _outcome(name, group, err):
-    return {"name": name, "groups": [group],
-            "curve": {"model": "linear", "err": err, "beyond": "extend"}}
+def _outcome(name, group, err, ci=False):
+    curve = {"model": "linear", "err": err, "beyond": "extend"}
+    if ci:
+        curve["ci"] = [0.5 * err, 1.5 * err]
+    return {"name": name, "groups": [group], "curve": curve}
+
+
+def _with_ci():
+    return ([_outcome("deaths", g, e, ci=True) for g, e in ERR.items()]
+            + [_outcome("cardio deaths", g, e, ci=True) for g, e in ERR_CV.items()])
 
 
 def _analysis(tmp_path, table=TABLE, method=None, uncertainty=None, outcomes=None, **burden):
@@ -141,7 +148,8 @@ def test_intervals_of_sums_with_uncertainty(tmp_path):
     a sum is at most the sum of the rows' upper limits, for rows that move
     together or not; a property of percentiles of sums of co-monotone or
     independent draws)."""
-    res = run_analysis(_analysis(tmp_path, uncertainty={"draws": 400, "seed": 3}))
+    res = run_analysis(_analysis(tmp_path, uncertainty={"draws": 400, "seed": 3},
+                                 outcomes=_with_ci()))
     out = _outcomes(res)
     b = out["deaths"]["burden"]
     t = b["total"]["attributable"]

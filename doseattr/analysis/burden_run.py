@@ -36,15 +36,15 @@ def burden_strata(analysis: Analysis, exposure) -> list:
     from doseattr.core.uncertainty.propagate import Stratum
 
     table = burden_spec(analysis).table
-    return [Stratum(name, float(n), stratum_exposure(analysis, exposure, override, line))
-            for name, n, override, line in zip(table.strata, table.cases, table.exposure,
-                                                table.lines)]
+    return [Stratum(table.label(i), float(n), stratum_exposure(analysis, exposure, override, line))
+            for i, (n, override, line) in enumerate(zip(table.cases, table.exposure,
+                                                        table.lines))]
 
 
 #: Name of the stratum carried at index 0 of the burden's draws: the whole
 #: population over the shared exposure, with 0 cases so that the totals are
 #: the strata's alone.
-POPULATION = "population"
+POPULATION = "\x00population"
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -93,7 +93,7 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
     from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate
 
     spec = burden_spec(analysis)
-    method = getattr(spec, "method", "paf")
+    method = spec.method
     transforms = [sc for _, sc in scenarios]
     strata = [Stratum(POPULATION, 0.0, shared), *strata]
     m = analysis.attribution.minimum_risk
@@ -113,7 +113,7 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
                                    minimum_risk=minimum_risk_range(analysis), sources=SOURCES,
                                    **streams(analysis, stream))
     rows = row_draws(spec, point, draws)
-    rate_per = getattr(spec, "rate_per", 100_000.0)
+    rate_per = spec.rate_per
     records = tuple(dataclasses.replace(
         row_result(rows, s, rate_per), rate=_rate(spec.table, s),
         exposure=stratum_exposure_record(strata[s + 1].exposure, shared, spec.table.exposure[s]))
@@ -122,7 +122,7 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
 
 
 def _rate(table, s: int) -> float | None:
-    rates = getattr(table, "rates", None)
+    rates = table.rates
     if rates is None or np.isnan(rates[s]):
         return None
     return float(rates[s])
@@ -139,8 +139,8 @@ def row_draws(spec, point, draws) -> RowDraws:
             return np.asarray((value[scenario] if scenario is not None else value)[1:])
         return Quantity(pick(point)[:, 0], None if draws is None else pick(draws))
 
-    groups = getattr(table, "groups", None)
-    le = getattr(table, "life_expectancy", None)
+    groups = table.groups
+    le = table.life_expectancy
     names = list(point.pif)
     return RowDraws(
         tuple(table.strata), tuple(groups) if groups is not None else (None,) * n,

@@ -374,7 +374,7 @@ def _group_table(name: str, idx: list[int], outcomes: list[OutcomeSpec], ctx: Co
                             f"({first.table.source} and {spec.table.source}); give them one "
                             "table", "outcome", "burden", i)
     table = first.table
-    if getattr(table, "groups", None) is None:
+    if table.groups is None:
         raise ctx.error(f"outcome '{name}' has groups, but {table.source} has no group "
                         "column; add one (a label per row) or remove groups", "outcome",
                         "groups", first_i)
