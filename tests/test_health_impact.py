@@ -245,3 +245,77 @@ def test_bad_groups(tmp_path, outcomes, expected):
         _analysis(tmp_path, outcomes=outcomes)
     assert expected in str(err.value)
     assert "\n" not in str(err.value)
+
+
+def test_without_exposure_section(tmp_path):
+    """Every row has its own exposure, so [exposure] may be left out: the
+    rows' results are unchanged (each uses its own lognormal, closed form)
+    and the population's PAF is over the population-weighted mixture of the
+    rows' lognormals: E[RR] = 1 + b sum_k w_k GM_k exp(ln^2 GSD_k / 2)
+    (closed form; the Gauss-Hermite points integrate a linear RR exactly
+    up to rounding)."""
+    a = _analysis(tmp_path)
+    d = dict(a.settings)
+    d.pop("exposure")
+    res = run_analysis(analysis_from_dict(d, base_dir=tmp_path))
+    out = _outcomes(res)
+    for row, (_, g, pop, rate, _, gm, gsd) in zip(out["deaths"]["burden"]["strata"], _rows(),
+                                                   strict=True):
+        np.testing.assert_allclose(row["attributable"]["estimate"],
+                                   pop * rate / 1e5 * _paf(gm, gsd, ERR[g]), rtol=1e-8)
+    rows = _rows()
+    w = np.array([r[2] for r in rows]) / sum(r[2] for r in rows)
+    mean = sum(wk * r[5] * math.exp(math.log(r[6]) ** 2 / 2) for wk, r in zip(w, rows))
+    b = ERR["65-74"]   # the first block's curve stands for the outcome's population PAF
+    np.testing.assert_allclose(out["deaths"]["paf"]["estimate"], b * mean / (1 + b * mean),
+                               rtol=1e-10)
+    assert any("no [exposure]" in n for n in res.notes)
+
+
+def test_without_exposure_needs_every_row(tmp_path):
+    """A row without its own exposure cannot stand in for [exposure]."""
+    table = TABLE.replace("North,75+,12000,5200,7.9,8,2", "North,75+,12000,5200,7.9,,")
+    a = _analysis(tmp_path, table=table)
+    d = dict(a.settings)
+    d.pop("exposure")
+    with pytest.raises(InputError) as err:
+        run_analysis(analysis_from_dict(d, base_dir=tmp_path))
+    assert "rows.csv: row 3" in str(err.value) and "without [exposure]" in str(err.value)
+
+
+GROUP_FILE = """\
+unit = "ug/m3"
+[burden]
+table = "rows.csv"
+{blocks}
+"""
+
+BLOCK = """
+[[outcome]]
+name = "deaths"
+groups = {groups}
+[outcome.curve]
+model = "linear"
+err = 0.004
+"""
+
+
+@pytest.mark.parametrize("groups, where", [
+    ((["65-74", "75+"], ["75+"]), "[[outcome]] 2 key 'groups'"),        # overlap
+    ((["65-74"],), "rows.csv: row 3, column 'group'"),                   # row not covered
+    ((["65-74", "75+", "85+"],), "[[outcome]] 1 key 'groups'"),          # group with no row
+])
+def test_bad_groups_from_the_command_line(tmp_path, capsys, groups, where):
+    """Exit status 2, one line on standard error naming the file and the
+    key or row, nothing written (the project's rule for input errors)."""
+    from doseattr.cli import main
+
+    (tmp_path / "rows.csv").write_text(TABLE)
+    blocks = "".join(BLOCK.format(groups="[" + ", ".join(f'"{g}"' for g in gs) + "]")
+                     for gs in groups)
+    (tmp_path / "a.toml").write_text(GROUP_FILE.format(blocks=blocks))
+    out = tmp_path / "out"
+    assert main(["run", str(tmp_path / "a.toml"), "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and where in err[0], err
+    assert not out.exists()

@@ -34,6 +34,7 @@ from doseattr.analysis.specs import (
     PercentilesExposure,
     PointsCurve,
     ShapeCurve,
+    StrataExposure,
     SummaryExposure,
     TableCurve,
 )
@@ -557,10 +558,37 @@ def _histories(spec: HistoriesExposure, family: FamilyChoice, src: str | None) -
 
 
 #: The builder of each source of exposure: ``(spec, family, analysis file)``.
+def _strata(spec: StrataExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
+    """The mixture of the burden rows' own lognormal distributions, weighted
+    by population (by cases without one), as a census of weighted points
+    (:func:`~doseattr.core.exposure.empirical.lognormal_mixture`)."""
+    from doseattr.core.exposure.empirical import lognormal_mixture
+
+    t = spec.table
+    for e, line in zip(t.exposure, t.lines, strict=True):
+        if e is None or set(e) != {"gm", "gsd"}:
+            what = "no exposure" if e is None else f"{' and '.join(e)}"
+            raise InputError(f"without [exposure], every row needs its own gm and gsd (a "
+                             f"lognormal); this row has {what}. Fill them, or add an "
+                             "[exposure] section for the population", source=t.source,
+                             location=f"row {line}")
+    weights = t.population if t.population is not None else t.cases
+    by = "population" if t.population is not None else "cases"
+    gm = np.array([e["gm"] for e in t.exposure if e is not None])
+    gsd = np.array([e["gsd"] for e in t.exposure if e is not None])
+    with as_input_error(t.source, f"column '{by}'"):
+        mixture = lognormal_mixture(gm, gsd, np.asarray(weights, float), source="strata")
+    note = (f"no [exposure]: the population's exposure is the mixture of the {gm.size} rows' "
+            f"own lognormal distributions in {t.source}, weighted by {by} (each at 64 "
+            "Gauss-Hermite nodes); it is the whole population, so it carries no sampling "
+            "uncertainty, and each row's results use its own distribution exactly")
+    return BuiltExposure(mixture, notes=(note,))
+
+
 EXPOSURE_BUILDERS: dict[type, Callable[[Any, FamilyChoice, str | None], BuiltExposure]] = {
     MeasuredExposure: _measured, SummaryExposure: _summary,
     PercentilesExposure: _percentiles, BinnedExposure: _binned,
-    HistoriesExposure: _histories}
+    HistoriesExposure: _histories, StrataExposure: _strata}
 
 
 # -- scenarios ------------------------------------------------------------------

@@ -62,14 +62,15 @@ class BurdenRun:
     population_draws: Any
 
 
-def streams(analysis: Analysis, stream: int | None) -> dict[str, np.random.Generator]:
-    """The generators of one burden run. Every run draws the minimum-risk
-    level and the exposures from ``[seed, 1]``, so that runs of different
-    curves share them; a run of an ``[[outcome]]`` block (``stream`` = its
-    index) draws its curve and Poisson cases from streams of its own."""
+def streams(analysis: Analysis, stream: int | None) -> dict[str, Any]:
+    """The generators of one burden run (keywords of core ``propagate``).
+    Every run draws the minimum-risk level and the exposures from
+    ``[seed, 1]``, so that runs of different curves share them; a run of an
+    ``[[outcome]]`` block (``stream`` = its index) draws its curve and
+    Poisson cases from streams of its own."""
     u = analysis.uncertainty
     assert u is not None
-    out = {"rng": np.random.default_rng([u.seed, 1])}
+    out: dict[str, Any] = {"rng": np.random.default_rng([u.seed, 1])}
     if stream is not None:
         out["curve_rng"] = np.random.default_rng([u.seed, 1, 1, stream])
         out["case_rng"] = np.random.default_rng([u.seed, 1, 2, stream])

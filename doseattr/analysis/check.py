@@ -40,6 +40,7 @@ from doseattr.analysis.specs import (
     PercentilesExposure,
     PointsCurve,
     ShapeCurve,
+    StrataExposure,
     SummaryExposure,
     TableCurve,
 )
@@ -134,6 +135,7 @@ def block_burden(outcome: OutcomeSpec) -> BurdenSpec | None:
     if burden is None or outcome.groups is None:
         return burden
     table = burden.table
+    assert table.groups is not None  # checked when the file was read
     rows = [r for r, g in enumerate(table.groups) if g in outcome.groups]
     return dataclasses.replace(burden, table=table.subset(rows))
 
@@ -325,11 +327,16 @@ def _given_exposure_words(spec: SummaryExposure | PercentilesExposure, built: Bu
     return f"{family} from the given {spec.source}"
 
 
+def _strata_words(spec: StrataExposure, built: BuiltExposure, family: str) -> str:
+    return (f"no [exposure]: the mixture of the {len(spec.table.strata)} rows' own "
+            f"distributions in {spec.table.source}")
+
+
 #: How each source of exposure is described (before its unexposed share).
 _EXPOSURE_WORDS: dict[type, Callable[[Any, BuiltExposure, str], str]] = {
     MeasuredExposure: _measured_words, HistoriesExposure: _histories_words,
     BinnedExposure: _binned_words, SummaryExposure: _given_exposure_words,
-    PercentilesExposure: _given_exposure_words}
+    PercentilesExposure: _given_exposure_words, StrataExposure: _strata_words}
 
 
 def _attribution_line(a: Analysis, p: Prepared) -> str:

@@ -57,6 +57,7 @@ from doseattr.analysis.specs import (
     HistoriesExposure,
     OutcomeSpec,
     ScenarioSpec,
+    StrataExposure,
     UncertaintySpec,
 )
 from doseattr.analysis.tables import read_burden
@@ -135,11 +136,14 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
         raise ctx.error('missing key \'unit\' at the top of the file (for example unit = "ug/m3")',
                         "", "unit")
     units = read_units(data, ctx)
-    if "exposure" not in data:
-        raise InputError("missing section [exposure]", source=source)
-    exposure, conv = _exposure(data["exposure"], ctx, units)
+    if "exposure" in data:
+        exposure, conv = _exposure(data["exposure"], ctx, units)
+    else:
+        conv = Conversion()
     burden = _burden(data["burden"], ctx, conv) if "burden" in data else None
     outcomes = _outcomes(data.get("outcome", []), ctx, units, conv, burden)
+    if "exposure" not in data:
+        exposure = _strata_exposure(burden, outcomes, source)
     if "curve" not in data and not outcomes:
         raise InputError("missing section [curve]", source=source)
     curve = _curve(data["curve"], ctx, units) if "curve" in data else outcomes[0].curve
@@ -157,6 +161,18 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
                     base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight,
                     own_curve="curve" in data)
+
+
+def _strata_exposure(burden: BurdenSpec | None, outcomes: tuple[OutcomeSpec, ...],
+                     source: str | None) -> StrataExposure:
+    """No ``[exposure]``: the population is the mixture of the burden
+    table's rows, which must each give their own exposure (checked when it
+    is built)."""
+    tables = [b.table for b in (burden, *(o.burden for o in outcomes)) if b is not None]
+    if not tables:
+        raise InputError("missing section [exposure] (or a [burden] table whose every row "
+                         "gives its own exposure, gm and gsd)", source=source)
+    return StrataExposure(family="empirical", table=tables[0])
 
 
 def _curve(c: dict[str, Any], ctx: Context, units: Units) -> CurveSpec:

@@ -438,6 +438,7 @@ def _same_draws(blocks: list, prepared: PreparedAll, progress: bool) -> list:
         if u is None or b.rows is None or u.draws == most:
             out.append(b)
             continue
+        assert p.analysis.uncertainty is not None
         spec = dataclasses.replace(p.analysis.uncertainty, draws=most, precision=None)
         again = dataclasses.replace(p, analysis=dataclasses.replace(p.analysis, uncertainty=spec))
         results, rows = _run_block(again, progress)

@@ -267,9 +267,22 @@ class HistoriesExposure(_Exposure):
         return "histories"
 
 
+@dataclass(frozen=True, eq=False, kw_only=True)
+class StrataExposure(_Exposure):
+    """No ``[exposure]``: the population's distribution is the mixture of
+    the burden ``table``'s rows, each with its own exposure, weighted by
+    population (or by cases without a population column)."""
+
+    table: BurdenTable
+
+    @property
+    def source(self) -> str:
+        return "strata"
+
+
 #: What ``[exposure]`` asks for: one type per source.
 ExposureSpec: TypeAlias = (MeasuredExposure | SummaryExposure | PercentilesExposure
-                           | BinnedExposure | HistoriesExposure)
+                           | BinnedExposure | HistoriesExposure | StrataExposure)
 
 
 @dataclass(frozen=True)

@@ -38,6 +38,7 @@ from doseattr.analysis.specs import (
     PercentilesExposure,
     PointsCurve,
     ShapeCurve,
+    StrataExposure,
     SummaryExposure,
     TableCurve,
 )
@@ -260,7 +261,9 @@ def _histories_values(spec: HistoriesExposure, f: float) -> dict[str, Any]:
 _EXPOSURE_VALUES: dict[type, Callable[[Any, float], dict[str, Any]]] = {
     MeasuredExposure: _measured_values, SummaryExposure: _summary_values,
     PercentilesExposure: _percentile_values, BinnedExposure: _binned_values,
-    HistoriesExposure: _histories_values}
+    HistoriesExposure: _histories_values,
+    # the strata's exposure columns are in the analysis unit already
+    StrataExposure: lambda spec, f: {}}
 
 
 def convert_burden(table: BurdenTable, conv: Conversion) -> BurdenTable:

@@ -182,8 +182,8 @@ def _fractions(method: str, curve: Curve, coef: FloatArray, exposures: dict[int,
             excess = {None if scn is None else scn.name: _excess(curve, coef, e, ex_draws[key], m, scn)
                       for scn in (None, *scenarios)}
             out[key, None] = paf_from_excess(excess[None])
-            for scn in scenarios:
-                out[key, scn.name] = pif_from_excess(excess[None], excess[scn.name])
+            for g in scenarios:
+                out[key, g.name] = pif_from_excess(excess[None], excess[g.name])
         else:
             for scn in (None, *scenarios):
                 out[key, None if scn is None else scn.name] = _impact(curve, coef, e, ex_draws[key],
