@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from doseattr.analysis.burden_run import POPULATION
 from doseattr.analysis.config import load_analysis
 from doseattr.analysis.pipeline import run_analysis
 from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF
@@ -32,7 +33,7 @@ def test_shared_strata_have_the_population_draws(demo):
     (data_demo/districts.csv): their PAF and PIF draws are the population's,
     exactly, and so are their intervals; Quarryside has its own."""
     prop = demo.propagation
-    assert prop.strata[0] == "population"
+    assert prop.strata[0] == POPULATION  # the whole population, at index 0
     shared = [i for i, s in enumerate(demo.burden.strata, start=1)
               if not s.exposure.own]
     own = [i for i, s in enumerate(demo.burden.strata, start=1) if s.exposure.own]

@@ -44,7 +44,7 @@ def burden_strata(analysis: Analysis, exposure) -> list:
 #: Name of the stratum carried at index 0 of the burden's draws: the whole
 #: population over the shared exposure, with 0 cases so that the totals are
 #: the strata's alone.
-POPULATION = "\x00population"
+POPULATION = "(population)"
 
 
 @dataclasses.dataclass(frozen=True, eq=False)

@@ -325,8 +325,10 @@ METHOD_TEXT = {
             "assessment; Murray et al. 2003, Popul Health Metr 1:1)"),
     "impact-function": ("attributable = observed cases x E[1 - 1/RR_m(X)]: the health impact "
                         "function applied to each person's own exposure, which takes the "
-                        "observed rate as the rate at each person's exposure (Kunzli et al. "
-                        "2000, Lancet 356:795; from memory)"),
+                        "observed rate as the rate at each person's exposure (as in "
+                        "air-quality impact assessments, e.g. Ostro 2004, WHO Environmental "
+                        "Burden of Disease Series 5, and Anenberg et al. 2010, Environ Health "
+                        "Perspect 118:1189; both from memory)"),
 }
 
 
