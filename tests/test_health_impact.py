@@ -107,6 +107,7 @@ def test_rows_with_rates_groups_and_yll(tmp_path):
                                        attributable / pop * 1e5, rtol=1e-8)
             np.testing.assert_allclose(row["yll"]["estimate"], attributable * le, rtol=1e-8)
             assert row["rate"] == rate and row["population"] == pop
+        assert any("deaths-based" in n for n in out[name]["notes"])
 
 
 def test_sums_over_groups_strata_outcomes(tmp_path):
@@ -319,3 +320,15 @@ def test_bad_groups_from_the_command_line(tmp_path, capsys, groups, where):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and where in err[0], err
     assert not out.exists()
+
+
+def test_precision_gives_every_block_the_same_draws(tmp_path):
+    """[uncertainty] precision may raise the draws of one block more than of
+    another; the blocks are summed draw by draw, so every block ends with
+    the same number of draws (and the sums exist)."""
+    res = run_analysis(_analysis(tmp_path, uncertainty={"draws": 200, "seed": 5,
+                                                         "precision": 0.004},
+                                 outcomes=_with_ci()))
+    counts = {r.uncertainty.draws for _, o in res.outcomes for _, r in o.group_runs}
+    assert len(counts) == 1 and counts.pop() >= 200
+    assert res.grand_total is not None and res.grand_total.attributable.lower is not None

@@ -27,7 +27,7 @@ from doseattr.analysis.intervals import (
     progress_bar,
 )
 from doseattr.errors import InputError
-from doseattr.results.records import BurdenResult, StratumResult
+from doseattr.results.records import METHOD_TEXT, BurdenResult, StratumResult
 
 
 def burden_strata(analysis: Analysis, exposure) -> list:
@@ -120,6 +120,22 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
         exposure=stratum_exposure_record(strata[s + 1].exposure, shared, spec.table.exposure[s]))
         for s in range(len(rows)))
     return BurdenRun(burden_result(rows, records, method, rate_per), rows, draws, population)
+
+
+#: The note that goes with years of life lost.
+YLL_NOTE = ("years of life lost are deaths-based: attributable deaths x the remaining life "
+            "expectancy given per row (from the user's life table; not discounted nor "
+            "age-weighted); outcomes that are not deaths should not carry life expectancy")
+
+
+def burden_notes(burden: BurdenResult | None) -> list[str]:
+    """What the burden's method assumes, and the YLL note when it has YLL."""
+    if burden is None:
+        return []
+    notes = [f"burden method '{burden.method}': {METHOD_TEXT[burden.method]}"]
+    if burden.has_yll:
+        notes.append(YLL_NOTE)
+    return notes
 
 
 def _rate(table, s: int) -> float | None:

@@ -23,7 +23,7 @@ import numpy as np
 from doseattr.analysis.alarms import result_alarms
 from doseattr.analysis.assemble import curve_section, exposure_section
 from doseattr.analysis.build import BuiltCurve
-from doseattr.analysis.burden_run import run_burden
+from doseattr.analysis.burden_run import burden_notes, run_burden
 from doseattr.analysis.burden_sums import RowDraws
 from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_all
 from doseattr.analysis.comparisons import curve_variants, exposure_variants, substitution_results
@@ -146,7 +146,7 @@ def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
     with divergence(analysis):
         analysis, mc = _monte_carlo_to_precision(analysis, curve, exposure, scenarios, point,
                                                  p.strata, progress, p.stream)
-    notes.extend(mc.notes + _range_note(analysis))
+    notes.extend(mc.notes + _range_note(analysis) + burden_notes(mc.burden))
     scenario_results = tuple(dataclasses.replace(s, averted=_averted(mc.burden, s.name))
                              for s in mc.scenarios)
     attribution = AttributionSection(mc.paf, analysis.attribution.minimum_risk,
