@@ -363,6 +363,10 @@ def _uncertainty_line(a: Analysis) -> str:
 def _burden_line(table: BurdenTable, strata: list, shared: object) -> str:
     own = sum(1 for s in strata if s.exposure is not shared)
     n = len(strata)
-    return (f"burden: {n} strat{'um' if n == 1 else 'a'} of {table.source}, "
+    what = f"{n} row{'' if n == 1 else 's'}" if table.groups is not None else \
+        f"{n} strat{'um' if n == 1 else 'a'}"
+    groups = "" if table.groups is None else \
+        f" (groups {', '.join(dict.fromkeys(table.groups))})"
+    return (f"burden: {what} of {table.source}{groups}, "
             f"{float(np.sum(table.cases)):g} observed cases in total ({own} with their own "
             "exposure)")

@@ -315,6 +315,42 @@ class BurdenResult:
         return self.total.attributable_rate is not None
 
 
+@dataclass(frozen=True, eq=False)
+class GridMaps:
+    """Decimated rasters for display: the concentration and the
+    attributable cases per 1,000 people of each displayed cell (``NaN``
+    where there is no data), each ``(rows, cols)``; ``step`` is the
+    decimation (every ``step``-th cell in each direction) and ``extent``
+    ``(left, right, bottom, top)`` in the grid's coordinates, ``crs`` its
+    reference system as text (``None`` for a cell table)."""
+
+    concentration: FloatArray
+    attributable_per_1000: FloatArray
+    step: int
+    extent: tuple[float, float, float, float] | None = None
+    crs: str | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class GridSection:
+    """What a ``[grid]`` analysis read: the files, each zone (id, name,
+    population, population-weighted mean concentration; the zones are the
+    burden's strata in the same order), cells used and skipped (nodata),
+    the stated exposure-model error and the maps."""
+
+    files: Mapping[str, str]
+    zone_ids: tuple[int, ...]
+    zone_names: tuple[str, ...]
+    zone_population: tuple[float, ...]
+    zone_mean: tuple[float, ...]
+    cells: int
+    skipped_cells: int
+    skipped_population: float
+    error_gsd: float | None = None
+    maps: GridMaps | None = None
+    scheduler: str | None = None
+
+
 #: The two ways from fractions to attributable cases (``[burden] method``).
 BURDEN_METHODS = ("paf", "impact-function")
 

@@ -30,6 +30,7 @@ from doseattr.results.records import (
     CurveVariant,
     ExposureSection,
     ExposureVariant,
+    GridSection,
     RunInputs,
     ScenarioResult,
     SourceWidth,
@@ -66,6 +67,8 @@ class Results:
         Attributable cases, rates and years of life lost summed over every
         outcome's burden draw by draw (``None`` without outcomes with
         ``[burden]``).
+    grid
+        What a ``[grid]`` analysis read (zones, cells, maps), or ``None``.
     group_runs
         For an outcome with group-specific curves: ``(groups, Results)``
         of each curve (its curve, population PAF and rows); empty otherwise.
@@ -88,6 +91,7 @@ class Results:
     outcomes: tuple[tuple[str, Results], ...] = ()
     grand_total: StratumResult | None = None
     group_runs: tuple[tuple[tuple[str, ...], Results], ...] = ()
+    grid: GridSection | None = None
     warnings: tuple[str, ...] = ()
     cautions: tuple[str, ...] = CAUTIONS
     notes: tuple[str, ...] = ()

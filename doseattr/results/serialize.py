@@ -30,6 +30,7 @@ from doseattr.results.records import (
     ExposureVariant,
     FamilyFit,
     GoodnessOfFit,
+    GridSection,
     SourceWidth,
     StratumExposure,
     StratumResult,
@@ -70,6 +71,7 @@ def results_dict(r: Results) -> dict[str, Any]:
         "uncertainty": uncertainty_dict(r.uncertainty),
         "burden": burden_dict(r.burden, r.grand_total),
         "outcomes": [outcome_dict(name, o) for name, o in r.outcomes],
+        "grid": grid_dict(r.grid),
         "workers": workers_list(r.exposure_section.workers),
         "exposure_comparison": [exposure_variant_dict(v) for v in r.exposure_section.comparison],
         "model_comparison": [curve_variant_dict(v) for v in r.curve_section.model_comparison],
@@ -306,6 +308,18 @@ def burden_dict(b: BurdenResult | None,
     if grand_total is not None:
         d["grand_total"] = _sum_dict(grand_total)
     return d
+
+
+def grid_dict(g: GridSection | None) -> dict[str, Any] | None:
+    """What a [grid] analysis read (the maps go to the report only)."""
+    if g is None:
+        return None
+    return {"files": dict(g.files), "cells": int(g.cells), "skipped_cells": int(g.skipped_cells),
+            "skipped_population": num(g.skipped_population), "error_gsd": num(g.error_gsd),
+            "scheduler": g.scheduler,
+            "zones": [{"zone": int(z), "name": n, "population": num(p), "mean": num(m)}
+                      for z, n, p, m in zip(g.zone_ids, g.zone_names, g.zone_population,
+                                            g.zone_mean, strict=True)]}
 
 
 def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:
