@@ -14,7 +14,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from doseattr.outputs.style import COLORS, new_axes, styled
+from doseattr.outputs.style import COLORS, CYCLE, new_axes, outside_legend, styled
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
@@ -101,7 +101,75 @@ def plot_averted(names: Sequence[str], estimate: Sequence[float], ax: Axes | Non
                      title=title, color=COLORS["curve"], prefix="scenario")
 
 
+def per_text(rate_per: float) -> str:
+    """``"100,000"``: how many people a rate is per."""
+    return f"{rate_per:,.0f}" if float(rate_per).is_integer() else f"{rate_per:g}"
+
+
 def _limits(values: Sequence[float | None] | None, n: int) -> np.ndarray:
     if values is None:
         return np.full(n, np.nan)
     return np.array([np.nan if v is None else float(v) for v in values], float)
+
+
+def plot_group_rates(strata: Sequence[str], groups: Sequence[str],
+                     estimate: Sequence[Sequence[float | None]], ax: Axes | None = None, *,
+                     lower: Sequence[Sequence[float | None]] | None = None,
+                     upper: Sequence[Sequence[float | None]] | None = None,
+                     xlabel: str = "Attributable per 100,000", title: str = "") -> Axes:
+    """Attributable rates by group across strata: one row per stratum
+    (first at the top), one colour and marker per group, dodged within the
+    row, with interval whiskers wherever both limits are given.
+
+    ``estimate[i][j]`` is stratum ``i``'s rate in group ``j`` (``None``
+    where the stratum has no such group). Group ``j``'s points carry
+    ``gid="rates-points"`` and its label, its whiskers
+    ``gid="rates-whiskers"`` (one segment per point with limits, in
+    stratum order); colours follow :data:`~doseattr.outputs.style.CYCLE`.
+    """
+    n, k = len(strata), len(groups)
+    with styled():
+        ax = new_axes(ax, size=(6.4, max(2.2, 0.22 * n * max(k, 2) + 1.2)))
+        pos = np.arange(n)[::-1].astype(float)
+        step = 0.7 / max(k, 1)
+        for j, group in enumerate(groups):
+            y = pos + 0.35 - step * (j + 0.5)
+            est = _column(estimate, j, n)
+            lo, hi = _column(lower, j, n), _column(upper, j, n)
+            color = CYCLE[j % len(CYCLE)]
+            shown = np.isfinite(est)
+            ax.plot(est[shown], y[shown], MARKERS[j % len(MARKERS)], color=color,
+                    markersize=5.5, label=str(group), gid="rates-points", linestyle="none")
+            ok = shown & np.isfinite(lo) & np.isfinite(hi)
+            if ok.any():
+                ax.hlines(y[ok], lo[ok], hi[ok], colors=color, linewidth=1.1,
+                          gid="rates-whiskers")
+        ax.set_yticks(pos, [str(s) for s in strata])
+        ax.set_xlabel(xlabel)
+        low = [np.nanmin(v) for v in (_table(estimate), _table(lower)) if np.isfinite(v).any()]
+        ax.set_xlim(left=min([0.0, *low]))
+        ax.grid(axis="y", visible=False)
+        if title:
+            ax.set_title(title)
+        outside_legend(ax, title="group")
+    return ax
+
+
+#: Marker of each group in :func:`plot_group_rates` (with its colour, so
+#: the groups differ without colour too).
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+
+
+def _table(values: Sequence[Sequence[float | None]] | None) -> np.ndarray:
+    if values is None:
+        return np.full(1, np.nan)
+    return np.array([[np.nan if v is None else float(v) for v in row] for row in values],
+                    float).reshape(-1)
+
+
+def _column(values: Sequence[Sequence[float | None]] | None, j: int, n: int) -> np.ndarray:
+    """Column ``j`` of a stratum-by-group table (NaN where missing)."""
+    if values is None:
+        return np.full(n, np.nan)
+    cells = [row[j] for row in values]
+    return np.array([np.nan if v is None else float(v) for v in cells], float)

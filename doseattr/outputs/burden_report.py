@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING
 
+from doseattr.outputs.burden_figures import per_text
 from doseattr.outputs.markup import (
     NA,
     estimate_text,
@@ -24,7 +25,12 @@ from doseattr.outputs.markup import (
     with_unit,
     worded,
 )
-from doseattr.outputs.text import UNIT_PARAMETERS
+from doseattr.outputs.text import (
+    GRAND_TOTAL_CAUTION,
+    UNIT_PARAMETERS,
+    YLL_NOTE,
+    method_sentence,
+)
 from doseattr.results import (
     AttributionSection,
     BurdenResult,
@@ -34,7 +40,7 @@ from doseattr.results import (
     StratumResult,
     UncertaintySection,
 )
-from doseattr.results.records import burden_blocks
+from doseattr.results.records import BurdenBlock, StratumEffect, burden_blocks
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results
@@ -55,8 +61,6 @@ SOURCE_LABELS = {"curve": "curve coefficients", "exposure": "exposure parameters
 #: How the exposure columns of a burden table read in the report.
 GIVEN_NAMES = {"gm": "GM", "gsd": "GSD", "mean": "mean", "sd": "SD", "shape": "shape",
                "scale": "scale"}
-
-#: One burden table: the outcome's name (``None`` for the analysis's own) and its strata.
 
 
 def cases(v: float | None) -> str:
@@ -174,41 +178,117 @@ def _points(v: float) -> str:
 def burden_section(burden: BurdenResult | None, unit: str | None,
                    images: Mapping[str, bytes], *,
                    outcomes: Sequence[tuple[str, BurdenResult | None]] = ()) -> str:
-    """Per outcome: attributable cases and PAF by stratum and in total
-    (with each stratum's exposure), and the cases each scenario averts, all
-    with intervals. ``outcomes`` holds each outcome's own burden."""
-    parts = []
-    for name, b in burden_blocks(burden, outcomes):
-        prefix = f"{name}: " if name else ""
-        parts.append(strata_table(b, unit, f"{prefix}attributable cases by stratum"))
-        parts.append(own_exposure_text(b))
-        parts.append(scenarios_table(b, f"{prefix}cases averted by each scenario"))
-    if not parts:
+    """Per outcome: attributable cases and PAF by stratum (and group) and
+    in total (with each stratum's exposure, and rates and years of life
+    lost where the burden table allows them), each group across strata and
+    each stratum across its groups, and the cases each scenario averts, all
+    with intervals; which method turned fractions into cases. ``outcomes``
+    holds each outcome's own burden."""
+    blocks = burden_blocks(burden, outcomes)
+    if not blocks:
         return ""
+    parts = [method_text(blocks)]
+    for name, b in blocks:
+        prefix = f"{name}: " if name else ""
+        what = "by stratum and group" if b.has_groups else "by stratum"
+        parts.append(strata_table(b, unit, f"{prefix}attributable cases {what}"))
+        parts.append(own_exposure_text(b))
+        if b.has_groups:
+            parts.append(sums_table(b, b.groups, "Group",
+                                    f"{prefix}each group summed across strata"))
+            parts.append(sums_table(b, b.stratum_totals, "Stratum",
+                                    f"{prefix}each stratum summed across its groups"))
+        parts.append(scenarios_table(b, f"{prefix}cases averted by each scenario"))
     parts.append(figure(images, "burden",
                         "Attributable cases by stratum (left) and, in total, all cases "
                         "attributable to exposure above the minimum-risk level and the cases "
                         "each scenario averts (right); whiskers are 95% intervals."))
+    parts.append(figure(images, "burden_rates", _rates_caption(blocks)))
     parts.append(para("Totals are sums over the strata draw by draw, so their intervals are "
                       "consistent with the strata; the total PAF is the total attributable over "
                       "the total cases."))
+    if any(b.has_yll for _, b in blocks):
+        parts.append(para(YLL_NOTE))
     return "".join(p for p in parts if p)
 
 
+def _rates_caption(blocks: Sequence[BurdenBlock]) -> str:
+    pers = list(dict.fromkeys(per_text(b.rate_per) for _, b in blocks
+                              if b.has_groups and b.has_rates))
+    per = " or ".join(pers) or per_text(100_000.0)
+    return (f"Attributable cases per {per} people by group (colour and marker) in each "
+            "stratum (row), one panel per outcome with groups and rates; whiskers are 95% "
+            "intervals.")
+
+
+def method_text(blocks: Sequence[BurdenBlock]) -> str:
+    """One sentence saying which method turned fractions into cases and
+    what it assumes; one per outcome when the outcomes differ."""
+    methods = list(dict.fromkeys(b.method for _, b in blocks))
+    if len(methods) == 1:
+        return para(method_sentence(methods[0]) + " The methods section shows both methods.")
+    return "".join(para(method_sentence(b.method, name or "this analysis"))
+                   for name, b in blocks)
+
+
+def rate_header(rate_per: float) -> str:
+    return f"Attributable per {per_text(rate_per)} (95% interval)"
+
+
+YLL_HEADER = "Years of life lost (95% interval)"
+
+
+def _impact_header(burden: BurdenResult) -> list[str]:
+    """Headers of the rate and YLL columns the burden table has."""
+    return (([rate_header(burden.rate_per)] if burden.has_rates else [])
+            + ([YLL_HEADER] if burden.has_yll else []))
+
+
+def _impact_cells(burden: BurdenResult, r: StratumResult) -> list[str]:
+    return (([estimate_text(r.attributable_rate, cases)] if burden.has_rates else [])
+            + ([estimate_text(r.yll, cases)] if burden.has_yll else []))
+
+
 def strata_table(burden: BurdenResult, unit: str | None, caption: str) -> str:
-    """One row per stratum and the total: cases, attributable cases and PAF
-    with their intervals, and the exposure the stratum's fractions used."""
-    rows = [_stratum_row(s.stratum, s, unit) for s in burden.strata]
-    rows.append(_stratum_row("Total", burden.total, unit))
-    return table(["Stratum", "Cases", "Attributable cases", "95% interval", "PAF",
-                  "95% interval", "Exposure"], rows, caption=caption)
+    """One row per row of the burden table (stratum, and group when it has
+    one) and the total: cases, attributable cases and PAF with their
+    intervals, with rates the attributable rate and with life expectancy
+    the years of life lost (each with its interval), and the exposure the
+    row's fractions used."""
+    groups = burden.has_groups
+    rows = [_stratum_row(s.stratum, s, unit, burden) for s in burden.strata]
+    rows.append(_stratum_row("Total", burden.total, unit, burden))
+    return table(["Stratum", *(["Group"] if groups else []), "Cases", "Attributable cases",
+                  "95% interval", *_impact_header(burden), "PAF", "95% interval",
+                  "Exposure"], rows, caption=caption)
 
 
-def _stratum_row(label: str, r: StratumResult, unit: str | None) -> list[str]:
+def _stratum_row(label: str, r: StratumResult, unit: str | None,
+                 burden: BurdenResult) -> list[str]:
     att, paf = r.attributable, r.paf
-    return [label, cases(r.cases), cases(att.estimate),
-            interval(att.lower, att.upper, cases), pct(paf.estimate),
-            interval(paf.lower, paf.upper), stratum_exposure_text(r.exposure, unit)]
+    group = [NA if r.group is None or r is burden.total else r.group] if burden.has_groups \
+        else []
+    return [label, *group, cases(r.cases), cases(att.estimate),
+            interval(att.lower, att.upper, cases), *_impact_cells(burden, r),
+            pct(paf.estimate), interval(paf.lower, paf.upper),
+            stratum_exposure_text(r.exposure, unit)]
+
+
+def sums_table(burden: BurdenResult, sums: Sequence[StratumResult], label: str,
+               caption: str) -> str:
+    """Sums of rows (each group across strata, ``label`` "Group", or each
+    stratum across its groups, "Stratum") and the total: cases,
+    attributable cases, rate and years of life lost with intervals, and
+    the PAF (attributable over cases)."""
+    if not sums:
+        return ""
+    records = [((s.group or NA) if label == "Group" else s.stratum, s) for s in sums]
+    rows = [[name, cases(s.cases), cases(s.attributable.estimate),
+             interval(s.attributable.lower, s.attributable.upper, cases),
+             *_impact_cells(burden, s), estimate_text(s.paf)]
+            for name, s in (*records, ("Total", burden.total))]
+    return table([label, "Cases", "Attributable cases", "95% interval",
+                  *_impact_header(burden), "PAF (95% interval)"], rows, caption=caption)
 
 
 def stratum_exposure_text(e: StratumExposure | None, unit: str | None) -> str:
@@ -233,10 +313,11 @@ def _given_value(name: str, value: float, unit: str | None) -> str:
 def own_exposure_text(burden: BurdenResult) -> str:
     """One sentence naming the strata with their own exposure description
     (from the burden table); empty when every stratum uses the shared one."""
-    own = [s.stratum for s in burden.strata if s.exposure is not None and s.exposure.own]
+    own = list(dict.fromkeys(s.stratum for s in burden.strata
+                             if s.exposure is not None and s.exposure.own))
     if not own:
         return ""
-    if len(own) == len(burden.strata):
+    if len(own) == len({s.stratum for s in burden.strata}):  # a stratum's groups once
         return para("Every stratum had its own exposure description in the burden table, so "
                     "their PAFs differ only through exposure (mean exposures count the "
                     "unexposed share at zero).")
@@ -249,24 +330,79 @@ def own_exposure_text(burden: BurdenResult) -> str:
 
 
 def scenarios_table(burden: BurdenResult, caption: str) -> str:
-    """One row per stratum (and the total), one column pair per scenario:
-    the PIF and the cases averted, each with its interval."""
+    """One row per row of the burden table (and the total), one column
+    pair per scenario: the PIF and the cases averted, each with its
+    interval; with groups a group column and with life expectancy the
+    years of life lost averted."""
     records = [(s.stratum, s) for s in burden.strata] + [("Total", burden.total)]
     names = [e.name for e in records[0][1].scenarios]
     if not names:
         return ""
+    groups, yll = burden.has_groups, burden.has_yll
     rows = []
     for label, r in records:
         row = [label]
+        if groups:
+            row.append(NA if r.group is None or r is burden.total else r.group)
         for n in names:
-            e = next((x for x in r.scenarios if x.name == n), None)
+            e = _effect(r, n)
             row += [estimate_text(None if e is None else e.pif),
                     estimate_text(None if e is None else e.averted, cases)]
+            if yll:
+                row.append(estimate_text(None if e is None else e.averted_yll, cases))
         rows.append(row)
-    header = ["Stratum"]
+    header = ["Stratum"] + (["Group"] if groups else [])
     for n in names:
-        header += [f"{n}: PIF", f"{n}: cases averted"]
+        header += [f"{n}: PIF", f"{n}: cases averted"] + ([f"{n}: YLL averted"] if yll else [])
     return table(header, rows, caption=caption)
+
+
+def _effect(r: StratumResult, name: str) -> StratumEffect | None:
+    return next((x for x in r.scenarios if x.name == name), None)
+
+
+def totals_block(results: Results) -> str:
+    """With a total across outcomes (``results.grand_total``): each
+    outcome's total and the grand total, attributable cases, rate and
+    years of life lost with intervals and what each scenario averts, then
+    the caution on adding outcomes. Empty without a grand total."""
+    grand = results.grand_total
+    if grand is None:
+        return ""
+    blocks = results.burden_blocks
+    totals = [(name or "this analysis", b.total) for name, b in blocks]
+    totals.append(("All outcomes (grand total)", grand))
+    pers = list(dict.fromkeys(b.rate_per for _, b in blocks)) or [100_000.0]
+    rates = any(t.attributable_rate is not None for _, t in totals)
+    yll = any(t.yll is not None for _, t in totals)
+    names = list(dict.fromkeys(e.name for _, t in totals for e in t.scenarios))
+    header = ["Outcome", "Cases", "Attributable cases (95% interval)"]
+    if rates:
+        header.append(rate_header(pers[0]) if len(pers) == 1
+                      else "Attributable rate (95% interval)")
+    if yll:
+        header.append(YLL_HEADER)
+    for n in names:
+        header += [f"Cases averted, {n}"] + ([f"YLL averted, {n}"] if yll else [])
+    rows = []
+    for label, t in totals:
+        row = [label, cases(t.cases), estimate_text(t.attributable, cases)]
+        if rates:
+            row.append(estimate_text(t.attributable_rate, cases))
+        if yll:
+            row.append(estimate_text(t.yll, cases))
+        for n in names:
+            e = _effect(t, n)
+            row.append(estimate_text(None if e is None else e.averted, cases))
+            if yll:
+                row.append(estimate_text(None if e is None else e.averted_yll, cases))
+        rows.append(row)
+    per = "" if len(pers) == 1 else (
+        " Rates are per " + ", ".join(f"{name or 'this analysis'}: {per_text(b.rate_per)}"
+                                       for name, b in blocks) + " people.")
+    return (table(header, rows, caption="Totals by outcome and across all outcomes")
+            + para(GRAND_TOTAL_CAUTION + per)
+            + (para(YLL_NOTE) if yll else ""))
 
 
 def outcomes_section(results: Results, images: Mapping[str, bytes]) -> str:

@@ -41,7 +41,7 @@ if TYPE_CHECKING:
 
 #: File names (without ``.png``) in report order.
 FIGURE_NAMES = ("curve", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
-                "categorical", "paf_draws", "burden")
+                "categorical", "paf_draws", "burden", "burden_rates")
 
 
 def render_figures(results: Results) -> dict[str, bytes]:
@@ -59,6 +59,7 @@ def render_figures(results: Results) -> dict[str, bytes]:
         "categorical": lambda: _categorical(results.categorical),
         "paf_draws": lambda: _paf_draws(results.uncertainty, results.attribution.paf),
         "burden": lambda: _burden(results.burden_blocks),
+        "burden_rates": lambda: _burden_rates(results.burden_blocks),
     }
     out = {}
     for name in FIGURE_NAMES:
@@ -289,6 +290,69 @@ def _burden(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure | None:
     return figure
 
 
+@dataclass(frozen=True)
+class RatePanel:
+    """One outcome's attributable rates by stratum (rows) and group
+    (columns, first-seen order), with their limits (``None`` where a
+    stratum has no such group or no interval)."""
+
+    outcome: str | None
+    rate_per: float
+    strata: tuple[str, ...]
+    groups: tuple[str, ...]
+    estimate: tuple[tuple[float | None, ...], ...]
+    lower: tuple[tuple[float | None, ...], ...]
+    upper: tuple[tuple[float | None, ...], ...]
+
+
+def rate_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[RatePanel]:
+    """One :class:`RatePanel` per burden block that has both groups and
+    rates (the other outcomes have nothing to draw)."""
+    out = []
+    for outcome, burden in blocks:
+        if not (burden.has_groups and burden.has_rates):
+            continue
+        rows = [s for s in burden.strata if s.group is not None]
+        strata = tuple(dict.fromkeys(s.stratum for s in rows))
+        groups = tuple(dict.fromkeys(str(s.group) for s in rows))
+        cell = {(s.stratum, str(s.group)): s.attributable_rate for s in rows}
+        grid = [_grid(cell, strata, groups, part) for part in ("estimate", "lower", "upper")]
+        out.append(RatePanel(outcome, float(burden.rate_per), strata, groups, *grid))
+    return out
+
+
+def _grid(cell: dict[tuple[str, str], Estimate | None], strata: tuple[str, ...],
+          groups: tuple[str, ...], part: str) -> tuple[tuple[float | None, ...], ...]:
+    """``part`` (estimate, lower or upper) of every stratum and group."""
+    return tuple(tuple(_part(cell.get((st, g)), part) for g in groups) for st in strata)
+
+
+def _part(e: Estimate | None, part: str) -> float | None:
+    if e is None:
+        return None
+    value = getattr(e, part)
+    return None if value is None else float(value)
+
+
+def _burden_rates(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure | None:
+    """Attributable rates by group across strata, one panel per outcome
+    with groups and rates, stacked."""
+    panels = rate_panels(blocks)
+    if not panels:
+        return None
+    plt = pyplot()
+    heights = [0.22 * len(p.strata) * max(len(p.groups), 2) + 1.3 for p in panels]
+    with styled():
+        figure, axes = plt.subplots(len(panels), 1, squeeze=False, layout="constrained",
+                                    figsize=(6.8, sum(heights)), height_ratios=heights)
+    for ax, p in zip(axes[:, 0], panels):
+        prefix = f"{p.outcome}: " if p.outcome else ""
+        bf.plot_group_rates(p.strata, p.groups, p.estimate, ax, lower=p.lower, upper=p.upper,
+                            xlabel=f"Attributable per {bf.per_text(p.rate_per)} people",
+                            title=f"{prefix}attributable rate by group and stratum")
+    return figure
+
+
 __all__ = [
     "FIGURE_NAMES",
     "burden_panels",
@@ -296,5 +360,6 @@ __all__ = [
     "other_models",
     "outcome_panels",
     "paf_draws",
+    "rate_panels",
     "render_figures",
 ]

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from html import escape
 
 import numpy as np
@@ -25,11 +25,13 @@ from numpy.typing import NDArray
 
 from doseattr import __version__
 from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.outputs.burden_figures import per_text
 from doseattr.outputs.burden_report import (
     burden_section,
     cases,
     outcome_warnings,
     outcomes_section,
+    totals_block,
     uncertainty_section,
 )
 from doseattr.outputs.css import CSS
@@ -54,6 +56,7 @@ from doseattr.outputs.markup import (
 )
 from doseattr.outputs.text import (
     METHODS_TEXT,
+    burden_methods,
     computed_paragraph,
     references,
 )
@@ -65,7 +68,7 @@ from doseattr.results import (
     ScenarioResult,
 )
 from doseattr.results.cautions import CAUTIONS
-from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF
+from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF, StratumEffect
 
 
 # ---------------------------------------------------------------- sections
@@ -91,6 +94,15 @@ def key_numbers(results: Results) -> str:
         rows.append([f"Attributable cases in all strata (total PAF "
                      f"{pct(total.paf.estimate)}, the {CASE_WEIGHTED_PAF})", cases(att.estimate)]
                     + ([interval(att.lower, att.upper, cases)] if has_ci else []))
+        rate, yll = total.attributable_rate, total.yll
+        if rate is not None:
+            rows.append([f"Attributable cases per {per_text(results.burden.rate_per)} people "
+                         "in all strata", cases(rate.estimate)]
+                        + ([interval(rate.lower, rate.upper, cases)] if has_ci else []))
+        if yll is not None:
+            rows.append(["Years of life lost to attributable deaths in all strata",
+                         cases(yll.estimate)]
+                        + ([interval(yll.lower, yll.upper, cases)] if has_ci else []))
         for s in a.scenarios:
             averted = s.averted
             if averted is not None:
@@ -98,7 +110,16 @@ def key_numbers(results: Results) -> str:
                              cases(averted.estimate)]
                             + ([interval(averted.lower, averted.upper, cases)]
                                if has_ci else []))
+            saved = _averted_yll(total.scenarios, s.name)
+            if saved is not None:
+                rows.append([f"Years of life lost averted by scenario \u201c{s.name}\u201d",
+                             cases(saved.estimate)]
+                            + ([interval(saved.lower, saved.upper, cases)] if has_ci else []))
     return table(header, rows, cls="key")
+
+
+def _averted_yll(effects: Sequence[StratumEffect], name: str) -> Estimate | None:
+    return next((e.averted_yll for e in effects if e.name == name), None)
 
 
 def _outcomes_hint(results: Results) -> str:
@@ -248,7 +269,7 @@ def cautions_section(results: Results) -> str:
 
 def methods_section(results: Results) -> str:
     refs = "".join(f"<li>{escape(r)}</li>" for r in references(results))
-    return ("".join(para(t) for t in METHODS_TEXT)
+    return ("".join(para(t) for t in (*METHODS_TEXT, *burden_methods(results)))
             + f"<h3>References</h3><ol class='refs'>{refs}</ol>"
             + para("References marked \u2020 were cited from memory when this software was "
                    "written; check volume and page numbers before citing them."))
@@ -305,7 +326,7 @@ def render_report(results: Results, *, images: Mapping[str, bytes] | None = None
     sections = [
         section("summary", "Key numbers",
                 para(computed_paragraph(results)) + _outcomes_hint(results)
-                + key_numbers(results) + warnings_block(results)
+                + key_numbers(results) + totals_block(results) + warnings_block(results)
                 + notes_list(results.notes, "How the inputs were read:")),
         section("outcomes", "Outcomes side by side", outcomes_section(results, images)),
         section("curve", "Relative-risk curve",

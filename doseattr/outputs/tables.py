@@ -3,8 +3,8 @@
 Every table is built from one typed section of the run's
 :class:`~doseattr.results.run.Results` (the records results.json is
 generated from, so the CSV files and results.json hold the same numbers).
-Optional tables (burden, comparisons, width by source, workers) are written
-only when the results hold them. Numbers are written at full precision
+Optional tables (burden, burden by group and in total, comparisons, width
+by source, workers) are written only when the results hold them. Numbers are written at full precision
 (``repr`` of the float, which round-trips exactly); empty cells mean "not
 applicable". Units are given in the column headers, e.g. ``lower (ug/m3)``.
 """
@@ -43,6 +43,24 @@ Table = tuple[list[str], list[list[Any]]]
 ESTIMATE_COLUMNS = ["estimate", "lower", "upper", "mcse"]
 BURDEN_COLUMNS = ["stratum", "cases", "population", *[f"paf_{c}" for c in ESTIMATE_COLUMNS],
                   *[f"attributable_{c}" for c in ESTIMATE_COLUMNS]]
+#: Appended to burden.csv (after the exposure columns) when a burden table
+#: has groups, rates or years of life lost.
+HEALTH_IMPACT_COLUMNS = ["group", "rate", *[f"attributable_rate_{c}" for c in ESTIMATE_COLUMNS],
+                         *[f"yll_{c}" for c in ESTIMATE_COLUMNS], "life_expectancy"]
+#: An estimate and its 95% limits, the layout of burden_groups.csv and
+#: burden_totals.csv.
+LIMITS = ["", "_lower", "_upper"]
+#: The columns of burden_groups.csv (:func:`burden_groups_table`).
+GROUPS_COLUMNS = ["outcome", "level", "stratum", "group", "population", "rate", "cases",
+                  *[f"attributable{c}" for c in LIMITS],
+                  *[f"attributable_rate{c}" for c in LIMITS],
+                  *[f"yll{c}" for c in LIMITS], "life_expectancy"]
+#: The columns of burden_totals.csv (:func:`burden_totals_table`).
+TOTALS_COLUMNS = ["outcome", "level", "scenario", "cases", "population",
+                  *[f"attributable{c}" for c in LIMITS],
+                  *[f"attributable_rate{c}" for c in LIMITS], *[f"yll{c}" for c in LIMITS],
+                  *[f"averted{c}" for c in LIMITS], *[f"averted_rate{c}" for c in LIMITS],
+                  *[f"averted_yll{c}" for c in LIMITS]]
 
 
 def cell(value: Any) -> str:
@@ -211,7 +229,12 @@ def burden_blocks_table(blocks: Sequence[BurdenBlock], unit: str | None) -> Tabl
     ``exposure_family``, one ``exposure_<parameter>`` per parameter name
     (the union over all strata, in first-seen order) and ``exposure_mean``
     (the unexposed counted at zero). The total row leaves those empty.
-    Per-scenario results go to :func:`burden_scenarios_table`.
+    When any block has groups, rates or years of life lost,
+    :data:`HEALTH_IMPACT_COLUMNS` follow: ``group``, ``rate`` (the baseline
+    rate as given, per ``rate_per``), ``attributable_rate_estimate`` ...
+    ``_mcse`` (per ``rate_per`` people), ``yll_estimate`` ... ``_mcse`` and
+    ``life_expectancy``. Per-scenario results go to
+    :func:`burden_scenarios_table`.
     """
     if not blocks:
         return None
@@ -223,7 +246,9 @@ def burden_blocks_table(blocks: Sequence[BurdenBlock], unit: str | None) -> Tabl
     # The outcome column is first; it stood after the burden columns (and
     # stays there) when the analysis's own burden comes before the outcomes.
     at = 0 if blocks[0][0] else len(BURDEN_COLUMNS)
-    header = [*BURDEN_COLUMNS, *exposure_header]
+    extended = health_impact(blocks)
+    header = [*BURDEN_COLUMNS, *exposure_header,
+              *(HEALTH_IMPACT_COLUMNS if extended else [])]
     if named:
         header.insert(at, "outcome")
     rows = []
@@ -231,6 +256,9 @@ def burden_blocks_table(blocks: Sequence[BurdenBlock], unit: str | None) -> Tabl
         for s in (*burden.strata, burden.total):
             stratum = "total" if s is burden.total else s.stratum
             row = [*_burden_cells(s, stratum), *_exposure_cells(s.exposure, names)]
+            if extended:
+                row += [s.group, _float(s.rate), *estimate_cells(s.attributable_rate),
+                        *estimate_cells(s.yll), _float(s.life_expectancy)]
             if named:
                 row.insert(at, name or None)
             rows.append(row)
@@ -259,6 +287,82 @@ def burden_scenarios_blocks_table(blocks: Sequence[BurdenBlock]) -> Table | None
     if not any(r[0] for r in rows):
         header, rows = header[1:], [r[1:] for r in rows]
     return (header, rows) if rows else None
+
+
+def health_impact(blocks: Sequence[BurdenBlock]) -> bool:
+    """True when any burden table has groups, rates or years of life lost
+    (then burden.csv gains :data:`HEALTH_IMPACT_COLUMNS` and
+    burden_groups.csv is written)."""
+    return any(b.has_groups or b.has_rates or b.has_yll for _, b in blocks)
+
+
+def burden_groups_table(blocks: Sequence[BurdenBlock]) -> Table | None:
+    """Every row of every burden table and its sums (``None`` unless
+    :func:`health_impact`).
+
+    Columns :data:`GROUPS_COLUMNS`: ``outcome`` (empty for the analysis's
+    own burden), ``level``, ``stratum``, ``group``, ``population``,
+    ``rate`` (baseline, per ``rate_per``, as given), ``cases``,
+    ``attributable`` with ``_lower``/``_upper``, ``attributable_rate``
+    (per ``rate_per`` people) and ``yll`` with theirs, ``life_expectancy``.
+    ``level`` is ``"row"`` for a row of the burden table, ``"group"`` for a
+    group summed across strata, ``"stratum"`` for a stratum summed across
+    its groups and ``"outcome"`` for the outcome's total (stratum
+    ``total``); within an outcome the rows come first, then the groups,
+    the strata and the total. Sums are the analysis's, draw by draw.
+    """
+    if not health_impact(blocks):
+        return None
+    rows: list[list[Any]] = []
+    for name, burden in blocks:
+        levels = [("row", s) for s in burden.strata] + [("group", g) for g in burden.groups]
+        levels += [("stratum", s) for s in burden.stratum_totals]
+        for level, s in (*levels, ("outcome", burden.total)):
+            stratum = "total" if level == "outcome" else s.stratum
+            rows.append([name, level, stratum, s.group, _float(s.population), _float(s.rate),
+                         _float(s.cases), *limit_cells(s.attributable),
+                         *limit_cells(s.attributable_rate), *limit_cells(s.yll),
+                         _float(s.life_expectancy)])
+    return list(GROUPS_COLUMNS), rows
+
+
+def burden_totals_table(blocks: Sequence[BurdenBlock],
+                        grand_total: StratumResult | None) -> Table | None:
+    """Each outcome's total and the total across outcomes, in long form
+    (``None`` without either groups, rates, years of life lost or a grand
+    total).
+
+    Columns :data:`TOTALS_COLUMNS`. ``level`` is ``"outcome"`` (``outcome``
+    names it; empty for the analysis's own burden) or ``"all outcomes"``
+    (``grand_total``, the sum over the outcomes draw by draw; ``outcome``
+    empty). A row with an empty ``scenario`` holds the total: ``cases``,
+    ``population``, ``attributable``, ``attributable_rate`` and ``yll``
+    with their 95% limits. Each scenario then has a row of its own
+    (``scenario`` = its name) holding only ``averted``, ``averted_rate``
+    and ``averted_yll`` with their limits; its other cells are empty, so
+    summing a column never counts a number twice.
+    """
+    if grand_total is None and not health_impact(blocks):
+        return None
+    totals: list[tuple[str | None, str, StratumResult]] = [
+        (name, "outcome", b.total) for name, b in blocks]
+    if grand_total is not None:
+        totals.append((None, "all outcomes", grand_total))
+    rows: list[list[Any]] = []
+    blank = [None] * 9
+    for name, level, t in totals:
+        rows.append([name, level, None, _float(t.cases), _float(t.population),
+                     *limit_cells(t.attributable), *limit_cells(t.attributable_rate),
+                     *limit_cells(t.yll), *blank])
+        for e in t.scenarios:
+            rows.append([name, level, e.name, None, None, *blank, *limit_cells(e.averted),
+                         *limit_cells(e.averted_rate), *limit_cells(e.averted_yll)])
+    return list(TOTALS_COLUMNS), rows
+
+
+def limit_cells(est: Estimate | None) -> list[float | None]:
+    """``[estimate, lower, upper]`` of an estimate (empty without one)."""
+    return estimate_cells(est)[:3]
 
 
 def model_comparison_table(section: CurveSection) -> Table | None:
@@ -361,6 +465,8 @@ def all_tables(results: Results) -> dict[str, Table]:
     optional = {
         "burden.csv": burden_blocks_table(blocks, unit),
         "burden_scenarios.csv": burden_scenarios_blocks_table(blocks),
+        "burden_groups.csv": burden_groups_table(blocks),
+        "burden_totals.csv": burden_totals_table(blocks, results.grand_total),
         "model_comparison.csv": model_comparison_table(curve),
         "dose_sensitivity.csv": dose_sensitivity_table(curve, unit),
         "exposure_comparison.csv": exposure_comparison_table(exposure),

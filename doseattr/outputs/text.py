@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from doseattr.core.exposure.registry import unit_parameters
+from doseattr.results.records import METHOD_TEXT
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results
@@ -89,6 +90,49 @@ EXTRA_REFERENCES = {
            "Automat Control 19:716. \u2020",
 }
 
+#: How each ``[burden] method`` is named in the report's sentences.
+BURDEN_METHOD_NAMES = {"paf": "the PAF method", "impact-function": "the health impact function"}
+
+#: The methods section's paragraph on turning fractions into cases (shown
+#: with a burden table). The ordering of the two follows from Jensen's
+#: inequality: 1/x is convex, so E[1/RR] >= 1/E[RR].
+BURDEN_METHODS_TEXT = (
+    "Attributable cases. Two ways turn fractions into cases, chosen by [burden] method. "
+    "\u201cpaf\u201d (the default): attributable = observed cases \u00d7 PAF with PAF = "
+    "1 \u2212 1/E[RR_m(X)], which takes the observed rate as the rate of the whole exposed "
+    "population (comparative risk assessment; Murray et al. 2003, Popul Health Metr 1:1). "
+    "\u201cimpact-function\u201d: attributable = observed cases \u00d7 E[1 \u2212 "
+    "1/RR_m(X)], the health impact function applied to each person's own exposure, which "
+    "takes the observed rate as the rate at each person's exposure (K\u00fcnzli et al. 2000, "
+    "Lancet 356:795, cited from memory). Because 1/x is convex, E[1/RR] \u2265 1/E[RR] "
+    "(Jensen's inequality), so for the same cases the health impact function never gives "
+    "more attributable cases than the PAF method; the two agree when everyone has the same "
+    "exposure. With a population, a rate is per rate_per people: attributable rate = "
+    "attributable cases / population \u00d7 rate_per. Every total (a group across strata, "
+    "a stratum across its groups, an outcome, all outcomes) is a sum draw by draw, so its "
+    "interval is that of the summed draws, not a sum of limits.")
+
+#: Shown wherever years of life lost are.
+YLL_NOTE = (
+    "Years of life lost (YLL) are deaths-based: attributable deaths \u00d7 the remaining "
+    "life expectancy at each row's age, from the life table the user supplied, summed like "
+    "the cases; they are neither discounted nor age-weighted. Outcomes that are not deaths "
+    "(new cases, admissions) should not carry a life expectancy.")
+
+#: Shown beside the total across outcomes.
+GRAND_TOTAL_CAUTION = (
+    "The total across outcomes adds the outcomes' attributable cases and years of life lost "
+    "draw by draw; it is meaningful only when the outcomes do not overlap (all-cause and "
+    "cause-specific deaths, for example, count the same deaths twice). These numbers "
+    "support, and do not replace, local regulations and the advice of licensed "
+    "professionals.")
+
+IMPACT_REFERENCE = (
+    "K\u00fcnzli N, Kaiser R, Medina S, Studnicka M, Chanel O, Filliger P, Herry M, Horak F "
+    "Jr, Puybonnieux-Texier V, Qu\u00e9nel P, Schneider J, Seethaler R, Vergnaud JC, Sommer H "
+    "(2000). Public-health impact of outdoor and traffic-related air pollution: a European "
+    "assessment. Lancet 356:795. \u2020")
+
 #: Kept for callers that want the fixed list.
 REFERENCES = BASE_REFERENCES
 
@@ -109,7 +153,31 @@ def references(results: Results) -> list[str]:
         refs.append(EXTRA_REFERENCES["censored"])
     if len(e.fits) > 1:
         refs.append(EXTRA_REFERENCES["aic"])
+    if results.burden_blocks:
+        refs.append(IMPACT_REFERENCE)
     return refs
+
+
+def burden_methods(results: Results) -> tuple[str, ...]:
+    """The methods section's paragraphs on attributable cases, rates and
+    years of life lost: none without a burden table, the YLL note only when
+    some burden table has years of life lost."""
+    blocks = results.burden_blocks
+    if not blocks:
+        return ()
+    yll = any(b.has_yll for _, b in blocks) or (
+        results.grand_total is not None and results.grand_total.yll is not None)
+    return (BURDEN_METHODS_TEXT,) + ((YLL_NOTE,) if yll else ())
+
+
+def method_sentence(method: str, outcome: str | None = None) -> str:
+    """Which way from fractions to cases a burden table used and what it
+    assumes (:data:`~doseattr.results.records.METHOD_TEXT`)."""
+    whose = f"For {outcome}, attributable" if outcome else "Attributable"
+    name = BURDEN_METHOD_NAMES.get(method, method)
+    what = METHOD_TEXT.get(method, "")
+    how = f"{whose} cases were computed by {name} ([burden] method = \u201c{method}\u201d)"
+    return f"{how}: {what}." if what else f"{how}."
 
 
 def computed_paragraph(results: Results) -> str:

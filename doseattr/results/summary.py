@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import share_text
 from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF, StratumExposure
 
@@ -112,20 +113,91 @@ def _categorical(r: Results) -> list[str]:
 
 
 def _burden(r: Results) -> list[str]:
-    """Attributable cases by stratum, with the exposure each stratum used."""
+    """Attributable cases by stratum (and group), with the exposure each
+    used, the attributable rate and the years of life lost where the burden
+    table gives them; then the totals across outcomes."""
     b = r.burden
     if b is None:
-        return []
-    rows = [[s.stratum, f"{s.cases:g}", s.paf.text(), s.attributable.text(percent=False),
-             _stratum_exposure(s.exposure)] for s in b.strata]
-    rows.append(["total", f"{b.total.cases:g}", b.total.paf.text(),
-                 b.total.attributable.text(percent=False), ""])
-    out = ["", "Attributable cases by stratum"]
-    out += table(["stratum", "cases", "PAF", "attributable", "exposure"], rows)
+        return _grand_total(r)
+    groups, rates, yll = b.has_groups, b.has_rates, b.has_yll
+    rows = []
+    for s in (*b.strata, b.total):
+        total = s is b.total
+        row = ["total" if total else s.stratum]
+        if groups:
+            row.append("" if total or s.group is None else s.group)
+        row += [f"{s.cases:g}", s.paf.text(), s.attributable.text(percent=False)]
+        if rates:
+            row.append(_count(s.attributable_rate))
+        if yll:
+            row.append(_count(s.yll))
+        rows.append(row + ["" if total else _stratum_exposure(s.exposure)])
+    head = ["stratum", *(["group"] if groups else []), "cases", "PAF", "attributable",
+            *([f"per {_per(b.rate_per)}"] if rates else []), *(["YLL"] if yll else []),
+            "exposure"]
+    out = ["", "Attributable cases by stratum" + (" and group" if groups else "")]
+    out += table(head, rows)
     if b.any_own_exposure:
         out += textwrap.wrap("strata marked 'own' have their own exposure from the burden "
                              "table; the others use the shared distribution", WIDTH)
+    if yll:
+        out += textwrap.wrap("YLL: attributable deaths x remaining life expectancy from the "
+                             "life table given (deaths-based; not discounted nor "
+                             "age-weighted)", WIDTH)
+    return out + _grand_total(r)
+
+
+def _grand_total(r: Results) -> list[str]:
+    """Each outcome's total and the grand total across outcomes (with the
+    caution that adding outcomes double counts overlapping ones)."""
+    g = r.grand_total
+    if g is None:
+        return []
+    totals = [(name, o.burden.total) for name, o in r.outcomes if o.burden is not None]
+    rates = g.attributable_rate is not None
+    yll = g.yll is not None
+    rows = []
+    for name, t in (*totals, ("all outcomes", g)):
+        rows.append([name, f"{t.cases:g}", _count(t.attributable)]
+                    + ([_count(t.attributable_rate)] if rates else [])
+                    + ([_count(t.yll)] if yll else []))
+    per = r.burden.rate_per if r.burden is not None else 100_000.0
+    head = ["outcome", "cases", "attributable", *([f"per {_per(per)}"] if rates else []),
+            *(["YLL"] if yll else [])]
+    line = f"Grand total across outcomes: {_count(g.attributable)} attributable cases"
+    if rates:
+        line += f", {_count(g.attributable_rate)} per {_per(per)}"
+    if yll:
+        line += f", {_count(g.yll)} years of life lost"
+    out = ["", "Totals by outcome", *table(head, rows), *textwrap.wrap(line, WIDTH)]
+    for e in g.scenarios:
+        averted = f"scenario {e.name}: {_count(e.averted)} cases averted"
+        if e.averted_yll is not None:
+            averted += f", {_count(e.averted_yll)} years of life lost averted"
+        out += textwrap.wrap(averted, WIDTH, initial_indent="  ", subsequent_indent="    ")
+    out += textwrap.wrap("(meaningful only when the outcomes do not overlap: all-cause and "
+                         "cause-specific deaths double count; these numbers support, not "
+                         "replace, local regulations and the advice of licensed "
+                         "professionals)", WIDTH, break_on_hyphens=False)
     return out
+
+
+def _count(e: Estimate | None) -> str:
+    """A count or rate with its interval: whole numbers from 1000 on
+    (``"12,345 (10,002 to 14,870)"``), else four significant digits."""
+    if e is None:
+        return "-"
+
+    def f(v: float) -> str:
+        return f"{v:,.0f}" if abs(v) >= 1000 else f"{v:.4g}"
+
+    if e.lower is None or e.upper is None:
+        return f(e.estimate)
+    return f"{f(e.estimate)} ({f(e.lower)} to {f(e.upper)})"
+
+
+def _per(rate_per: float) -> str:
+    return f"{rate_per:,.0f}" if float(rate_per).is_integer() else f"{rate_per:g}"
 
 
 def _stratum_exposure(e: StratumExposure | None) -> str:
