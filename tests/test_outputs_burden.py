@@ -199,11 +199,16 @@ def test_strata_table_with_intervals(single):
     b = single.burden
     html = render_report(single, figures=False)
     header, rows = table_with(html, "attributable cases by stratum")
-    assert header == ["Stratum", "Cases", "Attributable cases", "95% interval", "PAF",
-                      "95% interval", "Exposure"]
+    # the table has a population column, so every count also has its rate (issue 11)
+    assert header == ["Stratum", "Cases", "Attributable cases", "95% interval",
+                      "Attributable per 100,000 (95% interval)", "PAF", "95% interval",
+                      "Exposure"]
     for row, (label, s) in zip(rows, [(s.stratum, s) for s in b.strata] + [("Total", b.total)]):
         att, paf = s.attributable, s.paf
-        assert row[:-1] == [label, cases(s.cases), cases(att.estimate),
+        assert s.attributable_rate is not None and s.population is not None
+        assert s.attributable_rate.estimate == pytest.approx(
+            att.estimate / s.population * 1e5, rel=1e-12)
+        assert row[:4] + row[5:-1] == [label, cases(s.cases), cases(att.estimate),
                             interval(att.lower, att.upper, cases), pct(paf.estimate),
                             interval(paf.lower, paf.upper)]
         assert paf.lower < paf.estimate < paf.upper

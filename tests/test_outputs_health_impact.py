@@ -219,6 +219,24 @@ def health(run):
     return with_health_impact(run)
 
 
+def _without_rates(b):
+    def plain(s):
+        return dataclasses.replace(s, population=None, attributable_rate=None, scenarios=tuple(
+            dataclasses.replace(e, averted_rate=None) for e in s.scenarios))
+    return dataclasses.replace(b, strata=tuple(plain(s) for s in b.strata),
+                               total=plain(b.total))
+
+
+@pytest.fixture(scope="module")
+def old(run):
+    """The real run as runs were before issue 11: no population (so no
+    rates), no groups, no YLL and no total across outcomes."""
+    outcomes = tuple((n, dataclasses.replace(o, burden=_without_rates(o.burden)))
+                     for n, o in run.outcomes)
+    return dataclasses.replace(run, outcomes=outcomes, burden=outcomes[0][1].burden,
+                               grand_total=None)
+
+
 @pytest.fixture(autouse=True)
 def _close_figures():
     yield
@@ -337,11 +355,11 @@ def test_burden_totals_csv_equals_the_records(health, tmp_path):
         assert [e.name for e in t.scenarios] == names
 
 
-def test_burden_csv_gains_the_health_impact_columns(health, run, tmp_path):
+def test_burden_csv_gains_the_health_impact_columns(health, old, tmp_path):
     """burden.csv keeps every column it had, in order, and appends group,
     rate, attributable rate and YLL (with MC SE) and life expectancy; a
     run without groups, rates or YLL has exactly the columns it had."""
-    old_header, _ = read_csv(tables.all_tables(run)["burden.csv"], tmp_path, "old.csv")
+    old_header, _ = read_csv(tables.all_tables(old)["burden.csv"], tmp_path, "old.csv")
     header, rows = read_csv(tables.all_tables(health)["burden.csv"], tmp_path, "new.csv")
     assert header == old_header + BURDEN_CSV_EXTRA
     assert not set(BURDEN_CSV_EXTRA) & set(old_header)
@@ -358,10 +376,11 @@ def test_burden_csv_gains_the_health_impact_columns(health, run, tmp_path):
         assert number(row["life_expectancy"]) == s.life_expectancy
 
 
-def test_old_runs_have_no_new_outputs(run):
+def test_old_runs_have_no_new_outputs(old):
     """Without groups, rates, YLL or a grand total: no new CSV file, no new
     figure, no new table, note or line in the report and the summary."""
-    assert run.grand_total is None  # the computation of issue 11 is not in yet
+    run = old
+    assert run.grand_total is None
     names = tables.all_tables(run)
     assert "burden_groups.csv" not in names and "burden_totals.csv" not in names
     assert gallery.rate_panels(run.burden_blocks) == []
@@ -382,11 +401,12 @@ def _name(o: Results, run: Results) -> str:
     return next(n for n, x in run.outcomes if x is o)
 
 
-def test_rates_without_groups_or_grand_total(run, tmp_path):
+def test_rates_without_groups_or_grand_total(old, tmp_path):
     """Rates and YLL without groups and without a total across outcomes:
     rate and YLL columns but no group tables and no figure;
     burden_totals.csv holds the outcome totals only."""
     rng = np.random.default_rng(9)
+    run = old
     name, o = run.outcomes[0]
     b, _ = build(o.burden, rng, groups=False)
     r = dataclasses.replace(run, outcomes=((name, dataclasses.replace(o, burden=b)),),
@@ -522,7 +542,8 @@ def test_report_says_which_method_and_shows_both(run):
     assert escape(METHOD_TEXT["impact-function"]) in burden
     methods = mixed[mixed.index('id="methods"'):]
     for part in ("PAF = 1 \u2212 1/E[RR_m(X)]", "E[1 \u2212 1/RR_m(X)]",
-                 "Murray et al. 2003, Popul Health Metr 1:1", "Lancet 356:795",
+                 "Murray et al. 2003, Popul Health Metr 1:1", "Ostro 2004",
+                 "Anenberg et al. 2010",
                  "cited from memory", YLL_NOTE):
         assert escape(part) in methods
     plain = render_report(run, figures=False)

@@ -221,8 +221,12 @@ def test_demo_burden_csv_shows_own_and_shared_exposure(demo):
     given = {r["stratum"]: r for r in csv.DictReader(lines)}
     table = tables.all_tables(demo)["burden.csv"]
     mean = f"exposure_mean ({demo.unit})"
+    # the demo's table has a population column, so the rate columns follow (issue 11)
+    extra = ["group", "rate", "attributable_rate_estimate", "attributable_rate_lower",
+             "attributable_rate_upper", "attributable_rate_mcse", "yll_estimate", "yll_lower",
+             "yll_upper", "yll_mcse", "life_expectancy"]
     assert header_of(table) == [*BURDEN_COLUMNS, "exposure", "exposure_family", "exposure_gm",
-                                "exposure_gsd", mean]
+                                "exposure_gsd", mean, *extra]
     rows = as_csv(table)
     assert [r["stratum"] for r in rows] == [*given, "total"]
     fitted = demo.exposure.parameters

@@ -577,7 +577,8 @@ def _strata(spec: StrataExposure, family: FamilyChoice, src: str | None) -> Buil
     gm = np.array([e["gm"] for e in t.exposure if e is not None])
     gsd = np.array([e["gsd"] for e in t.exposure if e is not None])
     with as_input_error(t.source, f"column '{by}'"):
-        mixture = lognormal_mixture(gm, gsd, np.asarray(weights, float), source="strata")
+        mixture = lognormal_mixture(gm, gsd, np.asarray(weights, float),
+                                    source=f"the mixture of the rows of {t.source}")
     note = (f"no [exposure]: the population's exposure is the mixture of the {gm.size} rows' "
             f"own lognormal distributions in {t.source}, weighted by {by} (each at 64 "
             "Gauss-Hermite nodes); it is the whole population, so it carries no sampling "

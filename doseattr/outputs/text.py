@@ -103,8 +103,9 @@ BURDEN_METHODS_TEXT = (
     "population (comparative risk assessment; Murray et al. 2003, Popul Health Metr 1:1). "
     "\u201cimpact-function\u201d: attributable = observed cases \u00d7 E[1 \u2212 "
     "1/RR_m(X)], the health impact function applied to each person's own exposure, which "
-    "takes the observed rate as the rate at each person's exposure (K\u00fcnzli et al. 2000, "
-    "Lancet 356:795, cited from memory). Because 1/x is convex, E[1/RR] \u2265 1/E[RR] "
+    "takes the observed rate as the rate at each person's exposure (as in air-quality "
+    "impact assessments: Ostro 2004; Anenberg et al. 2010; both cited from memory). "
+    "Because 1/x is convex, E[1/RR] \u2265 1/E[RR] "
     "(Jensen's inequality), so for the same cases the health impact function never gives "
     "more attributable cases than the PAF method; the two agree when everyone has the same "
     "exposure. With a population, a rate is per rate_per people: attributable rate = "
@@ -128,10 +129,12 @@ GRAND_TOTAL_CAUTION = (
     "professionals.")
 
 IMPACT_REFERENCE = (
-    "K\u00fcnzli N, Kaiser R, Medina S, Studnicka M, Chanel O, Filliger P, Herry M, Horak F "
-    "Jr, Puybonnieux-Texier V, Qu\u00e9nel P, Schneider J, Seethaler R, Vergnaud JC, Sommer H "
-    "(2000). Public-health impact of outdoor and traffic-related air pollution: a European "
-    "assessment. Lancet 356:795. \u2020")
+    "Ostro B (2004). Outdoor air pollution: assessing the environmental burden of disease at "
+    "national and local levels. WHO Environmental Burden of Disease Series No. 5. Geneva: "
+    "World Health Organization. \u2020 Anenberg SC, Horowitz LW, Tong DQ, West JJ (2010). An "
+    "estimate of the global burden of anthropogenic ozone and fine particulate matter on "
+    "premature human mortality using atmospheric modeling. Environ Health Perspect "
+    "118:1189-1195. \u2020")
 
 #: Kept for callers that want the fixed list.
 REFERENCES = BASE_REFERENCES

@@ -69,7 +69,11 @@ def _exposure(r: Results) -> list[str]:
     ex = r.exposure
     if r.is_empirical:
         n = 0 if ex.fit is None else ex.fit.n
-        out = [f"Exposure: empirical ({n} weighted values, no fitted distribution)"]
+        if getattr(ex, "census", False):
+            out = [f"Exposure: {ex.source}, a census of {n} weighted points (no fitted "
+                   "distribution, no sampling error)"]
+        else:
+            out = [f"Exposure: empirical ({n} weighted values, no fitted distribution)"]
     else:
         params = ", ".join(f"{k} = {v:.4g}" for k, v in ex.parameters.items())
         how = ex.source

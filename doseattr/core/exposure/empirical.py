@@ -79,7 +79,8 @@ class EmpiricalExposure:
     def fit(self) -> ExposureFit:
         n = self.values.size
         kish = None if self.weights_meaning is None else kish_effective_n(self.weights)
-        return ExposureFit(method="empirical (weighted values)", n=n, detected=n, values=self.values,
+        method = "census (weighted points)" if self.census else "empirical (weighted values)"
+        return ExposureFit(method=method, n=n, detected=n, values=self.values,
                            detected_mask=np.ones(n, bool), weights=self.weights,
                            weights_meaning=self.weights_meaning, effective_n=kish)
 
