@@ -65,23 +65,59 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
 
 def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, weights: ArrayLike,
                            unexposed: ArrayLike, minimum_risk: ArrayLike,
-                           scenario: Scenario | None = None) -> FloatArray:
+                           scenario: Scenario | None = None, *,
+                           scale: ArrayLike | None = None) -> FloatArray:
     r"""Expected excess for weighted exposure values (no fitted family):
-    :math:`(1-u)\sum_i w_i\,(RR_m(g(x_i)) - 1)`, with ``values`` and
-    ``weights`` of shape ``(n,)`` or per draw ``(D, n)`` (bootstrap)."""
+    :math:`(1-u)\sum_i w_i\,(RR_m(g(f_d x_i)) - 1)`, with ``values`` and
+    ``weights`` of shape ``(n,)`` or per draw ``(D, n)`` (bootstrap), and
+    ``scale`` the factors :math:`f_d` ``(D,)`` of an exposure-model error
+    (``None``: 1). Computed in chunks of draws (:func:`weighted_rows`)."""
     values = np.atleast_2d(np.asarray(values, dtype=float))
     weights = np.atleast_2d(np.asarray(weights, dtype=float))
-    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk, values.shape[0])
-    values = np.broadcast_to(values, (d, values.shape[1]))
-    weights = np.broadcast_to(weights, (d, weights.shape[1]))
-    with np.errstate(over="ignore", invalid="ignore"):
-        excess = np.expm1(_log_rr_m(curve, coef, m, scenario)(values, slice(0, d)))
-        body = np.sum(excess * weights, axis=1) / np.sum(weights, axis=1)
+    f = None if scale is None else np.asarray(scale, dtype=float).ravel()
+    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk,
+                                 max(values.shape[0], 0 if f is None else f.size))
+    log_rr = _log_rr_m(curve, coef, m, scenario)
+    body = weighted_rows(lambda x, rows: np.expm1(log_rr(x, rows)), values, weights, d, f)
     if not np.all(np.isfinite(body)):
         raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): the "
                               "relative risk is too large over the exposure values; check the "
                               "curve's coefficients and units")
     return cast(FloatArray, (1.0 - u) * body)
+
+
+#: Elements (draws x points) evaluated at once by :func:`weighted_rows`.
+CHUNK_ELEMENTS = 1 << 22
+
+
+def weighted_rows(fn: LogRisk, values: FloatArray, weights: FloatArray, d: int,
+                  scale: FloatArray | None = None) -> FloatArray:
+    r""":math:`\sum_i w_{di}\, fn(f_d x_{di}) / \sum_i w_{di}` for draws
+    :math:`d < D`, with ``values``/``weights`` ``(1, n)`` (shared) or
+    ``(D, n)`` and ``scale`` :math:`f` ``(D,)`` or ``None`` (1).
+
+    Draws are taken in chunks of about :data:`CHUNK_ELEMENTS` / ``n``, so
+    the temporaries stay O(chunk x n) however many draws there are; each
+    draw's sum is the same as over all draws at once. Overflow and invalid
+    results are left as inf/nan for the caller to refuse.
+    """
+    n = values.shape[1]
+    step = max(1, CHUNK_ELEMENTS // max(n, 1))
+    out = np.empty(d)
+    with np.errstate(over="ignore", invalid="ignore"):
+        for start in range(0, d, step):
+            rows = slice(start, min(start + step, d))
+            x, w = _rows(values, rows), _rows(weights, rows)
+            if scale is not None:
+                x = x * scale[rows, None]
+            out[rows] = np.sum(fn(x, rows) * w, axis=1) / np.sum(w, axis=1)
+    return out
+
+
+def _rows(a: FloatArray, rows: slice) -> FloatArray:
+    """Rows ``rows`` of a ``(D, n)`` array, or its one row repeated."""
+    k = rows.stop - rows.start
+    return a[rows] if a.shape[0] > 1 else np.broadcast_to(a, (k, a.shape[1]))
 
 
 def _draw_arrays(coef: ArrayLike, unexposed: ArrayLike, minimum_risk: ArrayLike,

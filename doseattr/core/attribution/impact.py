@@ -58,6 +58,7 @@ from doseattr.core.attribution.fractions import (
     _graded_below_flat,
     _kinks,
     _log_rr_m,
+    weighted_rows,
 )
 from doseattr.core.attribution.scenarios import Scenario
 from doseattr.core.curves.base import Curve, Growth
@@ -97,18 +98,21 @@ def impact_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
 
 def empirical_impact_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, weights: ArrayLike,
                            unexposed: ArrayLike, minimum_risk: ArrayLike,
-                           scenario: Scenario | None = None) -> FloatArray:
+                           scenario: Scenario | None = None, *,
+                           scale: ArrayLike | None = None) -> FloatArray:
     r"""Impact or averted fraction for weighted exposure values:
-    :math:`-(1-u)\sum_i w_i\,\mathrm{expm1}(h(x_i)) / \sum_i w_i`, with
-    ``values`` and ``weights`` of shape ``(n,)`` or per draw ``(D, n)``."""
+    :math:`-(1-u)\sum_i w_i\,\mathrm{expm1}(h(f_d x_i)) / \sum_i w_i`, with
+    ``values`` and ``weights`` of shape ``(n,)`` or per draw ``(D, n)`` and
+    ``scale`` the factors :math:`f_d` ``(D,)`` of an exposure-model error
+    (``None``: 1); in chunks of draws
+    (:func:`doseattr.core.attribution.fractions.weighted_rows`)."""
     values = np.atleast_2d(np.asarray(values, dtype=float))
     weights = np.atleast_2d(np.asarray(weights, dtype=float))
-    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk, values.shape[0])
-    values = np.broadcast_to(values, (d, values.shape[1]))
-    weights = np.broadcast_to(weights, (d, weights.shape[1]))
-    with np.errstate(over="ignore", invalid="ignore"):
-        share = -np.expm1(_log_ratio(curve, coef, m, scenario)(values, slice(0, d)))
-        body = np.sum(share * weights, axis=1) / np.sum(weights, axis=1)
+    f = None if scale is None else np.asarray(scale, dtype=float).ravel()
+    coef, m, u, d = _draw_arrays(coef, unexposed, minimum_risk,
+                                 max(values.shape[0], 0 if f is None else f.size))
+    ratio = _log_ratio(curve, coef, m, scenario)
+    body = weighted_rows(lambda x, rows: -np.expm1(ratio(x, rows)), values, weights, d, f)
     if not np.all(np.isfinite(body)):
         raise FloatRangeError("the risk ratio 1/RR overflows the float range (about 1.8e308): "
                               "the curve lowers the risk by too large a factor over the "

@@ -57,11 +57,22 @@ class EmpiricalExposure:
     #: sample of it (a mixture of known distributions, a census grid): they
     #: are not bootstrapped and carry no sampling uncertainty.
     census: bool = False
+    #: Geometric standard deviation of a multiplicative exposure-model error
+    #: shared by every point (census only; ``None``: no such error): each
+    #: Monte Carlo draw ``d`` multiplies every value by
+    #: ``f_d = exp(ln(error_gsd) Z_d)``, ``Z_d`` standard normal drawn from
+    #: ``numpy.random.default_rng(error_seed)``, so exposures with the same
+    #: seed (the zones of one grid) get the same factors
+    #: (:func:`doseattr.core.uncertainty.sampling.model_error_factors`).
+    error_gsd: float | None = None
+    error_seed: int | None = None
     alternatives: ClassVar[tuple[Alternative, ...]] = ()
 
     def __post_init__(self) -> None:
         assert 0.0 <= self.unexposed < 1.0, self.unexposed
         assert self.values.shape == self.weights.shape and np.isclose(self.weights.sum(), 1.0)
+        assert self.error_gsd is None or (self.census and self.error_gsd >= 1.0
+                                          and self.error_seed is not None), self.error_gsd
 
     @property
     def family(self) -> EmpiricalFamily:

@@ -213,7 +213,7 @@ def _impact(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureD
     if isinstance(exposure, EmpiricalExposure):
         assert ex.values is not None and ex.weights is not None
         return empirical_impact_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
-                                      m, scenario)
+                                      m, scenario, scale=ex.scale)
     assert ex.params is not None
     return impact_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
 
@@ -224,6 +224,6 @@ def _excess(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureD
     if isinstance(exposure, EmpiricalExposure):
         assert ex.values is not None and ex.weights is not None
         return empirical_excess_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
-                                      m, scenario)
+                                      m, scenario, scale=ex.scale)
     assert ex.params is not None
     return excess_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)

@@ -11,14 +11,16 @@
   which keeps positive parameters positive. Distributions entered as
   numbers have no sampling error and stay fixed.
 * Empirical exposure: a weighted bootstrap of the rows (none for a census,
-  whose points are the whole population).
+  whose points are the whole population). A census with an exposure-model
+  error (``error_gsd``) keeps its points and draws one multiplicative
+  lognormal factor per draw for all of them (:func:`model_error_factors`).
 * Minimum-risk level: uniform over ``[low, high]``.
 * Observed cases: optionally Poisson with the observed count as mean.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import cast
 
 import numpy as np
@@ -35,13 +37,16 @@ FloatArray = NDArray[np.float64]
 @dataclass(frozen=True)
 class ExposureDraws:
     """Exposure draws: ``params (D, k)`` for a family, or ``values`` and
-    ``weights (D, n)`` for the empirical path; ``varies`` says whether the
-    draws carry any sampling uncertainty."""
+    ``weights (D, n)`` (or ``(1, n)``, shared by every draw) for the
+    empirical path, whose values draw ``d`` multiplies by ``scale[d]`` when
+    ``scale (D,)`` is set (an exposure-model error); ``varies`` says whether
+    the draws carry any uncertainty."""
 
     params: FloatArray | None = None
     values: FloatArray | None = None
     weights: FloatArray | None = None
     varies: bool = False
+    scale: FloatArray | None = None
 
 
 def curve_draws(curve: Curve, n: int, rng: np.random.Generator) -> FloatArray:
@@ -69,7 +74,12 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
     """Exposure parameter draws (see module docstring)."""
     if isinstance(exposure, EmpiricalExposure):
         if exposure.census:
-            return fixed_exposure(exposure, n)
+            fixed = fixed_exposure(exposure, n)
+            if exposure.error_gsd is None:
+                return fixed
+            assert exposure.error_seed is not None
+            return replace(fixed, varies=True,
+                           scale=model_error_factors(exposure.error_gsd, exposure.error_seed, n))
         values, weights = exposure.bootstrap(rng, n)
         return ExposureDraws(values=values, weights=weights, varies=exposure.values.size > 1)
     cov = None if exposure.fit is None else exposure.fit.cov_internal
@@ -82,6 +92,24 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
     else:
         draws = multivariate_t(theta, cov * _hc1(exposure), df, n, rng)
     return ExposureDraws(params=exposure.family.from_internal(draws), varies=True)
+
+
+def model_error_factors(gsd: float, seed: int, n: int) -> FloatArray:
+    r"""Factors :math:`f_d = e^{\ln(GSD)\,Z_d}`, :math:`d < n`, with
+    :math:`Z_d` the first ``n`` standard normals of
+    ``numpy.random.default_rng(seed)``: a stream of its own, so every
+    exposure with the same seed (each zone of a grid, and the pooled
+    population) gets the same factors in a run, and the first ``n`` factors
+    do not depend on how many are drawn.
+
+    The factor multiplies every cell: a common, fully correlated error of
+    the exposure model (its overall level), not independent per-cell
+    errors, which would average out over many cells. Its median is 1 (the
+    model is taken to be right in the geometric mean) and its mean
+    :math:`e^{\ln^2(GSD)/2}` (lognormal mean).
+    """
+    z = np.random.default_rng(seed).standard_normal(int(n))
+    return cast(FloatArray, np.exp(np.log(gsd) * z))
 
 
 def small_sample_df(exposure: Exposure) -> float | None:
