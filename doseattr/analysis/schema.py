@@ -141,6 +141,20 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "burden": Key("table"),
         "groups": Key("texts", help="the burden table's groups this curve applies to"),
     },
+    "grid": {
+        "concentration": Key("path", help="concentration raster (GeoTIFF .tif or NetCDF .nc)"),
+        "variable": Key("text", help="the concentration's variable in a NetCDF file"),
+        "population": Key("path", help="population raster on the concentration's grid"),
+        "zones": Key("path", help="raster of integer zone ids on the same grid"),
+        "zone_names": Key("path", help="CSV with columns zone and name"),
+        "cells": Key("path", help="Parquet or CSV of cells: value, population, optional zone"),
+        "error_gsd": Key("number", help="GSD (above 1) of a lognormal error of each cell"),
+        "chunk": Key("integer", help="cells per side of a chunk read at once"),
+    },
+    "compute": {
+        "scheduler": Key("text", help="address of a dask.distributed scheduler, "
+                                      "tcp://host:port (default: this machine)"),
+    },
 }
 
 #: Sections written as arrays of tables (``[[scenario]]``).

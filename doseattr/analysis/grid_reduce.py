@@ -1,0 +1,263 @@
+"""One pass over a grid's chunks, reduced with Dask to per-zone sums.
+
+Each block of the concentration, population and zone rasters is handed to
+the core's reducer (``doseattr.core.exposure.grid.reduce_block`` unless
+another is given), which returns the block's partial sums; partial sums add
+exactly (``BlockSums + BlockSums``), so a tree of additions over the blocks
+gives the grid's sums in any order. Only blocks in flight are in memory:
+a few ``chunk`` x ``chunk`` arrays per worker thread, whatever the grid's
+size.
+
+The computation runs on dask's local threaded scheduler, or, given the
+address of an existing ``dask.distributed`` scheduler, on its cluster
+through a :class:`distributed.Client` opened for the computation and closed
+after it (the files must then be readable at the same paths on the
+workers). Cell tables are read in this process, ``chunk * chunk`` rows at a
+time.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from doseattr.analysis.grid_inputs import (
+    UNKNOWN_ZONE,
+    GridSpec,
+    ZoneMap,
+    iter_cells,
+    open_rasters,
+    require_grid_extra,
+    unknown_error,
+    zone_index_of_cells,
+)
+from doseattr.errors import InputError
+
+#: ``reduce_block(conc, pop, zone_index, n_zones) -> BlockSums``.
+Reducer = Callable[[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64], int], Any]
+#: Partial results merged per task of the tree sum.
+FAN_IN = 8
+
+
+@dataclass(frozen=True)
+class UnknownZone:
+    """Cells whose zone id is not among those asked for."""
+
+    zone: int
+    cells: int
+    population: float
+
+
+@dataclass(frozen=True)
+class GridNotes:
+    """What the pass read: cells in the grid (or rows of the table), cells
+    skipped as nodata and their population (NaN or negative values, nodata
+    zones), the chunk side, and the zones not asked for."""
+
+    cells: int
+    skipped: int
+    skipped_population: float
+    chunk: int
+    unknown: tuple[UnknownZone, ...] = ()
+    scheduler: str | None = None
+    table: bool = False
+
+    def lines(self) -> tuple[str, ...]:
+        where = self.scheduler or "local threads"
+        read = (f"{self.chunk * self.chunk} rows at a time (in this process)" if self.table
+                else f"in chunks of {self.chunk} x {self.chunk} ({where})")
+        out = [f"grid: {self.cells} cells read {read}",
+               f"grid: {self.skipped} cells skipped as nodata, holding a population of "
+               f"{self.skipped_population:.6g}"]
+        for u in self.unknown:
+            out.append(f"grid: zone {u.zone} is not among the zones reported: {u.cells} cells, "
+                       f"population {u.population:.6g}")
+        return tuple(out)
+
+
+@dataclass
+class _Partial:
+    """A block's sums, its cell count and its cells in unknown zones
+    (cells and population by zone id)."""
+
+    sums: Any
+    cells: int
+    unknown: dict[int, tuple[int, float]] = field(default_factory=dict)
+
+
+def reduce_grid(spec: GridSpec, zone_ids: Sequence[int], *, scheduler: str | None = None,
+                reducer: Reducer | None = None, strict: bool = True) -> tuple[Any, GridNotes]:
+    """Reduce the grid of ``spec`` to per-zone sums in one pass.
+
+    Parameters
+    ----------
+    spec
+        The checked ``[grid]`` section.
+    zone_ids
+        The zones reported, in order: zone id ``zone_ids[k]`` is row ``k``
+        of the sums. Ignored when the cells carry no zone (a grid without
+        zones raster, a table without zone column): every cell is zone 0
+        and the sums have one row.
+    scheduler
+        ``None`` for dask's local threads, or ``"tcp://host:port"`` of an
+        existing dask.distributed scheduler.
+    reducer
+        ``reduce_block(conc, pop, zone_index, n_zones) -> BlockSums``;
+        default the core's.
+    strict
+        Refuse (one line naming the zones file and up to five ids) cells
+        with population in zones not in ``zone_ids``; otherwise they are
+        skipped and listed in the notes.
+
+    Returns
+    -------
+    The grid's ``BlockSums`` (cells in unknown zones skipped, not counted as
+    nodata) and :class:`GridNotes`.
+    """
+    require_grid_extra()
+    reduce_block = reducer or _core_reducer()
+    if spec.is_table:
+        assert spec.cells is not None
+        total = _table(spec.cells, spec.chunk, zone_ids, reduce_block)
+        source = spec.cells
+    else:
+        total = _rasters(spec, zone_ids, reduce_block, scheduler)
+        source = spec.zones or str(spec.concentration)
+    unknown = tuple(UnknownZone(z, c, p) for z, (c, p) in sorted(total.unknown.items()))
+    peopled = {u.zone: u.population for u in unknown if u.population > 0}
+    if strict and peopled:
+        raise unknown_error(peopled, source)
+    sums = total.sums
+    lost_cells = sum(u.cells for u in unknown)
+    lost_people = sum(u.population for u in unknown)
+    notes = GridNotes(cells=total.cells, skipped=int(sums.skipped) - lost_cells,
+                      skipped_population=max(float(sums.skipped_population) - lost_people, 0.0),
+                      chunk=spec.chunk, unknown=unknown,
+                      scheduler=None if spec.is_table else scheduler, table=spec.is_table)
+    return sums, notes
+
+
+def _core_reducer() -> Reducer:
+    from doseattr.core.exposure.grid import (  # type: ignore[import-not-found, unused-ignore]
+        reduce_block,
+    )
+
+    return reduce_block  # type: ignore[no-any-return, unused-ignore]
+
+
+# -- rasters ------------------------------------------------------------------
+def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
+             scheduler: str | None) -> _Partial:
+    import dask
+
+    layers = open_rasters(spec)
+    zones = None if layers.zones is None else ZoneMap.of(zone_ids, layers.zones.path)
+    n_zones = 1 if zones is None else len(zones.ids)
+    conc = layers.concentration.data.to_delayed().ravel()
+    pop = layers.population.data.to_delayed().ravel()
+    zone = ([None] * len(conc) if layers.zones is None
+            else layers.zones.data.to_delayed().ravel())
+    nodata = None if layers.zones is None else layers.zones.nodata
+    block = dask.delayed(_raster_block, pure=True)
+    parts = [block(c, p, z, zones, nodata, n_zones, reduce_block)
+             for c, p, z in zip(conc, pop, zone)]
+    root = _tree(parts, dask.delayed(_merge, pure=True))
+    return _compute(root, scheduler)
+
+
+def _raster_block(conc: Any, pop: Any, zone: Any, zones: ZoneMap | None, nodata: float | None,
+                  n_zones: int, reduce_block: Reducer) -> _Partial:
+    c, p = _floats(conc), _floats(pop)
+    if zones is None:
+        index = np.zeros(c.shape, dtype=np.int64)
+        unknown_ids = np.zeros(0, dtype=np.int64)
+    else:
+        index, unknown_ids = zones.indices(zone, nodata)
+    return _partial(reduce_block(c, p, index, n_zones), c, p, index, unknown_ids)
+
+
+def _floats(block: Any) -> NDArray[np.float64]:
+    """A block as float64, infinities as NaN (nodata)."""
+    x = np.array(block, dtype=np.float64)
+    x[~np.isfinite(x)] = np.nan
+    return x
+
+
+def _partial(sums: Any, conc: NDArray[np.float64], pop: NDArray[np.float64],
+             index: NDArray[np.int64], unknown_ids: NDArray[np.int64]) -> _Partial:
+    """Wrap a block's sums with its cell count and, per unknown zone id, the
+    cells and their population (finite, non-negative population only)."""
+    unknown: dict[int, tuple[int, float]] = {}
+    if unknown_ids.size:
+        people = pop.ravel()[index.ravel() == UNKNOWN_ZONE]
+        people = np.where(np.isfinite(people) & (people >= 0), people, 0.0)
+        ids, inverse = np.unique(unknown_ids, return_inverse=True)
+        cells = np.bincount(inverse, minlength=len(ids))
+        total = np.bincount(inverse, weights=people, minlength=len(ids))
+        unknown = {int(z): (int(n), float(t)) for z, n, t in zip(ids, cells, total)}
+    return _Partial(sums, int(conc.size), unknown)
+
+
+def _merge(*parts: _Partial) -> _Partial:
+    sums = parts[0].sums
+    unknown = dict(parts[0].unknown)
+    for part in parts[1:]:
+        sums = sums + part.sums
+        for z, (n, t) in part.unknown.items():
+            n0, t0 = unknown.get(z, (0, 0.0))
+            unknown[z] = (n0 + n, t0 + t)
+    return _Partial(sums, sum(p.cells for p in parts), unknown)
+
+
+def _tree(parts: list[Any], merge: Callable[..., Any]) -> Any:
+    """Sum ``parts`` in a tree of fan-in :data:`FAN_IN` (depth log8 of the
+    block count), so no task holds more than a few partial sums."""
+    while len(parts) > 1:
+        parts = [merge(*parts[i:i + FAN_IN]) for i in range(0, len(parts), FAN_IN)]
+    return parts[0]
+
+
+def _compute(root: Any, scheduler: str | None) -> _Partial:
+    import dask
+
+    if scheduler is None:
+        (total,) = dask.compute(root, scheduler="threads")
+        return total  # type: ignore[no-any-return]
+    from distributed import Client
+
+    try:
+        client = Client(scheduler, set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise InputError(f"cannot reach the dask scheduler at {scheduler} ({exc}); start it, "
+                         "or remove the key to compute on this machine",
+                         location="[compute] key 'scheduler'") from None
+    try:
+        (total,) = dask.compute(root, scheduler=client)
+    finally:
+        client.close()
+    return total  # type: ignore[no-any-return]
+
+
+# -- cell tables ----------------------------------------------------------------
+def _table(path: str, chunk_side: int, zone_ids: Sequence[int],
+           reduce_block: Reducer) -> _Partial:
+    total: _Partial | None = None
+    zones: ZoneMap | None = None
+    n_zones = 1
+    for chunk in iter_cells(path, rows=chunk_side * chunk_side):
+        if chunk.zone is not None and zones is None:
+            zones = ZoneMap.of(zone_ids, path)
+            n_zones = len(zones.ids)
+        value, pop = _floats(chunk.value), _floats(chunk.population)
+        index, unknown_ids = zone_index_of_cells(chunk, zones)
+        part = _partial(reduce_block(value, pop, index, n_zones), value, pop, index,
+                        unknown_ids)
+        total = part if total is None else _merge(total, part)
+    if total is None:
+        raise InputError("the table has a header but no data rows", source=path)
+    return total
+
