@@ -131,6 +131,14 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     ctx = Context(source, base_dir)
     top = {k: v for k, v in data.items() if k not in SECTIONS or k == ""}
     _check_sections(data, ctx)
+    for section in ("grid", "compute"):
+        if section in data:
+            # the reading and reduction exist (grid_inputs, grid_reduce); running an
+            # analysis on them does not yet, so the section is refused, never ignored
+            raise InputError(f"[{section}] is not supported by this version yet: gridded "
+                             "exposure cannot be run; aggregate the cells into [exposure] "
+                             "(family = \"empirical\" with weights) for now",
+                             source=source, location=f"[{section}]")
     schema.check_section(top, "", source=source)
     if "unit" not in data:
         raise ctx.error('missing key \'unit\' at the top of the file (for example unit = "ug/m3")',
