@@ -32,6 +32,7 @@ from doseattr.core.attribution.fractions import (
     paf_from_excess,
     pif_from_excess,
 )
+from doseattr.core.attribution.impact import empirical_impact_draws, impact_draws
 from doseattr.core.attribution.scenarios import Scenario
 from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
@@ -208,22 +209,28 @@ def _unique_exposures(strata: Sequence[Stratum]) -> dict[int, AnyExposure]:
 
 def _impact(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
             m: FloatArray, scenario: Scenario | None) -> FloatArray:
-    from doseattr.core.attribution.impact import empirical_impact_draws, impact_draws
-
-    if isinstance(exposure, EmpiricalExposure):
-        assert ex.values is not None and ex.weights is not None
-        return empirical_impact_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
-                                      m, scenario, scale=ex.scale)
-    assert ex.params is not None
-    return impact_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
+    """Impact (or averted) fraction draws: :mod:`doseattr.core.attribution.impact`."""
+    return _expectation((impact_draws, empirical_impact_draws), curve, coef, exposure, ex, m,
+                        scenario)
 
 
 def _excess(curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
             m: FloatArray, scenario: Scenario | None) -> FloatArray:
-    # exposure_draws fills values and weights for an empirical exposure, params otherwise
+    """Expected excess draws: :mod:`doseattr.core.attribution.fractions`."""
+    return _expectation((excess_draws, empirical_excess_draws), curve, coef, exposure, ex, m,
+                        scenario)
+
+
+def _expectation(functions: tuple[Callable[..., FloatArray], Callable[..., FloatArray]],
+                 curve: Curve, coef: FloatArray, exposure: AnyExposure, ex: ExposureDraws,
+                 m: FloatArray, scenario: Scenario | None) -> FloatArray:
+    """``functions`` = (family path, empirical path) called with the draws;
+    exposure_draws fills values and weights for an empirical exposure,
+    params otherwise."""
+    family_path, empirical_path = functions
     if isinstance(exposure, EmpiricalExposure):
         assert ex.values is not None and ex.weights is not None
-        return empirical_excess_draws(curve, coef, ex.values, ex.weights, exposure.unexposed,
-                                      m, scenario, scale=ex.scale)
+        return empirical_path(curve, coef, ex.values, ex.weights, exposure.unexposed, m,
+                              scenario, scale=ex.scale)
     assert ex.params is not None
-    return excess_draws(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
+    return family_path(curve, coef, exposure.family, ex.params, exposure.unexposed, m, scenario)
