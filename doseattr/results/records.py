@@ -336,7 +336,8 @@ class GridSection:
     """What a ``[grid]`` analysis read: the files, each zone (id, name,
     population, population-weighted mean concentration; the zones are the
     burden's strata in the same order), cells used and skipped (nodata),
-    the stated exposure-model error and the maps."""
+    the stated exposure-model error and the maps. ``zone_strata`` is the
+    burden table's stratum of each zone (its name, or its id as text)."""
 
     files: Mapping[str, str]
     zone_ids: tuple[int, ...]
@@ -349,6 +350,7 @@ class GridSection:
     error_gsd: float | None = None
     maps: GridMaps | None = None
     scheduler: str | None = None
+    zone_strata: tuple[str, ...] = ()
 
 
 #: The two ways from fractions to attributable cases (``[burden] method``).
