@@ -157,6 +157,9 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     scenarios = _scenarios(data.get("scenario", []), ctx)
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
+    if isinstance(exposure, GridExposure):
+        exposure = dataclasses.replace(exposure, cuts=grid_cuts(curve, outcomes, attribution,
+                                                                scenarios))
     if (uncertainty is not None and uncertainty.poisson_cases and burden is None
             and not any(o.burden for o in outcomes)):
         raise ctx.error("poisson_cases varies the observed cases of [burden]; add a [burden] "
@@ -192,6 +195,31 @@ def _grid(data: dict[str, Any], ctx: Context, burden: BurdenSpec | None,
     seed = uncertainty.seed if uncertainty is not None else DEFAULT_SEED
     return GridExposure(family="empirical", grid=spec, tables=tables, scheduler=scheduler,
                         seed=seed)
+
+
+def grid_cuts(curve: CurveSpec, outcomes: tuple[OutcomeSpec, ...],
+              attribution: AttributionSpec, scenarios: tuple[ScenarioSpec, ...]
+              ) -> tuple[float, ...]:
+    """Where the integrands of a grid run have kinks, for the reduction to
+    split its bins at: the minimum-risk level ``m`` and each stated
+    ``max_dose`` ``d`` (a fitted curve's own top dose is not known yet), and
+    where each scenario ``g`` sends them (``g(x) = m`` or ``d``) or has its
+    own (a cap)."""
+    levels = [attribution.minimum_risk]
+    for c in (curve, *(o.curve for o in outcomes)):
+        top = getattr(c, "max_dose", None)
+        if top is not None:
+            levels.append(float(top))
+    cuts = set(levels)
+    for sc in scenarios:
+        for level in levels:
+            if sc.kind == "scale":
+                cuts.add(level / sc.value)
+            elif sc.kind == "reduce_by":
+                cuts.add(level + sc.value)
+        if sc.kind == "cap":
+            cuts.add(sc.value)
+    return tuple(sorted(c for c in cuts if c > 0 and c < float("inf")))
 
 
 def with_scheduler(analysis: Analysis, address: str) -> Analysis:

@@ -68,7 +68,8 @@ def build_grid(spec: GridExposure, source: str | None) -> BuiltGrid:
         _refuse_exposure_columns(table)
     ids = _zone_ids(spec.tables, names, g.zone_names) if zoned else {}
     zone_ids = tuple(dict.fromkeys(ids.values()))
-    sums, notes = reduce_grid(g, zone_ids, scheduler=spec.scheduler)
+    sums, notes = reduce_grid(g, zone_ids, scheduler=spec.scheduler,
+                              reducer=_reducer(spec.cuts))
     summary = sums.summary()
     error_seed = _error_seed(spec) if g.error_gsd is not None else None
     keywords = {"error_gsd": g.error_gsd, "error_seed": error_seed}
@@ -121,6 +122,15 @@ def _population_notes(tables: tuple[BurdenTable, ...], ids: Mapping[str, int],
                            f"{g:.6g} in the grid ({(p - g) / g:+.0%}); rates use the table's "
                            "population, the exposure and the maps the grid's")
     return tuple(out)
+
+
+def _reducer(cuts: tuple[float, ...]):
+    """The core's block reducer, splitting bins at ``cuts``."""
+    import functools
+
+    from doseattr.core.exposure.grid import reduce_block
+
+    return functools.partial(reduce_block, cuts=cuts) if cuts else None
 
 
 def _zone_ids(tables: tuple[BurdenTable, ...], names: Mapping[int, str],

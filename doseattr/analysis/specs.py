@@ -296,6 +296,9 @@ class GridExposure(_Exposure):
     tables: tuple[BurdenTable, ...] = ()
     scheduler: str | None = None
     seed: int = DEFAULT_SEED
+    #: Concentrations where the integrands have kinks (the minimum-risk
+    #: level, a stated max_dose, and where the scenarios move them).
+    cuts: tuple[float, ...] = ()
 
     @property
     def source(self) -> str:
