@@ -27,6 +27,9 @@ from doseattr.analysis.config import analysis_from_dict, load_analysis, with_sch
 from doseattr.analysis.pipeline import run_analysis
 from doseattr.errors import InputError
 
+sys.path.insert(0, str(Path(__file__).parent))
+from schema_check import problems
+
 NY, NX = 24, 30  # 720 cells, 4 zones of 12 x 15
 ZONES = {11: ("Harbour", 6.0, 1.6), 12: ("Hills", 9.0, 1.8), 21: ("Mill", 14.0, 1.5),
          22: ("Ridge", 4.0, 2.0)}  # id: (name, GM, GSD), invented
@@ -266,9 +269,14 @@ def test_the_command_line_writes_the_grid(tmp_path):
     out = tmp_path / "out"
     done = _cli("run", str(path), "--out", str(out), "--quiet")
     assert done.returncode == 0, done.stderr
-    grid = json.loads((out / "results.json").read_text())["grid"]
+    document = json.loads((out / "results.json").read_text())
+    grid = document["grid"]
     assert [z["name"] for z in grid["zones"]] == [v[0] for v in ZONES.values()]
+    assert [z["stratum"] for z in grid["zones"]] == [v[0] for v in ZONES.values()]
     assert grid["skipped_cells"] == 3
+    schema = json.loads((Path(__file__).parents[1] / "doseattr" / "results" /
+                         "results.schema.json").read_text())
+    assert problems(document, schema, strict=True) == []
 
 
 def _refused(tmp_path: Path, path: Path, *args: str) -> str:

@@ -1,6 +1,6 @@
 """``results.json``: generated here, and only here, from the run's records.
 
-Schema version "2.1" (published as ``results.schema.json`` in this
+Schema version "2.2" (published as ``results.schema.json`` in this
 package). Every estimate is one object ``{estimate, lower, upper, mcse,
 lower_mcse, upper_mcse}``;
 every number is a plain float or ``None``; a NaN or infinity reaching this
@@ -42,7 +42,7 @@ from doseattr.results.records import (
 if TYPE_CHECKING:
     from doseattr.results.run import Results
 
-SCHEMA_VERSION = "2.1"
+SCHEMA_VERSION = "2.2"
 
 #: The keys an outcome repeats from the top level.
 OUTCOME_KEYS = ("paf", "minimum_risk", "scenarios", "curve", "categorical", "burden",
@@ -317,9 +317,10 @@ def grid_dict(g: GridSection | None) -> dict[str, Any] | None:
     return {"files": dict(g.files), "cells": int(g.cells), "skipped_cells": int(g.skipped_cells),
             "skipped_population": num(g.skipped_population), "error_gsd": num(g.error_gsd),
             "scheduler": g.scheduler,
-            "zones": [{"zone": int(z), "name": n, "population": num(p), "mean": num(m)}
-                      for z, n, p, m in zip(g.zone_ids, g.zone_names, g.zone_population,
-                                            g.zone_mean, strict=True)]}
+            "zones": [{"zone": int(z), "name": n, "stratum": st, "population": num(p),
+                       "mean": num(m)}
+                      for z, n, st, p, m in zip(g.zone_ids, g.zone_names, g.zone_strata,
+                                                g.zone_population, g.zone_mean, strict=True)]}
 
 
 def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:
