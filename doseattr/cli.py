@@ -62,10 +62,12 @@ def build_parser() -> argparse.ArgumentParser:
                                      "tables and report.html into the folder --out.")
     run.add_argument("analysis", metavar="ANALYSIS.toml", help="the analysis file")
     _common(run)
+    _scheduler(run)
     check = sub.add_parser("check", help="check an analysis file without computing",
                            description="Read and check ANALYSIS and its tables as run would, "
                                        "print what each section will compute, write nothing.")
     check.add_argument("analysis", metavar="ANALYSIS.toml", help="the analysis file")
+    _scheduler(check)
     demo = sub.add_parser("demo", help="run the bundled demo analysis (invented numbers)",
                           description="Run the bundled demo analysis, a fictional town and "
                                       "study with invented numbers, and write its outputs.")
@@ -80,6 +82,12 @@ def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
 
 
+def _scheduler(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="compute a [grid] analysis on this running dask.distributed "
+                        "scheduler (overrides [compute] scheduler)")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit status (0 ok, 2 error, 1 bug,
     130/143 stopped by SIGINT/SIGTERM)."""
@@ -88,10 +96,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         with _stop_on_signals(), ExitStack() as stack:
             if args.command == "check":
-                return _check(args.analysis)
+                return _check(args.analysis, args.scheduler)
             path = (args.analysis if args.command == "run"
                     else str(stack.enter_context(_demo_file())))
-            return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv])
+            return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv],
+                        scheduler=getattr(args, "scheduler", None))
     except DoseattrError as exc:
         print(f"doseattr: error: {_line(exc)}", file=sys.stderr)
         return EXIT_ERROR
@@ -107,13 +116,21 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_BUG
 
 
-def _run(path: str, out: str, *, quiet: bool, command: list[str]) -> int:
-    from doseattr.analysis.config import load_analysis
+def _load(path: str, scheduler: str | None):
+    """The analysis file, on the scheduler given on the command line."""
+    from doseattr.analysis.config import load_analysis, with_scheduler
+
+    analysis = load_analysis(path)
+    return analysis if scheduler is None else with_scheduler(analysis, scheduler)
+
+
+def _run(path: str, out: str, *, quiet: bool, command: list[str],
+         scheduler: str | None = None) -> int:
     from doseattr.analysis.pipeline import run_analysis
     from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
-    analysis = load_analysis(path)
+    analysis = _load(path, scheduler)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
     with warnings.catch_warnings(record=True) as caught:
@@ -149,11 +166,10 @@ def _same_inputs(read: dict, now: dict, path: str) -> None:
                              source=path, location=before["key"])
 
 
-def _check(path: str) -> int:
+def _check(path: str, scheduler: str | None = None) -> int:
     from doseattr.analysis.check import check_analysis
-    from doseattr.analysis.config import load_analysis
 
-    for line in check_analysis(load_analysis(path)):
+    for line in check_analysis(_load(path, scheduler)):
         print(line)
     return EXIT_OK
 

@@ -37,18 +37,3 @@ def test_cell_table_through_the_real_reducer(tmp_path):
         reduced = paf(curve, summary.zone_exposure(k), minimum_risk=0.0)
         np.testing.assert_allclose(reduced, exact, rtol=1e-10)
     assert notes.cells == n and notes.skipped == 0
-
-
-def test_grid_sections_are_refused_not_ignored(tmp_path):
-    """Until [grid] runs end to end, an analysis file with it is refused in
-    one line (never silently run on another exposure)."""
-    import pytest
-
-    from doseattr.analysis.config import analysis_from_dict
-    from doseattr.errors import InputError
-
-    d = {"unit": "ug/m3", "curve": {"model": "linear", "err": 0.01},
-         "exposure": {"gm": 10.0, "gsd": 2.0}, "grid": {"cells": "cells.csv"}}
-    with pytest.raises(InputError, match=r"\[grid\] is not supported") as err:
-        analysis_from_dict(d, base_dir=tmp_path)
-    assert "\n" not in str(err.value)

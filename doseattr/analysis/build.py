@@ -29,6 +29,7 @@ from doseattr.analysis.specs import (
     BinnedExposure,
     DrawsCurve,
     EnteredCurve,
+    GridExposure,
     HistoriesExposure,
     MeasuredExposure,
     PercentilesExposure,
@@ -47,6 +48,7 @@ from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelErr
 from doseattr.results.records import BandTable
 
 if TYPE_CHECKING:
+    from doseattr.analysis.grid_exposure import BuiltGrid
     from doseattr.core.curves.covariance import LogRRCovariance
     from doseattr.core.curves.doses import BandDoses
     from doseattr.core.exposure.histories import WorkerExposure
@@ -364,13 +366,15 @@ CURVE_BUILDERS: dict[type, Callable[[Any, CurveInputs], BuiltCurve]] = {
 @dataclasses.dataclass(frozen=True, eq=False)
 class BuiltExposure:
     """The exposure distribution, per-worker totals when it came from work
-    histories, notes on how it was obtained, and the parametric families
-    fitted beside an empirical distribution for comparison."""
+    histories, notes on how it was obtained, the parametric families
+    fitted beside an empirical distribution for comparison, and, for a
+    ``[grid]``, the reduced grid (each zone's exposure by stratum label)."""
 
     exposure: AnyExposure
     workers: WorkerExposure | None = None
     notes: tuple[str, ...] = ()
     fits: tuple[Exposure, ...] = ()
+    grid: BuiltGrid | None = None
 
 
 #: An exposure family, or ``"best"``/``"empirical"`` (methods over values).
@@ -586,10 +590,19 @@ def _strata(spec: StrataExposure, family: FamilyChoice, src: str | None) -> Buil
     return BuiltExposure(mixture, notes=(note,))
 
 
+def _grid(spec: GridExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
+    """The grid's cells, reduced by zone in one pass
+    (:func:`~doseattr.analysis.grid_exposure.build_grid`)."""
+    from doseattr.analysis.grid_exposure import build_grid
+
+    built = build_grid(spec, src)
+    return BuiltExposure(built.population, notes=built.notes, grid=built)
+
+
 EXPOSURE_BUILDERS: dict[type, Callable[[Any, FamilyChoice, str | None], BuiltExposure]] = {
     MeasuredExposure: _measured, SummaryExposure: _summary,
     PercentilesExposure: _percentiles, BinnedExposure: _binned,
-    HistoriesExposure: _histories, StrataExposure: _strata}
+    HistoriesExposure: _histories, StrataExposure: _strata, GridExposure: _grid}
 
 
 # -- scenarios ------------------------------------------------------------------

@@ -30,15 +30,37 @@ from doseattr.errors import InputError
 from doseattr.results.records import METHOD_TEXT, BurdenResult, StratumResult
 
 
-def burden_strata(analysis: Analysis, exposure) -> list:
+def burden_strata(analysis: Analysis, exposure, grid=None) -> list:
     """One core ``Stratum`` per row of the burden table, each with the
-    shared exposure or its own (from its exposure columns)."""
+    shared exposure or its own (from its exposure columns, or its zone's
+    cells when ``grid``, a :class:`~doseattr.analysis.grid_exposure.BuiltGrid`,
+    has zones)."""
     from doseattr.core.uncertainty.propagate import Stratum
 
     table = burden_spec(analysis).table
+    if grid is not None and grid.by_stratum:
+        return _zone_strata(table, grid)
     return [Stratum(table.label(i), float(n), stratum_exposure(analysis, exposure, override, line))
             for i, (n, override, line) in enumerate(zip(table.cases, table.exposure,
                                                         table.lines))]
+
+
+def _zone_strata(table, grid) -> list:
+    """Each row with its zone's exposure; every zone of the grid needs a
+    row (a zone is a stratum; its groups are rows of that stratum)."""
+    from doseattr.core.uncertainty.propagate import Stratum
+
+    section = grid.section
+    missing = [f"{n} (zone {z})" for z, n, s in zip(section.zone_ids, section.zone_names,
+                                                    section.zone_strata, strict=True)
+               if id(grid.by_stratum[s]) not in {id(grid.by_stratum[t]) for t in table.strata}]
+    if missing:
+        more = f" and {len(missing) - 5} more" if len(missing) > 5 else ""
+        raise InputError(f"{len(missing)} zone(s) of the grid have no row in this table: "
+                         f"{', '.join(missing[:5])}{more}; add a row for each zone",
+                         source=table.source)
+    return [Stratum(table.label(i), float(n), grid.by_stratum[s])
+            for i, (n, s) in enumerate(zip(table.cases, table.strata, strict=True))]
 
 
 #: Name of the stratum carried at index 0 of the burden's draws: the whole

@@ -34,6 +34,7 @@ from doseattr.analysis.specs import (
     BurdenSpec,
     DrawsCurve,
     EnteredCurve,
+    GridExposure,
     HistoriesExposure,
     MeasuredExposure,
     OutcomeSpec,
@@ -163,7 +164,7 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
                      for spec, sc in scenarios)
     strata = None
     if analysis.burden is not None:
-        strata = burden_strata(analysis, exposure)
+        strata = burden_strata(analysis, exposure, built_exposure.grid)
         _check_strata(analysis.burden.table, m, curve, exposure, strata)
     return Prepared(analysis, built_exposure, built, scenarios, strata, paf_value, pifs,
                     tuple(warnings))
@@ -333,10 +334,19 @@ def _strata_words(spec: StrataExposure, built: BuiltExposure, family: str) -> st
 
 
 #: How each source of exposure is described (before its unexposed share).
+def _grid_words(spec: GridExposure, built: BuiltExposure, family: str) -> str:
+    assert built.grid is not None
+    g = built.grid.section
+    zones = f"{len(g.zone_ids)} zones" if g.zone_ids else "no zones"
+    return (f"grid of {g.cells} cells ({g.skipped_cells} nodata), {zones}, as a census of "
+            "population-weighted cells")
+
+
 _EXPOSURE_WORDS: dict[type, Callable[[Any, BuiltExposure, str], str]] = {
     MeasuredExposure: _measured_words, HistoriesExposure: _histories_words,
     BinnedExposure: _binned_words, SummaryExposure: _given_exposure_words,
-    PercentilesExposure: _given_exposure_words, StrataExposure: _strata_words}
+    PercentilesExposure: _given_exposure_words, StrataExposure: _strata_words,
+    GridExposure: _grid_words}
 
 
 def _attribution_line(a: Analysis, p: Prepared) -> str:

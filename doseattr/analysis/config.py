@@ -32,6 +32,7 @@ Example::
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import re
 import tomllib
@@ -54,6 +55,7 @@ from doseattr.analysis.specs import (
     BurdenSpec,
     CurveSpec,
     ExposureSpec,
+    GridExposure,
     HistoriesExposure,
     OutcomeSpec,
     ScenarioSpec,
@@ -131,14 +133,7 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     ctx = Context(source, base_dir)
     top = {k: v for k, v in data.items() if k not in SECTIONS or k == ""}
     _check_sections(data, ctx)
-    for section in ("grid", "compute"):
-        if section in data:
-            # the reading and reduction exist (grid_inputs, grid_reduce); running an
-            # analysis on them does not yet, so the section is refused, never ignored
-            raise InputError(f"[{section}] is not supported by this version yet: gridded "
-                             "exposure cannot be run; aggregate the cells into [exposure] "
-                             "(family = \"empirical\" with weights) for now",
-                             source=source, location=f"[{section}]")
+    _check_grid_sections(data, source)
     schema.check_section(top, "", source=source)
     if "unit" not in data:
         raise ctx.error('missing key \'unit\' at the top of the file (for example unit = "ug/m3")',
@@ -150,16 +145,21 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
         conv = Conversion()
     burden = _burden(data["burden"], ctx, conv) if "burden" in data else None
     outcomes = _outcomes(data.get("outcome", []), ctx, units, conv, burden)
-    if "exposure" not in data:
+    uncertainty = _uncertainty(data["uncertainty"], ctx) if "uncertainty" in data else None
+    if "grid" in data:
+        exposure = _grid(data, ctx, burden, outcomes, uncertainty)
+    elif "exposure" not in data:
         exposure = _strata_exposure(burden, outcomes, source)
     if "curve" not in data and not outcomes:
         raise InputError("missing section [curve]", source=source)
     curve = _curve(data["curve"], ctx, units) if "curve" in data else outcomes[0].curve
     attribution = _attribution(data.get("attribution", {}), ctx)
     scenarios = _scenarios(data.get("scenario", []), ctx)
-    uncertainty = _uncertainty(data["uncertainty"], ctx) if "uncertainty" in data else None
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
+    if isinstance(exposure, GridExposure):
+        exposure = dataclasses.replace(exposure, cuts=grid_cuts(curve, outcomes, attribution,
+                                                                scenarios))
     if (uncertainty is not None and uncertainty.poisson_cases and burden is None
             and not any(o.burden for o in outcomes)):
         raise ctx.error("poisson_cases varies the observed cases of [burden]; add a [burden] "
@@ -169,6 +169,72 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
                     base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight,
                     own_curve="curve" in data)
+
+
+def _check_grid_sections(data: dict[str, Any], source: str | None) -> None:
+    """``[grid]`` replaces ``[exposure]``; ``[compute]`` goes with ``[grid]``."""
+    if "grid" in data and "exposure" in data:
+        raise InputError("[grid] and [exposure] both give the exposure; keep one (the grid's "
+                         "cells are the population's exposure)", source=source,
+                         location="[exposure]")
+    if "compute" in data and "grid" not in data:
+        raise InputError("[compute] says where a [grid] analysis is computed; add [grid] or "
+                         "remove [compute]", source=source, location="[compute]")
+
+
+def _grid(data: dict[str, Any], ctx: Context, burden: BurdenSpec | None,
+          outcomes: tuple[OutcomeSpec, ...], uncertainty: UncertaintySpec | None
+          ) -> GridExposure:
+    """``[grid]`` (and ``[compute]``) checked; the zones are the strata of
+    every burden table (the file's and each outcome's)."""
+    from doseattr.analysis.grid_inputs import parse_compute, parse_grid
+
+    spec = parse_grid(data["grid"], ctx)
+    scheduler = parse_compute(data.get("compute", {}), ctx)
+    tables = tuple(b.table for b in (burden, *(o.burden for o in outcomes)) if b is not None)
+    seed = uncertainty.seed if uncertainty is not None else DEFAULT_SEED
+    return GridExposure(family="empirical", grid=spec, tables=tables, scheduler=scheduler,
+                        seed=seed)
+
+
+def grid_cuts(curve: CurveSpec, outcomes: tuple[OutcomeSpec, ...],
+              attribution: AttributionSpec, scenarios: tuple[ScenarioSpec, ...]
+              ) -> tuple[float, ...]:
+    """Where the integrands of a grid run have kinks, for the reduction to
+    split its bins at: the minimum-risk level ``m`` and each stated
+    ``max_dose`` ``d`` (a fitted curve's own top dose is not known yet), and
+    where each scenario ``g`` sends them (``g(x) = m`` or ``d``) or has its
+    own (a cap)."""
+    levels = [attribution.minimum_risk]
+    for c in (curve, *(o.curve for o in outcomes)):
+        top = getattr(c, "max_dose", None)
+        if top is not None:
+            levels.append(float(top))
+    cuts = set(levels)
+    for sc in scenarios:
+        for level in levels:
+            if sc.kind == "scale":
+                cuts.add(level / sc.value)
+            elif sc.kind == "reduce_by":
+                cuts.add(level + sc.value)
+        if sc.kind == "cap":
+            cuts.add(sc.value)
+    return tuple(sorted(c for c in cuts if c > 0 and c < float("inf")))
+
+
+def with_scheduler(analysis: Analysis, address: str) -> Analysis:
+    """``analysis`` computed on the dask.distributed scheduler at
+    ``address`` (the command line's ``--scheduler``, which overrides
+    ``[compute] scheduler``); only a ``[grid]`` analysis uses one."""
+    from doseattr.analysis.grid_inputs import parse_compute
+
+    if not isinstance(analysis.exposure, GridExposure):
+        raise InputError("--scheduler computes a [grid] analysis on a dask cluster; this "
+                         "analysis has no [grid]", source=analysis.source)
+    ctx = Context(analysis.source, analysis.base_dir)
+    scheduler = parse_compute({"scheduler": address}, ctx)
+    return dataclasses.replace(analysis, exposure=dataclasses.replace(analysis.exposure,
+                                                                      scheduler=scheduler))
 
 
 def _strata_exposure(burden: BurdenSpec | None, outcomes: tuple[OutcomeSpec, ...],

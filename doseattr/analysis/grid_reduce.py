@@ -41,6 +41,23 @@ from doseattr.errors import InputError
 Reducer = Callable[[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64], int], Any]
 #: Partial results merged per task of the tree sum.
 FAN_IN = 8
+#: Longest side, in cells, of the sample of the rasters kept for maps.
+MAP_SIDE = 500
+
+
+@dataclass(frozen=True, eq=False)
+class GridSample:
+    """Every ``step``-th cell of the rasters in each direction, for maps:
+    concentration and population (NaN where nodata), each cell's zone
+    index (negative: nodata or not a reported zone), the grid's
+    ``extent`` (left, right, bottom, top) and ``crs``, when known."""
+
+    concentration: NDArray[np.float64]
+    population: NDArray[np.float64]
+    zone_index: NDArray[np.int64]
+    step: int
+    extent: tuple[float, float, float, float] | None = None
+    crs: str | None = None
 
 
 @dataclass(frozen=True)
@@ -65,6 +82,9 @@ class GridNotes:
     unknown: tuple[UnknownZone, ...] = ()
     scheduler: str | None = None
     table: bool = False
+    #: Whether the cells carry zones (a zones raster, a table's zone column).
+    zoned: bool = False
+    sample: GridSample | None = field(default=None, compare=False)
 
     def lines(self) -> tuple[str, ...]:
         where = self.scheduler or "local threads"
@@ -120,13 +140,15 @@ def reduce_grid(spec: GridSpec, zone_ids: Sequence[int], *, scheduler: str | Non
     """
     require_grid_extra()
     reduce_block = reducer or _core_reducer()
+    sample = None
     if spec.is_table:
         assert spec.cells is not None
-        total = _table(spec.cells, spec.chunk, zone_ids, reduce_block)
+        total, zoned = _table(spec.cells, spec.chunk, zone_ids, reduce_block)
         source = spec.cells
     else:
-        total = _rasters(spec, zone_ids, reduce_block, scheduler)
+        total, sample = _rasters(spec, zone_ids, reduce_block, scheduler)
         source = spec.zones or str(spec.concentration)
+        zoned = spec.zones is not None
     unknown = tuple(UnknownZone(z, c, p) for z, (c, p) in sorted(total.unknown.items()))
     peopled = {u.zone: u.population for u in unknown if u.population > 0}
     if strict and peopled:
@@ -137,7 +159,8 @@ def reduce_grid(spec: GridSpec, zone_ids: Sequence[int], *, scheduler: str | Non
     notes = GridNotes(cells=total.cells, skipped=int(sums.skipped) - lost_cells,
                       skipped_population=max(float(sums.skipped_population) - lost_people, 0.0),
                       chunk=spec.chunk, unknown=unknown,
-                      scheduler=None if spec.is_table else scheduler, table=spec.is_table)
+                      scheduler=None if spec.is_table else scheduler, table=spec.is_table,
+                      zoned=zoned, sample=sample)
     return sums, notes
 
 
@@ -151,7 +174,7 @@ def _core_reducer() -> Reducer:
 
 # -- rasters ------------------------------------------------------------------
 def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
-             scheduler: str | None) -> _Partial:
+             scheduler: str | None) -> tuple[_Partial, GridSample]:
     import dask
 
     layers = open_rasters(spec)
@@ -166,7 +189,34 @@ def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
     parts = [block(c, p, z, zones, nodata, n_zones, reduce_block)
              for c, p, z in zip(conc, pop, zone)]
     root = _tree(parts, dask.delayed(_merge, pure=True))
-    return _compute(root, scheduler)
+    step = max(1, -(-max(layers.concentration.shape) // MAP_SIDE))
+    sampled = [layer.data[::step, ::step] for layer in
+               (layers.concentration, layers.population, layers.zones) if layer is not None]
+    total, conc_s, pop_s, *zone_s = _compute(root, *sampled, scheduler=scheduler)
+    if zones is None:
+        index = np.zeros(np.shape(conc_s), dtype=np.int64)
+    else:
+        index = zones.indices(np.asarray(zone_s[0]), nodata)[0]
+    sample = GridSample(_floats(conc_s), _floats(pop_s), index, step,
+                        _extent(layers.concentration), layers.concentration.crs)
+    return total, sample
+
+
+def _extent(layer: Any) -> tuple[float, float, float, float] | None:
+    """(left, right, bottom, top) of a north-up raster, from its transform
+    or its cell-centre coordinates; ``None`` when neither says."""
+    rows, cols = layer.shape
+    if layer.transform is not None:
+        a, b, c, d, e, f = layer.transform
+        if b or d:
+            return None  # rotated grid: no axis-aligned extent
+        xs, ys = (c, c + a * cols), (f, f + e * rows)
+        return min(xs), max(xs), min(ys), max(ys)
+    y, x = layer.coords
+    if x is None or y is None or len(x) < 2 or len(y) < 2:
+        return None
+    dx, dy = abs(x[1] - x[0]) / 2, abs(y[1] - y[0]) / 2
+    return float(x.min() - dx), float(x.max() + dx), float(y.min() - dy), float(y.max() + dy)
 
 
 def _raster_block(conc: Any, pop: Any, zone: Any, zones: ZoneMap | None, nodata: float | None,
@@ -221,12 +271,12 @@ def _tree(parts: list[Any], merge: Callable[..., Any]) -> Any:
     return parts[0]
 
 
-def _compute(root: Any, scheduler: str | None) -> _Partial:
+def _compute(*roots: Any, scheduler: str | None) -> tuple[Any, ...]:
+    """``dask.compute(*roots)`` in one pass (shared reads are done once)."""
     import dask
 
     if scheduler is None:
-        (total,) = dask.compute(root, scheduler="threads")
-        return total  # type: ignore[no-any-return]
+        return tuple(dask.compute(*roots, scheduler="threads"))
     from distributed import Client
 
     try:
@@ -236,15 +286,14 @@ def _compute(root: Any, scheduler: str | None) -> _Partial:
                          "or remove the key to compute on this machine",
                          location="[compute] key 'scheduler'") from None
     try:
-        (total,) = dask.compute(root, scheduler=client)
+        return tuple(dask.compute(*roots, scheduler=client))
     finally:
         client.close()
-    return total  # type: ignore[no-any-return]
 
 
 # -- cell tables ----------------------------------------------------------------
 def _table(path: str, chunk_side: int, zone_ids: Sequence[int],
-           reduce_block: Reducer) -> _Partial:
+           reduce_block: Reducer) -> tuple[_Partial, bool]:
     total: _Partial | None = None
     zones: ZoneMap | None = None
     n_zones = 1
@@ -259,5 +308,5 @@ def _table(path: str, chunk_side: int, zone_ids: Sequence[int],
         total = part if total is None else _merge(total, part)
     if total is None:
         raise InputError("the table has a header but no data rows", source=path)
-    return total
+    return total, zones is not None
 

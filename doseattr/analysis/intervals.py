@@ -199,7 +199,15 @@ def uncertainty_notes(analysis: Analysis, curve, exposure) -> list[str]:
         varied.append("the curve's own draws")
     elif np.any(curve.cov):
         varied.append("curve coefficients from their fitted normal distribution")
-    if isinstance(exposure, EmpiricalExposure):
+    if isinstance(exposure, EmpiricalExposure) and exposure.census:
+        if exposure.error_gsd is not None:
+            varied.append(f"the exposure-model error (one lognormal factor of GSD "
+                          f"{exposure.error_gsd:g} per draw for every cell); the exposure is a "
+                          "census, so it is not resampled")
+        else:
+            varied.append("not the exposure: it is a census of the whole population, so it "
+                          "is not resampled")
+    elif isinstance(exposure, EmpiricalExposure):
         varied.append("the exposure values by a weighted bootstrap of the rows")
     elif exposure.fit is not None and exposure.fit.cov_internal is not None:
         df = small_sample_df(exposure)

@@ -28,6 +28,7 @@ from doseattr.analysis.burden_sums import RowDraws
 from doseattr.analysis.check import Prepared, PreparedAll, divergence, prepare_all
 from doseattr.analysis.comparisons import curve_variants, exposure_variants, substitution_results
 from doseattr.analysis.config import Analysis
+from doseattr.analysis.grid_maps import grid_maps
 from doseattr.analysis.intervals import (
     population_estimates,
     population_intervals,
@@ -49,6 +50,7 @@ from doseattr.results.records import (
     POPULATION_PAF,
     AttributionSection,
     BurdenResult,
+    GridSection,
     RunInputs,
     ScenarioResult,
     UncertaintySection,
@@ -162,8 +164,21 @@ def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
             worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits)),
         attribution=attribution, categorical=point.categorical,
         uncertainty=mc.uncertainty, burden=mc.burden,
-        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes))
+        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes)),
+        grid=_grid_section(p, mc.burden)
     ), mc.rows
+
+
+def _grid_section(p: Prepared, burden: BurdenResult | None) -> GridSection | None:
+    """What a [grid] run read, with its maps (rasters only)."""
+    grid = p.built_exposure.grid
+    if grid is None:
+        return None
+    if grid.sample is None:
+        return grid.section
+    maps = grid_maps(grid.sample, grid.section, grid.total_population, p.built.curve,
+                     p.analysis.attribution.minimum_risk, burden)
+    return dataclasses.replace(grid.section, maps=maps)
 
 
 def _averted(burden: BurdenResult | None, name: str) -> Estimate | None:

@@ -22,7 +22,7 @@ from doseattr.analysis.schema import SECTIONS, key_location
 #: ``command`` when the run did not come from the command line.
 PYTHON_API = "python-api"
 #: Sections whose "path" keys name tables (``[[outcome]]`` holds curve and burden).
-TABLE_SECTIONS = ("curve", "exposure", "burden")
+TABLE_SECTIONS = ("curve", "exposure", "burden", "grid")
 
 
 @dataclass(frozen=True)

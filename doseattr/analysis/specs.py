@@ -26,7 +26,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import date
-from typing import Any, TypeAlias
+from typing import TYPE_CHECKING, Any, TypeAlias
 
 from doseattr.analysis.burden_table import DEFAULT_RATE_PER
 from doseattr.analysis.tables import (
@@ -40,6 +40,9 @@ from doseattr.analysis.tables import (
 )
 from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import FAMILIES
+
+if TYPE_CHECKING:  # grid_inputs reads the schema, which reads this module
+    from doseattr.analysis.grid_inputs import GridSpec
 
 #: Monte Carlo draws: fewer than MIN_DRAWS give unstable percentiles; more
 #: than MAX_DRAWS need ``allow_many_draws = true`` (memory and time).
@@ -280,9 +283,32 @@ class StrataExposure(_Exposure):
         return "strata"
 
 
+@dataclass(frozen=True, eq=False, kw_only=True)
+class GridExposure(_Exposure):
+    """``[grid]`` instead of ``[exposure]``: the population is the grid's
+    cells, weighted by population (a census), reduced by zone; ``tables``
+    are the burden tables whose strata are the zones (the file's and each
+    outcome's), ``scheduler`` the dask.distributed address of ``[compute]``
+    (``None``: dask's local threads) and ``seed`` the stream of the
+    exposure-model error."""
+
+    grid: GridSpec
+    tables: tuple[BurdenTable, ...] = ()
+    scheduler: str | None = None
+    seed: int = DEFAULT_SEED
+    #: Concentrations where the integrands have kinks (the minimum-risk
+    #: level, a stated max_dose, and where the scenarios move them).
+    cuts: tuple[float, ...] = ()
+
+    @property
+    def source(self) -> str:
+        return "grid"
+
+
 #: What ``[exposure]`` asks for: one type per source.
 ExposureSpec: TypeAlias = (MeasuredExposure | SummaryExposure | PercentilesExposure
-                           | BinnedExposure | HistoriesExposure | StrataExposure)
+                           | BinnedExposure | HistoriesExposure | StrataExposure
+                           | GridExposure)
 
 
 @dataclass(frozen=True)

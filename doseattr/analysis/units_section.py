@@ -33,6 +33,7 @@ from doseattr.analysis.specs import (
     DrawsCurve,
     EnteredCurve,
     ExposureSpec,
+    GridExposure,
     HistoriesExposure,
     MeasuredExposure,
     PercentilesExposure,
@@ -263,7 +264,8 @@ _EXPOSURE_VALUES: dict[type, Callable[[Any, float], dict[str, Any]]] = {
     PercentilesExposure: _percentile_values, BinnedExposure: _binned_values,
     HistoriesExposure: _histories_values,
     # the strata's exposure columns are in the analysis unit already
-    StrataExposure: lambda spec, f: {}}
+    StrataExposure: lambda spec, f: {},
+    GridExposure: lambda spec, f: {}}  # the cells are read in the file's unit
 
 
 def convert_burden(table: BurdenTable, conv: Conversion) -> BurdenTable:

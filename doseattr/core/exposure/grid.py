@@ -53,6 +53,11 @@ second-order argument: writing :math:`h = g + \Delta s\,(x - k)_+` with
 lies in :math:`[0, \tfrac12 E_b|X - \bar x_b|]` by the triangle inequality,
 so that bin adds at most :math:`\tfrac12 |\Delta s|\, \bar x_b (e^\delta - 1)\, w_b`:
 first order in :math:`\delta` but weighted by the population of one bin.
+Known kinks are therefore given to the reducer as ``cuts``: the bin that
+holds a cut :math:`k` is split at it (the sums of its cells below
+:math:`k`), so each piece is smooth and the second-order bound holds
+again (a draw's factor that moves a kink, as the exposure-model error
+does, leaves the first-order term for that draw).
 
 Rounding
 --------
@@ -77,7 +82,7 @@ instead; this module does not provide one.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import cast
 
 import numpy as np
@@ -120,8 +125,10 @@ class BlockSums:
     """Sums over some cells: ``weight`` and ``moment`` ``(n_zones, N_BINS)``
     (population and population times concentration per zone and bin),
     ``zero (n_zones,)`` (population at concentration 0), ``cells
-    (n_zones,)`` (cells counted, any population), and ``skipped`` cells
-    with their ``skipped_population``."""
+    (n_zones,)`` (cells counted, any population), ``skipped`` cells
+    with their ``skipped_population``, and for each of the sorted ``cuts``
+    ``(K,)`` the sums ``cut_weight``/``cut_moment`` ``(n_zones, K)`` over the
+    cells of the cut's bin below the cut."""
 
     weight: FloatArray
     moment: FloatArray
@@ -129,6 +136,15 @@ class BlockSums:
     cells: IntArray
     skipped: int = 0
     skipped_population: float = 0.0
+    cuts: FloatArray = field(default_factory=lambda: np.zeros(0))
+    cut_weight: FloatArray | None = None
+    cut_moment: FloatArray | None = None
+
+    def __post_init__(self) -> None:
+        if self.cut_weight is None:
+            empty = np.zeros((self.n_zones, self.cuts.size))
+            object.__setattr__(self, "cut_weight", empty)
+            object.__setattr__(self, "cut_moment", empty.copy())
 
     @property
     def n_zones(self) -> int:
@@ -143,10 +159,23 @@ class BlockSums:
 
     def __add__(self, other: BlockSums) -> BlockSums:
         assert self.n_zones == other.n_zones, (self.n_zones, other.n_zones)
+        assert np.array_equal(self.cuts, other.cuts), (self.cuts, other.cuts)
         return BlockSums(self.weight + other.weight, self.moment + other.moment,
                          self.zero + other.zero, self.cells + other.cells,
                          self.skipped + other.skipped,
-                         self.skipped_population + other.skipped_population)
+                         self.skipped_population + other.skipped_population, self.cuts,
+                         self._cut_weight + other._cut_weight,
+                         self._cut_moment + other._cut_moment)
+
+    @property
+    def _cut_weight(self) -> FloatArray:
+        assert self.cut_weight is not None
+        return self.cut_weight
+
+    @property
+    def _cut_moment(self) -> FloatArray:
+        assert self.cut_moment is not None
+        return self.cut_moment
 
     def as_tuple(self) -> tuple[FloatArray, FloatArray, FloatArray, IntArray, int, float]:
         """Plain arrays and numbers (picklable), for :meth:`from_tuple`."""
@@ -162,7 +191,8 @@ class BlockSums:
     def summary(self) -> GridSummary:
         """The finished reduction."""
         return GridSummary(self.n_zones, self.weight, self.moment, self.zero, self.cells,
-                           self.skipped, self.skipped_population)
+                           self.skipped, self.skipped_population, self.cuts,
+                           self._cut_weight, self._cut_moment)
 
 
 def combine(a: BlockSums, b: BlockSums) -> BlockSums:
@@ -171,8 +201,11 @@ def combine(a: BlockSums, b: BlockSums) -> BlockSums:
 
 
 def reduce_block(conc: ArrayLike, pop: ArrayLike, zone_index: ArrayLike,
-                 n_zones: int) -> BlockSums:
+                 n_zones: int, cuts: ArrayLike = ()) -> BlockSums:
     """Reduce one chunk of cells (arrays of any shape, flattened alike).
+
+    ``cuts`` are concentrations where the integrands have kinks (positive;
+    sorted and made unique here): the bin of each is split at it.
 
     A cell is skipped (and counted in ``skipped``) when its concentration or
     population is not finite or negative, or its zone index is -1 (outside
@@ -205,8 +238,37 @@ def reduce_block(conc: ArrayLike, pop: ArrayLike, zone_index: ArrayLike,
     moment = _sums(flat, p * x, z * width).reshape(z, width)
     counted = np.bincount(zi, weights=ok if skipped else None, minlength=z)
     cells = np.rint(counted).astype(np.int64)
+    k = check_cuts(cuts)
+    below_w, below_m = _below_cuts(x, p, zi, z, flat - zi * width, k)
     return BlockSums(weight[:, 1:], moment[:, 1:], weight[:, 0].copy(), cells, skipped,
-                     skipped_population)
+                     skipped_population, k, below_w, below_m)
+
+
+def check_cuts(cuts: ArrayLike) -> FloatArray:
+    """``cuts`` sorted and unique; ModelError unless finite and positive."""
+    k = np.unique(np.asarray(cuts, dtype=float).ravel())
+    if k.size and not (np.all(np.isfinite(k)) and k[0] > 0):
+        raise ModelError(f"cuts must be finite positive concentrations, got {k.tolist()}")
+    return cast(FloatArray, k)
+
+
+def _below_cuts(x: FloatArray, p: FloatArray, zi: IntArray, z: int, slots: IntArray,
+                cuts: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Per zone and cut, population and population x concentration of the
+    cells in the cut's bin that lie below it (the bins' cells only are
+    looked at again)."""
+    w = np.zeros((z, cuts.size))
+    m = np.zeros((z, cuts.size))
+    if not cuts.size:
+        return w, m
+    cut_slots = _slots(cuts)
+    held = np.flatnonzero(np.isin(slots, cut_slots))
+    xs, ps, zs, ss = x[held], p[held], zi[held], slots[held]
+    for j, (c, slot) in enumerate(zip(cuts, cut_slots, strict=True)):
+        sel = (ss == slot) & (xs < c)
+        w[:, j] = np.bincount(zs[sel], weights=ps[sel], minlength=z)
+        m[:, j] = np.bincount(zs[sel], weights=ps[sel] * xs[sel], minlength=z)
+    return w, m
 
 
 def _slots(x: FloatArray) -> IntArray:
@@ -247,10 +309,17 @@ class GridSummary:
     cells: IntArray
     skipped: int = 0
     skipped_population: float = 0.0
+    cuts: FloatArray = field(default_factory=lambda: np.zeros(0))
+    cut_weight: FloatArray | None = None
+    cut_moment: FloatArray | None = None
 
     def __post_init__(self) -> None:
         assert self.weight.shape == self.moment.shape == (self.n_zones, N_BINS)
         assert self.zero.shape == self.cells.shape == (self.n_zones,)
+        if self.cut_weight is None:
+            empty = np.zeros((self.n_zones, self.cuts.size))
+            object.__setattr__(self, "cut_weight", empty)
+            object.__setattr__(self, "cut_moment", empty.copy())
 
     def zone_population(self, z: int) -> float:
         """Population of zone ``z`` (cells at zero included)."""
@@ -274,8 +343,10 @@ class GridSummary:
             raise ModelError(f"zone index {z} is outside 0..{self.n_zones - 1}")
         if not self.zone_population(z) > 0:
             raise ModelError(self._empty(z))
-        return _census(self.weight[z], self.moment[z], float(self.zero[z]), f"grid zone {z}",
-                       error_gsd, error_seed)
+        assert self.cut_weight is not None and self.cut_moment is not None
+        w, m = _split(self.weight[z], self.moment[z], self.cuts, self.cut_weight[z],
+                      self.cut_moment[z])
+        return _census(w, m, float(self.zero[z]), f"grid zone {z}", error_gsd, error_seed)
 
     def population_exposure(self, *, error_gsd: float | None = None,
                             error_seed: int | None = None) -> EmpiricalExposure:
@@ -284,12 +355,36 @@ class GridSummary:
         if not zero + float(weight.sum()) > 0:
             raise ModelError("the grid has no population in any zone: every cell is empty, "
                              "skipped or outside the zones")
-        return _census(weight, self.moment.sum(axis=0), zero, "grid population", error_gsd,
-                       error_seed)
+        assert self.cut_weight is not None and self.cut_moment is not None
+        w, m = _split(weight, self.moment.sum(axis=0), self.cuts, self.cut_weight.sum(axis=0),
+                      self.cut_moment.sum(axis=0))
+        return _census(w, m, zero, "grid population", error_gsd, error_seed)
 
     def _empty(self, z: int) -> str:
         return (f"zone index {z} has no population ({int(self.cells[z])} cells counted): "
                 f"its exposure is undefined; drop the zone or check its cells")
+
+
+def _split(weight: FloatArray, moment: FloatArray, cuts: FloatArray, below_w: FloatArray,
+           below_m: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """One zone's bins with each bin that holds cuts split at them: the
+    pieces between successive cuts of a bin are differences of the sums
+    below each cut (pieces without population are dropped)."""
+    if not cuts.size:
+        return weight, moment
+    slots = bin_index(cuts)
+    keep = np.ones(weight.size, bool)
+    keep[slots] = False
+    w_out, m_out = [weight[keep]], [moment[keep]]
+    for b in np.unique(slots):
+        j = np.flatnonzero(slots == b)  # cuts are sorted, so these are in order
+        cw = np.concatenate([[0.0], below_w[j], [weight[b]]])
+        cm = np.concatenate([[0.0], below_m[j], [moment[b]]])
+        dw, dm = np.diff(cw), np.diff(cm)
+        ok = dw > 1e-12 * max(weight[b], 1e-300)
+        w_out.append(dw[ok])
+        m_out.append(dm[ok])
+    return np.concatenate(w_out), np.concatenate(m_out)
 
 
 def _census(weight: FloatArray, moment: FloatArray, zero: float, source: str,
