@@ -37,8 +37,11 @@ inherited) is printed beside it. Measured:
    ``np.bincount`` (one thread): the baseline "read + multiply-add";
 2. the analysis: ``doseattr run`` on an analysis file with ``[grid]``,
    ``[burden]``, a log-linear curve entered directly (RR 1.08 per 10 units,
-   95% CI 1.05 to 1.11, invented) and ``[uncertainty] draws``. While this
-   version refuses ``[grid]`` ("not supported by this version yet"), the
+   95% CI 1.05 to 1.11, invented) and ``[uncertainty] draws``, run in the
+   child by ``doseattr.cli.main``; its parts (the dask pass, the census
+   exposures, the rest of the analysis, writing the outputs) are timed by
+   wrapping those functions in the child (:data:`TIMED`). While a version
+   refuses ``[grid]`` ("not supported by this version yet"), the
    child measures the fallback instead, in parts: ``reduce_grid`` (the dask
    pass, local threads), the per-zone and pooled census exposures of the
    ``GridSummary``, and the point values plus a ``--draws`` propagation with
@@ -283,21 +286,85 @@ def bare_pass(folder: Path, chunk: int, zones: int) -> tuple[FloatArray, FloatAr
 
 
 # -- the analysis -----------------------------------------------------------------
+#: Functions timed inside ``doseattr run`` (module, name, label), outermost first;
+#: each is looked up at call time by its caller, so wrapping the attribute
+#: times every call. A missing one is skipped (the code may move).
+TIMED = (("doseattr.analysis.config", "load_analysis", "load_analysis (read, check)"),
+         ("doseattr.analysis.pipeline", "run_analysis", "run_analysis"),
+         ("doseattr.analysis.grid_exposure", "build_grid", "build_grid"),
+         ("doseattr.analysis.grid_exposure", "reduce_grid", "reduce_grid (dask pass)"),
+         ("doseattr.outputs.write", "write_outputs", "write_outputs (files, report)"))
+
+
+@contextlib.contextmanager
+def timing(spent: dict[str, float]) -> Iterator[None]:
+    """Wrap the :data:`TIMED` functions to add their wall time to ``spent``
+    (behaviour unchanged); restore them afterwards."""
+    saved = []
+    for module_name, name, label in TIMED:
+        with contextlib.suppress(ImportError):
+            module = importlib.import_module(module_name)
+            if hasattr(module, name):
+                saved.append((module, name, getattr(module, name)))
+                setattr(module, name, _timed(getattr(module, name), label, spent))
+    try:
+        yield
+    finally:
+        for module, name, original in saved:
+            setattr(module, name, original)
+
+
+def _timed(fn: Any, label: str, spent: dict[str, float]) -> Any:
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        t0 = time.perf_counter()
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            spent[label] = spent.get(label, 0.0) + time.perf_counter() - t0
+    return wrapper
+
+
+def analysis_parts(spent: dict[str, float], total: float) -> dict[str, float]:
+    """Exclusive times: each timed function without the ones inside it."""
+    get = spent.get
+    parts = {"load_analysis (read, check)": get("load_analysis (read, check)", 0.0),
+             "reduce_grid (dask pass)": get("reduce_grid (dask pass)", 0.0),
+             "build_grid without its pass (census exposures)":
+                 get("build_grid", 0.0) - get("reduce_grid (dask pass)", 0.0),
+             "run_analysis without build_grid (curve, Monte Carlo, results)":
+                 get("run_analysis", 0.0) - get("build_grid", 0.0),
+             "write_outputs (files, report)": get("write_outputs (files, report)", 0.0)}
+    parts["the rest of doseattr run"] = total - sum(parts.values())
+    return parts
+
+
 def full_analysis(toml: Path, out: Path) -> dict[str, Any] | None:
     """``doseattr run``; ``None`` when this version refuses ``[grid]``."""
     from doseattr.cli import main
 
     err = io.StringIO()
+    spent: dict[str, float] = {}
     t0 = time.perf_counter()
-    with contextlib.redirect_stderr(err):
+    with contextlib.redirect_stderr(err), timing(spent):
         status = main(["run", str(toml), "--out", str(out), "--quiet"])
     seconds = time.perf_counter() - t0
     if status == 2 and REFUSED in err.getvalue():
         return None
     if status != 0:
         raise RuntimeError(f"doseattr run failed ({status}): {err.getvalue().strip()}")
-    return {"mode": "full analysis (doseattr run)", "seconds": seconds, "parts": {},
-            "stderr": err.getvalue().strip()}
+    results = json.loads((out / "results.json").read_text(encoding="utf-8"))
+    return {"mode": "full analysis (doseattr run)", "seconds": seconds,
+            "parts": analysis_parts(spent, seconds), "notes": err.getvalue().splitlines(),
+            "check": _paf_of(results)}
+
+
+def _paf_of(results: dict[str, Any]) -> dict[str, Any]:
+    """The population PAF from results.json, when found where expected."""
+    found: dict[str, Any] = {}
+    for key in ("paf", "population_paf"):
+        if isinstance(results.get(key), dict | float):
+            found[key] = results[key]
+    return found
 
 
 def fallback(folder: Path, toml: Path, draws: int) -> dict[str, Any]:
