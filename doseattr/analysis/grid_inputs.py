@@ -220,6 +220,10 @@ def _integer(value: float, source: str, location: str) -> int:
     return int(value)
 
 
+#: Largest span of zone ids looked up through a table (8 MB of indices).
+LOOKUP_SPAN = 1 << 20
+
+
 @dataclass(frozen=True)
 class ZoneMap:
     """Zone ids to indices: ``ids[k]`` is index ``k``. ``source`` is the file
@@ -253,13 +257,27 @@ class ZoneMap:
                                  source=self.source)
         values = values.astype(np.int64)
         out = np.full(flat.shape, NODATA_ZONE, dtype=np.int64)
+        index = self._lookup(values)
+        out[valid] = index
+        return out.reshape(np.shape(zone)), values[index == UNKNOWN_ZONE]
+
+    def _lookup(self, values: IntArray) -> IntArray:
+        """Index of each id (:data:`UNKNOWN_ZONE` when not listed): a table
+        indexed by id when the ids span at most :data:`LOOKUP_SPAN` (one
+        gather per cell), else a binary search."""
         known = np.asarray(self.ids, dtype=np.int64)
+        if not len(known):
+            return np.full(values.shape, UNKNOWN_ZONE, dtype=np.int64)
+        low, high = int(known.min()), int(known.max())
+        if high - low <= LOOKUP_SPAN:
+            table = np.full(high - low + 1, UNKNOWN_ZONE, dtype=np.int64)
+            table[known - low] = np.arange(len(known))
+            inside = (values >= low) & (values <= high)
+            shifted = np.where(inside, values - low, 0)
+            return np.where(inside, table[shifted], UNKNOWN_ZONE)
         order = np.argsort(known, kind="stable")
-        pos = np.searchsorted(known[order], values)
-        pos = np.minimum(pos, max(len(known) - 1, 0))
-        found = known[order][pos] == values if len(known) else np.zeros(len(values), bool)
-        out[valid] = np.where(found, order[pos], UNKNOWN_ZONE)
-        return out.reshape(np.shape(zone)), values[~found]
+        pos = np.minimum(np.searchsorted(known[order], values), len(known) - 1)
+        return np.where(known[order][pos] == values, order[pos], UNKNOWN_ZONE)
 
 
 def _missing(values: NDArray[Any], nodata: float | None) -> NDArray[np.bool_]:

@@ -42,8 +42,27 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+#: Files at least this large are hashed once per process while their size,
+#: modification and change times and inode stay the same (git's index and
+#: rsync's quick check use the same stat signature; common practice): a run
+#: checks its inputs three times, and a 1e8-cell grid is gigabytes.
+HASH_ONCE_BYTES = 64 << 20
+_HASHED: dict[tuple[str, int, int, int, int], str] = {}
+
+
 def sha256_file(path: str | os.PathLike[str]) -> str:
-    """Hex SHA-256 of a file's bytes, read in 1 MiB blocks."""
+    """Hex SHA-256 of a file's bytes, read in 1 MiB blocks (large files:
+    see :data:`HASH_ONCE_BYTES`)."""
+    st = os.stat(path)
+    if st.st_size < HASH_ONCE_BYTES:
+        return _sha256(path)
+    key = (os.path.realpath(path), st.st_size, st.st_mtime_ns, st.st_ctime_ns, st.st_ino)
+    if key not in _HASHED:
+        _HASHED[key] = _sha256(path)
+    return _HASHED[key]
+
+
+def _sha256(path: str | os.PathLike[str]) -> str:
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):

@@ -233,13 +233,14 @@ def reduce_block(conc: ArrayLike, pop: ArrayLike, zone_index: ArrayLike,
         skipped_population = float(p[~ok & good_p].sum())
         x, p, zi = np.where(ok, x, 0.0), np.where(ok, p, 0.0), np.where(ok, zi, 0)
     width = N_BINS + 1
-    flat = zi * width + _slots(x)
+    slots = _slots(x)
+    flat = zi * width + slots
     weight = _sums(flat, p, z * width).reshape(z, width)
     moment = _sums(flat, p * x, z * width).reshape(z, width)
     counted = np.bincount(zi, weights=ok if skipped else None, minlength=z)
     cells = np.rint(counted).astype(np.int64)
     k = check_cuts(cuts)
-    below_w, below_m = _below_cuts(x, p, zi, z, flat - zi * width, k)
+    below_w, below_m = _below_cuts(x, p, zi, z, slots, k)
     return BlockSums(weight[:, 1:], moment[:, 1:], weight[:, 0].copy(), cells, skipped,
                      skipped_population, k, below_w, below_m)
 
@@ -262,7 +263,10 @@ def _below_cuts(x: FloatArray, p: FloatArray, zi: IntArray, z: int, slots: IntAr
     if not cuts.size:
         return w, m
     cut_slots = _slots(cuts)
-    held = np.flatnonzero(np.isin(slots, cut_slots))
+    mask = np.zeros(slots.shape, bool)
+    for slot in np.unique(cut_slots):  # a few cuts: one comparison each beats np.isin
+        mask |= slots == slot
+    held = np.flatnonzero(mask)
     xs, ps, zs, ss = x[held], p[held], zi[held], slots[held]
     for j, (c, slot) in enumerate(zip(cuts, cut_slots, strict=True)):
         sel = (ss == slot) & (xs < c)
