@@ -20,6 +20,7 @@ from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
 from doseattr.outputs import burden_figures as bf
 from doseattr.outputs import figures as fig
+from doseattr.outputs import grid_figures as gf
 from doseattr.outputs.figures import AnyExposure
 from doseattr.outputs.markup import pct
 from doseattr.outputs.model_figures import Panel, bands_with_doses, plot_curve_panels
@@ -41,7 +42,8 @@ if TYPE_CHECKING:
 
 #: File names (without ``.png``) in report order.
 FIGURE_NAMES = ("curve", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
-                "categorical", "paf_draws", "burden", "burden_rates")
+                "categorical", "paf_draws", "burden", "burden_rates", "grid_concentration",
+                "grid_attributable")
 
 
 def render_figures(results: Results) -> dict[str, bytes]:
@@ -60,6 +62,8 @@ def render_figures(results: Results) -> dict[str, bytes]:
         "paf_draws": lambda: _paf_draws(results.uncertainty, results.attribution.paf),
         "burden": lambda: _burden(results.burden_blocks),
         "burden_rates": lambda: _burden_rates(results.burden_blocks),
+        "grid_concentration": lambda: gf.grid_map(results.grid, "concentration", unit),
+        "grid_attributable": lambda: gf.grid_map(results.grid, "attributable", unit),
     }
     out = {}
     for name in FIGURE_NAMES:

@@ -6,8 +6,9 @@ network. Every section reads one typed record of the run's
 from, so the page and results.json always agree); figures come from the
 same records. The curve, exposure and uncertainty/burden sections are built
 in :mod:`~doseattr.outputs.curve_report`,
-:mod:`~doseattr.outputs.exposure_report` and
-:mod:`~doseattr.outputs.burden_report`. All text that a user typed (title, unit,
+:mod:`~doseattr.outputs.exposure_report`,
+:mod:`~doseattr.outputs.burden_report` and (for a ``[grid]`` analysis)
+:mod:`~doseattr.outputs.grid_report`. All text that a user typed (title, unit,
 scenario names, file names) and all warning text is escaped with
 :func:`html.escape`. Sections for optional results (intervals, burden by
 stratum, several fits) appear only when the results hold them.
@@ -37,6 +38,7 @@ from doseattr.outputs.burden_report import (
 from doseattr.outputs.css import CSS
 from doseattr.outputs.curve_report import curve_section
 from doseattr.outputs.exposure_report import exposure_section
+from doseattr.outputs.grid_report import grid_section
 from doseattr.outputs.markup import (
     NA,
     bullets,
@@ -345,6 +347,8 @@ def render_report(results: Results, *, images: Mapping[str, bytes] | None = None
         section("burden", "Attributable cases",
                 burden_section(results.burden, unit, images,
                                outcomes=[(name, o.burden) for name, o in results.outcomes])),
+        section("grid", "Gridded exposure by zone",
+                grid_section(results.grid, results.burden, unit, images)),
         section("cautions", "Cautions", cautions_section(results)),
         section("methods", "Methods and references", methods_section(results)),
     ]

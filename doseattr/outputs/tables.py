@@ -3,8 +3,9 @@
 Every table is built from one typed section of the run's
 :class:`~doseattr.results.run.Results` (the records results.json is
 generated from, so the CSV files and results.json hold the same numbers).
-Optional tables (burden, burden by group and in total, comparisons, width
-by source, workers) are written only when the results hold them. Numbers are written at full precision
+Optional tables (burden, burden by group and in total, the zones of a grid,
+comparisons, width by source, workers) are written only when the results
+hold them. Numbers are written at full precision
 (``repr`` of the float, which round-trips exactly); empty cells mean "not
 applicable". Units are given in the column headers, e.g. ``lower (ug/m3)``.
 """
@@ -21,6 +22,7 @@ import numpy as np
 
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
+from doseattr.outputs.zones import zone_rows
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (
     AttributionSection,
@@ -29,6 +31,7 @@ from doseattr.results.records import (
     CurveSection,
     CurveVariant,
     ExposureSection,
+    GridSection,
     StratumExposure,
     StratumResult,
     UncertaintySection,
@@ -360,6 +363,55 @@ def burden_totals_table(blocks: Sequence[BurdenBlock],
     return list(TOTALS_COLUMNS), rows
 
 
+def zones_table(grid: GridSection | None, burden: BurdenResult | None,
+                scenarios: Sequence[str] = (), unit: str | None = None) -> Table | None:
+    """One row per zone of a ``[grid]`` analysis, in the grid's zone order
+    (``None`` without a grid).
+
+    Columns: ``zone`` (id), ``name``, ``population`` (the grid's),
+    ``mean_concentration (<unit>)`` (population-weighted), then from the
+    burden: ``cases``, ``attributable`` with ``_lower``/``_upper``; with
+    populations in the burden table ``attributable_rate (per <rate_per>)``
+    with ``attributable_rate_lower``/``_upper`` (same unit); ``paf`` with
+    its limits (the fraction used: attributable over cases); and for each
+    scenario in ``scenarios`` ``pif_<name>``, ``pif_lower_<name>``,
+    ``pif_upper_<name>`` (averted over cases) and ``averted_<name>``,
+    ``averted_lower_<name>``, ``averted_upper_<name>``. A zone is matched to
+    its stratum by ``grid.zone_strata``; with groups its row is the stratum
+    summed across its groups. Burden cells are empty for a zone without a
+    burden result; without a burden there are no burden columns.
+    """
+    if grid is None:
+        return None
+    header = ["zone", "name", "population", with_unit("mean_concentration", unit)]
+    rates = burden is not None and burden.has_rates
+    if burden is not None:
+        header += ["cases", *[f"attributable{c}" for c in LIMITS]]
+        if rates:
+            per = f"per {burden.rate_per:g}"
+            header += [with_unit(f"attributable_rate{c}", per) for c in LIMITS]
+        header += [f"paf{c}" for c in LIMITS]
+        for name in scenarios:
+            header += [f"pif{c}_{name}" for c in LIMITS]
+            header += [f"averted{c}_{name}" for c in LIMITS]
+    rows: list[list[Any]] = []
+    for z in zone_rows(grid, burden):
+        row: list[Any] = [z.zone, z.name, z.population, z.mean]
+        if burden is not None:
+            r = z.result
+            row += [None if r is None else _float(r.cases),
+                    *limit_cells(None if r is None else r.attributable)]
+            if rates:
+                row += limit_cells(None if r is None else r.attributable_rate)
+            row += limit_cells(None if r is None else r.paf)
+            for name in scenarios:
+                e = z.effect(name)
+                row += [*limit_cells(None if e is None else e.pif),
+                        *limit_cells(None if e is None else e.averted)]
+        rows.append(row)
+    return header, rows
+
+
 def limit_cells(est: Estimate | None) -> list[float | None]:
     """``[estimate, lower, upper]`` of an estimate (empty without one)."""
     return estimate_cells(est)[:3]
@@ -473,6 +525,8 @@ def all_tables(results: Results) -> dict[str, Table]:
         "substitution.csv": substitution_table(exposure),
         "width_by_source.csv": width_by_source_table(results.uncertainty),
         "workers.csv": workers_table(exposure.workers),
+        "zones.csv": zones_table(results.grid, results.burden,
+                                 [s.name for s in results.attribution.scenarios], unit),
     }
     tables.update({name: t for name, t in optional.items() if t is not None})
     return tables
