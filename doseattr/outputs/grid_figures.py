@@ -159,9 +159,9 @@ def plot_grid_map(values: FloatArray, ax: Axes | None = None, *, step: int = 1,
                     va="center", color="#333333")
         else:
             ax.figure.colorbar(image, ax=ax, label=label, shrink=0.9)
-        if extent is None:
-            from matplotlib.ticker import MaxNLocator
+        from matplotlib.ticker import MaxNLocator
 
+        if extent is None:
             ax.xaxis.set_major_locator(MaxNLocator(integer=True))
             ax.yaxis.set_major_locator(MaxNLocator(integer=True))
             ax.set_xlabel("Column of the grid (cell index)")
@@ -170,6 +170,7 @@ def plot_grid_map(values: FloatArray, ax: Axes | None = None, *, step: int = 1,
             ax.set_xlabel(axis_label("x", _short(crs)))
             ax.set_ylabel(axis_label("y", _short(crs)))
             ax.ticklabel_format(style="plain", useOffset=False)
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=4))  # projected x labels are long
         if title:
             ax.set_title(title)
     return ax
