@@ -101,7 +101,7 @@ def test_scenario_written_with_single_brackets(tmp_path):
 
 def test_scenario_needs_exactly_one_change(tmp_path):
     err, _ = _fails(tmp_path, ANALYSIS.replace("cap = 20", "cap = 20\nscale = 0.5"))
-    assert "exactly one of cap, scale or reduce_by" in str(err)
+    assert "exactly one of cap, scale, reduce_by or comply" in str(err)
 
 
 def test_table_and_published_estimate_together(tmp_path):

@@ -299,7 +299,7 @@ def test_results_json_contract(tmp_path):
     r = _table_case(tmp_path, text, extra='[[scenario]]\nname = "cap"\ncap = 25\n')
     d = r.to_dict()
     json.dumps(d, allow_nan=False)
-    assert d["schema_version"] == "2.2" and d["unit"] == "ug/m3"
+    assert d["schema_version"] == "2.3" and d["unit"] == "ug/m3"
     for section, keys in CONTRACT.items():
         for key in keys:
             assert key in d[section], (section, key)

@@ -64,7 +64,7 @@ def test_files_written(written):
 def test_results_json_contract_keys(written, results):
     """Every key marked * in the API notes is present with the stated type."""
     d = strict_json(written[0] / "results.json")
-    assert d["schema_version"] == "2.2"
+    assert d["schema_version"] == "2.3"
     for k in ("estimate", "lower", "upper"):
         assert k in d["paf"]
     assert [s["name"] for s in d["scenarios"]] == list(SCENARIO_NAMES)

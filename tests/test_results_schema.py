@@ -37,7 +37,7 @@ def demo() -> dict:
 
 def test_schema_is_the_version_written():
     s = results_schema()
-    assert s["properties"]["schema_version"] == {"const": SCHEMA_VERSION} and SCHEMA_VERSION == "2.2"
+    assert s["properties"]["schema_version"] == {"const": SCHEMA_VERSION} and SCHEMA_VERSION == "2.3"
     assert s["$schema"] == "https://json-schema.org/draft/2020-12/schema"
 
 
@@ -55,7 +55,7 @@ def test_other_analyses_validate(tmp_path, text):
     (lambda d: d.pop("paf"), "$: missing 'paf'"),
     (lambda d: d["paf"].update(estimate="12%"), "$.paf.estimate: str is not number"),
     (lambda d: d["burden"]["strata"][0].update(paf=0.1), "$.burden.strata[0].paf: float is not object"),
-    (lambda d: d.update(schema_version="1.0"), "$.schema_version: '1.0' is not '2.2'"),
+    (lambda d: d.update(schema_version="1.0"), "$.schema_version: '1.0' is not '2.3'"),
     (lambda d: d["curve"].update(beyond="up"), "$.curve.beyond: 'up' is not one of"),
     (lambda d: d["exposure"].update(surprise=1), "$.exposure: 'surprise' is not declared"),
 ])

@@ -95,14 +95,19 @@ def curve_section(curve: Curve, exposure: AnyExposure, bands: Any,
 def exposure_section(curve: Curve, exposure: AnyExposure, *,
                      comparison: tuple[ExposureVariant, ...],
                      substitution: tuple[SubstitutionResult, ...], worker_totals: Any,
-                     parametric: tuple[Exposure, ...]) -> ExposureSection:
+                     parametric: tuple[Exposure, ...], samples: Exposure | None = None,
+                     worker_model: Any = None) -> ExposureSection:
+    """The exposure's record; with a worker column (``samples`` and
+    ``worker_model`` given) the goodness of fit is the single samples'."""
+    fitted = exposure if samples is None else samples
     return ExposureSection(exposure, exposure_mean(exposure), zero_share(exposure),
                            share_above(exposure, curve.max_dose),
                            share_above(exposure, curve.data_max),
-                           goodness_of_fit(exposure.fit), family_fits(exposure, parametric),
+                           goodness_of_fit(fitted.fit), family_fits(fitted, parametric),
                            comparison, substitution, workers(worker_totals), parametric,
                            weights=getattr(exposure.fit, "weights_meaning", None),
-                           effective_n=_float(getattr(exposure.fit, "effective_n", None)))
+                           effective_n=_float(getattr(exposure.fit, "effective_n", None)),
+                           samples=samples, worker_model=worker_model)
 
 
 def _variant(v: CurveVariant, main: Curve) -> CurveVariant:

@@ -39,8 +39,8 @@ from doseattr.analysis.specs import (
     SummaryExposure,
     TableCurve,
 )
-from doseattr.analysis.tables import DESIGN_TOTALS, StudyTable
-from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Scenario
+from doseattr.analysis.tables import DESIGN_TOTALS, Measurements, StudyTable
+from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Comply, Scenario
 from doseattr.core.curves.base import Curve, CurveModel
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
@@ -52,6 +52,7 @@ if TYPE_CHECKING:
     from doseattr.core.curves.covariance import LogRRCovariance
     from doseattr.core.curves.doses import BandDoses
     from doseattr.core.exposure.histories import WorkerExposure
+    from doseattr.core.hygiene.workers import WorkerModel
 
 #: A population's exposure: a fitted family or the weighted values.
 AnyExposure: TypeAlias = Exposure | EmpiricalExposure
@@ -375,6 +376,17 @@ class BuiltExposure:
     notes: tuple[str, ...] = ()
     fits: tuple[Exposure, ...] = ()
     grid: BuiltGrid | None = None
+    #: With a ``worker`` column: the fit to the single samples (what a
+    #: limit is tested on) and the random-effects model; ``exposure`` is
+    #: then the distribution of workers' long-term means.
+    samples: Exposure | None = None
+    worker_model: WorkerModel | None = None
+
+    @property
+    def sampled(self) -> AnyExposure:
+        """The distribution of single samples (shifts): the fit itself,
+        or with a worker column the fit that ignores who wore the sampler."""
+        return self.exposure if self.samples is None else self.samples
 
 
 #: An exposure family, or ``"best"``/``"empirical"`` (methods over values).
@@ -402,8 +414,33 @@ def _with_unexposed(exposure: Exposure, unexposed: float) -> BuiltExposure:
 
 def _measured(spec: MeasuredExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
     m = spec.measurements
-    return _fit_values(spec.family, family, m.values, m.detected, m.weights, m.source,
-                       spec.unexposed, weight_meaning=spec.weights or "frequency")
+    built = _fit_values(spec.family, family, m.values, m.detected, m.weights, m.source,
+                        spec.unexposed, weight_meaning=spec.weights or "frequency")
+    if m.worker is None:
+        return built
+    return _long_term(built, m, spec.unexposed)
+
+
+def _long_term(built: BuiltExposure, m: Measurements, unexposed: float) -> BuiltExposure:
+    """With a ``worker`` column: the one-way random-effects model (core
+    :func:`~doseattr.core.hygiene.workers.fit_workers`), and the PAF over
+    the distribution of workers' long-term mean exposure."""
+    from doseattr.core.hygiene.workers import fit_workers, long_term_exposure
+
+    assert m.worker is not None
+    with as_input_error(m.source, "column 'worker'",
+                        "the within- and between-worker model cannot be fitted: "):
+        model = fit_workers(m.values, m.detected, m.worker)
+    exposure = long_term_exposure(model)
+    if unexposed:
+        exposure = dataclasses.replace(exposure, unexposed=unexposed)
+    assert isinstance(built.exposure, Exposure)
+    note = (f"the PAF uses the distribution of the {model.n_workers} workers' long-term mean "
+            f"exposure (GM {exposure.params[0]:.4g}, GSD {exposure.params[1]:.3g}, between "
+            f"workers), not of single samples (GSD {built.exposure.params[1]:.3g}): a cohort's "
+            "dose-response refers to long-term mean exposure")
+    return dataclasses.replace(built, exposure=exposure, samples=built.exposure,
+                               worker_model=model, notes=built.notes + (note,))
 
 
 def _binned(spec: BinnedExposure, family: FamilyChoice, src: str | None) -> BuiltExposure:
@@ -606,12 +643,21 @@ EXPOSURE_BUILDERS: dict[type, Callable[[Any, FamilyChoice, str | None], BuiltExp
 
 
 # -- scenarios ------------------------------------------------------------------
-def build_scenarios(analysis: Analysis) -> tuple[tuple[ScenarioSpec, Scenario], ...]:
-    """Each ``[[scenario]]`` with its core transform."""
-    out = []
+def build_scenarios(analysis: Analysis, built: BuiltExposure | None = None
+                    ) -> tuple[tuple[ScenarioSpec, Scenario], ...]:
+    """Each ``[[scenario]]`` with its core transform; ``comply`` scales the
+    exposure by min(1, limit / P95), P95 the single samples' 95th
+    percentile at the fit (``built``)."""
+    out: list[tuple[ScenarioSpec, Scenario]] = []
     for spec in analysis.scenarios:
         with as_input_error(analysis.source, key_location("scenario", spec.kind, spec.index)):
-            out.append((spec, SCENARIO_KINDS[spec.kind](spec.value, name=spec.name)))
+            if spec.kind == "comply":
+                assert built is not None, "comply needs the built exposure"
+                p95 = float(built.sampled.ppf(0.95))
+                sc: Scenario = Comply.from_percentile(spec.value, p95, name=spec.name)
+                out.append((dataclasses.replace(spec, value=sc.value), sc))
+            else:
+                out.append((spec, SCENARIO_KINDS[spec.kind](spec.value, name=spec.name)))
     return tuple(out)
 
 

@@ -154,7 +154,7 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
         built_exposure = build_exposure(analysis)
     exposure = built_exposure.exposure
     built = build_curve(analysis, exposure)
-    scenarios = build_scenarios(analysis)
+    scenarios = build_scenarios(analysis, built_exposure)
     warnings: list[str] = []
     check_minimum_risk(analysis, built, warnings)
     curve, m = built.curve, analysis.attribution.minimum_risk

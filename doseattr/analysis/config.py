@@ -46,6 +46,8 @@ from doseattr.analysis.exposure_section import parse_exposure, require_cumulativ
 from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
 from doseattr.analysis.specs import (
     BURDEN_METHODS,
+    DEFAULT_EXCEEDANCE,
+    DEFAULT_LIMIT_CONFIDENCE,
     DEFAULT_RATE_PER,
     DEFAULT_SEED,
     MAX_DRAWS,
@@ -57,6 +59,8 @@ from doseattr.analysis.specs import (
     ExposureSpec,
     GridExposure,
     HistoriesExposure,
+    LimitSpec,
+    MeasuredExposure,
     OutcomeSpec,
     ScenarioSpec,
     StrataExposure,
@@ -154,7 +158,8 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
         raise InputError("missing section [curve]", source=source)
     curve = _curve(data["curve"], ctx, units) if "curve" in data else outcomes[0].curve
     attribution = _attribution(data.get("attribution", {}), ctx)
-    scenarios = _scenarios(data.get("scenario", []), ctx)
+    limit = _limit(data["limit"], ctx, units, exposure) if "limit" in data else None
+    scenarios = _scenarios(data.get("scenario", []), ctx, limit)
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
     if isinstance(exposure, GridExposure):
@@ -168,7 +173,7 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
                     attribution=attribution, scenarios=scenarios, title=data.get("title"),
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
                     base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight,
-                    own_curve="curve" in data)
+                    own_curve="curve" in data, limit=limit)
 
 
 def _check_grid_sections(data: dict[str, Any], source: str | None) -> None:
@@ -318,17 +323,19 @@ def _attribution(a: dict[str, Any], ctx: Context) -> AttributionSpec:
     return AttributionSpec(minimum_risk=float(m), minimum_risk_range=rng, cutpoints=cuts)
 
 
-def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec, ...]:
+def _scenarios(blocks: list[dict[str, Any]], ctx: Context,
+               limit: LimitSpec | None = None) -> tuple[ScenarioSpec, ...]:
     out: list[ScenarioSpec] = []
     names: dict[str, int] = {}
+    kinds_all = (*SCENARIO_KINDS, "comply")
     for i, block in enumerate(blocks):
         if "name" not in block:
             raise ctx.error("missing key 'name' (a short label for the scenario)", "scenario",
                             "name", i)
-        kinds = [k for k in SCENARIO_KINDS if k in block]
+        kinds = [k for k in kinds_all if k in block]
         if len(kinds) != 1:
             found = f"found {' and '.join(kinds)}" if kinds else "found none"
-            *first, last = SCENARIO_KINDS
+            *first, last = kinds_all
             raise ctx.error(f"give exactly one of {', '.join(first)} or {last} ({found})",
                             "scenario", kinds[1] if len(kinds) > 1 else first[0], i)
         kind, name = kinds[0], block["name"].strip()
@@ -336,12 +343,75 @@ def _scenarios(blocks: list[dict[str, Any]], ctx: Context) -> tuple[ScenarioSpec
             raise ctx.error(f"scenario name '{name}' is used twice (also in [[scenario]] "
                             f"{names[name] + 1})", "scenario", "name", i)
         names[name] = i
+        if kind == "comply":
+            out.append(_comply(block, ctx, limit, name, i))
+            continue
         value = float(block[kind])
         problem = SCENARIO_KINDS[kind].value_problem(value)
         if problem is not None:
             raise ctx.error(problem, "scenario", kind, i)
         out.append(ScenarioSpec(name=name, kind=kind, value=value, index=i))
     return tuple(out)
+
+
+def _comply(block: dict[str, Any], ctx: Context, limit: LimitSpec | None, name: str,
+            i: int) -> ScenarioSpec:
+    """``comply = true``: the exposure rescaled so that its 95th percentile
+    meets the limit (the factor follows from the fit, when it is built)."""
+    if block["comply"] is not True:
+        raise ctx.error("comply = false asks for nothing; remove the scenario or write "
+                        "comply = true", "scenario", "comply", i)
+    if limit is None:
+        raise ctx.error("comply = true scales exposure down to the limit value; add a [limit] "
+                        "section with value = ...", "scenario", "comply", i)
+    return ScenarioSpec(name=name, kind="comply", value=limit.value, index=i)
+
+
+#: ``[limit] confidence`` must lie strictly between these.
+CONFIDENCE_RANGE = (0.5, 1.0)
+
+
+def _limit(lim: dict[str, Any], ctx: Context, units: Units,
+           exposure: ExposureSpec | None) -> LimitSpec:
+    """``[limit]``: the limit value (above 0; converted from its own
+    ``unit``), ``confidence`` in (0.5, 1) and ``exceedance`` in (0, 0.5);
+    it needs measurements fitted by a family."""
+    if not isinstance(exposure, MeasuredExposure):
+        raise ctx.error("[limit] tests compliance of measured samples; give them as [exposure] "
+                        "table = \"samples.csv\" with a fitted family", "limit", "value")
+    if exposure.family == "empirical":
+        raise ctx.error("[limit] needs a fitted distribution (its 95th percentile and "
+                        "confidence limits); set [exposure] family = \"lognormal\" (or "
+                        "\"best\") instead of \"empirical\"", "exposure", "family")
+    m = exposure.measurements
+    if m.zeros or exposure.unexposed:
+        raise ctx.error("[limit] tests the samples of one exposed group, which has no "
+                        "unexposed share: write results below the detection limit as <limit "
+                        "instead of 0, and remove [exposure] unexposed", "limit", "value")
+    if exposure.weights == "importance":
+        raise ctx.error("[limit] takes each sample once (or weights that count identical "
+                        "samples, weights = \"frequency\"); importance weights are not "
+                        "supported for compliance", "exposure", "weights")
+    if "value" not in lim:
+        raise ctx.error("missing key 'value' (the limit, for example value = 0.05)", "limit",
+                        "value")
+    value = float(lim["value"])
+    if not value > 0:
+        raise ctx.error(f"the limit must be above 0, got {value:g}", "limit", "value")
+    confidence = float(lim.get("confidence", DEFAULT_LIMIT_CONFIDENCE))
+    lo, hi = CONFIDENCE_RANGE
+    if not lo < confidence < hi:
+        raise ctx.error(f"confidence must be above {lo:g} and below {hi:g} (0.70 is EN 689's "
+                        f"level; 0.90 and 0.95 are stricter), got {confidence:g}", "limit",
+                        "confidence")
+    exceedance = float(lim.get("exceedance", DEFAULT_EXCEEDANCE))
+    if not 0 < exceedance < 0.5:
+        raise ctx.error(f"exceedance is the tolerated share of exposures above the limit, "
+                        f"above 0 and below 0.5 (0.05 is usual), got {exceedance:g}", "limit",
+                        "exceedance")
+    conv = conversion(units, lim.get("unit"), "limit", ctx)
+    notes = () if conv.note is None else (conv.note.replace("values", "value"),)
+    return LimitSpec(value * conv.factor, confidence, exceedance, notes)
 
 
 def _uncertainty(u: dict[str, Any], ctx: Context) -> UncertaintySpec:

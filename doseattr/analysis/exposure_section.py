@@ -108,12 +108,43 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
                          source=path,
                          location="column 'value'")
     fractions = _substitution(e, censored, path, ctx)
+    if data.worker is not None:
+        _check_workers(data, family, path, ctx)
     meaning = _weight_meaning(e, data, family, path, ctx)
     if meaning is not None:
         notes.append(_weights_note(meaning, data, family))
     return MeasuredExposure(family=family, unexposed=unexposed, measurements=data,
                             substitution=fractions, notes=tuple(notes) + data.notes,
                             weights=meaning)
+
+
+def _check_workers(data: Measurements, family: str, path: str, ctx: Context) -> None:
+    """A ``worker`` column asks for the one-way random-effects model on the
+    log scale: a lognormal family, unweighted samples with no zeros, and
+    repeated samples of at least one worker."""
+    assert data.worker is not None
+    if family != "lognormal":
+        raise ctx.error(f"{path} has a worker column, whose within- and between-worker model "
+                        f"is lognormal; set family = \"lognormal\" (got \"{family}\") or "
+                        "remove the worker column", "exposure", "family")
+    if data.weights is not None:
+        raise InputError("a worker column and a weight column together are not supported: "
+                         "each personal sample counts once; remove the weights",
+                         source=path, location="column 'worker'")
+    if data.zeros:
+        raise InputError(f"{data.zeros} samples are 0, which the workers' log-scale model "
+                         "cannot take; write a result below the detection limit as <limit",
+                         source=path, location="column 'value'")
+    _, counts = np.unique(data.worker, return_counts=True)
+    if counts.size < 2:
+        raise InputError(f"every sample is of one worker ('{data.worker[0]}'); the between-"
+                         "worker variation needs two workers or more (or remove the worker "
+                         "column)", source=path, location="column 'worker'")
+    if counts.max() < 2:
+        raise InputError(f"each of the {counts.size} workers has one sample, so within- and "
+                         "between-worker variation cannot be told apart; repeated samples of "
+                         "some workers are needed (or remove the worker column)",
+                         source=path, location="column 'worker'")
 
 
 def _weight_meaning(e: dict[str, Any], data: Measurements, family: str, path: str,

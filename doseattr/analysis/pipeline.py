@@ -36,13 +36,14 @@ from doseattr.analysis.intervals import (
     uncertainty_notes,
     width_by_source,
 )
+from doseattr.analysis.limit_run import limit_section, limit_warnings
 from doseattr.analysis.specs import MAX_DRAWS
 from doseattr.analysis.tables import StudyTable
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.uncertainty.propagate import Stratum
 from doseattr.errors import DoseattrError
-from doseattr.results.cautions import CAUTIONS
+from doseattr.results.cautions import CAUTIONS, LIMIT_CAUTIONS
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import share_text
 from doseattr.results.records import (
@@ -154,6 +155,8 @@ def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
     attribution = AttributionSection(mc.paf, analysis.attribution.minimum_risk,
                                      analysis.attribution.minimum_risk_range,
                                      scenario_results, point.contribution)
+    limit = limit_section(analysis, built_exposure)
+    warnings.extend(limit_warnings(limit))
     return Results(
         title=analysis.title, unit=analysis.unit,
         curve_section=curve_section(curve, exposure, built.bands, comparison, sensitivity),
@@ -161,11 +164,13 @@ def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
             curve, exposure,
             comparison=families,
             substitution=substitution_results(analysis, curve, exposure, point.paf),
-            worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits)),
+            worker_totals=built_exposure.workers, parametric=tuple(built_exposure.fits),
+            samples=built_exposure.samples, worker_model=built_exposure.worker_model),
         attribution=attribution, categorical=point.categorical,
         uncertainty=mc.uncertainty, burden=mc.burden,
-        warnings=tuple(_unique(warnings)), cautions=CAUTIONS, notes=tuple(_unique(notes)),
-        grid=_grid_section(p, mc.burden)
+        warnings=tuple(_unique(warnings)),
+        cautions=CAUTIONS + (LIMIT_CAUTIONS if limit is not None else ()),
+        notes=tuple(_unique(notes)), grid=_grid_section(p, mc.burden), limit=limit
     ), mc.rows
 
 

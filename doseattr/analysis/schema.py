@@ -122,6 +122,14 @@ SECTIONS: dict[str, dict[str, Key]] = {
     "scenario": {
         "name": Key("text"),
         **{kind: Key("number") for kind in SCENARIO_KINDS},
+        "comply": Key("bool", help="scale exposure so that its 95th percentile meets [limit]"),
+    },
+    "limit": {
+        "value": Key("number", help="the occupational exposure limit (an 8-hour TWA)"),
+        "unit": Key("text", help="unit of the limit (default: the file's unit)"),
+        "confidence": Key("number", help="confidence of the compliance test (default 0.70, "
+                                         "EN 689)"),
+        "exceedance": Key("number", help="tolerated exceedance fraction (default 0.05)"),
     },
     "uncertainty": {
         "draws": Key("integer"),

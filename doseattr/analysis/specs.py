@@ -313,8 +313,10 @@ ExposureSpec: TypeAlias = (MeasuredExposure | SummaryExposure | PercentilesExpos
 
 @dataclass(frozen=True)
 class ScenarioSpec:
-    """One ``[[scenario]]``: ``kind`` is ``"cap"``, ``"scale"`` or
-    ``"reduce_by"``; ``index`` is its position in the file (0-based)."""
+    """One ``[[scenario]]``: ``kind`` is ``"cap"``, ``"scale"``,
+    ``"reduce_by"`` or ``"comply"`` (``value`` is then the limit; the
+    scale factor follows from the fit); ``index`` is its position in the
+    file (0-based)."""
 
     name: str
     kind: str
@@ -343,6 +345,27 @@ class UncertaintySpec:
     #: Largest Monte Carlo standard error allowed for a fraction's interval
     #: limit; the draws are raised until it holds (``None``: not asked).
     precision: float | None = None
+
+
+#: ``[limit] confidence`` when not given: EN 689:2018's level for the
+#: statistical test of compliance (from memory).
+DEFAULT_LIMIT_CONFIDENCE = 0.70
+#: ``[limit] exceedance`` when not given: the tolerated share of shifts
+#: above the limit (the 95th percentile's complement; common practice).
+DEFAULT_EXCEEDANCE = 0.05
+
+
+@dataclass(frozen=True)
+class LimitSpec:
+    """``[limit]``: an occupational exposure limit ``value`` in the
+    analysis unit (converted from ``[limit] unit`` when given), the
+    ``confidence`` of the compliance test and the tolerated
+    ``exceedance`` fraction; ``notes`` say how the value was read."""
+
+    value: float
+    confidence: float = DEFAULT_LIMIT_CONFIDENCE
+    exceedance: float = DEFAULT_EXCEEDANCE
+    notes: tuple[str, ...] = ()
 
 
 #: Ways from fractions to cases, ``[burden] method``: ``"paf"``
@@ -401,6 +424,7 @@ class Analysis:
     #: False when the file has no [curve] of its own and ``curve`` is the
     #: first outcome's (its results then stand for the top level).
     own_curve: bool = True
+    limit: LimitSpec | None = None
 
     @property
     def notes(self) -> tuple[str, ...]:

@@ -101,6 +101,8 @@ class Measurements:
     weights: FloatArray | None
     lines: tuple[int, ...] = ()
     notes: tuple[str, ...] = ()
+    #: The ``worker`` column (an id per sample), or ``None`` without one.
+    worker: NDArray[np.str_] | None = None
 
     @property
     def n(self) -> int:
@@ -252,17 +254,22 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     Column ``value`` (required): a positive number, or ``<L`` for a result
     below the detection limit ``L``. Optional ``detected`` column (true /
     false; false means ``value`` is the detection limit) and ``weight``
-    column (0 or more, not all 0). At least ``min_positive`` values must be
-    detected and above 0: 3 to fit a two-parameter family, 1 for the
-    empirical distribution, which fits nothing.
+    column (0 or more, not all 0); optional ``worker`` column (an id per
+    sample, for personal samples of several workers). At least
+    ``min_positive`` values must be detected and above 0: 3 to fit a
+    two-parameter family, 1 for the empirical distribution, which fits
+    nothing.
     """
     raw = read_raw(path, source)
     require_columns(raw, ("value",), "a measurement table")
     detected_column, weight_column = detected_column.lower(), weight_column.lower()
     has_det = detected_column in raw.columns
     has_w = weight_column in raw.columns
-    values, detected, weights = [], [], []
+    has_worker = "worker" in raw.columns
+    values, detected, weights, workers = [], [], [], []
     for row in raw.rows:
+        if has_worker:
+            workers.append(_worker(raw, row))
         v, below = _measurement(raw, row)
         if has_det:
             flag = _flag(raw, row, detected_column)
@@ -298,6 +305,7 @@ def read_measurements(path: str | Path, source: str | None = None, *,
             notes.append(f"{raw.source}: {int((~keep).sum())} rows with weight 0 were left out")
             vals, det, w_arr = vals[keep], det[keep], w_arr[keep]
             lines = tuple(np.asarray(lines)[keep].tolist())
+            workers = [w for w, k in zip(workers, keep) if k]
     positive = det & (vals > 0)
     if positive.sum() < min_positive:
         why = "to fit a distribution" if min_positive > 1 else "for the empirical distribution"
@@ -310,7 +318,16 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     if np.any(vals == 0):
         notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
                      "with no exposure; their weighted share is the unexposed share")
-    return Measurements(raw.source, vals, det, w_arr, lines, tuple(notes))
+    worker = np.array(workers, dtype=str) if has_worker else None
+    return Measurements(raw.source, vals, det, w_arr, lines, tuple(notes), worker)
+
+
+def _worker(raw: RawTable, row: Row) -> str:
+    text = row.cells["worker"].strip()
+    if not text:
+        raise cell_error(raw, row, "worker", "empty worker id; give every sample the id of "
+                         "the worker who wore the sampler")
+    return text
 
 
 def _measurement(raw: RawTable, row: Row) -> tuple[float, bool]:

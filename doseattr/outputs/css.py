@@ -30,6 +30,9 @@ figcaption { color: var(--muted); font-size: 13px; margin-top: 4px; }
             padding: 8px 14px; margin: 14px 0; }
 .warnings p, .warnings ul { margin: 4px 0; }
 .ok { color: var(--muted); }
+.verdict { border-left: 5px solid var(--accent); background: var(--caution-bg);
+           padding: 6px 12px; margin: 10px 0; font-weight: 600; }
+.verdict.fail { border-left-color: var(--warn-edge); background: var(--warn-bg); }
 .cautions { background: var(--caution-bg); border-left: 5px solid var(--accent);
             padding: 8px 14px; }
 .cautions li { margin: 4px 0; }

@@ -39,6 +39,7 @@ from doseattr.outputs.css import CSS
 from doseattr.outputs.curve_report import curve_section
 from doseattr.outputs.exposure_report import exposure_section
 from doseattr.outputs.grid_report import grid_section
+from doseattr.outputs.limit_report import limit_section
 from doseattr.outputs.markup import (
     NA,
     bullets,
@@ -331,6 +332,7 @@ def render_report(results: Results, *, images: Mapping[str, bytes] | None = None
                 + key_numbers(results) + totals_block(results) + warnings_block(results)
                 + notes_list(results.notes, "How the inputs were read:")),
         section("outcomes", "Outcomes side by side", outcomes_section(results, images)),
+        section("limit", "Compliance with the limit value", limit_section(results.limit, unit)),
         section("curve", "Relative-risk curve",
                 curve_section(results.curve_section, unit, images, paf=a.paf.estimate)),
         section("exposure", "Exposure distribution",

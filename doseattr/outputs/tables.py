@@ -22,6 +22,7 @@ import numpy as np
 
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
+from doseattr.outputs.limit_tables import limit_table, limit_workers_table
 from doseattr.outputs.zones import zone_rows
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (
@@ -119,7 +120,7 @@ def scenarios_table(attribution: AttributionSection, unit: str | None) -> Table:
     """One row per scenario: its kind, value (with unit where it has one), PIF."""
     rows: list[list[Any]] = []
     for s in attribution.scenarios:
-        value_unit = "" if s.kind == "scale" else (unit or "")
+        value_unit = "" if s.kind in ("scale", "comply") else (unit or "")
         rows.append([s.name, s.kind, _float(s.value), value_unit, *estimate_cells(s.pif)])
     header = ["name", "kind", "value", "value_unit", "pif", "pif_lower", "pif_upper", "pif_mcse"]
     return header, rows
@@ -527,6 +528,8 @@ def all_tables(results: Results) -> dict[str, Table]:
         "workers.csv": workers_table(exposure.workers),
         "zones.csv": zones_table(results.grid, results.burden,
                                  [s.name for s in results.attribution.scenarios], unit),
+        "limit.csv": limit_table(results.limit, unit),
+        "limit_workers.csv": limit_workers_table(results.limit, unit),
     }
     tables.update({name: t for name, t in optional.items() if t is not None})
     return tables

@@ -22,3 +22,13 @@ DECISIONS = (
 
 #: Every run carries these, in this order.
 CAUTIONS = (CAUSALITY, TRANSPORTABILITY, EXTRAPOLATION, DECISIONS)
+
+COMPLIANCE = (
+    "Compliance: the statement on the limit value is a statistical test of the samples given, "
+    "as representative shifts of one similar exposure group; it is only as good as the "
+    "sampling strategy and the measurement method, and the rule of EN 689:2018 is applied "
+    "as recalled (from memory). Whether a workplace complies is decided under the "
+    "regulations that apply there, by a qualified occupational hygienist.")
+
+#: Added to :data:`CAUTIONS` when a run tests ``[limit]``.
+LIMIT_CAUTIONS = (COMPLIANCE,)

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -21,6 +21,10 @@ from doseattr.core.curves.base import Curve
 from doseattr.core.exposure.base import Exposure
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.results.estimate import Estimate
+
+if TYPE_CHECKING:
+    from doseattr.core.hygiene.limits import LimitStatistics
+    from doseattr.core.hygiene.workers import WorkerEstimate, WorkerModel
 
 FloatArray = NDArray[np.float64]
 #: A fitted or entered distribution, or the weighted values themselves.
@@ -174,6 +178,10 @@ class ExposureSection:
     parametric_fits: tuple[Exposure, ...] = ()
     weights: str | None = None
     effective_n: float | None = None
+    #: With a worker column: the fit to the single samples and the one-way
+    #: random-effects model (``exposure`` is then workers' long-term means).
+    samples: Exposure | None = None
+    worker_model: WorkerModel | None = None
 
     @property
     def is_empirical(self) -> bool:
@@ -351,6 +359,34 @@ class GridSection:
     maps: GridMaps | None = None
     scheduler: str | None = None
     zone_strata: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, eq=False)
+class WorkerExceedance:
+    """The probability that a randomly chosen worker's long-term mean
+    exposure is above the limit, with its interval at ``level``."""
+
+    estimate: float
+    lower: float | None
+    upper: float | None
+    level: float
+    method: str
+
+
+@dataclass(frozen=True, eq=False)
+class LimitSection:
+    """``[limit]``: compliance of the single samples with a limit value
+    (core :class:`~doseattr.core.hygiene.limits.LimitStatistics`) and,
+    with a worker column, the within- and between-worker model, the
+    probability that a worker's long-term mean exceeds the limit and the
+    workers whose own estimated mean is above it."""
+
+    stats: LimitStatistics
+    unit: str
+    workers: WorkerModel | None = None
+    worker_exceedance: WorkerExceedance | None = None
+    workers_above: tuple[WorkerEstimate, ...] = ()
+    notes: tuple[str, ...] = ()
 
 
 #: The two ways from fractions to attributable cases (``[burden] method``).

@@ -31,6 +31,7 @@ from doseattr.results.records import (
     ExposureSection,
     ExposureVariant,
     GridSection,
+    LimitSection,
     RunInputs,
     ScenarioResult,
     SourceWidth,
@@ -69,6 +70,9 @@ class Results:
         ``[burden]``).
     grid
         What a ``[grid]`` analysis read (zones, cells, maps), or ``None``.
+    limit
+        Compliance with ``[limit]`` (exceedance, 95th percentile, mean,
+        the decision, workers), or ``None``.
     group_runs
         For an outcome with group-specific curves: ``(groups, Results)``
         of each curve (its curve, population PAF and rows); empty otherwise.
@@ -92,6 +96,7 @@ class Results:
     grand_total: StratumResult | None = None
     group_runs: tuple[tuple[tuple[str, ...], Results], ...] = ()
     grid: GridSection | None = None
+    limit: LimitSection | None = None
     warnings: tuple[str, ...] = ()
     cautions: tuple[str, ...] = CAUTIONS
     notes: tuple[str, ...] = ()

@@ -1,6 +1,6 @@
 """``results.json``: generated here, and only here, from the run's records.
 
-Schema version "2.2" (published as ``results.schema.json`` in this
+Schema version "2.3" (published as ``results.schema.json`` in this
 package). Every estimate is one object ``{estimate, lower, upper, mcse,
 lower_mcse, upper_mcse}``;
 every number is a plain float or ``None``; a NaN or infinity reaching this
@@ -31,6 +31,7 @@ from doseattr.results.records import (
     FamilyFit,
     GoodnessOfFit,
     GridSection,
+    LimitSection,
     SourceWidth,
     StratumExposure,
     StratumResult,
@@ -42,7 +43,7 @@ from doseattr.results.records import (
 if TYPE_CHECKING:
     from doseattr.results.run import Results
 
-SCHEMA_VERSION = "2.2"
+SCHEMA_VERSION = "2.3"
 
 #: The keys an outcome repeats from the top level.
 OUTCOME_KEYS = ("paf", "minimum_risk", "scenarios", "curve", "categorical", "burden",
@@ -72,6 +73,7 @@ def results_dict(r: Results) -> dict[str, Any]:
         "burden": burden_dict(r.burden, r.grand_total),
         "outcomes": [outcome_dict(name, o) for name, o in r.outcomes],
         "grid": grid_dict(r.grid),
+        "limit": limit_dict(r.limit),
         "workers": workers_list(r.exposure_section.workers),
         "exposure_comparison": [exposure_variant_dict(v) for v in r.exposure_section.comparison],
         "model_comparison": [curve_variant_dict(v) for v in r.curve_section.model_comparison],
@@ -321,6 +323,50 @@ def grid_dict(g: GridSection | None) -> dict[str, Any] | None:
                        "mean": num(m)}
                       for z, n, st, p, m in zip(g.zone_ids, g.zone_names, g.zone_strata,
                                                 g.zone_population, g.zone_mean, strict=True)]}
+
+
+def _bounded(b: Any, upper_key: str = "ucl") -> dict[str, Any]:
+    return {"estimate": num(b.estimate), "lower": num(b.lower), "upper": num(b.upper),
+            upper_key: num(b.ucl), "level": num(b.level), "confidence": num(b.confidence),
+            "method": b.method, "note": b.note}
+
+
+def limit_dict(lim: LimitSection | None) -> dict[str, Any] | None:
+    """``[limit]``: the figures, the decision and, with a worker column, the
+    within- and between-worker model (null without ``[limit]``)."""
+    if lim is None:
+        return None
+    s, d = lim.stats, lim.stats.decision
+    return {"value": num(s.limit), "unit": lim.unit, "confidence": num(s.confidence),
+            "level": num(s.level), "exceedance": num(s.tolerated), "family": s.family,
+            "n": int(s.n), "n_censored": int(s.n_censored), "exact": bool(s.exact),
+            "exceedance_fraction": _bounded(s.exceedance), "p95": _bounded(s.p95, "utl"),
+            "mean": _bounded(s.mean), "overexposure": bool(s.overexposed),
+            "decision": {"verdict": d.verdict, "test": d.test, "rule": d.rule,
+                         "numbers": {k: num(v) for k, v in d.numbers.items()},
+                         "from_memory": bool(d.from_memory)},
+            "methods": list(s.methods), "notes": list(s.notes) + list(lim.notes),
+            "workers": worker_model_dict(lim)}
+
+
+def worker_model_dict(lim: LimitSection) -> dict[str, Any] | None:
+    """The one-way random-effects model and each worker's estimate."""
+    w = lim.workers
+    if w is None:
+        return None
+    e = lim.worker_exceedance
+    above = {x.worker for x in lim.workers_above}
+    return {"n_workers": int(w.n_workers), "n_samples": int(w.n_samples),
+            "n_censored": int(w.n_censored), "mu": num(w.mu),
+            "sigma_within": num(w.sigma_within), "sigma_between": num(w.sigma_between),
+            "gsd_within": num(w.gsd_within), "gsd_between": num(w.gsd_between),
+            "icc": num(w.icc), "method": w.method,
+            "exceedance_of_worker_means": None if e is None else {
+                "estimate": num(e.estimate), "lower": num(e.lower), "upper": num(e.upper),
+                "level": num(e.level), "method": e.method},
+            "workers": [{"worker": x.worker, "n": int(x.n), "n_censored": int(x.n_censored),
+                         "mean_log": num(x.mean_log), "long_term_mean": num(x.long_term_mean),
+                         "above_limit": x.worker in above} for x in w.workers]}
 
 
 def workers_list(w: Workers | None) -> list[dict[str, Any]] | None:

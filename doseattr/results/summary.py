@@ -24,6 +24,7 @@ def render(r: Results, brief: bool = False) -> str:
     """The summary text; ``brief`` keeps only the PAF and scenario lines."""
     unit = r.unit
     lines = [r.title or "doseattr results", f"unit: {unit}", ""]
+    lines += _limit(r)
     lines.append(f"PAF (minimum-risk level {r.minimum_risk:g} {unit}): {r.paf.text()}")
     if r.burden is not None:
         lines += textwrap.wrap(f"(the {POPULATION_PAF}; the burden table's total, "
@@ -44,6 +45,35 @@ def render(r: Results, brief: bool = False) -> str:
             for item in items:
                 lines += textwrap.wrap(item, WIDTH, initial_indent="- ", subsequent_indent="  ")
     return "\n".join(lines)
+
+
+def _limit(r: Results) -> list[str]:
+    """The compliance statement and its figures (``[limit]``)."""
+    lim = r.limit
+    if lim is None:
+        return []
+    s, d, u = lim.stats, lim.stats.decision, r.unit
+    lines = textwrap.wrap(f"Limit {s.limit:.4g} {u}, {s.n} samples: {d.verdict} ({d.test} "
+                          f"test; {d.rule})", WIDTH)
+    e, p95 = s.exceedance, s.p95
+    lines.append(f"exceedance fraction {_share(e.estimate)}, upper limit at "
+                 f"{s.confidence:.0%} {_share(e.ucl)}; 95th percentile {p95.estimate:.4g} {u}, "
+                 f"UTL {_num(p95.ucl)} {u}")
+    if lim.worker_exceedance is not None and lim.workers is not None:
+        w = lim.workers
+        lines.append(f"workers: GSD within {w.gsd_within:.3g}, between {w.gsd_between:.3g}; a "
+                     f"worker's long-term mean above the limit: "
+                     f"{_share(lim.worker_exceedance.estimate)}; {len(lim.workers_above)} of "
+                     f"{w.n_workers} workers above it")
+    return lines + [""]
+
+
+def _share(v: float | None) -> str:
+    return "-" if v is None else ("<0.1%" if 0 < v < 0.001 else share_text(v))
+
+
+def _num(v: float | None) -> str:
+    return "-" if v is None else f"{v:.4g}"
 
 
 def _curve(r: Results) -> list[str]:

@@ -144,3 +144,35 @@ class ReduceBy(Scenario):
 
 
 SCENARIO_KINDS: dict[str, type[Scenario]] = {"cap": Cap, "scale": Scale, "reduce_by": ReduceBy}
+
+
+@dataclass(frozen=True)
+class Comply(Scale):
+    r"""Compliance with a limit value ``limit``: everyone's exposure scaled
+    by :math:`s = \min(1, L / P_{95})`, so that the 95th percentile
+    ``p95`` of the exposure distribution falls to the limit (no change when
+    it is already at or below it). A scale is the reduction that keeps the
+    distribution's shape (its GSD for a lognormal), which is what lowering
+    every source of exposure by one share does; built with
+    :meth:`from_percentile`."""
+
+    kind: ClassVar[str] = "comply"
+    limit: float = np.inf
+    p95: float = 0.0
+
+    @classmethod
+    def from_percentile(cls, limit: float, p95: float, name: str = "") -> Comply:
+        """The scenario for limit ``limit`` and a 95th percentile ``p95``."""
+        if not (limit > 0 and p95 > 0 and np.isfinite(limit) and np.isfinite(p95)):
+            raise ModelError(f"comply needs a limit and a 95th percentile above 0, got {limit:g} "
+                             f"and {p95:g}")
+        return cls(min(1.0, limit / p95), name=name, limit=limit, p95=p95)
+
+    def describe(self, unit: str = "") -> str:
+        u = f" {unit}" if unit else ""
+        if self.value >= 1.0:
+            return (f"compliance with the limit {self.limit:.4g}{u}: the 95th percentile "
+                    f"({self.p95:.4g}{u}) already meets it, no change")
+        return (f"compliance with the limit {self.limit:.4g}{u}: exposure scaled by "
+                f"{self.value:.4g} ({1 - self.value:.0%} cut), the 95th percentile from "
+                f"{self.p95:.4g}{u} to the limit")

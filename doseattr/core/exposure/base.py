@@ -299,6 +299,16 @@ class Exposure:
         body = np.where(x > 0, self.family.cdf(np.maximum(x, 1e-300), self.params), 0.0)
         return np.where(x >= 0, self.unexposed + (1 - self.unexposed) * body, 0.0)
 
+    def ppf(self, q: ArrayLike) -> FloatArray:
+        """Population quantile including the point mass at zero: 0 for
+        ``q <= unexposed``, else the family's quantile at
+        ``(q - unexposed) / (1 - unexposed)``."""
+        q = np.asarray(q, dtype=float)
+        body = np.clip((q - self.unexposed) / (1 - self.unexposed), 0.0, 1.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            inner = self.family.ppf(body, self.params)
+        return np.where(q <= self.unexposed, 0.0, inner)
+
     def sf(self, x: ArrayLike) -> FloatArray:
         x = np.asarray(x, dtype=float)
         body = np.where(x > 0, self.family.sf(np.maximum(x, 1e-300), self.params), 1.0)
