@@ -63,9 +63,9 @@ def limit_warnings(lim: LimitSection | None) -> list[str]:
     s, out = lim.stats, []
     if s.decision.verdict == "does not comply":
         out.append(f"the samples do not comply with the limit {s.limit:.4g}: {s.decision.rule}")
-    if s.overexposed:
+    if s.overexposure:
         out.append(f"the exceedance fraction's upper limit at {s.confidence:.0%} "
-                   f"({s.exceedance.ucl:.3g}) is above the tolerated {s.tolerated:g}")
+                   f"({s.exceedance.ucl:.3g}) is above the tolerated {s.exceedance_tolerated:g}")
     if lim.workers_above:
         out.append(f"{len(lim.workers_above)} workers have an estimated long-term mean above "
                    "the limit (limit_workers.csv)")

@@ -71,9 +71,9 @@ def statistics_table(lim: LimitSection, unit: str | None) -> str:
              _pair(s.mean.lower, s.mean.upper, num), num(s.mean.ucl), s.mean.method]]
     notes = [b.note for b in (s.exceedance, s.p95, s.mean) if b.note]
     over = (f"The exceedance fraction's upper limit at {conf} is above the tolerated "
-            f"{share_text(s.tolerated)}." if s.overexposed else
+            f"{share_text(s.exceedance_tolerated)}." if s.overexposure else
             f"The exceedance fraction's upper limit at {conf} is at or below the tolerated "
-            f"{share_text(s.tolerated)}.")
+            f"{share_text(s.exceedance_tolerated)}.")
     return table(header, rows) + para(over) + "".join(para(n) for n in notes)
 
 

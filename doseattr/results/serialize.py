@@ -338,10 +338,10 @@ def limit_dict(lim: LimitSection | None) -> dict[str, Any] | None:
         return None
     s, d = lim.stats, lim.stats.decision
     return {"value": num(s.limit), "unit": lim.unit, "confidence": num(s.confidence),
-            "level": num(s.level), "exceedance": num(s.tolerated), "family": s.family,
+            "level": num(s.level), "exceedance": num(s.exceedance_tolerated), "family": s.family,
             "n": int(s.n), "n_censored": int(s.n_censored), "exact": bool(s.exact),
             "exceedance_fraction": _bounded(s.exceedance), "p95": _bounded(s.p95, "utl"),
-            "mean": _bounded(s.mean), "overexposure": bool(s.overexposed),
+            "mean": _bounded(s.mean), "overexposure": bool(s.overexposure),
             "decision": {"verdict": d.verdict, "test": d.test, "rule": d.rule,
                          "numbers": {k: num(v) for k, v in d.numbers.items()},
                          "from_memory": bool(d.from_memory)},
