@@ -27,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 from scipy.optimize import brentq, minimize_scalar
-from scipy.special import expit, gammainccinv, logit, ndtri
+from scipy.special import expit, gammainccinv, gammaincinv, log_expit, ndtri
 
 from doseattr.core.exposure.base import Family, FloatArray
 from doseattr.core.exposure.fit import Measurements, measurement_loglik
@@ -37,22 +37,28 @@ from doseattr.core.hygiene.bounds import Bounded
 from doseattr.errors import ModelError
 
 PROFILE_SOURCE = "profile likelihood (Venzon & Moolgavkar 1988, Appl Stat 37:87, from memory)"
-#: How far, on the transformed scale of g, a limit is searched for.
-_REACH = 60.0
+#: Distances from the estimate, on the search coordinate (log or logit of
+#: g), at which the deviance is tried; the last is the search range.
+_STEPS = 0.05 * 2.0 ** np.arange(14)
 #: Half-width of the search over the shape's internal coordinate.
 _SHAPE_RANGE = 8.0
 
 
 @dataclass(frozen=True)
 class Target:
-    """A statistic g: its name, the scale it is searched on (``to``/``back``),
-    and the scale fixing it given the standard (scale-1) member."""
+    """A statistic g searched on a coordinate ``u`` (log or logit of g).
+
+    ``coordinate`` gives ``u`` for public parameters, ``back`` turns ``u``
+    into ``g``, and ``scale`` gives the scale fixing ``u`` for a member with
+    scale 1 (``standard``).
+    """
 
     name: str
-    to: Callable[[float], float]
+    coordinate: Callable[[Family, FloatArray], float]
     back: Callable[[float], float]
     scale: Callable[[Family, FloatArray, float], float]
-    value: Callable[[Family, FloatArray], float]
+    #: Ends of the range of g (``None``: unbounded above).
+    ends: tuple[float, float | None] = (0.0, None)
 
 
 def _axes(family: Family) -> tuple[int, int]:
@@ -77,15 +83,19 @@ def _with_scale(family: Family, standard: FloatArray, scale: float) -> FloatArra
     return params
 
 
-def standard_isf(family: Family, standard: FloatArray, f: float) -> float:
-    """``x`` with ``P(X > x) = f`` for a scale-1 member, accurate for tiny ``f``."""
+def standard_isf(family: Family, standard: FloatArray, u: float) -> float:
+    r"""``x`` with :math:`\mathrm{logit}\,P(X > x) = u` for a scale-1 member,
+    accurate for exceedance fractions near 0 and near 1 (each tail is
+    inverted from its own probability, ``expit(u)`` or ``expit(-u)``)."""
     shape = float(standard[_axes(family)[1]])
+    f, c = float(expit(u)), float(expit(-u))
     if family.name == "lognormal":
-        return float(np.exp(-np.log(shape) * ndtri(f)))
+        z = -float(ndtri(f)) if u < 0 else float(ndtri(c))
+        return float(np.exp(np.log(shape) * z))
     if family.name == "gamma":
-        return float(gammainccinv(shape, f))
+        return float(gammainccinv(shape, f) if u < 0 else gammaincinv(shape, c))
     if family.name == "weibull":
-        return float((-np.log(f)) ** (1.0 / shape))
+        return float((-log_expit(u)) ** (1.0 / shape))
     return float(family.scipy(standard).isf(f))
 
 
@@ -95,30 +105,36 @@ def _log(v: float) -> float:
 
 
 def _exp(u: float) -> float:
-    return float(np.exp(u))
+    with np.errstate(over="ignore"):
+        return float(np.exp(u))
+
+
+def _ratio(a: float, b: float) -> float:
+    """``a / b`` for positive ``a``, infinite when ``b`` underflowed to 0."""
+    return a / b if b > 0 else np.inf
 
 
 def percentile_target(p: float) -> Target:
     """The ``p`` quantile, searched on the log scale."""
     return Target(
-        f"{100 * p:g}th percentile", _log, _exp,
-        lambda fam, std, q: q / float(fam.ppf(p, std)[0]),
-        lambda fam, params: float(fam.ppf(p, params)[0]))
+        f"{100 * p:g}th percentile",
+        lambda fam, params: _log(float(fam.ppf(p, params)[0])), _exp,
+        lambda fam, std, u: _ratio(_exp(u), float(fam.ppf(p, std)[0])))
 
 
 def mean_target() -> Target:
     """The arithmetic mean, searched on the log scale."""
-    return Target("arithmetic mean", _log, _exp,
-                  lambda fam, std, m: m / float(fam.mean(std)),
-                  lambda fam, params: float(fam.mean(params)))
+    return Target("arithmetic mean", lambda fam, params: _log(float(fam.mean(params))), _exp,
+                  lambda fam, std, u: _ratio(_exp(u), float(fam.mean(std))))
 
 
 def exceedance_target(limit: float) -> Target:
-    """``P(X > limit)``, searched on the logit scale."""
-    return Target(
-        "exceedance fraction", lambda f: float(logit(f)), lambda u: float(expit(u)),
-        lambda fam, std, f: limit / standard_isf(fam, std, f),
-        lambda fam, params: float(fam.sf(limit, params)[0]))
+    """``P(X > limit)``, searched on the logit scale (``ln sf - ln cdf``)."""
+    def coordinate(fam: Family, params: FloatArray) -> float:
+        return float(fam.logsf(limit, params)[0] - fam.logcdf(limit, params)[0])
+
+    return Target("exceedance fraction", coordinate, lambda u: float(expit(u)),
+                  lambda fam, std, u: _ratio(limit, standard_isf(fam, std, u)), (0.0, 1.0))
 
 
 def mle(family: Family, data: Measurements) -> tuple[FloatArray, float]:
@@ -142,23 +158,28 @@ class Profile:
         self.family, self.data, self.target = family, data, target
         self.params, self.lmax = mle(family, data)
         self.v_hat = float(family.to_internal(self.params)[_axes(family)[1]])
-        self.g_hat = target.value(family, self.params)
+        self.u_hat = target.coordinate(family, self.params)
+        self.g_hat = target.back(self.u_hat)
         self.at_edge = False
 
-    def _loglik(self, v: float, g: float) -> float:
+    def _loglik(self, v: float, u: float) -> float:
         std = _standard(self.family, v)
         with np.errstate(all="ignore"):
-            scale = self.target.scale(self.family, std, g)
+            scale = self.target.scale(self.family, std, u)
             if not (np.isfinite(scale) and scale > 0):
                 return -np.inf
             value = measurement_loglik(self.family, _with_scale(self.family, std, scale), self.data)
         return value if np.isfinite(value) else -np.inf
 
-    def loglik(self, g: float) -> float:
-        """:math:`\\ell_p(g)`, maximised over the shape's internal coordinate."""
+    def loglik(self, u: float) -> float:
+        """:math:`\\ell_p` at coordinate ``u``, maximised over the shape's
+        internal coordinate."""
         lo, hi = self.v_hat - _SHAPE_RANGE, self.v_hat + _SHAPE_RANGE
-        res = minimize_scalar(lambda v: -self._loglik(v, g), bounds=(lo, hi), method="bounded",
-                              options={"xatol": 1e-9})
+        # The shape may wander where the likelihood is zero (+inf below);
+        # the search's parabolic steps then meet inf - inf, which it survives.
+        with np.errstate(all="ignore"):
+            res = minimize_scalar(lambda v: -self._loglik(v, u), bounds=(lo, hi),
+                                  method="bounded", options={"xatol": 1e-9})
         if min(res.x - lo, hi - res.x) < 1e-3:
             self.at_edge = True
         best = -float(res.fun)
@@ -167,27 +188,37 @@ class Profile:
         return best
 
     def deviance(self, u: float) -> float:
-        """:math:`D` at ``g = back(u)``, ``u`` on the search scale."""
-        return 2.0 * (self.lmax - self.loglik(self.target.back(u)))
+        """:math:`D` at coordinate ``u``."""
+        return 2.0 * (self.lmax - self.loglik(u))
 
     def limit(self, crit: float, side: int) -> tuple[float | None, str]:
         """The ``g`` beyond the estimate (``side`` +1 above, -1 below) where
-        the deviance reaches ``crit``; the boundary value with a note when it
-        is not reached within the search range."""
-        u0 = self.target.to(self.g_hat)
+        the deviance reaches ``crit``. When it is not reached within the
+        search range the end of the range of g (0, 1 or ``None`` for
+        unbounded) is returned, with a note."""
+        u0 = self.u_hat
         if not np.isfinite(u0):
-            return None, f"the estimate of the {self.target.name} is on a boundary"
-        step, inner = 0.05, u0
-        while step < _REACH:
+            return None, f"the estimate of the {self.target.name} is not finite"
+        inner = u0
+        for step in _STEPS:
             outer = u0 + side * step
             if self.deviance(outer) >= crit:
-                u = brentq(lambda w: self.deviance(w) - crit, min(inner, outer), max(inner, outer),
-                           xtol=1e-10, rtol=1e-10)
-                return self.target.back(u), ""
-            inner, step = outer, step * 2
-        edge = self.target.back(u0 + side * _REACH)
-        return edge, (f"the {'upper' if side > 0 else 'lower'} profile limit of the "
-                      f"{self.target.name} was not reached; the search boundary is returned")
+                return self._root(crit, min(inner, outer), max(inner, outer))
+            inner = outer
+        end = self.target.ends[0 if side < 0 else 1]
+        shown = "unbounded" if end is None else f"{end:g}"
+        return end, (f"the {'upper' if side > 0 else 'lower'} profile limit of the "
+                     f"{self.target.name} is not reached within a factor e^{_STEPS[-1]:g} "
+                     f"of the estimate (on its {'logit' if self.target.ends[1] else 'log'} "
+                     f"scale): reported as {shown}")
+
+    def _root(self, crit: float, lo: float, hi: float) -> tuple[float, str]:
+        u = brentq(lambda w: self.deviance(w) - crit, lo, hi, xtol=1e-10, rtol=1e-10)
+        if abs(self.deviance(u) - crit) > 1e-3 * crit:
+            return self.target.back(u), (f"the profile deviance of the {self.target.name} jumps "
+                                         "at a limit (floating-point range): that limit is "
+                                         "approximate")
+        return self.target.back(u), ""
 
 
 def profile_bounds(family: str | Family, data: Measurements, target: Target, *,
