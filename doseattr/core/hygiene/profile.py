@@ -161,6 +161,7 @@ class Profile:
         self.u_hat = target.coordinate(family, self.params)
         self.g_hat = target.back(self.u_hat)
         self.at_edge = False
+        self.v_last = self.v_hat
 
     def _loglik(self, v: float, u: float) -> float:
         std = _standard(self.family, v)
@@ -173,19 +174,27 @@ class Profile:
 
     def loglik(self, u: float) -> float:
         """:math:`\\ell_p` at coordinate ``u``, maximised over the shape's
-        internal coordinate."""
-        lo, hi = self.v_hat - _SHAPE_RANGE, self.v_hat + _SHAPE_RANGE
+        internal coordinate: first within 1 of the last maximiser, then, if
+        that window's edge is hit, over the full range about the MLE."""
+        v, best = self._maximise(u, self.v_last - 1.0, self.v_last + 1.0)
+        if v is None:
+            v, best = self._maximise(u, self.v_hat - _SHAPE_RANGE, self.v_hat + _SHAPE_RANGE)
+            if v is None:
+                self.at_edge = True
+        if v is not None and np.isfinite(best):
+            self.v_last = v
+        self.lmax = max(self.lmax, best)
+        return best
+
+    def _maximise(self, u: float, lo: float, hi: float) -> tuple[float | None, float]:
+        """Maximiser (``None`` when on an edge of ``[lo, hi]``) and maximum."""
         # The shape may wander where the likelihood is zero (+inf below);
         # the search's parabolic steps then meet inf - inf, which it survives.
         with np.errstate(all="ignore"):
             res = minimize_scalar(lambda v: -self._loglik(v, u), bounds=(lo, hi),
                                   method="bounded", options={"xatol": 1e-9})
-        if min(res.x - lo, hi - res.x) < 1e-3:
-            self.at_edge = True
-        best = -float(res.fun)
-        if best > self.lmax:
-            self.lmax = best
-        return best
+        v = float(res.x)
+        return (None if min(v - lo, hi - v) < 1e-3 else v), -float(res.fun)
 
     def deviance(self, u: float) -> float:
         """:math:`D` at coordinate ``u``."""
@@ -208,9 +217,9 @@ class Profile:
         end = self.target.ends[0 if side < 0 else 1]
         shown = "unbounded" if end is None else f"{end:g}"
         return end, (f"the {'upper' if side > 0 else 'lower'} profile limit of the "
-                     f"{self.target.name} is not reached within a factor e^{_STEPS[-1]:g} "
-                     f"of the estimate (on its {'logit' if self.target.ends[1] else 'log'} "
-                     f"scale): reported as {shown}")
+                     f"{self.target.name} is not reached within {_STEPS[-1]:g} of the estimate "
+                     f"on the {'logit' if self.target.ends[1] else 'log'} scale: reported as "
+                     f"{shown}")
 
     def _root(self, crit: float, lo: float, hi: float) -> tuple[float, str]:
         u = brentq(lambda w: self.deviance(w) - crit, lo, hi, xtol=1e-10, rtol=1e-10)
