@@ -106,7 +106,9 @@ def en689_decision(data: Measurements, limit: float, utl_p95: float | None = Non
     Parameters
     ----------
     data
-        Measurements (non-detects carry their detection limit).
+        Measurements (non-detects carry their detection limit). ``prepare``
+        asks for 3 detected values; a screening set with more non-detects
+        may be given as ``Measurements(x, detected, w)`` directly.
     limit
         The occupational exposure limit, in the data's unit.
     utl_p95

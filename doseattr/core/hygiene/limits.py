@@ -81,6 +81,9 @@ def _validate(data: Measurements, limit: float, confidence: float, level: float,
     if data.x.size < 3:
         raise ModelError(f"at least 3 measurements are needed, got {data.x.size}; take more "
                          "samples")
+    if data.detected.sum() < 3:
+        raise ModelError(f"only {int(data.detected.sum())} detected values: the statistics need "
+                         "3; for the EN 689 screening test alone use en689_decision")
 
 
 def is_exact_case(family: Family, data: Measurements) -> bool:
