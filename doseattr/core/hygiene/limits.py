@@ -104,6 +104,17 @@ def _bounds(family: Family, data: Measurements, limit: float, confidence: float,
     return exc, p95, mean, False
 
 
+def _data_notes(data: Measurements) -> tuple[str, ...]:
+    notes = []
+    if not np.allclose(data.w, 1.0):
+        notes.append("weights are normalised to sum to the number of values, so the limits "
+                     f"treat the data as {data.x.size} measurements")
+    if 2 * data.n_censored > data.x.size:
+        notes.append(f"{data.n_censored} of {data.x.size} values are non-detects: the limits "
+                     "rest mostly on the assumed distribution")
+    return tuple(notes)
+
+
 def limit_statistics(family: str | Family, data: Measurements, limit: float, *,
                      confidence: float = 0.70, level: float = 0.95,
                      exceedance: float = 0.05) -> LimitStatistics:
@@ -133,7 +144,11 @@ def limit_statistics(family: str | Family, data: Measurements, limit: float, *,
     methods = (NCT_SOURCE, LAND_SOURCE) if exact else (PROFILE_SOURCE,)
     notes = tuple(f"{name}: {b.note}" for name, b in
                   (("exceedance", exc), ("95th percentile", p95), ("mean", mean)) if b.note)
+    notes += _data_notes(data)
     over = exc.ucl is None or exc.ucl > exceedance
+    if exc.ucl is None:
+        notes += ("the upper limit of the exceedance fraction could not be computed: "
+                  "overexposure is flagged as a precaution",)
     return LimitStatistics(
         limit=limit, confidence=confidence, level=level, exceedance_tolerated=exceedance,
         n=int(data.x.size), n_censored=data.n_censored, family=fam.name, exceedance=exc,

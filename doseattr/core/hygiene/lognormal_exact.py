@@ -93,8 +93,18 @@ def nct_noncentrality(t_obs: float, df: int, prob: float) -> float:
                              f"delta {delta:g}; the data are too extreme for the exact method")
         return value - prob
 
-    step = 1.0 + abs(t_obs) / np.sqrt(df)
-    return _decreasing_root(gap, t_obs, step, "exceedance limit")
+    # The sign of the root is that of gap(0) (the central t): bracketing on
+    # that side only keeps scipy away from far non-centralities of the other
+    # sign, where its CDF is not finite.
+    side = 1.0 if gap(0.0) >= 0 else -1.0
+    end = side * max(abs(t_obs), 1.0)
+    for _ in range(60):
+        if side * gap(end) <= 0:
+            lo, hi = sorted((0.0, end))
+            return float(brentq(gap, lo, hi, xtol=1e-12, rtol=1e-12))
+        end *= 2.0
+    raise ModelError(f"exceedance limit: no non-centrality found for t {t_obs:g}; the data are "
+                     "too extreme for the exact method")
 
 
 def exceedance_exact(values: ArrayLike, limit: float, *, confidence: float = 0.70,
@@ -119,14 +129,22 @@ def exceedance_exact(values: ArrayLike, limit: float, *, confidence: float = 0.7
     rn = np.sqrt(n)
     t_obs = rn * (np.log(limit) - ybar) / s
 
-    def fraction(prob: float) -> float:
-        return float(ndtr(-nct_noncentrality(t_obs, n - 1, prob) / rn))
+    failures: list[str] = []
 
+    def fraction(prob: float) -> float | None:
+        try:
+            return float(ndtr(-nct_noncentrality(t_obs, n - 1, prob) / rn))
+        except ModelError as err:
+            failures.append(str(err))
+            return None
+
+    lower, upper = fraction((1 - level) / 2), fraction((1 + level) / 2)
+    ucl = fraction(confidence)
     return Bounded(
-        estimate=float(ndtr(-(np.log(limit) - ybar) / s)),
-        lower=fraction((1 - level) / 2), upper=fraction((1 + level) / 2),
-        ucl=fraction(confidence), level=level, confidence=confidence,
-        method=f"exceedance fraction, plug-in estimate with s (n-1); {NCT_SOURCE}")
+        estimate=float(ndtr(-(np.log(limit) - ybar) / s)), lower=lower, upper=upper, ucl=ucl,
+        level=level, confidence=confidence,
+        method=f"exceedance fraction, plug-in estimate with s (n-1); {NCT_SOURCE}",
+        note="; ".join(dict.fromkeys(failures)))
 
 
 def percentile_exact(values: ArrayLike, p: float = 0.95, *, confidence: float = 0.70,

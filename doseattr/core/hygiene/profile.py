@@ -244,6 +244,10 @@ def profile_bounds(family: str | Family, data: Measurements, target: Target, *,
     upper, n2 = prof.limit(two_sided, +1)
     ucl, n3 = prof.limit(one_sided, +1)
     notes = [n for n in (n1, n2, n3) if n]
+    fitted = measurement_loglik(prof.family, prof.params, data)
+    if prof.lmax > fitted + 1e-6:
+        notes.append(f"the profile search found a log-likelihood {prof.lmax - fitted:.2g} above "
+                     "the fit's: the fit had not fully converged, limits may be slightly off")
     if prof.at_edge:
         notes.append("the profile maximum over the shape reached its search range")
     return Bounded(estimate=prof.g_hat, lower=lower, upper=upper, ucl=ucl, level=level,
