@@ -44,8 +44,9 @@ def decision_block(lim: LimitSection, unit: str | None) -> str:
     s, d = lim.stats, lim.stats.decision
     memory = " (the rule as recalled, from memory: check it against the standard)" \
         if d.from_memory else ""
+    rule = d.rule[:1].upper() + d.rule[1:]
     text = (f"Verdict for the {s.n} samples against the limit {num(s.limit)}{_u(unit)}: "
-            f"{d.verdict}. Test: {d.test}. {d.rule}{memory}")
+            f"{d.verdict} (EN 689 {d.test} test). {rule}{memory}.")
     cls = VERDICT_CLASS.get(d.verdict, "verdict")
     return f'<div class="{cls}"><p>{_escape(text)}</p></div>'
 
@@ -61,14 +62,13 @@ def statistics_table(lim: LimitSection, unit: str | None) -> str:
     two-sided interval and one-sided upper limit."""
     s = lim.stats
     lvl, conf = f"{s.level:.0%}", f"{s.confidence:.0%}"
-    header = ["quantity", "estimate", f"{lvl} interval", f"upper limit at {conf}", "method"]
+    header = ["quantity", "estimate", f"{lvl} interval", f"upper limit at {conf}"]
     rows = [["Exceedance fraction P(X > limit)", _share(s.exceedance.estimate),
-             _pair(s.exceedance.lower, s.exceedance.upper, _share), _share(s.exceedance.ucl),
-             s.exceedance.method],
+             _pair(s.exceedance.lower, s.exceedance.upper, _share), _share(s.exceedance.ucl)],
             [f"95th percentile ({unit or 'exposure unit'})", num(s.p95.estimate),
-             _pair(s.p95.lower, s.p95.upper, num), f"{num(s.p95.ucl)} (UTL)", s.p95.method],
+             _pair(s.p95.lower, s.p95.upper, num), f"{num(s.p95.ucl)} (UTL)"],
             [f"Arithmetic mean ({unit or 'exposure unit'})", num(s.mean.estimate),
-             _pair(s.mean.lower, s.mean.upper, num), num(s.mean.ucl), s.mean.method]]
+             _pair(s.mean.lower, s.mean.upper, num), num(s.mean.ucl)]]
     notes = [b.note for b in (s.exceedance, s.p95, s.mean) if b.note]
     over = (f"The exceedance fraction's upper limit at {conf} is above the tolerated "
             f"{share_text(s.exceedance_tolerated)}." if s.overexposure else
@@ -93,8 +93,10 @@ def methods_text(lim: LimitSection) -> str:
     s = lim.stats
     how = ("exact methods for lognormal samples without non-detects" if s.exact else
            "the profile likelihood of the fitted distribution, with non-detects left-censored")
+    methods = list(dict.fromkeys([s.exceedance.method, s.p95.method, s.mean.method,
+                                  *s.methods]))
     return (f"Fitted distribution: {s.family}; {s.n} samples, {s.n_censored} below a detection "
-            f"limit; confidence limits by {how}. " + " ".join(s.methods))
+            f"limit; confidence limits by {how}. Methods: " + "; ".join(methods) + ".")
 
 
 def workers_block(lim: LimitSection, unit: str | None) -> str:

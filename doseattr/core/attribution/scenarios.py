@@ -171,8 +171,7 @@ class Comply(Scale):
     def describe(self, unit: str = "") -> str:
         u = f" {unit}" if unit else ""
         if self.value >= 1.0:
-            return (f"compliance with the limit {self.limit:.4g}{u}: the 95th percentile "
-                    f"({self.p95:.4g}{u}) already meets it, no change")
-        return (f"compliance with the limit {self.limit:.4g}{u}: exposure scaled by "
-                f"{self.value:.4g} ({1 - self.value:.0%} cut), the 95th percentile from "
-                f"{self.p95:.4g}{u} to the limit")
+            return (f"compliance with the limit {self.limit:.4g}{u}: already met (95th "
+                    f"percentile {self.p95:.4g}{u}), no change")
+        return (f"compliance with the limit {self.limit:.4g}{u}: exposure x {self.value:.4g} "
+                f"(95th percentile {self.p95:.4g}{u} to the limit)")

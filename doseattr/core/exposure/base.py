@@ -307,7 +307,7 @@ class Exposure:
         body = np.clip((q - self.unexposed) / (1 - self.unexposed), 0.0, 1.0)
         with np.errstate(invalid="ignore", divide="ignore"):
             inner = self.family.ppf(body, self.params)
-        return np.where(q <= self.unexposed, 0.0, inner)
+        return np.where(q <= self.unexposed, 0.0, inner).reshape(q.shape)
 
     def sf(self, x: ArrayLike) -> FloatArray:
         x = np.asarray(x, dtype=float)

@@ -11,7 +11,7 @@ checked against the text):
   is below 0.1, 0.15 or 0.2 times the limit respectively; otherwise more
   measurements are needed;
 * 6 or more (statistical test): it complies when the upper confidence
-  limit (at 70 % by default) of the 95th percentile is below the limit,
+  limit (at 70% by default) of the 95th percentile is below the limit,
   and does not comply otherwise.
 
 A non-detect counts as below a threshold only when its detection limit is
@@ -83,7 +83,7 @@ def _screening(data: Measurements, limit: float) -> Decision:
 
 
 def _statistical(n: int, limit: float, utl: float | None, confidence: float) -> Decision:
-    shown = f"{100 * confidence:g} %"
+    shown = f"{100 * confidence:g}%"
     if utl is None or not np.isfinite(utl):
         return Decision(DOES_NOT_COMPLY, "statistical",
                         f"the {shown} upper confidence limit of the 95th percentile could not be "
