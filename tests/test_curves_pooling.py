@@ -213,6 +213,18 @@ def test_reml_optimum_matches_stacked_likelihood_maximised_directly(t):
     assert got.restricted_loglik >= diag_max - 2 * 9 / 2 * np.log(2 * np.pi) - 1e-8
 
 
+def test_reml_follows_a_change_of_units():
+    b, s = _multivariate(6, k=7, t=T3, mu=MU3)
+    c = np.array([1e-4, 1.0, 1e3])  # e.g. per ug/m3 versus per mg/m3
+    got = pool(b, s)
+    scaled = pool([bi * c for bi in b], [si * np.outer(c, c) for si in s])
+    # Source: closed form. With b -> Cb, S -> CSC', l_R(CTC') = l_R(T) - (k-1) log|C|,
+    # so the REML estimates transform as mu -> C mu, T -> C T C'.
+    np.testing.assert_allclose(scaled.coefficients / c, got.coefficients, rtol=1e-7)
+    np.testing.assert_allclose(scaled.between_covariance / np.outer(c, c),
+                               got.between_covariance, atol=1e-8 * np.max(T3))
+
+
 def test_restricted_gradient_matches_finite_differences():
     b, s = _multivariate(9, k=6, t=T3, mu=MU3)
     b, s = np.array(b), np.array(s)
