@@ -1,0 +1,1 @@
+"""Compliance with occupational exposure limits."""
