@@ -12,7 +12,7 @@ import pytest
 from scipy import integrate, stats
 from scipy.special import log_ndtr, ndtr
 from statsmodels.regression.mixed_linear_model import MixedLM
-from statsmodels.tools.numdiff import approx_fprime
+from statsmodels.tools.numdiff import approx_fprime, approx_hess3
 from statsmodels.tools.sm_exceptions import ConvergenceWarning
 
 from doseattr.core.exposure.lognormal import LogNormal
@@ -103,6 +103,33 @@ def test_no_between_worker_spread_is_reported_at_the_boundary():
         W.exceedance_of_worker_means(model, 1.0)
 
 
+def test_censored_data_without_worker_differences_fall_back_to_independent_values():
+    # independent route: with identical worker means the ML is at sb = 0, where
+    # the model is independent left-censored normal values on the log scale,
+    # maximised here with scipy.optimize on scipy.stats log densities and CDFs
+    k, n = 10, 4
+    e = np.random.default_rng(12).normal(0.0, 0.5, (k, n))
+    y = (e - e.mean(1, keepdims=True) + 0.2).ravel()
+    limit = np.quantile(y, 0.3)
+    det = y >= limit
+    y = np.where(det, y, limit)
+    model = W.fit_workers(np.exp(y), det, np.repeat([f"w{i}" for i in range(k)], n))
+
+    def neg(th):
+        return -(stats.norm.logpdf(y[det], th[0], np.exp(th[1])).sum()
+                 + stats.norm.logcdf(y[~det], th[0], np.exp(th[1])).sum())
+
+    from scipy.optimize import minimize
+    ref = minimize(neg, [0.0, np.log(0.5)], method="Nelder-Mead",
+                   options={"xatol": 1e-10, "fatol": 1e-12})
+    assert model.at_boundary and model.sigma_between == 0
+    assert model.mu == pytest.approx(ref.x[0], abs=1e-6)
+    assert model.sigma_within == pytest.approx(np.exp(ref.x[1]), rel=1e-6)
+    assert model.loglik == pytest.approx(-ref.fun, abs=1e-8)
+    assert all(w.long_term_mean == pytest.approx(np.exp(model.mu + model.sigma_within ** 2 / 2))
+               for w in model.workers)
+
+
 def test_worker_posteriors_of_detected_data_match_the_normal_closed_form():
     # closed form (derived): b_i | y ~ N(m, v), m = n sb^2 (ybar - mu) / tau,
     # v = sb^2 sw^2 / tau, tau = sw^2 + n sb^2; E[exp(b)] = exp(m + v/2)
@@ -190,6 +217,10 @@ def test_censored_gradient_matches_finite_differences():
     grad = W.loglik_and_gradient(s, theta)[1]
     fd = approx_fprime(theta, lambda th: W.loglik_and_gradient(s, th)[0], centered=True)
     np.testing.assert_allclose(grad, fd, rtol=1e-6, atol=1e-7)  # statsmodels numdiff
+    # the observed information behind the covariance: second differences of
+    # the log-likelihood itself (statsmodels numdiff)
+    hess = approx_hess3(theta, lambda th: W.loglik_and_gradient(s, th)[0])
+    np.testing.assert_allclose(W.hessian(s, theta), hess, rtol=1e-4, atol=1e-5)
 
 
 def test_censored_worker_posterior_matches_scipy_quad():

@@ -91,6 +91,11 @@ LONG_TERM_NOTE = (
     "long-term mean (cumulative) exposure, not to single samples")
 
 
+#: How the per-worker summaries are obtained.
+EMPIRICAL_BAYES_NOTE = ("worker summaries are empirical Bayes: posterior given the estimated mu, "
+                        "sb and sw, without their uncertainty")
+
+
 def within_worker_note() -> str:
     """The caution for samples without a worker column (:data:`WITHIN_WORKER_NOTE`)."""
     return WITHIN_WORKER_NOTE
@@ -662,8 +667,7 @@ def _model(s: Samples, mu: float, sb: float, sw: float, ll: float, cov: FloatArr
 
 
 def _notes(s: Samples, n_cens: int) -> tuple[str, ...]:
-    out = ["worker summaries are empirical Bayes: posterior given the estimated mu, sb and sw, "
-           "without their uncertainty"]
+    out = [EMPIRICAL_BAYES_NOTE]
     if s.n_workers < 5:
         out.append(f"only {s.n_workers} workers: the between-worker SD is poorly determined")
     if 2 * n_cens > s.y.size:
@@ -778,8 +782,11 @@ def exceedance_of_worker_means(model: WorkerModel, limit: float, *,
 
 def workers_above(model: WorkerModel, limit: float) -> tuple[WorkerEstimate, ...]:
     """Workers whose estimated long-term mean (posterior mean,
-    :class:`WorkerEstimate`) is above ``limit``, largest first. An estimate
-    is not a measurement: read each worker's interval too."""
+    :class:`WorkerEstimate`) is above ``limit``, largest first.
+
+    An estimate is not a measurement: read each worker's interval too. A
+    worker not listed is not thereby shown to comply; compliance is for
+    local regulations and a qualified hygienist to judge."""
     lim = _check_limit(limit)
     above = [w for w in model.workers if w.long_term_mean > lim]
     return tuple(sorted(above, key=lambda w: w.long_term_mean, reverse=True))
@@ -809,6 +816,7 @@ def long_term_exposure(model: WorkerModel) -> Exposure:
         cov = jac @ model.cov @ jac.T
     fit = ExposureFit(method=model.method + "; long-term means of workers", loglik=model.loglik,
                       n=model.n_samples, detected=model.n_samples - model.n_censored,
-                      censored=model.n_censored, cov_internal=cov, warnings=model.notes)
+                      censored=model.n_censored, cov_internal=cov,
+                      warnings=tuple(n for n in model.notes if n != EMPIRICAL_BAYES_NOTE))
     return Exposure(family=fam, params=params, fit=fit, source="measurements",
                     notes=(LONG_TERM_NOTE,))
