@@ -124,7 +124,7 @@ def test_paf_uses_workers_long_term_means(worker_run):
 
 
 def test_limit_results_json_and_files(worker_run):
-    out, r = worker_run
+    out, _ = worker_run
     d = json.loads((out / "results.json").read_text())
     lim = d["limit"]
     assert lim["value"] == 0.5 and lim["confidence"] == 0.7

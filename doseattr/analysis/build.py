@@ -431,7 +431,8 @@ def _long_term(built: BuiltExposure, m: Measurements, unexposed: float) -> Built
     with as_input_error(m.source, "column 'worker'",
                         "the within- and between-worker model cannot be fitted: "):
         model = fit_workers(m.values, m.detected, m.worker)
-    exposure = long_term_exposure(model)
+    with as_input_error(m.source, "column 'worker'"):
+        exposure = long_term_exposure(model)
     if unexposed:
         exposure = dataclasses.replace(exposure, unexposed=unexposed)
     assert isinstance(built.exposure, Exposure)
@@ -653,7 +654,9 @@ def build_scenarios(analysis: Analysis, built: BuiltExposure | None = None
         with as_input_error(analysis.source, key_location("scenario", spec.kind, spec.index)):
             if spec.kind == "comply":
                 assert built is not None, "comply needs the built exposure"
-                p95 = float(built.sampled.ppf(0.95))
+                sampled = built.sampled
+                assert isinstance(sampled, Exposure), "[limit] needs a fitted family"
+                p95 = float(sampled.ppf(0.95))
                 sc: Scenario = Comply.from_percentile(spec.value, p95, name=spec.name)
                 out.append((dataclasses.replace(spec, value=sc.value), sc))
             else:

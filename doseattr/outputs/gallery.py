@@ -18,6 +18,7 @@ from numpy.typing import NDArray
 
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
 from doseattr.outputs import burden_figures as bf
 from doseattr.outputs import figures as fig
 from doseattr.outputs import grid_figures as gf
@@ -143,14 +144,19 @@ def _exposure(section: ExposureSection, unit: str | None) -> Figure:
     compare = section.parametric_fits if section.is_empirical else ()
     label = ("workers' cumulative exposures" if section.workers is not None
              else "measurements")
-    ax = fig.plot_exposure(section.exposure, unit=unit, compare=compare, data_label=label)
+    if section.samples is not None and isinstance(section.exposure, Exposure):
+        # a worker column: the single samples, and workers' long-term means
+        ax = fig.plot_exposure(section.samples, unit=unit, data_label="single samples",
+                               long_term=section.exposure)
+    else:
+        ax = fig.plot_exposure(section.exposure, unit=unit, compare=compare, data_label=label)
     return _figure(ax)
 
 
 def _qq(section: ExposureSection, unit: str | None) -> Figure | None:
     """Q-Q plot of the measurements against the family used, and beside it
     against every other family tried (``family = "best"``)."""
-    exposure = section.exposure
+    exposure = section.exposure if section.samples is None else section.samples
     fit = exposure.fit
     if (section.is_empirical or fit is None or fig.is_banded(fit) or fit.values is None
             or fit.loglik is None or fit.n < 3):

@@ -93,8 +93,7 @@ def methods_text(lim: LimitSection) -> str:
     s = lim.stats
     how = ("exact methods for lognormal samples without non-detects" if s.exact else
            "the profile likelihood of the fitted distribution, with non-detects left-censored")
-    methods = list(dict.fromkeys([s.exceedance.method, s.p95.method, s.mean.method,
-                                  *s.methods]))
+    methods = list(dict.fromkeys(s.methods))
     return (f"Fitted distribution: {s.family}; {s.n} samples, {s.n_censored} below a detection "
             f"limit; confidence limits by {how}. Methods: " + "; ".join(methods) + ".")
 
