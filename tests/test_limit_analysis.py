@@ -203,3 +203,19 @@ def test_bad_limit_input_is_one_line_exit_2_nothing_written(tmp_path, capsys, to
     assert err.startswith("doseattr: error: ") and err.count("\n") == 1
     assert fragment in err and "Traceback" not in err and out == ""
     assert not out_dir.exists()
+
+
+def test_exposure_figure_and_comparison_show_samples_and_long_term_means(worker_run):
+    from doseattr.outputs import figures as fig
+
+    _, r = worker_run
+    section = r.exposure_section
+    ax = fig.plot_exposure(section.samples, long_term=section.exposure, unit="mg/m3")
+    gids = {line.get_gid() for line in ax.get_lines()}
+    assert {"fitted-density", "long-term-density"} <= gids
+    names = [v.label for v in section.comparison]
+    assert names[:2] == ["lognormal, workers' long-term means", "lognormal, single samples"]
+    gm, gsd = section.samples.params
+    am = gm * math.exp(math.log(gsd) ** 2 / 2)
+    # Linear RR: the single samples' PAF is B E[X]/(1 + B E[X]) (closed form).
+    assert section.comparison[1].paf == pytest.approx(B * am / (1 + B * am), rel=1e-8)
