@@ -100,9 +100,10 @@ def worker_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("workers")
     rows = _samples(np.random.default_rng(11))
     scen = '[[scenario]]\nname = "Comply"\ncomply = true\n'
-    toml = _analysis("value = 0.5\n", scenarios=scen,
-                     extra="") + "[uncertainty]\ndraws = 400\nseed = 5\n"
+    toml = (_analysis("value = 0.5\n", scenarios=scen) + "[uncertainty]\ndraws = 400\nseed = 5\n"
+            '[burden]\ntable = "burden.csv"\n')
     path = _write(folder, toml, rows)
+    (folder / "burden.csv").write_text("stratum,cases\nplant,30\n")  # an invented count
     out = folder / "out"
     assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
     return out, run_analysis(load_analysis(path))
@@ -144,6 +145,14 @@ def test_limit_results_json_and_files(worker_run):
     assert (out / "limit_workers.csv").is_file()
     html = (out / "report.html").read_text()
     assert "Compliance with the limit value" in html and "Between-worker GSD" in html
+    assert "If the group complied (scenario &#x27;Comply&#x27;" in html and "cases averted" in html
+
+
+def test_cases_prevented_by_compliance(worker_run):
+    _, r = worker_run
+    (sc,) = r.scenarios
+    # Method "paf": averted = cases x PIF at the point estimates (definition).
+    assert sc.averted.estimate == pytest.approx(30 * sc.pif.estimate, rel=1e-10)
 
 
 def test_worker_exceedance_is_the_closed_form(worker_run):
