@@ -228,3 +228,12 @@ def test_exposure_figure_and_comparison_show_samples_and_long_term_means(worker_
     am = gm * math.exp(math.log(gsd) ** 2 / 2)
     # Linear RR: the single samples' PAF is B E[X]/(1 + B E[X]) (closed form).
     assert section.comparison[1].paf == pytest.approx(B * am / (1 + B * am), rel=1e-8)
+
+
+def test_check_says_what_the_limit_will_test(tmp_path, capsys):
+    rows = _samples(np.random.default_rng(2), workers=3, per=2, lod=None)
+    path = _write(tmp_path, _analysis("value = 0.5\n"), rows)
+    assert main(["check", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "limit: 0.5 mg/m3, EN 689 statistical test" in out and "on 6 samples" in out
+    assert "3 workers" in out

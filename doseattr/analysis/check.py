@@ -249,7 +249,22 @@ def describe(p: Prepared) -> list[str]:
              _attribution_line(a, p), _uncertainty_line(a)]
     if p.strata is not None and a.burden is not None:
         lines.append(_burden_line(a.burden.table, p.strata, p.built_exposure.exposure))
+    if a.limit is not None:
+        lines.append(_limit_line(a, p.built_exposure))
     return lines
+
+
+def _limit_line(a: Analysis, built: BuiltExposure) -> str:
+    """What ``[limit]`` will test, and on which samples."""
+    assert a.limit is not None
+    fit = built.sampled.fit
+    n = 0 if fit is None else fit.n
+    test = ("EN 689 screening test" if 3 <= n <= 5 else "EN 689 statistical test (upper "
+            f"tolerance limit of the 95th percentile at {a.limit.confidence:.0%})")
+    workers = ("" if built.worker_model is None else
+               f"; {built.worker_model.n_workers} workers: within- and between-worker model, "
+               "PAF over their long-term means")
+    return f"limit: {a.limit.value:g} {a.unit}, {test} on {n} samples{workers}"
 
 
 COVARIANCE_WORDS = {"counts": "Greenland-Longnecker covariance from the counts",
