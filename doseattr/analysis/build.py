@@ -111,10 +111,22 @@ def build_curve(analysis: Analysis, exposure: AnyExposure | None = None) -> Buil
 
 
 def fit_table_curve(spec: TableCurve, inputs: CurveInputs, *, model: str | None = None,
-                    dose_rule: str | None = None, knots: FloatArray | None = None) -> BuiltCurve:
+                    dose_rule: str | None = None) -> BuiltCurve:
     """Fit a model to the study table (``model`` and ``dose_rule`` override
-    the spec's, for comparisons and sensitivity tables; ``knots``, checked
-    by the caller, are a spline's knots shared by pooled studies)."""
+    the spec's, for comparisons and sensitivity tables)."""
+    return _fit_table(spec, inputs, model, dose_rule)
+
+
+def fit_pooled_study(spec: TableCurve, inputs: CurveInputs,
+                     knots: FloatArray | None) -> BuiltCurve:
+    """One study of a pooled curve, fitted exactly as :func:`fit_table_curve`
+    fits a single table; a spline takes the ``knots`` shared by every
+    study (checked by the caller against all the studies' doses)."""
+    return _fit_table(spec, inputs, None, None, knots)
+
+
+def _fit_table(spec: TableCurve, inputs: CurveInputs, model: str | None,
+               dose_rule: str | None, knots: FloatArray | None = None) -> BuiltCurve:
     from doseattr.core.curves.fit import fit_curve
 
     t = spec.table

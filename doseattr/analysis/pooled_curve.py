@@ -3,7 +3,7 @@ then the coefficients pooled.
 
 Stage one fits every study's table by GLS with its own covariance of the
 log RRs, exactly as a single ``[curve] table`` is fitted
-(:func:`~doseattr.analysis.build.fit_table_curve`); a spline uses knots
+(:func:`~doseattr.analysis.build.fit_pooled_study`); a spline uses knots
 shared by all studies, by default at Harrell's quantiles of every study's
 assigned doses together. Stage two pools the coefficients
 :math:`b_i \sim N(\mu, S_i + T)` with the core's
@@ -30,13 +30,14 @@ from doseattr.analysis.build import (
     CurveInputs,
     as_input_error,
     band_doses,
-    fit_table_curve,
+    fit_pooled_study,
 )
 from doseattr.analysis.csvfile import FloatArray
 from doseattr.analysis.pooled_section import study_location
 from doseattr.analysis.schema import key_location
 from doseattr.analysis.specs import PooledCurve
 from doseattr.core.curves.base import Curve, CurveModel
+from doseattr.core.curves.spline import RestrictedCubicSpline
 from doseattr.errors import InputError
 from doseattr.results.records import PooledStudy, PoolingSection
 
@@ -61,7 +62,7 @@ def build_pooled(spec: PooledCurve, inputs: CurveInputs) -> BuiltCurve:
     fits = []
     for i, (name, study) in enumerate(zip(spec.names, studies, strict=True)):
         with study_location(i, name):
-            fits.append(fit_table_curve(study, inputs, knots=knots))
+            fits.append(fit_pooled_study(study, inputs, knots))
     with as_input_error(inputs.source, key_location("curve", "pooling"),
                         "the studies' coefficients cannot be pooled: "):
         pooled = pool([f.curve.coef for f in fits], [f.curve.cov for f in fits],
@@ -75,9 +76,9 @@ def build_pooled(spec: PooledCurve, inputs: CurveInputs) -> BuiltCurve:
     prediction = (dataclasses.replace(mean, cov=pooled.predictive_covariance())
                   if spec.predict else None)
     nonlinear = None
-    if spec.model == "spline":
+    if isinstance(model, RestrictedCubicSpline):
         with as_input_error(inputs.source, key_location("curve", "knots")):
-            nonlinear = nonlinearity_test(pooled, getattr(model, "nonlinear_index"))
+            nonlinear = nonlinearity_test(pooled, [int(i) for i in model.nonlinear_index])
     records = tuple(
         PooledStudy(name, f.curve, f.bands, float(w), s.design, s.covariance, s.unit)
         for name, f, s, w in zip(spec.names, fits, studies, pooled.weights, strict=True)
