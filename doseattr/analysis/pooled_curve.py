@@ -111,7 +111,8 @@ def shared_knots(spec: PooledCurve, inputs: CurveInputs) -> FloatArray:
     if distinct.size < n_knots:
         raise InputError(f"the {len(doses)} studies have {distinct.size} distinct assigned "
                          f"doses, fewer than the {n_knots} knots of the spline; use fewer "
-                         "knots or another model", source=inputs.source,
+                         "knots (3 at least) or a model with one coefficient, such as "
+                         "log-linear", source=inputs.source,
                          location=key_location("curve", key))
     if spec.knots is not None:
         knots = np.asarray(spec.knots, dtype=float)

@@ -99,8 +99,9 @@ def _name(block: dict[str, Any], i: int, names: dict[str, int], ctx: Context) ->
                         "name", i)
     name = block["name"].strip()
     if name in names:
-        raise ctx.error(f"study name '{name}' is used twice (also in [[curve.study]] "
-                        f"{names[name] + 1})", "curve.study", "name", i)
+        with study_location(i, name):
+            raise ctx.error(f"study name '{name}' is used twice (also in [[curve.study]] "
+                            f"{names[name] + 1})", "curve.study", "name", i)
     names[name] = i
     return name
 
