@@ -16,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy.stats import chi2
 from schema_check import problems
+from scipy.stats import chi2
 from statsmodels.stats.meta_analysis import combine_effects
 
 from doseattr.analysis.check import check_analysis
