@@ -216,16 +216,17 @@ HIGH_I2 = 0.75
 DOMINANT_WEIGHT = 0.60
 
 
-def pooling_alarms(pooled: Pooled) -> list[str]:
+def pooling_alarms(pooled: Pooled, predict: bool = False) -> list[str]:
     """High heterogeneity between pooled studies, and one study that
-    carries most of the pooled estimate."""
+    carries most of the pooled estimate (``predict``: the Monte Carlo
+    already draws a new population's curve)."""
     out = []
     if pooled.i2 > HIGH_I2:
+        advice = "" if predict else ", and consider predict = true"
         out.append(f"the pooled studies disagree: I^2 = {pooled.i2:.0%} (above "
                    f"{HIGH_I2:.0%}) of the variation between their coefficients is "
                    "heterogeneity rather than chance; one pooled curve may describe none of "
-                   "their populations well (look at the studies' curves, and consider "
-                   "predict = true)")
+                   f"their populations well (look at the studies' curves{advice})")
     top = int(np.argmax(pooled.weights))
     if pooled.weights[top] > DOMINANT_WEIGHT:
         out.append(f"study '{pooled.names[top]}' carries {pooled.weights[top]:.0%} of the "

@@ -85,7 +85,7 @@ def build_pooled(spec: PooledCurve, inputs: CurveInputs) -> BuiltCurve:
         if f.bands is not None)
     section = PoolingSection(pooled, records, mean, spec.predict, prediction, nonlinear)
     warnings = [f"study '{n}': {w}" for n, f in zip(spec.names, fits) for w in f.warnings]
-    warnings += pooling_alarms(pooled)
+    warnings += pooling_alarms(pooled, spec.predict)
     notes = [f"study '{n}': {t}" for n, f in zip(spec.names, fits) for t in f.notes]
     notes += [_pooling_note(spec, pooled.coefficients.size), PREDICT_NOTE if spec.predict
               else MEAN_NOTE, *_reference_notes(spec, fits, model)]
