@@ -295,12 +295,16 @@ BAD = [
      "[[curve.study]] 2 ('B') key 'table': file not found"),
     (_pooled_toml(["A", "B"], 'model = "log-linear"\ntable = "a.csv"\n'),
      "[curve] table and [[curve.study]] both give"),
+    (_pooled_toml(["A", "B"], 'model = "log-linear"\ndesign = "case-control"\n'),
+     "[curve] key 'design': 'design' belongs to each study"),
+    (f'unit = "ug/m3"\n[curve]\npooling = "fixed"\n{BLOCK["A"]}{EXPOSURE}',
+     "[curve] key 'pooling': 'pooling' goes with [[curve.study]] blocks"),
 ]
 
 
 @pytest.mark.parametrize("toml, fragment", BAD, ids=[
     "one-study", "same-name", "unit", "spline-doses", "refused-table", "missing-table",
-    "table-and-studies"])
+    "table-and-studies", "shared-design", "pooling-one-table"])
 def test_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, toml, fragment):
     case = tmp_path / "case"
     _write(case, toml)
