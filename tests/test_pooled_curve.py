@@ -318,3 +318,20 @@ def test_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, toml, fragme
     assert err.startswith("doseattr: error: ") and err.count("\n") == 1
     assert fragment in err and "Traceback" not in err and out == ""
     assert not out_dir.exists()
+
+
+def test_curve_covariance_is_the_mean_s_and_the_draws_say_theirs(tmp_path):
+    """curve.covariance holds the pooled mean's covariance (the contract);
+    with predict = true the draws use covariance + tau^2 (definition of the
+    predictive distribution), written as curve.draws_covariance."""
+    curve = 'model = "log-linear"\ntau_method = "dl"\npredict = true\n'
+    path = _write(tmp_path / "case", _pooled_toml(["A", "B", "Steep"], curve, UNCERTAINTY))
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
+    d = json.loads((out / "results.json").read_text())
+    c, pool = d["curve"], d["curve"]["pooling"]
+    assert c["covariance"] == pool["covariance"]
+    tau2 = pool["tau2"]
+    assert tau2 > 0
+    assert c["draws_covariance"][0][0] == pytest.approx(pool["covariance"][0][0] + tau2,
+                                                        rel=1e-12)

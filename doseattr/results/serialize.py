@@ -175,7 +175,12 @@ def curve_dict(s: CurveSection) -> dict[str, Any]:
         "formula": c.model.describe(),
         "notes": list(c.notes),
         "pooling": pooling_dict(s.pooling),
-    }
+        # The Monte Carlo's covariance: the pooled mean's, or with [curve]
+        # predict = true the predictive one (mean's + tau^2); "covariance"
+        # above always holds the pooled mean's.
+        "draws_covariance": matrix(c.cov),
+    } | ({} if s.pooling is None else {"covariance": matrix(s.pooling.mean.cov),
+                                       "standard_errors": standard_errors(s.pooling.mean)})
 
 
 def pooling_dict(p: PoolingSection | None) -> dict[str, Any] | None:
