@@ -240,14 +240,19 @@ class ZoneMap:
         return cls(ids, source)
 
     def indices(self, zone: NDArray[Any], nodata: float | None = None
-                ) -> tuple[IntArray, IntArray]:
-        """Each cell's zone index, and the raw ids of cells in unknown zones.
+                ) -> tuple[NDArray[np.integer], IntArray]:
+        """Each cell's zone index (int32 or int64), and the raw ids (int64)
+        of cells in unknown zones.
 
         NaN and ``nodata`` become :data:`NODATA_ZONE`; ids not in
         :attr:`ids` become :data:`UNKNOWN_ZONE`. Non-integer ids are an
         input error naming :attr:`source`.
         """
         flat = np.asarray(zone).ravel()
+        fast = self._integer_lookup(flat, nodata)
+        if fast is not None:
+            out, unknown = fast
+            return out.reshape(np.shape(zone)), unknown
         valid = ~_missing(flat, nodata)
         values = flat[valid]
         if values.dtype.kind == "f":
@@ -260,6 +265,29 @@ class ZoneMap:
         index = self._lookup(values)
         out[valid] = index
         return out.reshape(np.shape(zone)), values[index == UNKNOWN_ZONE]
+
+    def _integer_lookup(self, flat: NDArray[Any], nodata: float | None
+                        ) -> tuple[NDArray[np.int32], IntArray] | None:
+        """:meth:`indices` for integer ids spanning at most :data:`LOOKUP_SPAN`
+        (from 0, or from the lowest id when some are negative) together with
+        the listed ids: one gather per cell from a table that also holds the
+        nodata value, into int32 (half the memory traffic of int64);
+        ``None`` for other ids."""
+        if flat.dtype.kind not in "iu" or not flat.size or not self.ids:
+            return None
+        known = np.asarray(self.ids, dtype=np.int64)
+        low = min(int(flat.min()), int(known.min()), 0)
+        high = max(int(flat.max()), int(known.max()))
+        if high - low > LOOKUP_SPAN:
+            return None
+        table = np.full(high - low + 1, UNKNOWN_ZONE, dtype=np.int32)
+        table[known - low] = np.arange(len(known))
+        if nodata is not None and nodata == math.floor(nodata) and low <= nodata <= high:
+            table[int(nodata) - low] = NODATA_ZONE
+        out = np.take(table, flat if low == 0 else flat - low)
+        unknown = out == UNKNOWN_ZONE
+        return out, (flat[unknown].astype(np.int64) if unknown.any()
+                     else np.zeros(0, dtype=np.int64))
 
     def _lookup(self, values: IntArray) -> IntArray:
         """Index of each id (:data:`UNKNOWN_ZONE` when not listed): a table

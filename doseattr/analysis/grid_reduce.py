@@ -172,6 +172,13 @@ def _core_reducer() -> Reducer:
     return reduce_block  # type: ignore[no-any-return, unused-ignore]
 
 
+def _release_scratch() -> None:
+    """Free the core reducer's per-thread work arrays after a pass."""
+    from doseattr.core.exposure.grid import release_scratch
+
+    release_scratch()
+
+
 # -- rasters ------------------------------------------------------------------
 def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
              scheduler: str | None) -> tuple[_Partial, GridSample]:
@@ -192,11 +199,14 @@ def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
     step = max(1, -(-max(layers.concentration.shape) // MAP_SIDE))
     sampled = [layer.data[::step, ::step] for layer in
                (layers.concentration, layers.population, layers.zones) if layer is not None]
-    total, conc_s, pop_s, *zone_s = _compute(root, *sampled, scheduler=scheduler)
+    try:
+        total, conc_s, pop_s, *zone_s = _compute(root, *sampled, scheduler=scheduler)
+    finally:
+        _release_scratch()
     if zones is None:
         index = np.zeros(np.shape(conc_s), dtype=np.int64)
     else:
-        index = zones.indices(np.asarray(zone_s[0]), nodata)[0]
+        index = zones.indices(np.asarray(zone_s[0]), nodata)[0].astype(np.int64)
     sample = GridSample(_floats(conc_s), _floats(pop_s), index, step,
                         _extent(layers.concentration), layers.concentration.crs)
     return total, sample
@@ -221,7 +231,8 @@ def _extent(layer: Any) -> tuple[float, float, float, float] | None:
 
 def _raster_block(conc: Any, pop: Any, zone: Any, zones: ZoneMap | None, nodata: float | None,
                   n_zones: int, reduce_block: Reducer) -> _Partial:
-    c, p = _floats(conc), _floats(pop)
+    # as read (float32 stays float32): the reducer skips non-finite values itself
+    c, p = np.asarray(conc), np.asarray(pop)
     if zones is None:
         index = np.zeros(c.shape, dtype=np.int64)
         unknown_ids = np.zeros(0, dtype=np.int64)
