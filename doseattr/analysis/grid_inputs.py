@@ -383,21 +383,51 @@ def open_layer(path: str, variable: str | None, chunk: int, *, decode: bool) -> 
     ydim, xdim = array.dims
     array = array.chunk({ydim: chunk, xdim: chunk})
     shape = (int(array.shape[0]), int(array.shape[1]))
-    return Layer(path, array.data, nodata, shape, _transform(array, path), _coords(array),
+    data = array.data
+    if decode and nodata is not None:  # a GeoTIFF read raw: its nodata value to NaN, per block
+        dtype = data.dtype if data.dtype.kind == "f" else np.dtype(np.float64)
+        data = data.map_blocks(nodata_to_nan, nodata, dtype, dtype=dtype)
+        nodata = None
+    return Layer(path, data, nodata, shape, _transform(array, path), _coords(array),
                  _crs(array))
 
 
+def nodata_to_nan(block: NDArray[Any], nodata: float, dtype: np.dtype[Any]) -> NDArray[Any]:
+    """A copy of ``block`` as ``dtype`` (a float type) with NaN where it
+    equals ``nodata``."""
+    out = np.array(block, dtype=dtype)
+    if not math.isnan(nodata):
+        np.putmask(out, block == nodata, np.nan)
+    return out
+
+
 def _geotiff(path: str, decode: bool) -> tuple[Any, float | None]:
+    """The band and its nodata value. Decoding with rioxarray's ``masked``
+    reads through numpy masked arrays, several times the cost of the read
+    itself; when the file's mask is only its nodata value (no mask band,
+    no alpha), the band is read raw and :func:`open_layer` turns that value
+    into NaN block by block, which gives the same values."""
     import rioxarray
 
-    array: Any = rioxarray.open_rasterio(path, masked=decode)
+    masked = decode and not _nodata_mask_only(path)
+    array: Any = rioxarray.open_rasterio(path, masked=masked)
     if "band" in array.dims:
         if array.sizes["band"] != 1:
             raise InputError(f"has {array.sizes['band']} bands; give a single-band raster",
                              source=path)
         array = array.isel(band=0, drop=True)
-    nodata = None if decode else array.rio.nodata
+    nodata = None if masked else array.rio.nodata
     return array, None if nodata is None else float(nodata)
+
+
+def _nodata_mask_only(path: str) -> bool:
+    """Whether the first band's mask is at most its nodata value."""
+    import rasterio
+    from rasterio.enums import MaskFlags
+
+    with rasterio.open(path) as src:
+        flags = set(src.mask_flag_enums[0]) if src.count else set()
+    return flags <= {MaskFlags.nodata, MaskFlags.all_valid}
 
 
 def _netcdf(path: str, variable: str | None, decode: bool) -> tuple[Any, float | None]:
@@ -604,7 +634,8 @@ def _numbers(column: Any, key: str, path: str, first: int, data_rows: bool) -> F
     return out
 
 
-def zone_index_of_cells(chunk: CellChunk, zones: ZoneMap | None) -> tuple[IntArray, IntArray]:
+def zone_index_of_cells(chunk: CellChunk, zones: ZoneMap | None
+                        ) -> tuple[NDArray[np.integer], IntArray]:
     """Zone indices of a table's rows (all 0 without a zone column or a map)
     and the raw ids of rows in unknown zones."""
     if chunk.zone is None or zones is None:

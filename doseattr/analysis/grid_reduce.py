@@ -38,7 +38,7 @@ from doseattr.analysis.grid_inputs import (
 from doseattr.errors import InputError
 
 #: ``reduce_block(conc, pop, zone_index, n_zones) -> BlockSums``.
-Reducer = Callable[[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64], int], Any]
+Reducer = Callable[[NDArray[Any], NDArray[Any], NDArray[np.integer], int], Any]
 #: Partial results merged per task of the tree sum.
 FAN_IN = 8
 #: Longest side, in cells, of the sample of the rasters kept for maps.
@@ -233,6 +233,7 @@ def _raster_block(conc: Any, pop: Any, zone: Any, zones: ZoneMap | None, nodata:
                   n_zones: int, reduce_block: Reducer) -> _Partial:
     # as read (float32 stays float32): the reducer skips non-finite values itself
     c, p = np.asarray(conc), np.asarray(pop)
+    index: NDArray[np.integer]
     if zones is None:
         index = np.zeros(c.shape, dtype=np.int64)
         unknown_ids = np.zeros(0, dtype=np.int64)
@@ -248,8 +249,8 @@ def _floats(block: Any) -> NDArray[np.float64]:
     return x
 
 
-def _partial(sums: Any, conc: NDArray[np.float64], pop: NDArray[np.float64],
-             index: NDArray[np.int64], unknown_ids: NDArray[np.int64]) -> _Partial:
+def _partial(sums: Any, conc: NDArray[Any], pop: NDArray[Any], index: NDArray[np.integer],
+             unknown_ids: NDArray[np.int64]) -> _Partial:
     """Wrap a block's sums with its cell count and, per unknown zone id, the
     cells and their population (finite, non-negative population only)."""
     unknown: dict[int, tuple[int, float]] = {}

@@ -87,7 +87,7 @@ def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, wei
 
 
 #: Elements (draws x points) evaluated at once by :func:`weighted_rows`.
-CHUNK_ELEMENTS = 1 << 22
+CHUNK_ELEMENTS = 1 << 16
 
 
 def weighted_rows(fn: LogRisk, values: FloatArray, weights: FloatArray, d: int,

@@ -68,15 +68,21 @@ the binning error above for any realistic grid.
 
 Memory and cost
 ---------------
-:func:`reduce_block` holds two float64 arrays of ``n_zones * (N_BINS + 1)``
+A block's sums cover only the zone rows its valid cells touch
+(:class:`BlockSums` ``sums``, ``2 * rows * (N_BINS + 1)`` float64, 442 kB a
+row): one ``np.bincount`` index per cell, ``zone * (N_BINS + 1) + slot``,
+over the range of indices the block uses. Adding two sums allocates the
+union of their rows, so the tree of additions ends at the zones present
 (:func:`dense_bytes`: 442 kB per zone, 44 MB for 100 zones, 442 MB for
-1,000) plus O(block) temporaries (a few arrays of the block's length).
-Those dense arrays are allocated and zeroed per block, so a block should
-hold well over ``n_zones * N_BINS`` cells (2.8e6 for 100 zones) for that
-fixed cost to stay small against the per-cell work (about 30 ns per cell
-measured on a 2-core machine with 100 zones and 4e6-cell blocks, after the
-first call). Many thousands of zones would need a sparse (zone, bin) store
-instead; this module does not provide one.
+1,000, the size of the dense arrays of :class:`GridSummary` too). Each
+thread keeps its work arrays (about 40 bytes per cell of its largest
+block) from block to block, since fresh arrays of a few tens of MB are
+mapped and zeroed page by page by the C library on every call
+(:func:`release_scratch` frees them). The bin of a cell comes from a
+float32 logarithm, corrected at the edges (:func:`_bins`): measured about
+25 ns per cell on one core of a 2-core machine (100 zones, float32 rasters,
+4e6-cell blocks). Many thousands of zones in one block would need a sparse
+(zone, bin) store instead; this module does not provide one.
 """
 
 from __future__ import annotations
@@ -155,7 +161,7 @@ class BlockSums:
 
     def __post_init__(self) -> None:
         assert self.sums.ndim == 3 and self.sums.shape[0] == 2 and self.sums.shape[2] == WIDTH
-        assert 0 <= self.row0 and self.row0 + self.sums.shape[1] <= self.n_zones
+        assert self.row0 >= 0 and self.row0 + self.sums.shape[1] <= self.n_zones
         if self.cut_weight is None:
             empty = np.zeros((self.n_zones, self.cuts.size))
             object.__setattr__(self, "cut_weight", empty)
