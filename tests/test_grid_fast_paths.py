@@ -162,3 +162,40 @@ def test_raw_read_with_nodata_equals_rioxarray_masked(tmp_path, dtype, nodata):
     assert layer.nodata is None
     np.testing.assert_array_equal(np.isnan(got), np.isnan(ref))
     np.testing.assert_array_equal(got[~np.isnan(got)], ref[~np.isnan(ref)])
+
+
+def test_map_sample_taken_from_the_blocks_equals_the_strided_rasters(tmp_path, monkeypatch):
+    """Source: the rasters read back with rasterio and strided with numpy
+    (``[::step, ::step]``), population nodata as NaN, zone indices from a
+    dict: the sample the pass assembles from its blocks (uneven 16-cell
+    chunks of a 45 x 70 grid, step 3, so block origins are not multiples of
+    the step) is the same."""
+    rasterio = pytest.importorskip("rasterio")
+    from rasterio.transform import from_origin
+
+    from doseattr.analysis import grid_reduce
+    from doseattr.analysis.grid_inputs import NODATA_ZONE, GridSpec
+
+    rng = np.random.default_rng(12)
+    shape = (45, 70)
+    layers = {"conc.tif": (rng.lognormal(2, 0.5, shape).astype("float32"), None),
+              "pop.tif": (rng.uniform(0, 9, shape).astype("float32"), -1.0),
+              "zones.tif": (rng.choice([10, 20, 30, 0], size=shape).astype("int32"), 0.0)}
+    layers["pop.tif"][0][rng.random(shape) < 0.1] = -1.0
+    for name, (values, nodata) in layers.items():
+        with rasterio.open(tmp_path / name, "w", driver="GTiff", width=shape[1],
+                           height=shape[0], count=1, dtype=values.dtype, nodata=nodata,
+                           crs="EPSG:3035", transform=from_origin(0, 4500, 100, 100)) as dst:
+            dst.write(values, 1)
+    monkeypatch.setattr(grid_reduce, "MAP_SIDE", 24)  # step = ceil(70 / 24) = 3
+    spec = GridSpec(concentration=str(tmp_path / "conc.tif"), population=str(tmp_path / "pop.tif"),
+                    zones=str(tmp_path / "zones.tif"), chunk=16)
+    _, notes = grid_reduce.reduce_grid(spec, [10, 20, 30])
+    sample = notes.sample
+    assert sample is not None and sample.step == 3
+    conc, pop, zone = (layers[n][0][::3, ::3] for n in ("conc.tif", "pop.tif", "zones.tif"))
+    np.testing.assert_array_equal(sample.concentration, conc.astype(float))
+    np.testing.assert_array_equal(sample.population, np.where(pop == -1.0, np.nan, pop))
+    lookup = {10: 0, 20: 1, 30: 2, 0: NODATA_ZONE}
+    np.testing.assert_array_equal(sample.zone_index,
+                                  np.vectorize(lookup.get)(zone).astype(np.int64))
