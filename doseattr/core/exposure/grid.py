@@ -370,7 +370,8 @@ def _valid(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np.inte
 
 def _bins(x: NDArray[np.floating], s: _Scratch) -> NDArray[np.int32]:
     """Bin ``floor((ln x - LOG_MIN) / LOG_STEP)`` of each cell, clipped to
-    ``[0, N_BINS - 1]`` (garbage where x is not finite and non-negative).
+    ``[0, N_BINS - 1]``, and -1 at x = 0 (garbage where x is not finite and
+    non-negative).
 
     The logarithm is taken in float32 (a fraction of the cost of float64),
     whose error in the bin coordinate is below 0.005 bin; a cell whose
@@ -393,10 +394,10 @@ def _bins(x: NDArray[np.floating], s: _Scratch) -> NDArray[np.int32]:
         t -= r
         np.abs(t, out=t)
         np.less(t, NEAR_EDGE, out=near)
-    held = np.flatnonzero(near)
+    held = np.flatnonzero(near)  # concentration 0 among them (t clipped to 0)
     edge = r[held].astype(np.int64)
-    below = x[held] < EDGES[edge]
-    bins[held] = np.clip(edge - below, 0, N_BINS - 1)
+    xs = x[held]
+    bins[held] = np.where(xs == 0, -1, np.clip(edge - (xs < EDGES[edge]), 0, N_BINS - 1))
     return bins
 
 
@@ -407,17 +408,15 @@ def _block_sums(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np
     the rows the valid cells touch, the first such row, and cells per zone.
 
     Each cell's slot ``zone * WIDTH + 1 + bin`` (``zone * WIDTH`` at
-    concentration 0) is one ``np.bincount`` index; skipped cells are sent
-    to a valid cell's slot with weight 0 (and taken off its count).
+    concentration 0, where the bin is -1) is one ``np.bincount`` index;
+    skipped cells are sent to a valid cell's slot with weight 0 (and taken
+    off its count).
     """
     n = x.size
     flat = s.get("flat", n, np.int64)
     tmp = s.get("tmp", n, np.bool_)
     np.multiply(zi, WIDTH, out=flat, dtype=np.int64, casting="unsafe")
-    flat += 1
-    flat += bins
-    np.equal(x, 0, out=tmp)
-    flat -= tmp  # concentration 0: slot 0 of the row
+    flat += bins  # the slot less 1 (bin -1 at concentration 0)
     w, m = s.get("w", n, np.float64), s.get("m", n, np.float64)
     np.copyto(w, p)
     np.multiply(w, x, out=m)
@@ -435,6 +434,7 @@ def _block_sums(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np
     counts = np.bincount(flat, minlength=size)
     if skipped:
         counts[ref - lo] -= skipped
+    lo, hi = lo + 1, hi + 1  # as slots
     row0, rows = lo // WIDTH, hi // WIDTH - lo // WIDTH + 1
     at = lo - row0 * WIDTH
     sums = np.zeros((2, rows * WIDTH))
