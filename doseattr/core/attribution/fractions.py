@@ -146,7 +146,9 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
         # one pass for both the minimum-risk floor and the flat extension
         # (np.maximum alone without a top: the same values, a third of the cost)
         lifted = np.maximum(y, mm) if top == np.inf else np.clip(y, mm, top)
-        return curve.model.log_rr(lifted, c) - curve.model.log_rr(mm, c)
+        base = curve.model.log_rr(mm, c)
+        out = curve.model.log_rr(lifted, c)
+        return out - base if np.any(base) else out  # ln RR(m) = 0 (m at the reference)
 
     return log_rr
 
