@@ -483,9 +483,8 @@ def generated(folder: Path) -> bool:
     return all((folder / name).exists() for name in names)
 
 
-def reused(folder: Path) -> dict[str, Any]:
+def reused() -> dict[str, Any]:
     """A stand-in for the generation's report when its files are reused."""
-    del folder
     return {"mode": "generation (files reused, not timed)", "seconds": 0.0, "peak_mb": 0.0,
             "peak_mb_before": 0.0, "vm_hwm_mb": None, "floor_mb": peak_mb()}
 
@@ -595,7 +594,7 @@ def main(argv: list[str] | None = None) -> None:
     else:
         folder = Path(tempfile.mkdtemp(prefix="doseattr-grid-bench-", dir=args.folder))
     try:
-        generation = (reused(folder) if args.reuse and generated(folder)
+        generation = (reused() if args.reuse and generated(folder)
                       else run_child("generate", args, folder))
         bare = run_child("bare", args, folder)
         analysis = run_child("analysis", args, folder)
