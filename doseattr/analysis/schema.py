@@ -384,7 +384,7 @@ class Context:
         expected = unit if unit is not None else self.unit
         origin = unit_origin or ("the file's unit" if unit is None else f"[{section}] unit")
         if is_in_memory(value):
-            name = in_memory_name(key_location(section, key))
+            name = in_memory_name(key_location(section, key), value)
             return TableRef(name, _options({}, {}, expected, origin), value)
         own = dict(value) if isinstance(value, Mapping) else {"path": value}
         path = self.path(own.pop("path"), section, key)

@@ -388,6 +388,7 @@ def frame_sha256(data: Any) -> str:
     return hashlib.sha256(frame_csv(data)).hexdigest()
 
 
-def in_memory_name(location: str) -> str:
-    """``<DataFrame for [exposure] table>`` from ``"[exposure] key 'table'"``."""
-    return f"<DataFrame for {location.replace(' key ', ' ').replace(chr(39), '')}>"
+def in_memory_name(location: str, value: Any) -> str:
+    """``<DataFrame for [exposure] table>`` from ``"[exposure] key 'table'"``
+    (``<ndarray for ...>`` for a numpy array)."""
+    return f"<{type(value).__name__} for {location.replace(' key ', ' ').replace(chr(39), '')}>"
