@@ -384,7 +384,7 @@ def frame_csv(data: Any, source: str = "") -> bytes:
 
 def frame_sha256(data: Any) -> str:
     """Hex SHA-256 (FIPS 180-4, via :mod:`hashlib`) of :func:`frame_csv`:
-    equal tables in memory hash equal, whatever their dtypes."""
+    tables in memory with the same cells hash equal."""
     return hashlib.sha256(frame_csv(data)).hexdigest()
 
 
