@@ -126,7 +126,12 @@ def _one_line(text: str, limit: int = 200) -> str:
 
 def analysis_from_dict(d: Mapping[str, Any], base_dir: str | os.PathLike[str] = ".") -> Analysis:
     """Check an analysis given as a dictionary shaped like the TOML file
-    (for notebooks); table paths are relative to ``base_dir``."""
+    (for notebooks); table paths are relative to ``base_dir``.
+
+    Where a table path goes, a pandas DataFrame (columns named as in the
+    file) or, for measurements, a 1-D numpy array of values may stand
+    instead; messages and provenance name it ``<DataFrame for [exposure]
+    table>``, and provenance holds the SHA-256 of its cells as CSV."""
     if not isinstance(d, Mapping):
         raise InputError(f"an analysis must be a dictionary, got {type(d).__name__}")
     return _build(dict(d), base_dir=os.fspath(base_dir), source=None)

@@ -84,10 +84,11 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
     for line_no, cells in grid.rows:
         if not any(cells):
             continue
-        cells = _kept(cells, keep, len(grid.header), source, line_no)
-        if len(cells) != len(header):
-            raise InputError(f"has {len(cells)} values but the header has {len(header)} "
-                             f"columns{_split_hint(grid, cells)}", source=source,
+        width = len(grid.header)
+        cells = _kept(cells, keep, width)
+        if cells is None:
+            raise InputError(f"has {len(cells_of(grid, line_no))} values but the header has "
+                             f"{width} columns{_split_hint(grid, line_no)}", source=source,
                              location=f"row {line_no}")
         rows.append(Row(line_no, dict(zip(header, cells))))
     if not rows:
@@ -100,23 +101,31 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
                     getattr(options, "unit_origin", "the file's unit"))
 
 
-def _split_hint(grid: Grid, cells: list[str]) -> str:
-    if grid.kind == "text" and grid.decimal == "." and len(cells) > len(grid.header):
+def cells_of(grid: Grid, line_no: int) -> list[str]:
+    return next(cells for n, cells in grid.rows if n == line_no)
+
+
+def _split_hint(grid: Grid, line_no: int) -> str:
+    if (grid.kind == "text" and grid.decimal == "."
+            and len(cells_of(grid, line_no)) > len(grid.header)):
         return ("; a decimal comma splits a number in two in a comma-separated file: write "
                 "'.' as decimal point, or save with ';' between columns and set "
                 "delimiter = \";\" and decimal = \",\" in [tables]")
     return ""
 
 
-def _kept(cells: list[str], keep: list[int], width: int, source: str,
-          line_no: int) -> list[str]:
-    """The cells under named columns. Empty cells beyond the header are
-    dropped; a value under a column without a name is refused."""
-    if len(keep) == width and len(cells) <= width:
-        return cells
-    if any(cells[width:]):
-        return cells  # more values than columns: the caller says so
-    return [cells[i] if i < len(cells) else "" for i in keep] if len(cells) >= width else cells
+def _kept(cells: list[str], keep: list[int], width: int) -> list[str] | None:
+    """The cells under the kept columns, or ``None`` when the row does not
+    fit the header. Empty cells beyond the header are dropped; a row may
+    stop before trailing columns that have neither a name nor a value."""
+    n = len(cells)
+    if n > width and not any(cells[width:]):
+        cells, n = cells[:width], width
+    if keep and keep[-1] < n < width:
+        cells, n = cells + [""] * (width - n), width
+    if n != width:
+        return None
+    return [cells[i] for i in keep]
 
 
 #: A unit at the end of a column name: ``value (ug/m3)`` or ``value [mg/m3]``.

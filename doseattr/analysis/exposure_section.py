@@ -4,7 +4,6 @@ the keys that go with it, checked."""
 
 from __future__ import annotations
 
-import dataclasses
 from datetime import date
 from typing import Any
 
@@ -226,10 +225,9 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
                               notes=tuple(notes) + bins.notes)
     # intensities are in [exposure] unit, a concentration; without it the
     # header's unit is not checked (the file's unit is cumulative)
-    intensity = e.get("unit") or ""
-    path = ctx.table(e["histories"], "exposure", "histories", unit=intensity or None)
-    if not intensity:
-        path.options = dataclasses.replace(path.options, unit=None)
+    intensity = e.get("unit")
+    path = ctx.table(e["histories"], "exposure", "histories", unit=intensity,
+                     check_unit=intensity is not None)
     if "as_of" not in e:
         raise ctx.error("missing key 'as_of' (the analysis date, e.g. as_of = \"2024-12-31\"; "
                         "exposure after it minus the lag does not count)", "exposure", "as_of")
@@ -246,9 +244,8 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
                         "exposure before the cutoff; remove this key", "exposure", "unexposed")
     tasks = None
     if "tasks" in e:
-        tasks_path = ctx.table(e["tasks"], "exposure", "tasks", unit=intensity or None)
-        if not intensity:
-            tasks_path.options = dataclasses.replace(tasks_path.options, unit=None)
+        tasks_path = ctx.table(e["tasks"], "exposure", "tasks", unit=intensity,
+                               check_unit=intensity is not None)
         tasks = read_tasks(tasks_path, tasks_path)
         notes.append(f"jobs with an empty intensity take the 8-hour TWA of their task samples "
                      f"(sum of concentration x minutes / 480; {len(tasks.twa)} jobs sampled)")

@@ -373,15 +373,16 @@ class Context:
 
 
     def table(self, value: Any, section: str, key: str, *, unit: str | None = None,
-              unit_origin: str | None = None) -> TableRef:
+              unit_origin: str | None = None, check_unit: bool = True) -> TableRef:
         """The table a table key names, with how to read it: a file (its
         path checked as :meth:`path` does) with the ``[tables]`` options
         and its own (``{path = ..., delimiter = ...}``), or a table given
         from Python, named ``<DataFrame for [exposure] table>``. ``unit``
-        is the unit of the table's exposure columns (default: the file's)."""
+        is the unit of the table's exposure columns (default: the file's;
+        ``check_unit=False`` checks no unit in the header)."""
         from doseattr.analysis.tablefile import TableRef, in_memory_name, is_in_memory
 
-        expected = unit if unit is not None else self.unit
+        expected = None if not check_unit else unit if unit is not None else self.unit
         origin = unit_origin or ("the file's unit" if unit is None else f"[{section}] unit")
         if is_in_memory(value):
             name = in_memory_name(key_location(section, key), value)
@@ -414,9 +415,9 @@ class Context:
                 raise self.error(f"sheet goes with an .xlsx workbook; {path} is not one",
                                  section, key)
             if name != "sheet" and kind != "text":
-                raise self.error(f"{name} goes with CSV text tables; {path} is an {kind} "
-                                 "file, whose cells need no delimiter, decimal or encoding",
-                                 section, key)
+                what = "an .xlsx workbook" if kind == "xlsx" else "a Parquet file"
+                raise self.error(f"{name} goes with CSV text tables; {path} is {what}, whose "
+                                 "cells need no delimiter, decimal or encoding", section, key)
         return own
 
     def check_tables(self) -> None:
