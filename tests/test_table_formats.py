@@ -262,3 +262,56 @@ def test_several_sheets_need_a_sheet(tmp_path, capsys):
         _frame().to_excel(xl, sheet_name="B", index=False)
     err = _run_error(_case(tmp_path, '"s.xlsx"'), tmp_path, capsys)
     assert "'A', 'B'" in err and "sheet = 'A'" in err
+
+
+def test_work_histories_with_date_cells(tmp_path):
+    """Dates typed as dates in a workbook read as the ISO dates of the CSV."""
+    import datetime as dt
+
+    from doseattr.analysis.exposure_tables import read_histories
+    from doseattr.analysis.tablefile import TableRef
+
+    jobs = pd.DataFrame({"worker": ["w1", "w1", "w2"],
+                         "start": [dt.datetime(2001, 3, 1), dt.datetime(2005, 1, 1),
+                                   dt.datetime(1999, 7, 15)],
+                         "end": [dt.datetime(2005, 1, 1), dt.datetime(2010, 6, 30),
+                                 dt.datetime(2012, 2, 29)],
+                         "intensity (ppm)": [0.5, 1.25, 0.8]})
+    jobs.to_excel(tmp_path / "h.xlsx", index=False)
+    jobs.to_csv(tmp_path / "h.csv", index=False, date_format="%Y-%m-%d")
+    got = read_histories(TableRef(str(tmp_path / "h.xlsx")))
+    ref = pd.read_excel(tmp_path / "h.xlsx")  # pandas.read_excel
+    np.testing.assert_array_equal(got.start, ref["start"].to_numpy().astype("datetime64[D]"))
+    np.testing.assert_array_equal(got.end, ref["end"].to_numpy().astype("datetime64[D]"))
+    np.testing.assert_array_equal(got.intensity, ref["intensity (ppm)"].to_numpy())
+    from_csv = read_histories(str(tmp_path / "h.csv"))
+    np.testing.assert_array_equal(got.start, from_csv.start)
+    assert got.lines == (2, 3, 4)
+
+
+def test_own_options_override_tables(tmp_path):
+    _frame().to_csv(tmp_path / "s.csv", index=False, sep=";", decimal=",")
+    BANDS.to_csv(tmp_path / "bands.csv", index=False)
+    path = _case(tmp_path, '"s.csv"', top='[tables]\ndelimiter = ";"\ndecimal = ","\n',
+                 bands='{path = "bands.csv", delimiter = ",", decimal = "."}')
+    got = _read(path)
+    _check(got, pd.read_csv(tmp_path / "s.csv", sep=";", decimal=","))  # pandas.read_csv
+    ref = pd.read_csv(tmp_path / "bands.csv")  # pandas.read_csv
+    np.testing.assert_array_equal(got[2].rr, ref["rr"].to_numpy())
+
+
+def test_tabs_in_a_csv_file(tmp_path, capsys):
+    _frame().to_csv(tmp_path / "s.csv", index=False, sep="\t")
+    err = _run_error(_case(tmp_path, '"s.csv"'), tmp_path, capsys)
+    assert "s.csv: row 1:" in err and "separated by tabs" in err and "delimiter" in err
+
+
+def test_provenance_of_a_table_with_options(tmp_path):
+    from doseattr.analysis.provenance import input_tables, sha256_bytes
+
+    _frame().to_csv(tmp_path / "s.csv", index=False, sep=";")
+    a = load_analysis(_case(tmp_path, '{path = "s.csv", delimiter = ";"}'))
+    tables = {t.key: t for t in input_tables(a)}
+    t = tables["[exposure] key 'table'"]
+    assert t.relative == "s.csv"
+    assert t.sha256 == sha256_bytes((tmp_path / "s.csv").read_bytes())

@@ -85,12 +85,12 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
         if not any(cells):
             continue
         width = len(grid.header)
-        cells = _kept(cells, keep, width)
-        if cells is None:
-            raise InputError(f"has {len(cells_of(grid, line_no))} values but the header has "
-                             f"{width} columns{_split_hint(grid, line_no)}", source=source,
+        kept = _kept(cells, keep, width)
+        if kept is None:
+            raise InputError(f"has {len(cells)} values but the header has {width} "
+                             f"columns{_split_hint(grid, cells)}", source=source,
                              location=f"row {line_no}")
-        rows.append(Row(line_no, dict(zip(header, cells))))
+        rows.append(Row(line_no, dict(zip(header, kept))))
     if not rows:
         last = grid.rows[-1][0] + 1 if grid.rows else grid.header_line + 1
         raise InputError("the file has a header but no data rows", source=source,
@@ -101,13 +101,8 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
                     getattr(options, "unit_origin", "the file's unit"))
 
 
-def cells_of(grid: Grid, line_no: int) -> list[str]:
-    return next(cells for n, cells in grid.rows if n == line_no)
-
-
-def _split_hint(grid: Grid, line_no: int) -> str:
-    if (grid.kind == "text" and grid.decimal == "."
-            and len(cells_of(grid, line_no)) > len(grid.header)):
+def _split_hint(grid: Grid, cells: list[str]) -> str:
+    if grid.kind == "text" and grid.decimal == "." and len(cells) > len(grid.header):
         return ("; a decimal comma splits a number in two in a comma-separated file: write "
                 "'.' as decimal point, or save with ';' between columns and set "
                 "delimiter = \";\" and decimal = \",\" in [tables]")
