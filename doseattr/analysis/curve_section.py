@@ -78,7 +78,7 @@ def _fitted_curve(c: dict[str, Any], ctx: Context) -> TableCurve:
         model = "log-linear"
         notes.append("[curve] model not given: the log-linear model was fitted")
     _model_settings(c, model, ctx)
-    path = ctx.path(c["table"], "curve", "table")
+    path = ctx.table(c["table"], "curve", "table", unit=c.get("unit"))
     design = c.get("design")
     table = read_study_table(path, path, design=design)
     if design is None:
@@ -185,7 +185,7 @@ def _given_curve(c: dict[str, Any], key: str, ctx: Context) -> PointsCurve | Dra
     if c.get("beyond", "flat") != "flat":
         raise ctx.error(f"a curve given as {key} is held flat beyond its last dose; it cannot "
                         "be extended", "curve", "beyond")
-    path = ctx.path(c[key], "curve", key)
+    path = ctx.table(c[key], "curve", key, unit=c.get("unit"))
     data = read_points_table(path, path) if key == "points" else read_draws_table(path, path)
     reference = nonnegative(c, "reference_dose", ctx)
     if reference is not None and not data.doses[0] <= reference <= data.doses[-1]:

@@ -115,7 +115,7 @@ def parse_grid(section: Mapping[str, Any], ctx: Context) -> GridSpec:
         if given == "concentration" and "zones" not in g:
             raise ctx.error("zone_names names the zones of a zones raster; add zones = "
                             "\"...\" or remove zone_names", "grid", "zone_names")
-        zone_names = ctx.path(g["zone_names"], "grid", "zone_names")
+        zone_names = ctx.table(g["zone_names"], "grid", "zone_names")
     return GridSpec(cells=cells, zone_names=zone_names, error_gsd=_error_gsd(g, ctx),
                     chunk=_chunk(g, ctx), **raster)
 
