@@ -30,6 +30,7 @@ from importlib import resources
 from pathlib import Path
 
 from doseattr import __version__
+from doseattr.analysis.progress import show_stage
 from doseattr.errors import DoseattrError, DoseattrWarning, InputError
 
 EXIT_OK = 0
@@ -37,7 +38,9 @@ EXIT_BUG = 1
 EXIT_ERROR = 2
 DEMO_PACKAGE = "doseattr.demo"
 DEMO_FILE = "analysis.toml"
+DEMO_SUFFIXES = (".toml", ".csv", ".md")
 STOP_SIGNALS = ("SIGINT", "SIGTERM")
+_PYTHON_SHOWWARNING = warnings.showwarning
 
 
 class Stopped(BaseException):
@@ -99,8 +102,9 @@ def main(argv: Sequence[str] | None = None) -> int:
                 return _check(args.analysis, args.scheduler)
             path = (args.analysis if args.command == "run"
                     else str(stack.enter_context(_demo_file())))
+            inputs = _demo_inputs(Path(path)) if args.command == "demo" else ()
             return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv],
-                        scheduler=getattr(args, "scheduler", None))
+                        scheduler=getattr(args, "scheduler", None), inputs=inputs)
     except DoseattrError as exc:
         print(f"doseattr: error: {_line(exc)}", file=sys.stderr)
         return EXIT_ERROR
@@ -125,7 +129,7 @@ def _load(path: str, scheduler: str | None):
 
 
 def _run(path: str, out: str, *, quiet: bool, command: list[str],
-         scheduler: str | None = None) -> int:
+         scheduler: str | None = None, inputs: Sequence[tuple[str, Path]] = ()) -> int:
     from doseattr.analysis.pipeline import run_analysis
     from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
@@ -134,25 +138,39 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
     with warnings.catch_warnings(record=True) as caught:
-        # shown once each below, as our own lines rather than Python's
+        # our own lines rather than Python's: as they arise, and again at the
+        # end with --quiet (they may change a decision)
         warnings.simplefilter("always", DoseattrWarning)
+        if not quiet:
+            warnings.showwarning = _show_now
+        show_stage("fitting", not quiet)
         results = run_analysis(analysis, progress=not quiet)
     _same_inputs(read, results.provenance, path)  # as the run finished
     _same_inputs(read, provenance(analysis), path)  # and now, before writing
     try:
-        written = write_outputs(results, out, command=command)
+        written = write_outputs(results, out, command=command, inputs=inputs,
+                                stage=lambda name: show_stage(name, not quiet))
     except OSError as exc:
         raise InputError(f"cannot write the outputs: {exc.strerror or exc}",
                          location=out_location(out)) from None
-    for w in caught:  # on standard error even with --quiet: they may change a decision
-        if issubclass(w.category, DoseattrWarning):
-            print(f"doseattr: warning: {w.message}", file=sys.stderr)
-        else:  # not ours: as Python would have shown it
-            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    finally:
+        show_stage("", not quiet)
+    for w in caught:
+        _show_now(w.message, w.category, w.filename, w.lineno)
     if not quiet:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")
     return EXIT_OK
+
+
+def _show_now(message, category, filename, lineno, file=None, line=None) -> None:
+    """A warning as one line on standard error: ours as ``doseattr:
+    warning: ...``, any other as Python would have shown it."""
+    if issubclass(category, DoseattrWarning):
+        show_stage("", True)  # off the status line
+        print(f"doseattr: warning: {message}", file=sys.stderr)
+    else:
+        _PYTHON_SHOWWARNING(message, category, filename, lineno, file, line)
 
 
 def _same_inputs(read: dict, now: dict, path: str) -> None:
@@ -209,6 +227,13 @@ def _demo_file():
                                 "is missing); reinstall doseattr") from None
         return nullcontext(checkout)
     return resources.as_file(ref)
+
+
+def _demo_inputs(analysis: Path) -> list[tuple[str, Path]]:
+    """The demo's files (analysis, tables, README), to copy into
+    ``DIR/inputs/`` so that a user can start from them."""
+    return [(p.name, p) for p in sorted(analysis.parent.iterdir())
+            if p.is_file() and p.suffix in DEMO_SUFFIXES]
 
 
 def _line(exc: DoseattrError) -> str:
