@@ -5,6 +5,7 @@
     doseattr run ANALYSIS.toml --out DIR [--quiet]
     doseattr check ANALYSIS.toml
     doseattr demo --out DIR [--quiet]
+    doseattr init KIND DIR
 
 Every error this package raises on purpose is caught in :func:`main`, and
 only there: it prints ``doseattr: error: <file>: <location>: <message>`` on
@@ -30,7 +31,6 @@ from importlib import resources
 from pathlib import Path
 
 from doseattr import __version__
-from doseattr.analysis.progress import show_stage
 from doseattr.errors import DoseattrError, DoseattrWarning, InputError
 
 EXIT_OK = 0
@@ -39,6 +39,9 @@ EXIT_ERROR = 2
 DEMO_PACKAGE = "doseattr.demo"
 DEMO_FILE = "analysis.toml"
 DEMO_SUFFIXES = (".toml", ".csv", ".md")
+#: ``doseattr init`` kinds (those of :data:`doseattr.outputs.templates.KINDS`,
+#: named here so that the parser imports nothing heavy).
+TEMPLATE_KINDS = ("concentration", "workplace", "districts", "grid")
 STOP_SIGNALS = ("SIGINT", "SIGTERM")
 _PYTHON_SHOWWARNING = warnings.showwarning
 
@@ -75,6 +78,16 @@ def build_parser() -> argparse.ArgumentParser:
                           description="Run the bundled demo analysis, a fictional town and "
                                       "study with invented numbers, and write its outputs.")
     _common(demo)
+    init = sub.add_parser("init", help="write a starting analysis and example tables",
+                          description="Write a commented starting analysis and small example "
+                                      "tables (invented numbers) into DIR, a new or empty "
+                                      "folder: concentration (monitor data and a study's "
+                                      "bands), workplace (personal samples by worker, an OEL, "
+                                      "work histories), districts (strata with population and "
+                                      "rates), grid (grid cells with zones).")
+    init.add_argument("kind", metavar="KIND", choices=TEMPLATE_KINDS,
+                      help="one of " + ", ".join(TEMPLATE_KINDS))
+    init.add_argument("dir", metavar="DIR", help="a new or empty folder")
     return parser
 
 
@@ -100,6 +113,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         with _stop_on_signals(), ExitStack() as stack:
             if args.command == "check":
                 return _check(args.analysis, args.scheduler)
+            if args.command == "init":
+                return _init(args.kind, args.dir)
             path = (args.analysis if args.command == "run"
                     else str(stack.enter_context(_demo_file())))
             inputs = _demo_inputs(Path(path)) if args.command == "demo" else ()
@@ -131,6 +146,7 @@ def _load(path: str, scheduler: str | None):
 def _run(path: str, out: str, *, quiet: bool, command: list[str],
          scheduler: str | None = None, inputs: Sequence[tuple[str, Path]] = ()) -> int:
     from doseattr.analysis.pipeline import run_analysis
+    from doseattr.analysis.progress import show_stage
     from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
@@ -167,6 +183,8 @@ def _show_now(message, category, filename, lineno, file=None, line=None) -> None
     """A warning as one line on standard error: ours as ``doseattr:
     warning: ...``, any other as Python would have shown it."""
     if issubclass(category, DoseattrWarning):
+        from doseattr.analysis.progress import show_stage
+
         show_stage("", True)  # off the status line
         print(f"doseattr: warning: {message}", file=sys.stderr)
     else:
@@ -182,6 +200,20 @@ def _same_inputs(read: dict, now: dict, path: str) -> None:
         if before["sha256"] != after["sha256"]:
             raise InputError(f"{before['path']} changed while the run was computing; run again",
                              source=path, location=before["key"])
+
+
+def _init(kind: str, folder: str) -> int:
+    from doseattr.outputs.templates import write_template
+
+    try:
+        written = write_template(kind, folder)
+    except OSError as exc:
+        raise InputError(f"cannot write the template: {exc.strerror or exc}",
+                         location=f"DIR '{folder}'") from None
+    print(f"wrote {len(written)} files to {folder}: {', '.join(p.name for p in written)} "
+          "(invented numbers; replace them with your own)")
+    print(f"next: doseattr check {Path(folder) / 'analysis.toml'}")
+    return EXIT_OK
 
 
 def _check(path: str, scheduler: str | None = None) -> int:
