@@ -13,6 +13,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from pathlib import Path
 from typing import ClassVar
 
@@ -69,7 +70,10 @@ def test_the_bar_counts_draws_not_draws_times_strata(tmp_path, fake_tqdm):
     for bar in fake_tqdm:
         assert bar.done == bar.total, bar.desc
     widths = [b for b in fake_tqdm if b.desc.startswith("draws, one source")]
-    assert widths and all(b.total % 300 == 0 for b in widths)  # draws x sources
+    assert widths
+    for b in widths:  # "(k x 300)": k sources varied alone, 300 draws each
+        k = int(re.search(r"\((\d+) x 300\)", b.desc).group(1))
+        assert b.total == k * 300
 
 
 def test_the_bar_rescales_uneven_ticks(fake_tqdm):

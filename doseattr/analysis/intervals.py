@@ -152,7 +152,8 @@ def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
     out = []
     units = u.draws * len(sources) * len({id(s.exposure) for s in strata})
     with progress_bar(units, progress, draws=u.draws * len(sources),
-                      stage="draws, one source at a time") as tick:
+                      stage=f"draws, one source at a time ({len(sources)} x {u.draws})"
+                      ) as tick:
         for i, source in enumerate(sources):
             prop = propagate(curve, strata, [], draws=u.draws,
                              rng=np.random.default_rng([u.seed, 2, i]),

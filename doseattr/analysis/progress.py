@@ -29,9 +29,13 @@ def progress_bar(units: int, enabled: bool, *, draws: int | None = None,
     from tqdm import tqdm
 
     steps = units if draws is None else draws
-    with tqdm(total=steps, unit="draw", disable=None, delay=1.0, leave=False,
-              file=sys.stderr, desc=stage) as bar:
-        yield _rescaled(bar, units, steps)
+    show_stage(stage, True)  # at once; the bar replaces it after a second
+    try:
+        with tqdm(total=steps, unit="draw", disable=None, delay=1.0, leave=False,
+                  file=sys.stderr, desc=stage) as bar:
+            yield _rescaled(bar, units, steps)
+    finally:
+        show_stage("", True)
 
 
 def _rescaled(bar, units: int, steps: int) -> Callable[[int], None]:
