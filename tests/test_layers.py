@@ -12,9 +12,13 @@ PACKAGE = Path(__file__).resolve().parent.parent / "doseattr"
 LAYERS = {"core": 0, "results": 1, "analysis": 2, "outputs": 3, "cli": 4}
 #: Modules every layer may import.
 SHARED = {"doseattr", "doseattr.errors"}
-#: The one call upward, made on use: ``Results.write`` hands the record to
-#: the outputs layer's writer (the same rules as ``doseattr run --out``).
-ALLOWED = {("doseattr.results.run", "doseattr.outputs.write")}
+#: The calls upward, made on use: ``Results.write`` hands the record to the
+#: outputs layer's writer (the same rules as ``doseattr run --out``);
+#: ``Results.to_frames`` reads the same CSV tables as DataFrames and
+#: ``Results._repr_html_`` shows the report's key numbers in a notebook.
+ALLOWED = {("doseattr.results.run", "doseattr.outputs.write"),
+           ("doseattr.results.run", "doseattr.outputs.tables"),
+           ("doseattr.results.run", "doseattr.outputs.report")}
 
 
 def _layer(module: str) -> int | None:

@@ -28,6 +28,7 @@ from doseattr.analysis.csvfile import (
     Row,
     below_sqrt_max,
     cell_error,
+    check_units,
     near_column,
     number,
     read_raw,
@@ -118,6 +119,7 @@ def read_burden(path: str | Path, source: str | None = None, *,
     ``group`` or ``life_expectancy`` column must be filled on every row."""
     raw = read_raw(path, source)
     _check_columns(raw)
+    check_units(raw, ("gm", "mean", "sd", "scale"))
     pairs = [p for p in STRATUM_EXPOSURE if p[0] in raw.columns or p[1] in raw.columns]
     for a, b in pairs:
         missing = b if a in raw.columns else a

@@ -40,6 +40,7 @@ from doseattr.analysis.specs import (
     OutcomeSpec,
     PercentilesExposure,
     PointsCurve,
+    PooledCurve,
     ShapeCurve,
     StrataExposure,
     SummaryExposure,
@@ -213,7 +214,7 @@ class divergence:
         if issubclass(kind, FloatRangeError):
             raise InputError(f"there is no PAF: {exc}", source=a.source,
                              location="[curve]") from None
-        how = ("beyond = \"flat\"" if isinstance(a.curve, TableCurve)
+        how = ("beyond = \"flat\"" if isinstance(a.curve, (TableCurve, PooledCurve))
                else "max_dose with beyond = \"flat\"")
         raise InputError(
             f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
@@ -304,10 +305,28 @@ def _entered_words(spec: EnteredCurve, built: BuiltCurve, unit: str) -> str:
     return f"{spec.model} from a published {spec.estimate} = {spec.value:g} per {spec.per:g} {unit}"
 
 
+def _pooled_words(spec: PooledCurve, built: BuiltCurve, unit: str) -> str:
+    """The studies, how they are pooled and which draws the Monte Carlo makes."""
+    how = ("fixed effect (inverse-variance GLS)" if spec.pooling == "fixed" else
+           f"random effects (between-study variance by {spec.tau_method.upper()})")
+    studies = "; ".join(f"'{n}': {_table_words(s, _own_notes(built, n), unit)}"
+                        for n, s in zip(spec.names, spec.studies))
+    draws = ("draws of a new population's curve (predict = true)" if spec.predict
+             else "draws of the pooled mean curve")
+    return (f"{spec.model} fitted to each of {len(spec.studies)} studies and pooled by {how}, "
+            f"{draws} [{studies}]")
+
+
+def _own_notes(built: BuiltCurve, name: str) -> BuiltCurve:
+    """``built`` with only the notes of study ``name``."""
+    own = f"study '{name}': "
+    return dataclasses.replace(built, notes=tuple(t for t in built.notes if t.startswith(own)))
+
+
 #: How each source of curve is described (before where it is held flat).
 _CURVE_WORDS: dict[type, Callable[[Any, BuiltCurve, str], str]] = {
     TableCurve: _table_words, PointsCurve: _given_words, DrawsCurve: _given_words,
-    ShapeCurve: _shape_words, EnteredCurve: _entered_words}
+    ShapeCurve: _shape_words, EnteredCurve: _entered_words, PooledCurve: _pooled_words}
 
 
 def _exposure_line(a: Analysis, built: BuiltExposure) -> str:

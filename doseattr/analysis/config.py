@@ -127,7 +127,12 @@ def _one_line(text: str, limit: int = 200) -> str:
 
 def analysis_from_dict(d: Mapping[str, Any], base_dir: str | os.PathLike[str] = ".") -> Analysis:
     """Check an analysis given as a dictionary shaped like the TOML file
-    (for notebooks); table paths are relative to ``base_dir``."""
+    (for notebooks); table paths are relative to ``base_dir``.
+
+    Where a table path goes, a pandas DataFrame (columns named as in the
+    file) or, for measurements, a 1-D numpy array of values may stand
+    instead; messages and provenance name it ``<DataFrame for [exposure]
+    table>``, and provenance holds the SHA-256 of its cells as CSV."""
     if not isinstance(d, Mapping):
         raise InputError(f"an analysis must be a dictionary, got {type(d).__name__}")
     return _build(dict(d), base_dir=os.fspath(base_dir), source=None)
@@ -135,9 +140,13 @@ def analysis_from_dict(d: Mapping[str, Any], base_dir: str | os.PathLike[str] = 
 
 # -- the whole file -----------------------------------------------------------
 def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analysis:
-    ctx = Context(source, base_dir)
+    unit = data.get("unit")
+    ctx = Context(source, base_dir, unit=unit.strip() if isinstance(unit, str) else None,
+                  tables=data["tables"] if isinstance(data.get("tables"), dict) else {},
+                  exposure_unit=_exposure_unit(data))
     top = {k: v for k, v in data.items() if k not in SECTIONS or k == ""}
     _check_sections(data, ctx)
+    ctx.check_tables()
     _check_grid_sections(data, source)
     schema.check_section(top, "", source=source)
     if "unit" not in data:
@@ -176,6 +185,12 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
                     uncertainty=uncertainty, burden=burden, outcomes=outcomes, source=source,
                     base_dir=base_dir, settings=data, molecular_weight=units.molecular_weight,
                     own_curve="curve" in data, limit=limit)
+
+
+def _exposure_unit(data: dict[str, Any]) -> str | None:
+    e = data.get("exposure")
+    unit = e.get("unit") if isinstance(e, dict) else None
+    return unit.strip() if isinstance(unit, str) else None
 
 
 def _check_grid_sections(data: dict[str, Any], source: str | None) -> None:
@@ -258,7 +273,9 @@ def _strata_exposure(burden: BurdenSpec | None, outcomes: tuple[OutcomeSpec, ...
 
 def _curve(c: dict[str, Any], ctx: Context, units: Units) -> CurveSpec:
     """``[curve]`` checked, its doses converted to the file's unit."""
-    spec = parse_curve(c, ctx)
+    from doseattr.analysis.pooled_section import parse_pooled
+
+    spec = parse_pooled(c, ctx, units) if "study" in c else parse_curve(c, ctx)
     conv = conversion(units, c.get("unit"), "curve", ctx)
     return convert_curve(spec, conv, c.get("unit"))
 
@@ -454,7 +471,8 @@ def _burden(b: dict[str, Any], ctx: Context, conv: Conversion) -> BurdenSpec:
     if method not in BURDEN_METHODS:  # the schema refuses it first; kept for direct calls
         raise ctx.error(f"'{method}' is not one of {', '.join(BURDEN_METHODS)}", "burden",
                         "method")
-    path = ctx.path(b["table"], "burden", "table")
+    path = ctx.table(b["table"], "burden", "table", unit=ctx.exposure_unit,
+                     unit_origin="[exposure] unit" if ctx.exposure_unit else None)
     table = convert_burden(read_burden(path, path, rate_per=rate_per), conv)
     return BurdenSpec(table, method=method, rate_per=rate_per)
 

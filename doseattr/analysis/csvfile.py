@@ -1,36 +1,37 @@
-"""Reading a CSV table line by line, keeping each row's line number, and the
-cell checks every table shares.
+"""Reading a table row by row, keeping each row's number, and the cell
+checks every table shares.
 
-Row numbers in messages are line numbers in the file, as a text editor or
-spreadsheet shows them: the header is row 1 and the first data row is row 2
+Row numbers in messages are what a user finds the row by (see
+:mod:`doseattr.analysis.tablefile`, which reads CSV, TSV, .xlsx, Parquet
+and tables in memory): in a text file the line number, as a text editor or
+spreadsheet shows it: the header is row 1 and the first data row is row 2
 (comment lines starting with ``#`` and blank lines count as lines too, so
 the numbers still match the file when it has a comment header). Column
-names are matched without regard to case or surrounding spaces; columns a
-reader does not know are ignored (a ``label`` column is fine).
+names are matched without regard to case or surrounding spaces, after a
+trailing unit in brackets or parentheses is taken off (``value (ug/m3)``
+is the column ``value``); columns a reader does not know are ignored (a
+``label`` column is fine).
 
 Every problem raises :class:`~doseattr.errors.InputError` with the file as
 ``source`` and ``"row N, column 'x'"`` as ``location``.
-
-The reader is the standard library's :mod:`csv` module, line by line, so
-that each row keeps its line number (pandas' reader renumbers rows once
-comment and blank lines are dropped).
 """
 
 from __future__ import annotations
 
-import csv
 import difflib
 import math
+import re
 import sys
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Literal, overload
 
 import numpy as np
 from numpy.typing import NDArray
 
-from doseattr.errors import InputError
+from doseattr.analysis.tablefile import Grid, read_grid
+from doseattr.errors import InputError, ModelError
 
 FloatArray = NDArray[np.float64]
 
@@ -41,7 +42,7 @@ SQRT_MAX = math.sqrt(sys.float_info.max)
 
 @dataclass(frozen=True)
 class Row:
-    """One data row: its line number in the file and its cells by column."""
+    """One data row: its row number and its cells by column."""
 
     line: int
     cells: dict[str, str]
@@ -49,85 +50,148 @@ class Row:
 
 @dataclass(frozen=True)
 class RawTable:
+    """A table's text cells by row. ``units`` holds the unit written after a
+    column's name in the header (``value (ug/m3)``); ``decimal`` is the
+    decimal mark of a text table; ``kind`` its format (``"text"``,
+    ``"xlsx"``, ``"parquet"`` or ``"frame"``); ``unit`` and ``unit_origin``
+    the unit expected in the header and where it was said."""
+
     source: str
     columns: tuple[str, ...]
     rows: tuple[Row, ...]
+    units: Mapping[str, str] = field(default_factory=dict)
+    header_line: int = 1
+    decimal: str = "."
+    kind: str = "text"
+    unit: str | None = None
+    unit_origin: str = "the file's unit"
 
 
 # -- reading ----------------------------------------------------------------
 def read_raw(path: str | Path, source: str | None = None) -> RawTable:
-    """Read a CSV file into rows of text cells, keeping line numbers."""
+    """Read a table (CSV, TSV, .xlsx, Parquet, or a
+    :class:`~doseattr.analysis.tablefile.TableRef` to a table in memory)
+    into rows of text cells, keeping row numbers.
+
+    Rows whose every cell is empty (``,,`` as spreadsheets export them) are
+    skipped like blank lines, and so are columns with neither a name nor a
+    value."""
     source = str(path) if source is None else source
-    data = b""
-    try:
-        data = Path(path).read_bytes()
-        text = data.decode("utf-8-sig")
-    except FileNotFoundError:
-        raise InputError("file not found", source=source) from None
-    except IsADirectoryError:
-        raise InputError("is a folder, not a CSV file", source=source) from None
-    except UnicodeDecodeError as exc:
-        bad_line = data[:exc.start].count(b"\n") + 1
-        raise InputError("cannot be read as UTF-8 text; save it as CSV (UTF-8)",
-                         source=source, location=f"row {bad_line}") from None
-    except OSError as exc:
-        raise InputError(f"cannot be read: {exc.strerror or exc}", source=source) from None
-    header: list[str] | None = None
+    grid = read_grid(path, source)
+    source = grid.source
+    header, units, keep = _header(grid)
     rows: list[Row] = []
-    lines = text.splitlines()
-    for line_no, line in enumerate(lines, start=1):
-        if not line.strip() or line.lstrip().startswith("#"):
+    for line_no, cells in grid.rows:
+        if not any(cells):
             continue
-        cells = _cells(line, source, line_no)
-        if header is None:
-            header = _header(cells, line, source, line_no)
-            continue
-        if len(cells) != len(header):
-            raise InputError(f"has {len(cells)} values but the header has {len(header)} "
-                             "columns", source=source, location=f"row {line_no}")
-        rows.append(Row(line_no, dict(zip(header, cells))))
-    if header is None:
-        raise InputError("the file is empty (no header row)", source=source, location="row 1")
+        width = len(grid.header)
+        kept = _kept(cells, keep, width)
+        if kept is None:
+            raise InputError(f"has {len(cells)} values but the header has {width} "
+                             f"columns{_split_hint(grid, cells)}", source=source,
+                             location=f"row {line_no}")
+        rows.append(Row(line_no, dict(zip(header, kept))))
     if not rows:
+        last = grid.rows[-1][0] + 1 if grid.rows else grid.header_line + 1
         raise InputError("the file has a header but no data rows", source=source,
-                         location=f"row {len(lines) + 1}")
-    return RawTable(source, tuple(header), tuple(rows))
+                         location=f"row {last}")
+    options = getattr(path, "options", None)
+    return RawTable(source, tuple(header), tuple(rows), units, grid.header_line,
+                    grid.decimal, grid.kind, getattr(options, "unit", None),
+                    getattr(options, "unit_origin", "the file's unit"))
 
 
-def _cells(line: str, source: str, line_no: int) -> list[str]:
-    """One line's cells. A cell can be as long as its line: the csv
-    module's field size limit (128k characters by default) is raised for
-    the call and restored after."""
-    previous = csv.field_size_limit()
-    csv.field_size_limit(max(previous, len(line) + 1))
-    try:
-        return [c.strip() for c in next(csv.reader([line]), [])]
-    except csv.Error as exc:
-        raise InputError(f"cannot be read as CSV: {exc}", source=source,
-                         location=f"row {line_no}") from None
-    finally:
-        csv.field_size_limit(previous)
+def _split_hint(grid: Grid, cells: list[str]) -> str:
+    if grid.kind == "text" and grid.decimal == "." and len(cells) > len(grid.header):
+        return ("; a decimal comma splits a number in two in a comma-separated file: write "
+                "'.' as decimal point, or save with ';' between columns and set "
+                "delimiter = \";\" and decimal = \",\" in [tables]")
+    return ""
+
+
+def _kept(cells: list[str], keep: list[int], width: int) -> list[str] | None:
+    """The cells under the kept columns, or ``None`` when the row does not
+    fit the header. Empty cells beyond the header are dropped; a row may
+    stop before trailing columns that have neither a name nor a value."""
+    n = len(cells)
+    if n > width and not any(cells[width:]):
+        cells, n = cells[:width], width
+    if keep and keep[-1] < n < width:
+        cells, n = cells + [""] * (width - n), width
+    if n != width:
+        return None
+    return [cells[i] for i in keep]
+
+
+#: A unit at the end of a column name: ``value (ug/m3)`` or ``value [mg/m3]``.
+UNIT_IN_NAME = re.compile(r"^(?P<name>.*?)\s*(?:\((?P<p>[^()]*)\)|\[(?P<b>[^\[\]]*)\])$")
+
+
+def split_unit(name: str) -> tuple[str, str | None]:
+    """``("value", "ug/m3")`` from ``"value (ug/m3)"``; ``(name, None)``
+    without a unit."""
+    found = UNIT_IN_NAME.match(name)
+    if not found or not found.group("name"):
+        return name, None
+    unit = found.group("p") if found.group("p") is not None else found.group("b")
+    return found.group("name").strip(), unit.strip() or None
+
+
+def _header(grid: Grid) -> tuple[list[str], dict[str, str], list[int]]:
+    """The column names (lower case, units taken off), their units, and the
+    positions kept (columns with neither a name nor a value are dropped)."""
+    cells, source, line = grid.header, grid.source, grid.header_line
+    used: set[int] = set()
+    for _, row in grid.rows:
+        used.update(i for i, c in enumerate(row) if c)
+    keep = [i for i, c in enumerate(cells) if c or i in used]
+    names: list[str] = []
+    units: dict[str, str] = {}
+    for i in keep:
+        name, unit = split_unit(cells[i])
+        name = name.lower()
+        if not name:
+            raise InputError(f"column {i + 1} of the header has no name", source=source,
+                             location=f"row {line}")
+        if name in names:
+            raise InputError(f"column '{name}' appears twice in the header", source=source,
+                             location=f"row {line}")
+        names.append(name)
+        if unit is not None:
+            units[name] = unit
+    return names, units, keep
+
+
+def check_units(raw: RawTable, columns: Sequence[str]) -> None:
+    """Refuse a unit in the header of an exposure column (``value (mg/m3)``)
+    that is not the unit the section's values are in."""
+    if raw.unit is None:
+        return
+    for column in columns:
+        given = raw.units.get(column)
+        if given is not None and not same_unit(given, raw.unit):
+            raise InputError(f"the header gives column '{column}' in {given} but "
+                             f"{raw.unit_origin} is {raw.unit}; correct the header, or set "
+                             f"unit = \"{given}\" in the section to convert the values",
+                             source=raw.source,
+                             location=f"row {raw.header_line}, column '{column}'")
+
+
+def same_unit(a: str, b: str) -> bool:
+    """Whether two unit texts name one unit (``ug/m3`` and ``µg/m³`` do)."""
+    from doseattr.core.exposure.units import concentration_unit, cumulative_unit
+
+    for parse in (cumulative_unit, concentration_unit):
+        try:
+            return parse(a) == parse(b)
+        except ModelError:
+            continue
+    return "".join(a.split()).lower() == "".join(b.split()).lower()
 
 
 def shown(text: str, limit: int = 40) -> str:
     """A cell's text for a message, cut to ``limit`` characters."""
     return text if len(text) <= limit else f"{text[:limit]}... ({len(text)} characters)"
-
-
-def _header(cells: list[str], line: str, source: str, line_no: int) -> list[str]:
-    names = [c.lower() for c in cells]
-    if len(names) == 1 and ";" in line:
-        raise InputError("the columns are separated by ';'; save the file as "
-                         "comma-separated CSV with '.' as decimal point",
-                         source=source, location=f"row {line_no}")
-    for i, name in enumerate(names):
-        if not name:
-            raise InputError(f"column {i + 1} of the header has no name", source=source,
-                             location=f"row {line_no}")
-        if name in names[:i]:
-            raise InputError(f"column '{name}' appears twice in the header", source=source,
-                             location=f"row {line_no}")
-    return names
 
 
 def require_columns(raw: RawTable, required: Sequence[str], what: str) -> None:
@@ -165,16 +229,70 @@ def number(raw: RawTable, row: Row, column: str, *, required: bool = True) -> fl
             raise InputError("empty cell where a number belongs", source=raw.source,
                              location=where)
         return None
-    try:
-        value = float(text)
-    except ValueError:
-        hint = " (use '.' as decimal point)" if "," in text else ""
-        raise InputError(f"text '{shown(text)}' where a number belongs{hint}",
-                         source=raw.source, location=where) from None
+    value = _parse(raw, text)
+    if value is None:
+        raise InputError(f"text '{shown(text)}' where a number belongs{_number_hint(raw, text)}",
+                         source=raw.source, location=where)
     if not math.isfinite(value):
         raise InputError(f"'{shown(text)}' is not a finite number (numbers must lie within "
                          "about +-1.8e308)", source=raw.source, location=where)
     return value
+
+
+#: Digits grouped in threes by ``,``, ``.``, ``'`` or a space: a thousands
+#: separator (``1,500``, ``12.345,6``, ``1 500``).
+THOUSANDS = re.compile(r"^[+-]?\d{1,3}(?:([,.' \u00a0\u202f])\d{3})(?:\1\d{3})*(?:[.,]\d+)?$")
+DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
+#: How a laboratory may write a result below the detection limit.
+NON_DETECT_TEXT = ("nd", "n.d.", "n.d", "<lod", "< lod", "<dl", "bdl", "<mdl", "not detected")
+
+
+def _parse(raw: RawTable, text: str) -> float | None:
+    """The number a cell holds, or ``None`` when it holds none (with the
+    table's decimal mark: ``1,5`` is 1.5 with ``decimal = ","``)."""
+    if raw.decimal == ",":
+        if "." in text:
+            return None
+        text = text.replace(",", ".")
+    try:
+        return float(text)
+    except ValueError:
+        return None
+
+
+def _number_hint(raw: RawTable, text: str) -> str:
+    """What to do about a cell that is not a number: a non-detect, a
+    thousands separator or a decimal mark other than the table's (naming
+    the option to set)."""
+    if text.lower() in NON_DETECT_TEXT:
+        return (" (a result below the detection limit: write <L with the limit L, for "
+                "example <0.05)")
+    text_table = raw.kind == "text"
+    grouped = THOUSANDS.match(text)
+    if grouped:
+        mark = grouped.group(1)
+        if mark == "," and raw.decimal == "." and "." not in text:
+            option = " in [tables]" if text_table else " (or enter it as a number)"
+            return (f" (',' is a thousands separator or a decimal comma: write "
+                    f"{text.replace(',', '')} without the separator, or set decimal = \",\""
+                    f"{option} if ',' is the decimal mark)")
+        plain = text.replace(mark, "")
+        if raw.decimal == "." and "," in plain:
+            plain = plain.replace(",", ".")
+        elif raw.decimal == "," and "." in plain:
+            plain = plain.replace(".", ",")
+        return (f" (a thousands separator '{mark}': write {plain} without it; no thousands "
+                "separators are read)")
+    if raw.decimal == "," and "." in text:
+        return (" (decimal = \",\" is set for this table, so '.' is not a decimal mark: write "
+                f"{text.replace('.', ',')}, or remove the decimal option)")
+    if DECIMAL_COMMA.match(text):
+        if not text_table:
+            return (" (a decimal comma in a text cell: enter it as the number "
+                    f"{text.replace(',', '.')})")
+        return (" (a decimal comma: set decimal = \",\" in [tables] or in the table's "
+                f"options, or write {text.replace(',', '.')})")
+    return ""
 
 
 def cell_error(raw: RawTable, row: Row, column: str, message: str) -> InputError:

@@ -13,6 +13,7 @@ from doseattr.analysis.csvfile import (
     RawTable,
     Row,
     cell_error,
+    check_units,
     number,
     read_raw,
     require_columns,
@@ -52,6 +53,7 @@ def read_points_table(path: str | Path, source: str | None = None) -> PointsTabl
     above 0; a CI, where given, contains its RR."""
     raw = read_raw(path, source)
     require_columns(raw, ("dose", "rr"), "a points table")
+    check_units(raw, ("dose",))
     has_ci = "ci_lower" in raw.columns and "ci_upper" in raw.columns
     doses: list[float] = []
     rr: list[float] = []
@@ -85,6 +87,7 @@ def read_draws_table(path: str | Path, source: str | None = None) -> DrawsTable:
     further column one draw of the RR at those doses (at least 2 draws)."""
     raw = read_raw(path, source)
     dose_col, draw_cols = raw.columns[0], raw.columns[1:]
+    check_units(raw, (dose_col,))
     if len(draw_cols) < 2:
         raise InputError("a draws file needs a dose column and at least 2 draw columns",
                          source=raw.source, location="row 1")

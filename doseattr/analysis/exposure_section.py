@@ -91,7 +91,7 @@ def _measured_exposure(e: dict[str, Any], family: str | None, unexposed: float,
                        ctx: Context) -> MeasuredExposure:
     notes: list[str] = []
     family = _default_family(family, notes)
-    path = ctx.path(e["table"], "exposure", "table")
+    path = ctx.table(e["table"], "exposure", "table", unit=e.get("unit"))
     data = read_measurements(path, path, detected_column=e.get("detected", "detected"),
                              weight_column=e.get("weight", "weight"),
                              min_positive=1 if family == "empirical" else 3)
@@ -219,11 +219,15 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
         return PercentilesExposure(family=family, unexposed=unexposed, values=values,
                                    notes=tuple(notes))
     if mode == "bins":
-        path = ctx.path(e["bins"], "exposure", "bins")
+        path = ctx.table(e["bins"], "exposure", "bins", unit=e.get("unit"))
         bins = read_bins(path, path)
         return BinnedExposure(family=family, unexposed=unexposed, bins=bins,
                               notes=tuple(notes) + bins.notes)
-    path = ctx.path(e["histories"], "exposure", "histories")
+    # intensities are in [exposure] unit, a concentration; without it the
+    # header's unit is not checked (the file's unit is cumulative)
+    intensity = e.get("unit")
+    path = ctx.table(e["histories"], "exposure", "histories", unit=intensity,
+                     check_unit=intensity is not None)
     if "as_of" not in e:
         raise ctx.error("missing key 'as_of' (the analysis date, e.g. as_of = \"2024-12-31\"; "
                         "exposure after it minus the lag does not count)", "exposure", "as_of")
@@ -240,7 +244,8 @@ def _other_exposure(e: dict[str, Any], mode: str, family: str | None, unexposed:
                         "exposure before the cutoff; remove this key", "exposure", "unexposed")
     tasks = None
     if "tasks" in e:
-        tasks_path = ctx.path(e["tasks"], "exposure", "tasks")
+        tasks_path = ctx.table(e["tasks"], "exposure", "tasks", unit=intensity,
+                               check_unit=intensity is not None)
         tasks = read_tasks(tasks_path, tasks_path)
         notes.append(f"jobs with an empty intensity take the 8-hour TWA of their task samples "
                      f"(sum of concentration x minutes / 480; {len(tasks.twa)} jobs sampled)")

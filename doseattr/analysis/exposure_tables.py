@@ -15,6 +15,7 @@ from doseattr.analysis.csvfile import (
     Row,
     cell_error,
     check_band_order,
+    check_units,
     number,
     read_raw,
     require_columns,
@@ -56,6 +57,7 @@ def read_bins(path: str | Path, source: str | None = None) -> BinsTable:
     share); it must come first."""
     raw = read_raw(path, source)
     require_columns(raw, ("lower", "upper"), "a binned exposure table")
+    check_units(raw, ("lower", "upper"))
     kind = next((c for c in ("count", "share") if c in raw.columns), None)
     if kind is None:
         raise InputError("missing column 'count' or 'share' (a binned exposure table needs one "
@@ -110,6 +112,7 @@ def read_histories(path: str | Path, source: str | None = None, *,
     empty takes the 8-hour TWA of its task samples."""
     raw = read_raw(path, source)
     require_columns(raw, ("worker", "start", "end", "intensity"), "a work-history table")
+    check_units(raw, ("intensity",))
     workers, starts, ends, levels = [], [], [], []
     for row in raw.rows:
         worker = row.cells["worker"]
@@ -154,6 +157,7 @@ def read_tasks(path: str | Path, source: str | None = None) -> TasksTable:
 
     raw = read_raw(path, source)
     require_columns(raw, ("worker", "start", "concentration", "minutes"), "a task-sample table")
+    check_units(raw, ("concentration",))
     samples: dict = {}
     lines: dict = {}
     for row in raw.rows:

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from doseattr.analysis.schema import SECTIONS, key_location
+from doseattr.analysis.tablefile import frame_sha256, in_memory_name, is_in_memory
 
 #: ``command`` when the run did not come from the command line.
 PYTHON_API = "python-api"
@@ -72,10 +73,26 @@ def _sha256(path: str | os.PathLike[str]) -> str:
 
 def canonical_json(settings: Mapping[str, Any]) -> bytes:
     """The analysis dictionary as canonical JSON (sorted keys, no spaces,
-    UTF-8): what is hashed, and copied, for an analysis built from a dict."""
-    text = json.dumps(settings, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+    UTF-8): what is hashed, and copied, for an analysis built from a dict.
+    A table given in memory is written as its name and content hash
+    (``{"table": "<DataFrame for [exposure] table>", "sha256": ...}``)."""
+    text = json.dumps(_plain(settings), sort_keys=True, separators=(",", ":"), ensure_ascii=False,
                       default=str)
     return text.encode("utf-8")
+
+
+def _plain(value: Any) -> Any:
+    """``value`` with every table in memory replaced by its name and hash."""
+    if isinstance(value, Mapping):
+        return {k: _in_memory_record(v) if is_in_memory(v) else _plain(v)
+                for k, v in value.items()}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    return value
+
+
+def _in_memory_record(value: Any) -> dict[str, str]:
+    return {"table": f"<{type(value).__name__}>", "sha256": frame_sha256(value)}
 
 
 def analysis_bytes(analysis: Any) -> tuple[str, bytes]:
@@ -93,6 +110,10 @@ def input_tables(analysis: Any) -> list[InputTable]:
     base = getattr(analysis, "base_dir", None) or "."
     tables = []
     for key, value in _path_keys(getattr(analysis, "settings", None) or {}):
+        if is_in_memory(value):
+            name = in_memory_name(key, value)
+            tables.append(InputTable(key, name, name, frame_sha256(value)))
+            continue
         path = value if os.path.isabs(value) else os.path.join(base, value)
         relative = os.path.relpath(path, base) if not os.path.isabs(value) else value
         tables.append(InputTable(key, path, relative.replace(os.sep, "/"), sha256_file(path)))
@@ -106,6 +127,8 @@ def protected_paths(analysis: Any) -> list[str]:
     base = getattr(analysis, "base_dir", None) or "."
     paths = [source] if source else []
     for _, value in _path_keys(getattr(analysis, "settings", None) or {}):
+        if is_in_memory(value):
+            continue
         paths.append(value if os.path.isabs(value) else os.path.join(base, value))
     return paths
 
@@ -146,25 +169,43 @@ def provenance(analysis: Any, command: list[str] | str | None = None, *,
     }
 
 
-def _path_keys(settings: Mapping[str, Any]) -> Iterator[tuple[str, str]]:
+def _path_keys(settings: Mapping[str, Any]) -> Iterator[tuple[str, Any]]:
     """``(key location, value)`` of every key of kind "path", in file order
-    (inside an outcome: ``"[[outcome]] 1 [outcome.burden] key 'table'"``)."""
+    (inside an outcome: ``"[[outcome]] 1 [outcome.burden] key 'table'"``);
+    the value is the path (also of ``{path = ...}`` with options) or a
+    table in memory."""
     for section in TABLE_SECTIONS:
         for key, value in _section_paths(settings.get(section), section):
             yield key_location(section, key), value
+        if section == "curve":
+            yield from _study_paths(settings.get("curve"), "")
     outcomes = settings.get("outcome")
     for i, block in enumerate(outcomes if isinstance(outcomes, list) else []):
         for section in ("curve", "burden"):
             values = block.get(section) if isinstance(block, Mapping) else None
             for key, value in _section_paths(values, section):
                 yield f"[[outcome]] {i + 1} [outcome.{section}] key '{key}'", value
+            if section == "curve":
+                yield from _study_paths(values, f"[[outcome]] {i + 1} ")
 
 
-def _section_paths(values: Any, section: str) -> Iterator[tuple[str, str]]:
+def _study_paths(curve: Any, prefix: str) -> Iterator[tuple[str, str]]:
+    """The tables of a pooled curve's ``[[curve.study]]`` blocks."""
+    blocks = curve.get("study") if isinstance(curve, Mapping) else None
+    for j, block in enumerate(blocks if isinstance(blocks, list) else []):
+        for key, value in _section_paths(block, "curve.study"):
+            yield f"{prefix}{key_location('curve.study', key, j)}", value
+
+
+def _section_paths(values: Any, section: str) -> Iterator[tuple[str, Any]]:
     """``(key, value)`` of the "path" keys of one section's values."""
     if not isinstance(values, Mapping):
         return
     for key, value in values.items():
         spec = SECTIONS[section].get(key)
-        if spec is not None and spec.kind == "path" and isinstance(value, str):
+        if spec is None or spec.kind != "path":
+            continue
+        if isinstance(value, Mapping) and isinstance(value.get("path"), str):
+            value = value["path"]
+        if isinstance(value, str) or is_in_memory(value):
             yield key, value

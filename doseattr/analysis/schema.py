@@ -15,14 +15,24 @@ import math
 import os
 import sys
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from doseattr.analysis.specs import BURDEN_METHODS, FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
+from doseattr.analysis.specs import (
+    BURDEN_METHODS,
+    FITTED_FAMILIES,
+    FITTED_MODELS,
+    POOLING_METHODS,
+    SHAPE_MODELS,
+    TAU_METHODS,
+)
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.core.exposure.sandwich import WEIGHT_MEANINGS
 from doseattr.errors import InputError
+
+if TYPE_CHECKING:
+    from doseattr.analysis.tablefile import TableOptions, TableRef
 
 #: Models ``[curve] model`` takes: those of the core registry that can be
 #: fitted to a study table, then the published shapes.
@@ -43,8 +53,9 @@ class Key:
     ``kind`` is one of ``"text"``, ``"number"``, ``"integer"``, ``"bool"``,
     ``"numbers"`` (a list of numbers), ``"pair"`` (two numbers),
     ``"number-or-pair"``, ``"texts"`` (a list of text), ``"table"`` (a
-    TOML inline table of numbers keyed by number) or ``"path"`` (text naming
-    a file, relative to the analysis file). ``choices`` restricts text.
+    TOML inline table of numbers keyed by number), ``"blocks"`` (an array
+    of tables, ``[[curve.study]]``) or ``"path"`` (text naming a file,
+    relative to the analysis file). ``choices`` restricts text.
     """
 
     kind: str
@@ -89,6 +100,26 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "alpha_se": Key("number"), "gamma_se": Key("number"), "delta_se": Key("number"),
         "theta": Key("number"), "theta_se": Key("number"),
         "scale": Key("number"), "midpoint": Key("number"), "spread": Key("number"),
+        "study": Key("blocks", help="[[curve.study]] blocks: two or more study tables pooled "
+                                    "into one curve"),
+        "pooling": Key("text", POOLING_METHODS, help="how the studies' coefficients are "
+                                                     "pooled (default random-effects)"),
+        "tau_method": Key("text", TAU_METHODS, help="between-study variance: reml (default) "
+                                                    "or dl (DerSimonian & Laird 1986)"),
+        "predict": Key("bool", help="Monte Carlo draws of a new population's curve (adds the "
+                                    "between-study variance)"),
+    },
+    "curve.study": {
+        "name": Key("text", help="a short label for the study"),
+        "table": Key("path", help="CSV of the study's bands"),
+        "design": Key("text", DESIGNS),
+        "covariance": Key("text", ("counts", "effective-counts", "independent")),
+        "dose": Key("text", ("given", "midpoint", "band-mean", "band-median")),
+        "unit": Key("text", help="unit of the study's doses (default: the curve's unit)"),
+        "total_cases": Key("number", help="the study's total cases (effective counts)"),
+        "total_controls": Key("number", help="the study's total controls (effective counts)"),
+        "total_person_time": Key("number",
+                                 help="the study's total person-time (effective counts)"),
     },
     "exposure": {
         "table": Key("path", help="CSV of measurements (column value, optional weight)"),
@@ -164,10 +195,30 @@ SECTIONS: dict[str, dict[str, Key]] = {
                                      '["png", "svg"]'),
         "dpi": Key("integer", help="resolution of the PNG figures (default 150)"),
     },
+    "tables": {
+        "delimiter": Key("text", help="the character between columns of CSV tables "
+                                      "(default \",\"; \"\\t\" for tabs)"),
+        "decimal": Key("text", (".", ","), help="decimal mark of numbers in CSV tables"),
+        "encoding": Key("text", help="text encoding of CSV tables (default utf-8)"),
+    },
     "compute": {
         "scheduler": Key("text", help="address of a dask.distributed scheduler, "
                                       "tcp://host:port (default: this machine)"),
     },
+}
+
+#: Keys that name a table (read by :mod:`doseattr.analysis.csvfile`): each
+#: takes a file name, an inline table ``{path = "x.csv", delimiter = ";"}``
+#: with the options of :data:`TABLE_OPTIONS`, or from Python a pandas
+#: DataFrame (or a numpy array of measured values).
+TABLE_KEYS = {("curve", "table"), ("curve", "points"), ("curve", "draws"),
+              ("exposure", "table"), ("exposure", "bins"), ("exposure", "histories"),
+              ("exposure", "tasks"), ("burden", "table"), ("grid", "zone_names")}
+#: The options of one table, given where its path is.
+TABLE_OPTIONS: dict[str, Key] = {
+    "path": Key("path", help="the table's file: .csv, .tsv, .xlsx or .parquet"),
+    **SECTIONS["tables"],
+    "sheet": Key("text", help="the sheet of an .xlsx workbook (a name, or 1 for the first)"),
 }
 
 #: Sections written as arrays of tables (``[[scenario]]``).
@@ -217,6 +268,9 @@ def check_value(value: Any, spec: Key, *, section: str, key: str, source: str | 
                          location=key_location(section, key, index))
 
     kind = spec.kind
+    if kind == "path" and (section, key) in TABLE_KEYS and not isinstance(value, str):
+        check_table_value(value, section=section, key=key, source=source, index=index)
+        return
     if kind in ("text", "path"):
         if not isinstance(value, str) or not value.strip():
             fail("text (in quotes)" if kind == "text" else "a file name (in quotes)")
@@ -249,8 +303,42 @@ def check_value(value: Any, spec: Key, *, section: str, key: str, source: str | 
     elif kind == "table":
         if not isinstance(value, dict):
             fail("a table like {50 = 8.0, 95 = 20.0}")
+    elif kind == "blocks":
+        if not (isinstance(value, list) and all(isinstance(v, dict) for v in value)):
+            fail(f"[[{section}.{key}]] blocks (double brackets), one block per {key}")
     else:  # pragma: no cover - a schema error, not a user error
         raise AssertionError(f"unknown kind {kind}")
+
+
+def check_table_value(value: Any, *, section: str, key: str, source: str | None,
+                      index: int | None = None) -> None:
+    """A table key's value other than a file name: an inline table of
+    :data:`TABLE_OPTIONS` (with ``path``), or a table in memory."""
+    from doseattr.analysis.tablefile import is_in_memory
+
+    location = key_location(section, key, index)
+    if is_in_memory(value):
+        return
+    if not isinstance(value, dict):
+        raise InputError(f"must be a file name (in quotes) or {{path = \"...\", ...}} with "
+                         f"the table's options, got {describe(value)}", source=source,
+                         location=location)
+    if "path" not in value:
+        raise InputError("missing key 'path' in the table's options (for example "
+                         "{path = \"samples.csv\", delimiter = \";\"})", source=source,
+                         location=location)
+    for name, item in value.items():
+        if name not in TABLE_OPTIONS:
+            raise InputError(f"unknown table option '{name}' (options: "
+                             f"{', '.join(TABLE_OPTIONS)}){suggest(name, list(TABLE_OPTIONS))}",
+                             source=source, location=location)
+        if name == "sheet" and isinstance(item, int) and not isinstance(item, bool):
+            if item < 1:
+                raise InputError(f"sheet = {item}: sheets are counted from 1 (the first), or "
+                                 "give the sheet's name", source=source, location=location)
+            continue
+        check_value(item, TABLE_OPTIONS[name], section=section, key=f"{key}.{name}",
+                    source=source, index=index)
 
 
 def is_number(value: Any) -> bool:
@@ -298,6 +386,12 @@ class Context:
 
     source: str | None
     base_dir: str
+    #: The file's unit (checked against units in tables' headers).
+    unit: str | None = None
+    #: ``[tables]``: options of every CSV table.
+    tables: Mapping[str, Any] = field(default_factory=dict)
+    #: ``[exposure] unit``, the unit of a burden table's exposure columns.
+    exposure_unit: str | None = None
 
     def error(self, message: str, section: str, key: str,
               index: int | None = None) -> InputError:
@@ -312,6 +406,93 @@ class Context:
             what = "is a folder, not a file" if Path(path).is_dir() else "file not found"
             raise self.error(f"{what}: {path}", section, key)
         return path
+
+
+    def table(self, value: Any, section: str, key: str, *, unit: str | None = None,
+              unit_origin: str | None = None, check_unit: bool = True) -> TableRef:
+        """The table a table key names, with how to read it: a file (its
+        path checked as :meth:`path` does) with the ``[tables]`` options
+        and its own (``{path = ..., delimiter = ...}``), or a table given
+        from Python, named ``<DataFrame for [exposure] table>``. ``unit``
+        is the unit of the table's exposure columns (default: the file's;
+        ``check_unit=False`` checks no unit in the header)."""
+        from doseattr.analysis.tablefile import TableRef, in_memory_name, is_in_memory
+
+        expected = None if not check_unit else unit if unit is not None else self.unit
+        origin = unit_origin or ("the file's unit" if unit is None else f"[{section}] unit")
+        if is_in_memory(value):
+            name = in_memory_name(key_location(section, key), value)
+            return TableRef(name, _options({}, {}, expected, origin), value)
+        own = dict(value) if isinstance(value, Mapping) else {"path": value}
+        path = self.path(own.pop("path"), section, key)
+        shared = self._shared_options(path)
+        own = self._own_options(own, path, section, key)
+        check_text_options({**shared, **own}, self, section, key)
+        return TableRef(path, _options(shared, own, expected, origin))
+
+    def _shared_options(self, path: str) -> dict[str, Any]:
+        """``[tables]`` for a CSV table (a .tsv keeps its tabs)."""
+        from doseattr.analysis.tablefile import TAB_SUFFIXES, format_of, suffix
+
+        if format_of(path) != "text":
+            return {}
+        shared = dict(self.tables)
+        if suffix(path) in TAB_SUFFIXES:
+            shared.pop("delimiter", None)
+        return shared
+
+    def _own_options(self, own: dict[str, Any], path: str, section: str,
+                     key: str) -> dict[str, Any]:
+        from doseattr.analysis.tablefile import format_of
+
+        kind = format_of(path)
+        for name in own:
+            if name == "sheet" and kind != "xlsx":
+                raise self.error(f"sheet goes with an .xlsx workbook; {path} is not one",
+                                 section, key)
+            if name != "sheet" and kind != "text":
+                what = "an .xlsx workbook" if kind == "xlsx" else "a Parquet file"
+                raise self.error(f"{name} goes with CSV text tables; {path} is {what}, whose "
+                                 "cells need no delimiter, decimal or encoding", section, key)
+        return own
+
+    def check_tables(self) -> None:
+        """``[tables]``: one character between columns, a known encoding,
+        a decimal mark that is not the delimiter."""
+        check_text_options(self.tables, self, "tables", "delimiter")
+
+
+def check_text_options(options: Mapping[str, Any], ctx: Context, section: str,
+                       key: str) -> None:
+    from doseattr.analysis.tablefile import check_codec
+
+    delimiter = options.get("delimiter")
+    where = "tables" if section == "tables" else section
+    if delimiter is not None and len(delimiter) != 1:
+        raise ctx.error(f"delimiter is one character (\",\", \";\" or \"\\t\" for a tab), "
+                        f"got '{delimiter}'", where, "delimiter" if section == "tables" else key)
+    encoding = options.get("encoding")
+    if encoding is not None and not check_codec(encoding):
+        raise ctx.error(f"unknown encoding '{encoding}' (for example \"utf-8\", \"cp1252\" or "
+                        "\"latin-1\")", where, "encoding" if section == "tables" else key)
+    if options.get("decimal", ".") == (delimiter or ","):
+        raise ctx.error(f"decimal = \"{options.get('decimal')}\" is also the delimiter; with "
+                        "decimal commas the columns are separated by another character, "
+                        "usually delimiter = \";\"", where,
+                        "decimal" if section == "tables" else key)
+
+
+def _options(shared: Mapping[str, Any], own: Mapping[str, Any], unit: str | None,
+             origin: str) -> TableOptions:
+    from doseattr.analysis.tablefile import TableOptions
+
+    merged = {**shared, **own}
+    encoding = merged.get("encoding", "utf-8-sig")
+    if encoding.lower().replace("-", "").replace("_", "") == "utf8":
+        encoding = "utf-8-sig"  # a byte-order mark is dropped
+    return TableOptions(delimiter=merged.get("delimiter"), decimal=merged.get("decimal", "."),
+                        encoding=encoding, sheet=merged.get("sheet"),
+                        unit=unit, unit_origin=origin)
 
 
 def only_one(values: Mapping[str, Any], keys: tuple[str, ...], ctx: Context,

@@ -19,12 +19,14 @@ from numpy.typing import NDArray
 
 from doseattr.analysis.burden_table import BurdenTable, read_burden
 from doseattr.analysis.csvfile import (
+    NON_DETECT_TEXT,
     FloatArray,
     RawTable,
     Row,
     below_sqrt_max,
     cell_error,
     check_band_order,
+    check_units,
     near_column,
     number,
     read_raw,
@@ -52,6 +54,9 @@ DESIGN_TOTALS = {"case-control": "controls", "incidence-rate": "person_time",
                  "cumulative-incidence": "persons"}
 TRUE_TEXT = ("true", "yes", "y", "1", "detected")
 FALSE_TEXT = ("false", "no", "n", "0", "not detected", "nd")
+#: The column of each row's detection limit, for non-detects written as
+#: text (``ND``, ``n.d.``, ``<LOD``).
+LOD_COLUMN = "lod"
 
 
 @dataclass(frozen=True, eq=False)
@@ -133,6 +138,7 @@ def read_study_table(path: str | Path, source: str | None = None, *,
     """
     raw = read_raw(path, source)
     require_columns(raw, BAND_REQUIRED, "a band table")
+    check_units(raw, ("lower", "upper", "dose"))
     counts_present = [c for c in COUNT_COLUMNS if c in raw.columns]
     parsed = [_band_row(raw, row, counts_present) for row in raw.rows]
     n = len(parsed)
@@ -262,6 +268,7 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     """
     raw = read_raw(path, source)
     require_columns(raw, ("value",), "a measurement table")
+    check_units(raw, ("value", LOD_COLUMN))
     detected_column, weight_column = detected_column.lower(), weight_column.lower()
     has_det = detected_column in raw.columns
     has_w = weight_column in raw.columns
@@ -332,6 +339,8 @@ def _worker(raw: RawTable, row: Row) -> str:
 
 def _measurement(raw: RawTable, row: Row) -> tuple[float, bool]:
     text = row.cells["value"]
+    if text.lower() in NON_DETECT_TEXT:
+        return _non_detect(raw, row, text), True
     below = text.startswith("<")
     if below:
         row = Row(row.line, {**row.cells, "value": text[1:].strip()})
@@ -342,6 +351,23 @@ def _measurement(raw: RawTable, row: Row) -> tuple[float, bool]:
     if v == 0 and below:
         raise cell_error(raw, row, "value", "a detection limit must be above 0, got '<0'")
     return v, below
+
+
+def _non_detect(raw: RawTable, row: Row, text: str) -> float:
+    """The detection limit of a non-detect written as text: the row's
+    ``lod`` cell."""
+    if LOD_COLUMN not in raw.columns:
+        raise cell_error(raw, row, "value", f"'{shown(text)}' marks a result below the "
+                         "detection limit without saying the limit; write <0.05 (the "
+                         f"detection limit) or add a '{LOD_COLUMN}' column with each row's "
+                         "limit")
+    if not row.cells[LOD_COLUMN]:
+        raise cell_error(raw, row, LOD_COLUMN, f"the value is '{shown(text)}' (below the "
+                         "detection limit) but this row's detection limit is empty; give it")
+    lod = number(raw, row, LOD_COLUMN)
+    if not lod > 0:
+        raise cell_error(raw, row, LOD_COLUMN, f"a detection limit must be above 0, got {lod:g}")
+    return lod
 
 
 def _flag(raw: RawTable, row: Row, column: str) -> bool:

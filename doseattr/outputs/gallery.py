@@ -42,7 +42,7 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
 #: File names (without ``.png``) in report order.
-FIGURE_NAMES = ("curve", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
+FIGURE_NAMES = ("curve", "pooled", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
                 "categorical", "paf_draws", "burden", "burden_rates", "grid_concentration",
                 "grid_attributable")
 
@@ -60,6 +60,7 @@ def render_figure_files(results: Results, formats: Sequence[str] = ("png",),
     curve, exposure = results.curve_section, results.exposure_section
     makers: dict[str, Callable[[], Figure | None]] = {
         "curve": lambda: _curve(curve, exposure.exposure, unit),
+        "pooled": lambda: _pooled(curve, exposure.exposure, unit),
         "models": lambda: _models(curve, exposure.exposure, unit),
         "outcome_curves": lambda: _outcome_curves(results.outcomes, unit, exposure.exposure),
         "exposure": lambda: _exposure(exposure, unit),
@@ -101,6 +102,17 @@ def _curve(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Fi
             fig.add_curve(ax, other, color=MODEL_COLORS[i % len(MODEL_COLORS)], label=label,
                           x_max=top)
     return _figure(ax)
+
+
+def _pooled(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Figure | None:
+    """Each pooled study's curve and band estimates with the pooled curve
+    (:func:`~doseattr.outputs.pooling_figures.plot_pooled`)."""
+    if section.pooling is None:
+        return None
+    from doseattr.outputs.pooling_figures import plot_pooled
+
+    return plot_pooled(section.pooling, unit, x_max=fig.curve_extent(section.curve, None,
+                                                                     exposure))
 
 
 #: Line colours of the other models on the curve plot: the Okabe-Ito

@@ -248,5 +248,35 @@ class Results:
 
         return write_outputs(self, out_dir, figures=figures)
 
+    def to_frames(self) -> dict[str, Any]:
+        """The CSV tables of :meth:`write` as pandas DataFrames, by file name
+        without ``.csv`` (``"summary"``, ``"scenarios"``, ...): each is what
+        ``pandas.read_csv`` gives for the file written."""
+        import csv
+        import io
+
+        import pandas as pd
+
+        # A call upward on use only, like write(); listed in tests/test_layers.py.
+        from doseattr.outputs.tables import all_tables, cell
+
+        frames = {}
+        for name, (header, rows) in all_tables(self).items():
+            text = io.StringIO()
+            writer = csv.writer(text, lineterminator="\n")
+            writer.writerow(header)
+            writer.writerows([cell(v) for v in row] for row in rows)
+            text.seek(0)
+            frames[name.removesuffix(".csv")] = pd.read_csv(text)
+        return frames
+
+    def _repr_html_(self) -> str:
+        """The report's table of key numbers, for notebooks."""
+        # A call upward on use only, like write(); listed in tests/test_layers.py.
+        from doseattr.outputs.report import key_numbers
+
+        html: str = key_numbers(self)
+        return html
+
     def __repr__(self) -> str:
         return f"<Results PAF {pct(self.paf.estimate)}, {len(self.scenarios)} scenario(s)>"

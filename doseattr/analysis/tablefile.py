@@ -1,0 +1,394 @@
+"""Where a table's cells come from: a CSV or TSV file, an ``.xlsx``
+workbook, a Parquet file or (from Python) a pandas DataFrame or numpy
+array, all turned into the same grid of text cells with each row's number.
+
+The format is chosen by the file's extension: ``.tsv`` and ``.tab`` are
+tab-separated text, ``.xlsx`` (and ``.xlsm``) a workbook read with pandas
+and openpyxl, ``.parquet`` and ``.pq`` Parquet read with pyarrow; anything
+else is read as CSV. How to read a table is a :class:`TableOptions`,
+carried by the :class:`TableRef` that names it (see
+:meth:`doseattr.analysis.schema.Context.table` for the analysis file's
+keys).
+
+Row numbers are what a user finds the row by: the line of a text file,
+the sheet's row number in a workbook, and for Parquet files and
+DataFrames the row counted with the header as row 1 (the first data row
+is row 2, as in the CSV file ``DataFrame.to_csv(index=False)`` writes).
+
+Cells that hold numbers are written as ``repr`` of the float (which reads
+back exactly), dates as ISO dates, missing values as empty cells.
+"""
+
+from __future__ import annotations
+
+import codecs
+import datetime as dt
+import hashlib
+import importlib
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from doseattr.errors import InputError
+
+#: How to install what .xlsx and Parquet tables need (the ``tables`` extra).
+TABLES_EXTRA = 'pip install "doseattr[tables]"'
+TEXT_SUFFIXES = (".csv", ".txt")
+TAB_SUFFIXES = (".tsv", ".tab")
+XLSX_SUFFIXES = (".xlsx", ".xlsm")
+PARQUET_SUFFIXES = (".parquet", ".pq")
+#: Spreadsheet formats that are not read, with what to do instead.
+REFUSED_SUFFIXES = {".xls": "an Excel 97-2003 workbook", ".ods": "an OpenDocument spreadsheet",
+                    ".numbers": "a Numbers spreadsheet"}
+DECIMAL_MARKS = (".", ",")
+
+
+@dataclass(frozen=True)
+class TableOptions:
+    """How to read one table.
+
+    ``delimiter`` (``None``: ``","``, or a tab for ``.tsv``/``.tab``),
+    ``decimal`` and ``encoding`` apply to text tables, ``sheet`` (a name,
+    or a position with 1 for the first sheet) to workbooks. ``unit`` is the
+    unit the table's exposure columns are expected in (from the section's
+    ``unit`` key or the file's), ``unit_origin`` where it was said
+    (``"[exposure] unit"``), both for checking units in headers.
+    """
+
+    delimiter: str | None = None
+    decimal: str = "."
+    encoding: str = "utf-8-sig"
+    sheet: str | int | None = None
+    unit: str | None = None
+    unit_origin: str = "the file's unit"
+
+
+class TableRef(str):
+    """A table's name as messages show it (its path, or
+    ``<DataFrame for [exposure] table>`` for a table given from Python),
+    with :class:`TableOptions` and, for a table in memory, its data.
+
+    A ``str``, so that it goes wherever a path went before (messages,
+    records of where values came from)."""
+
+    options: TableOptions
+    data: Any
+
+    def __new__(cls, name: str, options: TableOptions | None = None,
+                data: Any = None) -> TableRef:
+        ref = super().__new__(cls, name)
+        ref.options = options or TableOptions()
+        ref.data = data
+        return ref
+
+    def __reduce__(self) -> Any:
+        return (TableRef, (str(self), self.options, self.data))
+
+
+@dataclass(frozen=True)
+class Grid:
+    """A table as text: the header's row number and cells, then each data
+    row's number and cells. ``kind`` is ``"text"`` (CSV/TSV, whose cells
+    the ``decimal`` option applies to), ``"xlsx"``, ``"parquet"`` or
+    ``"frame"``."""
+
+    source: str
+    header_line: int
+    header: list[str]
+    rows: list[tuple[int, list[str]]]
+    kind: str
+    decimal: str = "."
+
+
+def is_in_memory(value: Any) -> bool:
+    """A pandas DataFrame or Series, or a numpy array (not a path)."""
+    module = type(value).__module__.split(".")[0]
+    return module in ("pandas", "numpy") and hasattr(value, "shape")
+
+
+def suffix(path: str) -> str:
+    return Path(path).suffix.lower()
+
+
+def format_of(path: str) -> str:
+    """``"text"``, ``"xlsx"`` or ``"parquet"``, by extension."""
+    end = suffix(path)
+    if end in XLSX_SUFFIXES:
+        return "xlsx"
+    if end in PARQUET_SUFFIXES:
+        return "parquet"
+    return "text"
+
+
+def check_codec(name: str) -> bool:
+    try:
+        codecs.lookup(name)
+    except LookupError:
+        return False
+    return True
+
+
+# -- reading ----------------------------------------------------------------------
+def read_grid(path: str | Path, source: str) -> Grid:
+    """The cells of the table ``path`` names (a :class:`TableRef` carries
+    its options and, for a table in memory, its data)."""
+    options = getattr(path, "options", None) or TableOptions()
+    data = getattr(path, "data", None)
+    if data is not None:
+        return frame_grid(data, source)
+    name = str(path)
+    end = suffix(name)
+    if end in REFUSED_SUFFIXES:
+        raise InputError(f"is {REFUSED_SUFFIXES[end]}, which is not read; save it as .xlsx, "
+                         "CSV (UTF-8) or Parquet", source=source)
+    kind = format_of(name)
+    if kind == "xlsx":
+        return _xlsx_grid(name, source, options.sheet)
+    if kind == "parquet":
+        return _parquet_grid(name, source)
+    return _text_grid(name, source, options)
+
+
+def _read_bytes(path: str, source: str) -> bytes:
+    try:
+        return Path(path).read_bytes()
+    except FileNotFoundError:
+        raise InputError("file not found", source=source) from None
+    except IsADirectoryError:
+        raise InputError("is a folder, not a CSV file", source=source) from None
+    except OSError as exc:
+        raise InputError(f"cannot be read: {exc.strerror or exc}", source=source) from None
+
+
+def _text_grid(path: str, source: str, options: TableOptions) -> Grid:
+    import csv
+
+    data = _read_bytes(path, source)
+    _refuse_binary(data, source)
+    try:
+        text = data.decode(options.encoding)
+    except UnicodeDecodeError as exc:
+        bad_line = data[:exc.start].count(b"\n") + 1
+        hint = ("save it as CSV (UTF-8), or give its encoding, e.g. encoding = \"cp1252\" in "
+                "[tables]" if options.encoding.replace("-", "").lower().startswith("utf8")
+                else "check the encoding option")
+        raise InputError(f"cannot be read as {_codec_name(options.encoding)} text; {hint}",
+                         source=source, location=f"row {bad_line}") from None
+    delimiter = options.delimiter or ("\t" if suffix(path) in TAB_SUFFIXES else ",")
+    header: tuple[int, list[str]] | None = None
+    rows: list[tuple[int, list[str]]] = []
+    lines = text.splitlines()
+    for line_no, line in enumerate(lines, start=1):
+        if not line.strip() or line.lstrip().startswith("#"):
+            continue
+        previous = csv.field_size_limit()
+        csv.field_size_limit(max(previous, len(line) + 1))
+        try:
+            cells = [c.strip() for c in next(csv.reader([line], delimiter=delimiter), [])]
+        except csv.Error as exc:
+            raise InputError(f"cannot be read as CSV: {exc}", source=source,
+                             location=f"row {line_no}") from None
+        finally:
+            csv.field_size_limit(previous)
+        if header is None:
+            _check_delimiter(cells, line, delimiter, source, line_no)
+            header = (line_no, cells)
+        else:
+            rows.append((line_no, cells))
+    if header is None:
+        raise InputError("the file is empty (no header row)", source=source, location="row 1")
+    return Grid(source, header[0], header[1], rows, "text", options.decimal)
+
+
+def _codec_name(encoding: str) -> str:
+    return "UTF-8" if encoding.lower().replace("-", "").replace("_", "") in (
+        "utf8", "utf8sig") else encoding
+
+
+def _refuse_binary(data: bytes, source: str) -> None:
+    """A workbook or Parquet file under a CSV name says what it is."""
+    if data.startswith(b"PK\x03\x04"):
+        raise InputError("is a zip file (an .xlsx workbook?), not CSV text; name it .xlsx, or "
+                         "save it as CSV (UTF-8)", source=source)
+    if data.startswith(b"PAR1"):
+        raise InputError("is a Parquet file, not CSV text; name it .parquet", source=source)
+
+
+def _check_delimiter(cells: list[str], line: str, delimiter: str, source: str,
+                     line_no: int) -> None:
+    if len(cells) != 1:
+        return
+    where = "in [tables] or in the table's options (table = {path = ..., delimiter = ...})"
+    for mark, name, write in ((";", "';'", '";"'), ("\t", "tabs", '"\\t"'),
+                              (",", "','", '","'), ("|", "'|'", '"|"')):
+        if mark != delimiter and mark in line:
+            extra = (" (and decimal = \",\" if numbers have decimal commas)" if mark == ";"
+                     else " (or name the file .tsv)" if mark == "\t" else "")
+            raise InputError(f"the columns are separated by {name}; set delimiter = {write}"
+                             f"{extra} {where}", source=source, location=f"row {line_no}")
+
+
+def require_module(name: str, what: str, source: str) -> Any:
+    """Import ``name`` or fail with the one line that says what to install."""
+    try:
+        return importlib.import_module(name)
+    except ImportError:
+        raise InputError(f"reading {what} needs the package {name}: {TABLES_EXTRA}",
+                         source=source) from None
+
+
+def _xlsx_grid(path: str, source: str, sheet: str | int | None) -> Grid:
+    require_module("openpyxl", ".xlsx tables", source)
+    import pandas as pd
+
+    if not Path(path).is_file():
+        _read_bytes(path, source)
+    try:
+        book = pd.ExcelFile(path, engine="openpyxl")
+    except Exception as exc:  # openpyxl raises several types for a broken workbook
+        raise InputError(f"cannot be read as an .xlsx workbook: {type(exc).__name__}: "
+                         f"{' '.join(str(exc).split())[:160]}", source=source) from None
+    with book:
+        names = list(book.sheet_names)
+        name = _sheet_name(names, sheet, source)
+        frame = pd.read_excel(book, sheet_name=name, header=None, dtype=object,
+                              keep_default_na=False, na_filter=False)
+        if sheet is None and len(names) > 1:
+            others = [n for n in names[1:] if not pd.read_excel(book, sheet_name=n,
+                                                                header=None).empty]
+            if others:
+                raise InputError(f"the workbook has {len(names)} sheets with data ("
+                                 f"{', '.join(repr(n) for n in [name, *others])}); say which "
+                                 f"one with sheet = {name!r} in the table's options (table = "
+                                 "{path = ..., sheet = ...})", source=source)
+    where = source if sheet is None else f"{source} (sheet '{name}')"
+    lines = [(int(i) + 1, [cell_text(v) for v in values])
+             for i, values in zip(frame.index, frame.itertuples(index=False))]
+    lines = [(n, cells) for n, cells in lines if any(cells)]
+    if not lines:
+        raise InputError(f"sheet '{name}' is empty (no header row)", source=where,
+                         location="row 1")
+    (header_line, header), rows = lines[0], lines[1:]
+    return Grid(where, header_line, header, rows, "xlsx")
+
+
+def _sheet_name(names: list[str], sheet: str | int | None, source: str) -> str:
+    if sheet is None:
+        return names[0]
+    if isinstance(sheet, int):
+        if not 1 <= sheet <= len(names):
+            raise InputError(f"sheet {sheet} does not exist: the workbook has {len(names)} "
+                             f"sheets ({', '.join(repr(n) for n in names)}; sheet = 1 is the "
+                             "first)", source=source)
+        return names[sheet - 1]
+    if sheet not in names:
+        raise InputError(f"no sheet '{sheet}' in the workbook (its sheets: "
+                         f"{', '.join(repr(n) for n in names)})", source=source)
+    return sheet
+
+
+def _parquet_grid(path: str, source: str) -> Grid:
+    require_module("pyarrow", "Parquet tables", source)
+    import pyarrow.parquet as pq
+
+    if not Path(path).is_file():
+        _read_bytes(path, source)
+    try:
+        frame = pq.read_table(path).to_pandas()
+    except Exception as exc:  # pyarrow's errors for a file that is not Parquet
+        raise InputError(f"cannot be read as Parquet: {' '.join(str(exc).split())[:160]}",
+                         source=source) from None
+    grid = frame_grid(frame, source)
+    return Grid(source, grid.header_line, grid.header, grid.rows, "parquet")
+
+
+def frame_grid(data: Any, source: str) -> Grid:
+    """A DataFrame (columns by name), Series or 1-D numpy array (one
+    column ``value``) as cells; the header is row 1."""
+    frame = as_frame(data, source)
+    header = [str(c).strip() for c in frame.columns]
+    rows = [(i + 2, [cell_text(v) for v in values])
+            for i, values in enumerate(frame.itertuples(index=False, name=None))]
+    return Grid(source, 1, header, rows, "frame")
+
+
+def as_frame(data: Any, source: str) -> Any:
+    """``data`` as a DataFrame: a 1-D array or a Series becomes the
+    column ``value`` (measurements)."""
+    import numpy as np
+    import pandas as pd
+
+    if isinstance(data, pd.DataFrame):
+        if isinstance(data.columns, pd.MultiIndex):
+            raise InputError("the DataFrame has a column MultiIndex; give one row of column "
+                             "names", source=source)
+        return data
+    if isinstance(data, pd.Series):
+        return pd.DataFrame({"value": data.to_numpy()})
+    array = np.asarray(data)
+    if array.dtype.names:
+        return pd.DataFrame.from_records(array)
+    if array.ndim != 1:
+        raise InputError(f"a numpy array stands for the measured values (one column 'value') "
+                         f"and must be 1-D, got shape {array.shape}; give a DataFrame with "
+                         "named columns instead", source=source)
+    return pd.DataFrame({"value": array})
+
+
+def cell_text(value: Any) -> str:
+    """One cell as text: numbers at full precision, dates as ISO dates
+    (with the time when it is not midnight), missing values empty."""
+    if value is None:
+        return ""
+    if isinstance(value, str):
+        return value.strip()
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if hasattr(value, "item") and not hasattr(value, "to_pydatetime"):  # numpy scalars
+        value = value.item()
+        if isinstance(value, bool):
+            return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        return "" if math.isnan(value) else repr(value)
+    if hasattr(value, "to_pydatetime"):  # a pandas Timestamp (NaT is caught below)
+        try:
+            value = value.to_pydatetime()
+        except ValueError:
+            return ""
+    if isinstance(value, dt.datetime):
+        return value.date().isoformat() if value.time() == dt.time() else value.isoformat()
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    text = str(value).strip()
+    return "" if text in ("NaT", "<NA>", "nan") else text
+
+
+# -- provenance of a table in memory ------------------------------------------------
+def frame_csv(data: Any, source: str = "") -> bytes:
+    """A table in memory as the CSV text its cells read as (header, then
+    each row's cells as :func:`cell_text` writes them; UTF-8, ``\\n``)."""
+    import csv
+    import io
+
+    grid = frame_grid(data, source)
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(grid.header)
+    for _, cells in grid.rows:
+        writer.writerow(cells)
+    return out.getvalue().encode("utf-8")
+
+
+def frame_sha256(data: Any) -> str:
+    """Hex SHA-256 (FIPS 180-4, via :mod:`hashlib`) of :func:`frame_csv`:
+    tables in memory with the same cells hash equal."""
+    return hashlib.sha256(frame_csv(data)).hexdigest()
+
+
+def in_memory_name(location: str, value: Any) -> str:
+    """``<DataFrame for [exposure] table>`` from ``"[exposure] key 'table'"``
+    (``<ndarray for ...>`` for a numpy array)."""
+    return f"<{type(value).__name__} for {location.replace(' key ', ' ').replace(chr(39), '')}>"
