@@ -5,6 +5,7 @@
     doseattr run ANALYSIS.toml --out DIR [--quiet]
     doseattr check ANALYSIS.toml
     doseattr demo --out DIR [--quiet]
+    doseattr init KIND DIR
 
 Every error this package raises on purpose is caught in :func:`main`, and
 only there: it prints ``doseattr: error: <file>: <location>: <message>`` on
@@ -37,7 +38,12 @@ EXIT_BUG = 1
 EXIT_ERROR = 2
 DEMO_PACKAGE = "doseattr.demo"
 DEMO_FILE = "analysis.toml"
+DEMO_SUFFIXES = (".toml", ".csv", ".md")
+#: ``doseattr init`` kinds (those of :data:`doseattr.outputs.templates.KINDS`,
+#: named here so that the parser imports nothing heavy).
+TEMPLATE_KINDS = ("concentration", "workplace", "districts", "grid")
 STOP_SIGNALS = ("SIGINT", "SIGTERM")
+_PYTHON_SHOWWARNING = warnings.showwarning
 
 
 class Stopped(BaseException):
@@ -72,6 +78,16 @@ def build_parser() -> argparse.ArgumentParser:
                           description="Run the bundled demo analysis, a fictional town and "
                                       "study with invented numbers, and write its outputs.")
     _common(demo)
+    init = sub.add_parser("init", help="write a starting analysis and example tables",
+                          description="Write a commented starting analysis and small example "
+                                      "tables (invented numbers) into DIR, a new or empty "
+                                      "folder: concentration (monitor data and a study's "
+                                      "bands), workplace (personal samples by worker, an OEL, "
+                                      "work histories), districts (strata with population and "
+                                      "rates), grid (grid cells with zones).")
+    init.add_argument("kind", metavar="KIND", choices=TEMPLATE_KINDS,
+                      help="one of " + ", ".join(TEMPLATE_KINDS))
+    init.add_argument("dir", metavar="DIR", help="a new or empty folder")
     return parser
 
 
@@ -97,10 +113,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         with _stop_on_signals(), ExitStack() as stack:
             if args.command == "check":
                 return _check(args.analysis, args.scheduler)
+            if args.command == "init":
+                return _init(args.kind, args.dir)
             path = (args.analysis if args.command == "run"
                     else str(stack.enter_context(_demo_file())))
+            inputs = _demo_inputs(Path(path)) if args.command == "demo" else ()
             return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv],
-                        scheduler=getattr(args, "scheduler", None))
+                        scheduler=getattr(args, "scheduler", None), inputs=inputs)
     except DoseattrError as exc:
         print(f"doseattr: error: {_line(exc)}", file=sys.stderr)
         return EXIT_ERROR
@@ -125,8 +144,9 @@ def _load(path: str, scheduler: str | None):
 
 
 def _run(path: str, out: str, *, quiet: bool, command: list[str],
-         scheduler: str | None = None) -> int:
+         scheduler: str | None = None, inputs: Sequence[tuple[str, Path]] = ()) -> int:
     from doseattr.analysis.pipeline import run_analysis
+    from doseattr.analysis.progress import show_stage
     from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
@@ -134,25 +154,41 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
     with warnings.catch_warnings(record=True) as caught:
-        # shown once each below, as our own lines rather than Python's
+        # our own lines rather than Python's: as they arise, and again at the
+        # end with --quiet (they may change a decision)
         warnings.simplefilter("always", DoseattrWarning)
+        if not quiet:
+            warnings.showwarning = _show_now
+        show_stage("fitting", not quiet)
         results = run_analysis(analysis, progress=not quiet)
     _same_inputs(read, results.provenance, path)  # as the run finished
     _same_inputs(read, provenance(analysis), path)  # and now, before writing
     try:
-        written = write_outputs(results, out, command=command)
+        written = write_outputs(results, out, command=command, inputs=inputs,
+                                stage=lambda name: show_stage(name, not quiet))
     except OSError as exc:
         raise InputError(f"cannot write the outputs: {exc.strerror or exc}",
                          location=out_location(out)) from None
-    for w in caught:  # on standard error even with --quiet: they may change a decision
-        if issubclass(w.category, DoseattrWarning):
-            print(f"doseattr: warning: {w.message}", file=sys.stderr)
-        else:  # not ours: as Python would have shown it
-            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    finally:
+        show_stage("", not quiet)
+    for w in caught:
+        _show_now(w.message, w.category, w.filename, w.lineno)
     if not quiet:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")
     return EXIT_OK
+
+
+def _show_now(message, category, filename, lineno, file=None, line=None) -> None:
+    """A warning as one line on standard error: ours as ``doseattr:
+    warning: ...``, any other as Python would have shown it."""
+    if issubclass(category, DoseattrWarning):
+        from doseattr.analysis.progress import show_stage
+
+        show_stage("", True)  # off the status line
+        print(f"doseattr: warning: {message}", file=sys.stderr)
+    else:
+        _PYTHON_SHOWWARNING(message, category, filename, lineno, file, line)
 
 
 def _same_inputs(read: dict, now: dict, path: str) -> None:
@@ -164,6 +200,20 @@ def _same_inputs(read: dict, now: dict, path: str) -> None:
         if before["sha256"] != after["sha256"]:
             raise InputError(f"{before['path']} changed while the run was computing; run again",
                              source=path, location=before["key"])
+
+
+def _init(kind: str, folder: str) -> int:
+    from doseattr.outputs.templates import write_template
+
+    try:
+        written = write_template(kind, folder)
+    except OSError as exc:
+        raise InputError(f"cannot write the template: {exc.strerror or exc}",
+                         location=f"DIR '{folder}'") from None
+    print(f"wrote {len(written)} files to {folder}: {', '.join(p.name for p in written)} "
+          "(invented numbers; replace them with your own)")
+    print(f"next: doseattr check {Path(folder) / 'analysis.toml'}")
+    return EXIT_OK
 
 
 def _check(path: str, scheduler: str | None = None) -> int:
@@ -209,6 +259,13 @@ def _demo_file():
                                 "is missing); reinstall doseattr") from None
         return nullcontext(checkout)
     return resources.as_file(ref)
+
+
+def _demo_inputs(analysis: Path) -> list[tuple[str, Path]]:
+    """The demo's files (analysis, tables, README), to copy into
+    ``DIR/inputs/`` so that a user can start from them."""
+    return [(p.name, p) for p in sorted(analysis.parent.iterdir())
+            if p.is_file() and p.suffix in DEMO_SUFFIXES]
 
 
 def _line(exc: DoseattrError) -> str:

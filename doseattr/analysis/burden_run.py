@@ -24,8 +24,8 @@ from doseattr.analysis.intervals import (
     SOURCES,
     burden_spec,
     minimum_risk_range,
-    progress_bar,
 )
+from doseattr.analysis.progress import progress_bar
 from doseattr.errors import InputError
 from doseattr.results.records import METHOD_TEXT, BurdenResult, StratumResult
 
@@ -126,7 +126,7 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
     if u is not None:
         sources = SOURCES + (("cases",) if u.poisson_cases else ())
         total = u.draws * len({id(s.exposure) for s in strata}) * (1 + len(transforms))
-        with progress_bar(total, progress) as tick:
+        with progress_bar(total, progress, draws=u.draws) as tick:
             draws = propagate(curve, strata, transforms, draws=u.draws,
                               minimum_risk=minimum_risk_range(analysis), sources=sources,
                               progress=tick, method=method, **streams(analysis, stream))

@@ -43,6 +43,7 @@ from typing import Any
 from doseattr.analysis import schema
 from doseattr.analysis.curve_section import parse_curve
 from doseattr.analysis.exposure_section import parse_exposure, require_cumulative_unit
+from doseattr.analysis.report_section import report_settings
 from doseattr.analysis.schema import ARRAY_SECTIONS, SECTIONS, Context, suggest
 from doseattr.analysis.specs import (
     BURDEN_METHODS,
@@ -169,6 +170,7 @@ def _build(data: dict[str, Any], *, base_dir: str, source: str | None) -> Analys
     attribution = _attribution(data.get("attribution", {}), ctx)
     limit = _limit(data["limit"], ctx, units, exposure) if "limit" in data else None
     scenarios = _scenarios(data.get("scenario", []), ctx, limit)
+    report_settings(data.get("report"), source)  # [report]: checked here, read by the writer
     if "curve" not in data and burden is None:
         burden = outcomes[0].burden
     if isinstance(exposure, GridExposure):

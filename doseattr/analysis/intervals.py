@@ -18,13 +18,12 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import sys
-from collections.abc import Callable, Iterator, Sequence
-from contextlib import contextmanager
+from collections.abc import Sequence
 
 import numpy as np
 
 from doseattr.analysis.config import Analysis
+from doseattr.analysis.progress import progress_bar
 from doseattr.analysis.specs import BurdenSpec, UncertaintySpec
 from doseattr.core.uncertainty.sampling import small_sample_df
 from doseattr.errors import DoseattrError
@@ -44,7 +43,7 @@ def population_intervals(analysis: Analysis, curve, exposure, scenarios, paf_val
 
     u = settings(analysis)
     total = u.draws * (1 + len(scenarios))
-    with progress_bar(total, progress) as tick:
+    with progress_bar(total, progress, draws=u.draws) as tick:
         prop = propagate(curve, [Stratum("population", 1.0, exposure)],
                          [sc for _, sc in scenarios], draws=u.draws,
                          rng=np.random.default_rng(u.seed),
@@ -120,20 +119,6 @@ def checked(draws: np.ndarray, what: str) -> np.ndarray:
     return draws
 
 
-@contextmanager
-def progress_bar(total: int, enabled: bool) -> Iterator[Callable[[int], None] | None]:
-    """A tqdm bar on standard error, shown only on a terminal and only
-    after a second (tqdm's ``disable=None`` and ``delay``)."""
-    if not enabled:
-        yield None
-        return
-    from tqdm import tqdm
-
-    with tqdm(total=total, unit="draw", disable=None, delay=1.0, leave=False,
-              file=sys.stderr, desc="uncertainty") as bar:
-        yield bar.update
-
-
 # -- which input drives the width ---------------------------------------------------
 def varying_sources(analysis: Analysis, curve, strata: Sequence) -> tuple[str, ...]:
     """The sources that actually vary: the curve when it has a covariance
@@ -165,7 +150,10 @@ def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
     u = settings(analysis)
     sources = varying_sources(analysis, curve, strata)
     out = []
-    with progress_bar(u.draws * len(sources), progress) as tick:
+    units = u.draws * len(sources) * len({id(s.exposure) for s in strata})
+    with progress_bar(units, progress, draws=u.draws * len(sources),
+                      stage=f"draws, one source at a time ({len(sources)} x {u.draws})"
+                      ) as tick:
         for i, source in enumerate(sources):
             prop = propagate(curve, strata, [], draws=u.draws,
                              rng=np.random.default_rng([u.seed, 2, i]),

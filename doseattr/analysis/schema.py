@@ -190,6 +190,11 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "error_gsd": Key("number", help="GSD (above 1) of a lognormal error of each cell"),
         "chunk": Key("integer", help="cells per side of a chunk read at once"),
     },
+    "report": {
+        "figures": Key("texts", help='figure files to write: ["png"] (default) or '
+                                     '["png", "svg"]'),
+        "dpi": Key("integer", help="resolution of the PNG figures (default 150)"),
+    },
     "tables": {
         "delimiter": Key("text", help="the character between columns of CSV tables "
                                       "(default \",\"; \"\\t\" for tabs)"),

@@ -21,6 +21,7 @@ from doseattr.outputs.markup import (
     num,
     para,
     pct,
+    points_text,
     table,
     with_unit,
     worded,
@@ -172,7 +173,7 @@ def _limit_errors(e: Estimate) -> str:
 
 
 def _points(v: float) -> str:
-    return f"{100 * v:.3g} points"
+    return points_text(v)
 
 
 def burden_section(burden: BurdenResult | None, unit: str | None,

@@ -13,6 +13,10 @@ h2 { font-size: 20px; margin: 32px 0 8px; padding-bottom: 4px; border-bottom: 1p
 h3 { font-size: 16px; margin: 20px 0 6px; }
 .meta { color: var(--muted); margin: 0 0 12px; font-size: 13px; }
 p { margin: 8px 0; }
+.scroll { overflow-x: auto; max-width: 100%; margin: 12px 0; }
+.scroll > table { margin: 0; }
+main { overflow-wrap: break-word; }
+@media (max-width: 600px) { main { padding: 16px 12px 32px; } }
 table { border-collapse: collapse; margin: 12px 0; font-size: 14px; }
 caption { text-align: left; font-weight: 600; padding: 4px 0; }
 th, td { padding: 4px 10px; border-bottom: 1px solid var(--rule); text-align: left;

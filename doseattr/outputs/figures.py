@@ -29,6 +29,7 @@ from doseattr.outputs.style import (
     outside_legend,
     styled,
 )
+from doseattr.results.numbers import share_text
 from doseattr.results.records import BandTable
 
 if TYPE_CHECKING:
@@ -255,7 +256,7 @@ def plot_exposure(exposure: AnyExposure, ax: Axes | None = None, unit: str | Non
                         label=f"{other.family.name} fit (comparison only{aic})",
                         gid=f"compare-{other.family.name}")
         if exposure.unexposed > 0:
-            ax.plot([], [], " ", label=f"plus {exposure.unexposed:.1%} unexposed (not drawn)")
+            ax.plot([], [], " ", label=f"plus {share_text(exposure.unexposed)} unexposed (not drawn)")
         _xlim_from_zero(ax, top)
         ax.set_ylim(bottom=0.0)
         ax.set_xlabel(axis_label("Exposure", unit))
@@ -405,7 +406,7 @@ def _draw_banded(ax: Axes, lo: FloatArray, hi: FloatArray, n: FloatArray) -> Non
            alpha=0.6, edgecolor="white", linewidth=0.5, gid="band-bars",
            label=f"counts in bands (N = {n.sum():g}), as density")
     for a, share in zip(lo[~closed], n[~closed] / n.sum()):
-        ax.plot([], [], " ", label=f"open band above {a:g}: {share:.1%} (not drawn)")
+        ax.plot([], [], " ", label=f"open band above {a:g}: {share_text(share)} (not drawn)")
 
 
 def _draw_data(ax: Axes, data: ExposureData, top: float, bins: int,

@@ -25,7 +25,7 @@ from doseattr.outputs import grid_figures as gf
 from doseattr.outputs.figures import AnyExposure
 from doseattr.outputs.markup import pct
 from doseattr.outputs.model_figures import Panel, bands_with_doses, plot_curve_panels
-from doseattr.outputs.style import png_bytes, pyplot, styled
+from doseattr.outputs.style import figure_bytes, pyplot, styled
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (
     AttributionSection,
@@ -49,13 +49,20 @@ FIGURE_NAMES = ("curve", "pooled", "models", "outcome_curves", "exposure", "qq",
 
 def render_figures(results: Results) -> dict[str, bytes]:
     """PNG bytes of every figure the results support, keyed by name."""
+    return {name: files["png"] for name, files in render_figure_files(results).items()}
+
+
+def render_figure_files(results: Results, formats: Sequence[str] = ("png",),
+                        dpi: int | None = None) -> dict[str, dict[str, bytes]]:
+    """``{name: {format: bytes}}`` of every figure the results support, in
+    PNG (always: the report embeds it, at ``dpi``) and each of ``formats``."""
     unit = results.unit
     curve, exposure = results.curve_section, results.exposure_section
     makers: dict[str, Callable[[], Figure | None]] = {
         "curve": lambda: _curve(curve, exposure.exposure, unit),
         "pooled": lambda: _pooled(curve, exposure.exposure, unit),
         "models": lambda: _models(curve, exposure.exposure, unit),
-        "outcome_curves": lambda: _outcome_curves(results.outcomes, unit),
+        "outcome_curves": lambda: _outcome_curves(results.outcomes, unit, exposure.exposure),
         "exposure": lambda: _exposure(exposure, unit),
         "qq": lambda: _qq(exposure, unit),
         "workers": lambda: _workers(exposure, unit),
@@ -71,7 +78,7 @@ def render_figures(results: Results) -> dict[str, bytes]:
     for name in FIGURE_NAMES:
         figure = makers[name]()
         if figure is not None:
-            out[name] = png_bytes(figure)
+            out[name] = figure_bytes(figure, tuple(dict.fromkeys(("png", *formats))), dpi)
     return out
 
 
@@ -147,9 +154,16 @@ def outcome_panels(outcomes: Sequence[tuple[str, Results]]) -> list[Panel]:
             for name, r in outcomes]
 
 
-def _outcome_curves(outcomes: Sequence[tuple[str, Results]], unit: str | None) -> Figure | None:
+def _outcome_curves(outcomes: Sequence[tuple[str, Results]], unit: str | None,
+                    exposure: AnyExposure | None = None) -> Figure | None:
+    """One panel per outcome, all over the same dose axis: to the 99th
+    percentile of the exposure at least (a curve without ``max_dose`` or
+    study bands has no range of its own)."""
     panels = outcome_panels(outcomes)
-    return plot_curve_panels(panels, unit) if panels else None
+    if not panels:
+        return None
+    top = max(fig.curve_extent(p.curve, p.bands, exposure) for p in panels)
+    return plot_curve_panels(panels, unit, x_max=top)
 
 
 def _exposure(section: ExposureSection, unit: str | None) -> Figure:
@@ -383,5 +397,6 @@ __all__ = [
     "outcome_panels",
     "paf_draws",
     "rate_panels",
+    "render_figure_files",
     "render_figures",
 ]

@@ -13,6 +13,7 @@ from html import escape
 from typing import Any
 
 from doseattr.results import Estimate
+from doseattr.results.numbers import percent
 
 NA = "\u2013"  # en dash for "not applicable"
 
@@ -32,8 +33,7 @@ def pct(value: Any, digits: int = 3) -> str:
     """A fraction as a percentage with ``digits`` significant figures."""
     if value is None:
         return NA
-    text = f"{100 * float(value):#.{digits}g}"
-    return text.rstrip(".") + "%"
+    return percent(value, digits)
 
 
 def finite(value: Any) -> float | None:
@@ -61,13 +61,20 @@ def table(header: Sequence[str], rows: Iterable[Sequence[Any]], *, cls: str = ""
                    for row in rows)
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
     klass = f' class="{cls}"' if cls else ""
-    return f"<table{klass}>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    return scroll(f"<table{klass}>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody>"
+                  "</table>")
+
+
+def scroll(markup: str) -> str:
+    """``markup`` (a table) in a box that scrolls sideways on a narrow screen,
+    so that the page itself never does."""
+    return f'<div class="scroll">{markup}</div>'
 
 
 def definition_list(items: Iterable[tuple[str, str]]) -> str:
     rows = "".join(f"<tr><th scope='row'>{escape(k)}</th><td>{escape(v)}</td></tr>"
                    for k, v in items)
-    return f'<table class="facts"><tbody>{rows}</tbody></table>'
+    return scroll(f'<table class="facts"><tbody>{rows}</tbody></table>')
 
 
 def image(png: bytes | None, alt: str) -> str:
@@ -139,4 +146,12 @@ def signed_points(v: Any) -> str:
     """A difference of two fractions in percentage points, with its sign."""
     if v is None:
         return NA
-    return ("+" if v > 0 else "") + f"{100 * v:.3g} points"
+    return points_text(v, signed=True)
+
+
+def points_text(v: float, *, signed: bool = False) -> str:
+    """A difference of fractions in percentage points, by the rule of
+    :func:`~doseattr.results.numbers.percent` (``"+1.23 points"``)."""
+    text = percent(v).removesuffix("%")
+    sign = "+" if signed and v > 0 and not text.startswith("<") else ""
+    return f"{sign}{text} points"

@@ -40,7 +40,8 @@ RC = {
     "legend.frameon": False,
     "legend.fontsize": 8.5,
     "figure.dpi": 100,
-    "savefig.dpi": 110,
+    "savefig.dpi": 150,
+    "svg.hashsalt": "doseattr",  # the same ids in every run, so the same SVG bytes
 }
 
 
@@ -83,15 +84,33 @@ def axis_label(what: str, unit: str | None) -> str:
     return f"{what} ({unit})" if unit else what
 
 
-def png_bytes(fig) -> bytes:
-    """Render ``fig`` to PNG bytes and close it.
+def png_bytes(fig, dpi: int | None = None) -> bytes:
+    """Render ``fig`` to PNG bytes (at ``dpi``, default ``savefig.dpi``)
+    and close it.
 
     The PNG metadata is fixed so the same figure gives the same bytes.
     """
+    return figure_bytes(fig, ("png",), dpi)["png"]
+
+
+def figure_bytes(fig, formats: tuple[str, ...] = ("png",), dpi: int | None = None
+                 ) -> dict[str, bytes]:
+    """Render ``fig`` once per format (``"png"``, ``"svg"``) and close it;
+    ``{format: bytes}``. Dates and software names are left out of the
+    metadata and the SVG ids are salted with a constant, so the same figure
+    gives the same bytes."""
     plt = pyplot()
-    buf = io.BytesIO()
+    out = {}
     try:
-        fig.savefig(buf, format="png", dpi=RC["savefig.dpi"], metadata={"Software": None})
+        for fmt in formats:
+            buf = io.BytesIO()
+            if fmt == "png":
+                fig.savefig(buf, format="png", dpi=dpi or RC["savefig.dpi"],
+                            metadata={"Software": None})
+            else:
+                with plt.rc_context({"svg.hashsalt": RC["svg.hashsalt"]}):
+                    fig.savefig(buf, format=fmt, metadata={"Date": None, "Creator": None})
+            out[fmt] = buf.getvalue()
     finally:
         plt.close(fig)
-    return buf.getvalue()
+    return out

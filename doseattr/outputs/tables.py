@@ -439,7 +439,9 @@ def _variant_table(variants: Sequence[CurveVariant], label: str, unit: str | Non
     dose_lists = [[] if v.doses is None else _floats(v.doses) for v in variants]
     n_coef = max(len(c) for c in coefs)
     n_dose = max(len(d) for d in dose_lists) if doses else 0
-    header = [label, "model", *[f"coefficient_{i + 1}" for i in range(n_coef)],
+    # the models compared are named by their label already (no second "model" column)
+    model_column = ["model"] if label != "model" else []
+    header = [label, *model_column, *[f"coefficient_{i + 1}" for i in range(n_coef)],
               *[f"standard_error_{i + 1}" for i in range(n_coef)],
               *[with_unit(f"dose_{i + 1}", unit) for i in range(n_dose)],
               "q", "df", "p_value", "nonlinearity_p", "paf", "problem"]
@@ -447,7 +449,8 @@ def _variant_table(variants: Sequence[CurveVariant], label: str, unit: str | Non
     for v, coef, se, dose in zip(variants, coefs, ses, dose_lists):
         c = v.curve
         fit = None if c is None else c.fit
-        rows.append([v.label, None if c is None else c.model.name, *_padded(coef, n_coef),
+        model = [None if c is None else c.model.name] if model_column else []
+        rows.append([v.label, *model, *_padded(coef, n_coef),
                      *_padded(se, n_coef), *_padded(dose, n_dose),
                      None if fit is None else _float(fit.q),
                      None if fit is None else int(fit.df),

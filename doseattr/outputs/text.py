@@ -90,6 +90,32 @@ EXTRA_REFERENCES = {
            "Automat Control 19:716. \u2020",
 }
 
+#: The published shapes of ``[curve] model``, cited when a run uses one.
+SHAPE_REFERENCES = {
+    "saturating-exponential": "Burnett RT, Pope CA III, Ezzati M, et al. (2014). An integrated "
+                              "risk function for estimating the global burden of disease "
+                              "attributable to ambient fine particulate matter exposure. "
+                              "Environ Health Perspect 122:397. \u2020",
+    "log-logistic-weighted": "Burnett R, Chen H, Szyszkowicz M, et al. (2018). Global "
+                             "estimates of mortality associated with long-term exposure to "
+                             "outdoor fine particulate matter. Proc Natl Acad Sci USA "
+                             "115:9592. \u2020",
+}
+
+#: Methods of the ``[limit]`` section, cited when its statistics name them
+#: (the key is a word of the method's source text).
+LIMIT_REFERENCES = {
+    "EN 689": "CEN (2018). EN 689:2018 Workplace exposure \u2013 Measurement of exposure by "
+              "inhalation of chemical agents \u2013 Strategy for testing compliance with "
+              "occupational exposure limit values. Brussels: CEN. \u2020",
+    "Land": "Land CE (1971). Confidence intervals for linear functions of the normal mean and "
+            "variance. Ann Math Stat 42:1187. \u2020",
+    "Venzon": "Venzon DJ, Moolgavkar SH (1988). A method for computing profile-likelihood-"
+              "based confidence intervals. Appl Stat 37:87. \u2020",
+}
+WORKER_REFERENCE = ("Rappaport SM, Kupper LL (2008). Quantitative Exposure Assessment. "
+                    "El Cerrito, CA: Stephen Rappaport. \u2020")
+
 #: How each ``[burden] method`` is named in the report's sentences.
 BURDEN_METHOD_NAMES = {"paf": "the PAF method", "impact-function": "the health impact function"}
 
@@ -158,7 +184,22 @@ def references(results: Results) -> list[str]:
         refs.append(EXTRA_REFERENCES["aic"])
     if results.burden_blocks:
         refs.append(IMPACT_REFERENCE)
+    refs += [r for r in used_method_references(results, models) if r not in refs]
     return refs + pooling_references(results.curve_section.pooling)
+
+
+def used_method_references(results: Results, models: list[str]) -> list[str]:
+    """The published shapes among ``models`` (of the run and its outcomes)
+    and the ``[limit]`` methods the run used."""
+    names = models + [r.curve.model.name for _, r in results.outcomes]
+    refs = [SHAPE_REFERENCES[n] for n in dict.fromkeys(names) if n in SHAPE_REFERENCES]
+    limit = results.limit
+    if limit is not None:
+        sources = " ".join(limit.stats.methods)
+        refs += [ref for word, ref in LIMIT_REFERENCES.items() if word in sources]
+        if limit.workers is not None:
+            refs.append(WORKER_REFERENCE)
+    return refs
 
 
 #: References of a pooled curve ([[curve.study]]), by what the run used.

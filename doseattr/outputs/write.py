@@ -27,16 +27,19 @@ import os
 import secrets
 import shutil
 import signal
-from collections.abc import Iterable, Iterator, Sequence
+import tomllib
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager, suppress
 from pathlib import Path
 
+from doseattr.analysis.report_section import ReportSettings, report_settings_of
 from doseattr.errors import InputError
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
 from doseattr.outputs.tables import all_tables, write_csv
 from doseattr.results.run import Results
 
 FIGURE_FOLDER = "figures"
+INPUT_FOLDER = "inputs"
 HINT = "give a folder of its own, for example --out results"
 
 
@@ -55,7 +58,10 @@ def with_command(results: Results, command: Sequence[str]) -> Results:
 
 
 def write_outputs(results: Results, out_dir: str | os.PathLike, *, figures: bool = True,
-                  command: Sequence[str] | None = None) -> list[Path]:
+                  command: Sequence[str] | None = None,
+                  report: ReportSettings | None = None,
+                  inputs: Sequence[tuple[str, str | os.PathLike]] = (),
+                  stage: Callable[[str], None] | None = None) -> list[Path]:
     """Write results.json, CSV tables, figures, report.html, the analysis
     copy and manifest.json to ``out_dir`` (see the module notes for which
     folders are accepted).
@@ -71,6 +77,15 @@ def write_outputs(results: Results, out_dir: str | os.PathLike, *, figures: bool
     command
         The command line as run, recorded in ``provenance.command``
         (default: ``"python-api"``).
+    report
+        Figure formats and PNG resolution (default: the analysis's
+        ``[report]`` section, read from the copy the results hold).
+    inputs
+        ``(name, path)`` of input files to copy into ``inputs/`` (the demo's
+        tables), listed in the manifest like every other file.
+    stage
+        Called with ``"figures"`` and ``"report"`` as each begins (the
+        terminal's status line).
 
     Returns
     -------
@@ -91,7 +106,10 @@ def write_outputs(results: Results, out_dir: str | os.PathLike, *, figures: bool
     tmp = out.parent / f".{out.name}.partial-{secrets.token_hex(4)}"
     try:
         os.mkdir(tmp)
-        relative = _produce(results, tmp, figures=figures, command=command)
+        settings = report if report is not None else settings_of(results)
+        relative = _produce(results, tmp, figures=figures, command=command, report=settings,
+                            stage=stage or (lambda _name: None))
+        relative += _copy_inputs(inputs, tmp)
         (tmp / MANIFEST).write_text(manifest_text(tmp, relative), encoding="utf-8")
         relative.append(Path(MANIFEST))
         with _signals_held():
@@ -153,9 +171,10 @@ def _refuse_foreign(out: Path, text: str) -> None:
 
 
 def _produce(results: Results, folder: Path, *, figures: bool,
-             command: Sequence[str] | None) -> list[Path]:
+             command: Sequence[str] | None, report: ReportSettings,
+             stage: Callable[[str], None]) -> list[Path]:
     """Write every output into ``folder``; return paths relative to it."""
-    from doseattr.outputs.gallery import render_figures
+    from doseattr.outputs.gallery import render_figure_files
     from doseattr.outputs.report import render_report
 
     if command is not None:
@@ -168,18 +187,48 @@ def _produce(results: Results, folder: Path, *, figures: bool,
         written.append(Path(name))
     (folder / "summary.txt").write_text(results.summary().rstrip() + "\n", encoding="utf-8")
     written.append(Path("summary.txt"))
-    images = render_figures(results) if figures else {}
-    if images:
+    stage("figures")
+    files = render_figure_files(results, report.figures, report.dpi) if figures else {}
+    if files:
         (folder / FIGURE_FOLDER).mkdir()
-        for name, png in images.items():
-            rel = Path(FIGURE_FOLDER) / f"{name}.png"
-            (folder / rel).write_bytes(png)
-            written.append(rel)
+        for name, by_format in files.items():
+            for fmt in report.figures:
+                rel = Path(FIGURE_FOLDER) / f"{name}.{fmt}"
+                (folder / rel).write_bytes(by_format[fmt])
+                written.append(rel)
+    images = {name: by_format["png"] for name, by_format in files.items()}
+    stage("report")
     html = render_report(results, images=images)
     (folder / "report.html").write_text(html, encoding="utf-8")
     written.append(Path("report.html"))
     written.append(_analysis_copy(results, folder))
     return written
+
+
+def settings_of(results: Results) -> ReportSettings:
+    """The ``[report]`` settings of the analysis the results were run from
+    (its copy: TOML for a file, canonical JSON for a dictionary)."""
+    if results.inputs is None:
+        return ReportSettings()
+    text = results.inputs.copy_bytes.decode("utf-8", errors="replace")
+    try:
+        data = tomllib.loads(text) if results.inputs.copy_kind == "file" else json.loads(text)
+    except (tomllib.TOMLDecodeError, ValueError):
+        return ReportSettings()
+    return report_settings_of(data if isinstance(data, dict) else None)
+
+
+def _copy_inputs(inputs: Sequence[tuple[str, str | os.PathLike]], folder: Path) -> list[Path]:
+    """Copy each ``(name, path)`` to ``folder/inputs/name``; the paths written."""
+    if not inputs:
+        return []
+    (folder / INPUT_FOLDER).mkdir()
+    out = []
+    for name, path in inputs:
+        rel = Path(INPUT_FOLDER) / name
+        shutil.copyfile(path, folder / rel)
+        out.append(rel)
+    return out
 
 
 def _analysis_copy(results: Results, folder: Path) -> Path:

@@ -74,21 +74,50 @@ def json_safe(obj: Any) -> Any:
 
 
 def pct(v: float | None) -> str:
-    """``"12.34%"``, or ``"-"`` for ``None``."""
-    return "-" if v is None else f"{100 * v:.2f}%"
+    """``"12.3%"``, or ``"-"`` for ``None`` (:func:`percent`)."""
+    return percent(v)
 
 
 def share_text(v: float) -> str:
-    """A population share in percent with two significant figures, never in
-    exponent form (``"0.19%"``, ``"12%"``, ``"100%"``)."""
+    """A population share in percent (:func:`percent`, two significant
+    figures): ``"0.19%"``, ``"12%"``, ``"99.9%"``, ``"<0.1%"`` below 0.1%
+    (a band holding 1 of 4000 homes), ``"0%"`` for none."""
     p = 100 * float(v)
-    if p >= 99.5:
-        return f"{p:.3g}%"  # 99.9% is not 100%
-    if p >= 10:
-        return f"{p:.0f}%"
-    return f"{p:.2g}%" if p >= 1e-4 else f"{p:.1e}%"
+    if p >= 99.5 and p < 100:
+        return percent(v, digits=3, floor=0.1, zeros=False)  # 99.9% is not 100%
+    return percent(v, digits=2, floor=0.1, zeros=False)
 
 
 def sig(v: float | None) -> str:
     """Four significant digits, or ``"-"`` for ``None``."""
     return "-" if v is None else f"{v:.4g}"
+
+
+def percent(v: float | None, digits: int = 3, floor: float = 0.001, *,
+            zeros: bool = True) -> str:
+    """A fraction as a percentage: the one rule of every report, table of
+    text and summary.
+
+    ``digits`` significant figures in fixed notation (never an exponent,
+    ``"4.3e-05%"``); trailing zeros kept, as they are significant
+    (``"0.160%"``); exactly zero as ``"0%"``; a magnitude below ``floor``
+    percent as ``"<0.001%"`` (or ``">-0.001%"``), so that neither ``0.0%``
+    for a share holding a few people nor a negative zero (``"-0.00%"``) is
+    ever shown. ``None`` or a value that is not finite gives ``"-"``.
+    ``zeros=False`` drops trailing zeros (``"5%"``, for population shares).
+    """
+    if v is None or not math.isfinite(float(v)):
+        return "-"
+    p = 100 * float(v)
+    if p == 0:
+        return "0%"
+    if abs(p) < floor:
+        return f"<{floor:g}%" if p > 0 else f">-{floor:g}%"
+    rounded = abs(float(f"{p:.{digits}g}"))  # 99.96 -> 100: one decimal fewer
+    decimals = max(0, digits - 1 - math.floor(math.log10(rounded)))
+    text = f"{p:.{decimals}f}"
+    if float(text) == 0:  # rounded away: show the floor rather than a zero
+        return f"<{floor:g}%" if p > 0 else f">-{floor:g}%"
+    if not zeros and "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return text + "%"

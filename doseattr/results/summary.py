@@ -112,7 +112,7 @@ def _exposure(r: Results) -> list[str]:
             if ex.fit.censored:
                 how += f", {ex.fit.censored} below detection"
         out = [f"Exposure: {ex.family.name}, {params} ({how})"]
-    out.append(f"mean {r.exposure_mean:.4g} {r.unit}; unexposed {100 * r.zero_share:.3g}%")
+    out.append(f"mean {r.exposure_mean:.4g} {r.unit}; unexposed {share_text(r.zero_share)}")
     out += _substitution(r)
     return out
 

@@ -121,6 +121,15 @@ class CurveModel(ABC):
         return self.name
 
 
+def minus(symbol: str, value: float, *, bracket: bool = True) -> str:
+    """``"(x - 5)"`` for a formula, or ``"x"`` alone when ``value`` is 0
+    (never ``x - 0``); without brackets when ``bracket`` is false."""
+    if value == 0:
+        return symbol
+    text = f"{symbol} - {value:g}" if value > 0 else f"{symbol} + {-value:g}"
+    return f"({text})" if bracket else text
+
+
 @dataclass(frozen=True)
 class CurveFit:
     """Diagnostics of a curve fitted to category-level estimates.

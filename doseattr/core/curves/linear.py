@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
-from doseattr.core.curves.base import CurveModel, FloatArray, Growth, param
+from doseattr.core.curves.base import CurveModel, FloatArray, Growth, minus, param
 from doseattr.errors import ModelError
 
 #: Smallest RR the model evaluates to; below it the argument of log1p is
@@ -69,4 +69,4 @@ class LinearExcess(CurveModel):
         return np.array([np.dot(d, np.expm1(y)) / np.dot(d, d)])
 
     def describe(self) -> str:
-        return f"RR = 1 + slope * (x - {self.reference_dose:g})"
+        return f"RR = 1 + slope * {minus('x', self.reference_dose)}"

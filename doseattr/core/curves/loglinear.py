@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
-from doseattr.core.curves.base import CurveModel, FloatArray, Growth, param
+from doseattr.core.curves.base import CurveModel, FloatArray, Growth, minus, param
 
 
 class LogLinear(CurveModel):
@@ -35,4 +35,4 @@ class LogLinear(CurveModel):
         return Growth("exp", np.maximum(b, 0.0))
 
     def describe(self) -> str:
-        return f"RR = exp(slope * (x - {self.reference_dose:g}))"
+        return f"RR = exp(slope * {minus('x', self.reference_dose)})"

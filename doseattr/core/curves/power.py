@@ -59,4 +59,5 @@ class Power(CurveModel):
 
     def describe(self) -> str:
         c, r = self.offset, self.reference_dose
-        return f"RR = ((x + {c:g}) / ({r + c:g}))^exponent"
+        top = "x" if c == 0 else f"(x + {c:g})"
+        return f"RR = ({top} / {r + c:g})^exponent"

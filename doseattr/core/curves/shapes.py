@@ -15,7 +15,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy.special import expit
 
-from doseattr.core.curves.base import CurveModel, FloatArray, Growth, param
+from doseattr.core.curves.base import CurveModel, FloatArray, Growth, minus, param
 from doseattr.errors import ModelError
 
 
@@ -99,7 +99,7 @@ class SaturatingExponential(_ThresholdShape):
         return np.array([alpha, np.log(2.0) / max(z, 1e-8), 1.0])
 
     def describe(self) -> str:
-        return f"RR = 1 + alpha (1 - exp(-gamma z^delta)), z = max(0, x - {self.threshold:g})"
+        return f"RR = 1 + alpha (1 - exp(-gamma z^delta)), {_z(self.threshold)}"
 
 
 class LogLogisticWeighted(_ThresholdShape):
@@ -147,5 +147,11 @@ class LogLogisticWeighted(_ThresholdShape):
         return Growth("power", np.maximum(theta, 0.0))
 
     def describe(self) -> str:
-        return (f"log RR = theta log(z/{self.scale:g} + 1) / (1 + exp(-(z - {self.midpoint:g})"
-                f"/{self.spread:g})), z = max(0, x - {self.threshold:g})")
+        return (f"log RR = theta log(z/{self.scale:g} + 1) / (1 + exp(-{minus('z', self.midpoint)}"
+                f"/{self.spread:g})), {_z(self.threshold)}")
+
+
+def _z(threshold: float) -> str:
+    """``"z = max(0, x - t)"``; ``"z = x"`` for a threshold of 0 (exposures
+    are not negative)."""
+    return "z = x" if threshold == 0 else f"z = max(0, {minus('x', threshold, bracket=False)})"

@@ -1,0 +1,1 @@
+"""Starting analyses written by ``doseattr init KIND DIR`` (invented numbers)."""
