@@ -69,7 +69,7 @@ NODES = 16
 NARROW_NODES = 8
 #: Widest panel on the log-dose scale: curves change shape over about a
 #: unit of ln x (saturation, logistic weights), which a panel must resolve.
-LOG_DOSE_WIDTH = 3.0
+LOG_DOSE_WIDTH = 4.0
 #: Doses whose logarithm lies outside this range are 0 or inf in floats.
 _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
@@ -169,15 +169,16 @@ class _Chunk:
             self.w_kinks = (np.log(np.maximum(kinks, 0.0)) - self.a) / self.b
         self.finite = np.isfinite(top)[:, None]
         self.top = np.where(self.finite, top[:, None], 1.0)
-        self.z_low = self._zeta(self.w_low)
-        self.z_top = self._zeta(self.w_top)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            self.z_low = _no_nan(std.zeta_low(self.w_low, params), self.w_low)
+            z_top, self.log_sf_top = std.zeta_top(self.w_top, params)
+        self.z_top = _no_nan(z_top, self.w_top)
         self.cap = np.full_like(self.z_top, ZB)
         self.w_tilt = None if tilt is None else (tilt - self.a) / self.b
 
     def _zeta(self, w: FloatArray) -> FloatArray:
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            z = self.std.zeta(w, self.params)
-        return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
+            return _no_nan(self.std.zeta(w, self.params), w)
 
     def integrate(self, log_rr: LogRisk, rows: slice,
                   rules: tuple[tuple[FloatArray, FloatArray], ...]) -> FloatArray:
@@ -210,7 +211,7 @@ class _Chunk:
         if not np.any(self.finite):
             return np.zeros_like(self.w_top)
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            sf = np.exp(np.where(self.finite, self.std.log_sf(self.w_top, self.params), -np.inf))
+            sf = np.exp(np.where(self.finite, self.log_sf_top, -np.inf))
         return cast(FloatArray, np.where(self.w_top == -np.inf, 1.0, sf))
 
     def _zwindow(self, cap: FloatArray) -> tuple[FloatArray, FloatArray, BoolArray, BoolArray]:
@@ -276,26 +277,31 @@ class _Chunk:
             edges, narrowest, window = self._edges(cap)
         half = 0.5 * np.diff(edges, axis=1)
         mid = edges[:, :-1] + half
-        w_parts, wt_parts = [], []
+        groups: list[tuple[FloatArray, FloatArray, FloatArray, FloatArray]] = []
         if narrowest is None:
-            xi, wi = rules[0]
-            w_parts.append((mid[:, :, None] + half[:, :, None] * xi).reshape(half.shape[0], -1))
-            wt_parts.append((half[:, :, None] * wi).reshape(half.shape[0], -1))
-            rules = ()
+            groups.append((mid, half, *rules[0]))
         else:
             kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
-        for group, (xi, wi) in enumerate(rules):
-            order = np.argsort(kind != group, axis=1, kind="stable")
-            n = int((kind == group).sum(axis=1).max())
-            if n == 0:
-                continue
-            take = order[:, :n]
-            h = np.take_along_axis(half, take, axis=1)
-            h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
-            m = np.take_along_axis(mid, take, axis=1)
-            w_parts.append((m[:, :, None] + h[:, :, None] * xi).reshape(h.shape[0], -1))
-            wt_parts.append((h[:, :, None] * wi).reshape(h.shape[0], -1))
-        nodes = sum(part.shape[1] for part in w_parts)
+            for group, (xi, wi) in enumerate(rules):
+                order = np.argsort(kind != group, axis=1, kind="stable")
+                n = int((kind == group).sum(axis=1).max())
+                if n == 0:
+                    continue
+                take = order[:, :n]
+                h = np.take_along_axis(half, take, axis=1)
+                h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
+                groups.append((np.take_along_axis(mid, take, axis=1), h, xi, wi))
+        rows_n = edges.shape[0]
+        nodes = sum(h.shape[1] * xi.size for _, h, xi, _ in groups)
+        w = np.empty((rows_n, nodes + 3))
+        weight = np.empty_like(w)
+        col = 0
+        for m, h, xi, wi in groups:
+            q = h.shape[1] * xi.size
+            shape = (rows_n, h.shape[1], xi.size)
+            w[:, col:col + q] = (m[:, :, None] + h[:, :, None] * xi).reshape(rows_n, q)
+            np.multiply(h[:, :, None], wi, out=weight[:, col:col + q].reshape(shape))
+            col += q
         # Three more columns, evaluated with the nodes: the window's ends,
         # carrying the probability beyond them where the window was cut at
         # the body (the integrand held at its value there, not dropped), and
@@ -304,11 +310,9 @@ class _Chunk:
         beyond = np.where(self.finite, between(z_hi, np.maximum(self.z_top, z_hi)), ndtr(-z_hi))
         caps = np.concatenate([np.where(lo_exact, 0.0, ndtr(z_lo)),
                                np.where(hi_exact, 0.0, beyond), np.zeros_like(z_lo)], axis=1)
-        w_parts.append(np.concatenate([edges[:, :1], edges[:, -1:],
-                                       np.where(self.finite, self.w_top, 0.0)], axis=1))
-        wt_parts.append(np.ones_like(caps))
-        w = np.concatenate(w_parts, axis=1)
-        weight = np.concatenate(wt_parts, axis=1)
+        w[:, nodes:] = np.concatenate([edges[:, :1], edges[:, -1:],
+                                       np.where(self.finite, self.w_top, 0.0)], axis=1)
+        weight[:, nodes:] = 1.0
         x = w * self.b
         x += self.a
         np.exp(x, out=x)
@@ -355,6 +359,11 @@ class _Chunk:
                 f"quadrature recovered the expected growth of the relative risk over the "
                 f"{self.std.family.name} distribution only to {float(np.nanmax(rel)):.1e} "
                 f"(relative); parameters are too extreme for the fixed rule")
+
+
+def _no_nan(z: FloatArray, w: FloatArray) -> FloatArray:
+    """A normal score with NaN (from an infinite ``w``) set to +-inf."""
+    return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
 
 
 def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: FloatArray,

@@ -80,6 +80,14 @@ class Standard(ABC):
         """Log survival probability of ``W`` beyond ``w``."""
         return cast(FloatArray, log_ndtr(-self.zeta(w, params)))
 
+    def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
+        """:meth:`zeta` where only its lower tail needs full precision."""
+        return self.zeta(w, params)
+
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """:meth:`zeta` (its upper tail in full precision) and :meth:`log_sf`."""
+        return self.zeta(w, params), self.log_sf(w, params)
+
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Panel width in the normal score per draw ``(d, 1)``."""
         return np.full((params.shape[0], 1), self.width)
@@ -206,6 +214,17 @@ class GammaStandard(Standard):
         k = params[:, :1]
         with np.errstate(over="ignore", divide="ignore"):
             return cast(FloatArray, np.log(gammaincc(k, np.exp(w))))
+
+    def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
+        """From ``P`` alone: one incomplete gamma function per draw (the
+        upper side loses digits of ``zeta``, not of any probability used)."""
+        with np.errstate(over="ignore"):
+            return cast(FloatArray, ndtri(gammainc(params[:, :1], np.exp(w))))
+
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        with np.errstate(over="ignore", divide="ignore"):
+            q = gammaincc(params[:, :1], np.exp(w))
+            return cast(FloatArray, -ndtri(q)), cast(FloatArray, np.log(q))
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Narrower panels for a small shape, whose density in ``w`` has a
