@@ -177,6 +177,10 @@ def _scale(k: FloatArray) -> FloatArray:
     return cast(FloatArray, np.minimum(k, np.sqrt(k)))
 
 
+#: Shapes below which the gamma panels get breaks near ``w = 0``.
+SMALL_SHAPE = 0.3
+
+
 class GammaStandard(Standard):
     def __init__(self, family: Family) -> None:
         super().__init__(family)
@@ -233,10 +237,10 @@ class GammaStandard(Standard):
         return cast(FloatArray, self.width * np.sqrt(np.minimum(1.0, k / 0.35)).clip(0.05))
 
     def extra_breaks(self, params: FloatArray) -> FloatArray:
-        """For a shape below 1 the density of ``w`` turns from ``e^{kw}`` to
+        """For a shape below SMALL_SHAPE the density of ``w`` turns from ``e^{kw}`` to
         ``e^{-e^w}`` within a few units of ``w = 0``; breaks there."""
         d = params.shape[0]
-        small = params[:, :1] < 1.0
+        small = params[:, :1] < SMALL_SHAPE
         grid = np.array([-24.0, -12.0, -6.0, -3.0, -1.5, 0.0, 1.5])
         return cast(FloatArray, np.where(small, grid, -np.inf) * np.ones((d, 1)))
 
