@@ -254,7 +254,7 @@ class _Chunk:
             grow = ~hi_exact & (end > last)
             last = np.where(grow, end, last)
             extra = np.where(grow, np.concatenate([self.w_tilt, end], axis=1), last)
-            body = np.concatenate([body, np.maximum(extra, body[:, -1:])], axis=1)
+            body = np.concatenate([body, np.clip(extra, body[:, -1:], last)], axis=1)
             body.sort(axis=1)
             z_end = np.where(grow, np.minimum(self._zeta(last), Z_MAX), z_hi)
             # no constant cap beyond the tilted breaks: the integrand grows there
