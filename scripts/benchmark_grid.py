@@ -48,11 +48,12 @@ inherited) is printed beside it. Measured:
    the core (``doseattr.core.uncertainty.propagate``) over the pooled
    population and every zone. The output says which one was measured.
 
-Times exclude the children's start-up and imports. Printed: the machine,
+Times exclude the children's start-up and imports (matplotlib's pyplot,
+which the figures import on first use, included). Printed: the machine,
 cells, the times, ns per cell, the ratio analysis / bare pass and each peak.
 
 Usage:  python scripts/benchmark_grid.py [--side 10000] [--zones 100]
-        [--draws 1000] [--chunk 2048] [--folder DIR] [--keep] [--smoke]
+        [--draws 1000] [--chunk 2048] [--folder DIR] [--keep] [--reuse DIR] [--smoke]
         [--compress none|deflate] [--gdal-cachemax 64]
 """
 
@@ -448,6 +449,9 @@ def warm_imports() -> None:
                  "doseattr.analysis.grid_reduce", "doseattr.core.exposure.grid",
                  "doseattr.core.uncertainty.propagate", "doseattr.outputs.write"):
         importlib.import_module(name)
+    from doseattr.outputs.style import pyplot
+
+    pyplot()  # the figures import matplotlib.pyplot on first use
 
 
 def child(args: argparse.Namespace) -> None:
@@ -471,6 +475,18 @@ def child(args: argparse.Namespace) -> None:
                   or fallback(folder, toml, args.draws))
     report.update(peak_mb=peak_mb(), peak_mb_before=before, vm_hwm_mb=high_water_mb())
     print(json.dumps(report))
+
+
+def generated(folder: Path) -> bool:
+    """Whether ``folder`` holds every file the generation writes."""
+    names = [*FILES.values(), "burden.csv", "zone_names.csv", "analysis.toml"]
+    return all((folder / name).exists() for name in names)
+
+
+def reused() -> dict[str, Any]:
+    """A stand-in for the generation's report when its files are reused."""
+    return {"mode": "generation (files reused, not timed)", "seconds": 0.0, "peak_mb": 0.0,
+            "peak_mb_before": 0.0, "vm_hwm_mb": None, "floor_mb": peak_mb()}
 
 
 def run_child(kind: str, args: argparse.Namespace, folder: Path) -> dict[str, Any]:
@@ -552,6 +568,9 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
                    "pass's window side")
     p.add_argument("--folder", help="where the temporary folder goes (default: the system's)")
     p.add_argument("--keep", action="store_true", help="keep the generated files")
+    p.add_argument("--reuse", metavar="DIR", help="use the files in DIR (generated there, and "
+                   "kept, when DIR holds none yet): repeated runs skip the generation; the "
+                   "files must have been made with the same --side, --zones, --chunk, --draws")
     p.add_argument("--compress", choices=("none", "deflate"), default="none")
     p.add_argument("--gdal-cachemax", type=int, default=64, help="MB, for the children")
     p.add_argument("--child", choices=("generate", "bare", "analysis"), help=argparse.SUPPRESS)
@@ -568,9 +587,15 @@ def main(argv: list[str] | None = None) -> None:
         return
     layout = Layout(args.side, args.side, args.zones)
     layout.per_side  # noqa: B018  (refuses a zone count that is not a square, early)
-    folder = Path(tempfile.mkdtemp(prefix="doseattr-grid-bench-", dir=args.folder))
+    if args.reuse:
+        folder = Path(args.reuse)
+        folder.mkdir(parents=True, exist_ok=True)
+        args.keep = True
+    else:
+        folder = Path(tempfile.mkdtemp(prefix="doseattr-grid-bench-", dir=args.folder))
     try:
-        generation = run_child("generate", args, folder)
+        generation = (reused() if args.reuse and generated(folder)
+                      else run_child("generate", args, folder))
         bare = run_child("bare", args, folder)
         analysis = run_child("analysis", args, folder)
         print(report(layout, args, generation, bare, analysis))

@@ -45,14 +45,24 @@ def test_screening_threshold_just_below_and_just_above(n, fraction):
     assert f"{fraction:g} x the limit" in above.rule
 
 
-@pytest.mark.parametrize("n", [3, 5, 8])
-def test_a_result_above_the_limit_never_complies(n):
-    # EN 689:2018, from memory: any result above the limit means non-compliance
+@pytest.mark.parametrize("n", [3, 4, 5])
+def test_a_result_above_the_limit_never_passes_the_screening_test(n):
+    # EN 689:2018, from memory: in the screening test any result above the
+    # limit means non-compliance
     values = [0.01 * LIMIT] * (n - 1) + [1.01 * LIMIT]
-    values[0] *= 1.5  # a spread, so the statistical test could be computed
+    values[0] *= 1.5
     decision = _decide(values, utl=0.5 * LIMIT)
-    assert decision.verdict == DOES_NOT_COMPLY
+    assert decision.verdict == DOES_NOT_COMPLY and decision.test == "screening"
     assert decision.numbers["largest_result"] == pytest.approx(1.01 * LIMIT)
+
+
+def test_from_six_results_the_upper_tolerance_limit_alone_decides():
+    # EN 689:2018, from memory: the statistical test compares the UTL with the
+    # limit; a single result above the limit enters through the UTL
+    values = [0.01 * LIMIT] * 7 + [1.01 * LIMIT]
+    values[0] *= 1.5
+    assert _decide(values, utl=0.5 * LIMIT).verdict == COMPLIES
+    assert _decide(values, utl=1.5 * LIMIT).verdict == DOES_NOT_COMPLY
 
 
 def test_non_detects_count_below_only_with_a_low_detection_limit():

@@ -100,9 +100,10 @@ def worker_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("workers")
     rows = _samples(np.random.default_rng(11))
     scen = '[[scenario]]\nname = "Comply"\ncomply = true\n'
-    toml = _analysis("value = 0.5\n", scenarios=scen,
-                     extra="") + "[uncertainty]\ndraws = 400\nseed = 5\n"
+    toml = (_analysis("value = 0.5\n", scenarios=scen) + "[uncertainty]\ndraws = 400\nseed = 5\n"
+            '[burden]\ntable = "burden.csv"\n')
     path = _write(folder, toml, rows)
+    (folder / "burden.csv").write_text("stratum,cases\nplant,30\n")  # an invented count
     out = folder / "out"
     assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
     return out, run_analysis(load_analysis(path))
@@ -124,7 +125,7 @@ def test_paf_uses_workers_long_term_means(worker_run):
 
 
 def test_limit_results_json_and_files(worker_run):
-    out, r = worker_run
+    out, _ = worker_run
     d = json.loads((out / "results.json").read_text())
     lim = d["limit"]
     assert lim["value"] == 0.5 and lim["confidence"] == 0.7
@@ -144,6 +145,14 @@ def test_limit_results_json_and_files(worker_run):
     assert (out / "limit_workers.csv").is_file()
     html = (out / "report.html").read_text()
     assert "Compliance with the limit value" in html and "Between-worker GSD" in html
+    assert "If the group complied (scenario &#x27;Comply&#x27;" in html and "cases averted" in html
+
+
+def test_cases_prevented_by_compliance(worker_run):
+    _, r = worker_run
+    (sc,) = r.scenarios
+    # Method "paf": averted = cases x PIF at the point estimates (definition).
+    assert sc.averted.estimate == pytest.approx(30 * sc.pif.estimate, rel=1e-10)
 
 
 def test_worker_exceedance_is_the_closed_form(worker_run):
@@ -203,3 +212,28 @@ def test_bad_limit_input_is_one_line_exit_2_nothing_written(tmp_path, capsys, to
     assert err.startswith("doseattr: error: ") and err.count("\n") == 1
     assert fragment in err and "Traceback" not in err and out == ""
     assert not out_dir.exists()
+
+
+def test_exposure_figure_and_comparison_show_samples_and_long_term_means(worker_run):
+    from doseattr.outputs import figures as fig
+
+    _, r = worker_run
+    section = r.exposure_section
+    ax = fig.plot_exposure(section.samples, long_term=section.exposure, unit="mg/m3")
+    gids = {line.get_gid() for line in ax.get_lines()}
+    assert {"fitted-density", "long-term-density"} <= gids
+    names = [v.label for v in section.comparison]
+    assert names[:2] == ["lognormal, workers' long-term means", "lognormal, single samples"]
+    gm, gsd = section.samples.params
+    am = gm * math.exp(math.log(gsd) ** 2 / 2)
+    # Linear RR: the single samples' PAF is B E[X]/(1 + B E[X]) (closed form).
+    assert section.comparison[1].paf == pytest.approx(B * am / (1 + B * am), rel=1e-8)
+
+
+def test_check_says_what_the_limit_will_test(tmp_path, capsys):
+    rows = _samples(np.random.default_rng(2), workers=3, per=2, lod=None)
+    path = _write(tmp_path, _analysis("value = 0.5\n"), rows)
+    assert main(["check", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "limit: 0.5 mg/m3, EN 689 statistical test" in out and "on 6 samples" in out
+    assert "3 workers" in out

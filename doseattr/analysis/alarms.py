@@ -17,6 +17,7 @@ import numpy as np
 
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.curves.base import Curve
+from doseattr.core.curves.pooling import Pooled
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.results.records import AnyExposure, CurveVariant, ExposureVariant, ScenarioResult
 
@@ -206,3 +207,29 @@ def extrapolation_alarms(contribution: Contribution, curve: Curve, exposure: Any
             "dose with data, so the result rests on extrapolation of the curve; check how the "
             "curve is extended there (beyond, max_dose) and report the result as an "
             "extrapolation"]
+
+
+#: I^2 above this: most of the spread between studies is heterogeneity
+#: (Higgins et al. 2003, BMJ 327:557, call 75% high; from memory).
+HIGH_I2 = 0.75
+#: One study carrying more than this share of a pooled estimate.
+DOMINANT_WEIGHT = 0.60
+
+
+def pooling_alarms(pooled: Pooled, predict: bool = False) -> list[str]:
+    """High heterogeneity between pooled studies, and one study that
+    carries most of the pooled estimate (``predict``: the Monte Carlo
+    already draws a new population's curve)."""
+    out = []
+    if pooled.i2 > HIGH_I2:
+        advice = "" if predict else ", and consider predict = true"
+        out.append(f"the pooled studies disagree: I^2 = {pooled.i2:.0%} (above "
+                   f"{HIGH_I2:.0%}) of the variation between their coefficients is "
+                   "heterogeneity rather than chance; one pooled curve may describe none of "
+                   f"their populations well (look at the studies' curves{advice})")
+    top = int(np.argmax(pooled.weights))
+    if pooled.weights[top] > DOMINANT_WEIGHT:
+        out.append(f"study '{pooled.names[top]}' carries {pooled.weights[top]:.0%} of the "
+                   f"pooled estimate (more than {DOMINANT_WEIGHT:.0%}): the pooled curve is "
+                   "mostly that study's")
+    return out

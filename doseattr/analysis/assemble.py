@@ -20,6 +20,7 @@ from doseattr.results.records import (
     ExposureVariant,
     FamilyFit,
     GoodnessOfFit,
+    PoolingSection,
     StratumExposure,
     SubstitutionResult,
     Workers,
@@ -82,14 +83,18 @@ def workers(w: Any) -> Workers | None:
 
 def curve_section(curve: Curve, exposure: AnyExposure, bands: Any,
                   comparison: tuple[CurveVariant, ...],
-                  sensitivity: tuple[CurveVariant, ...]) -> CurveSection:
+                  sensitivity: tuple[CurveVariant, ...],
+                  pooling: PoolingSection | None = None) -> CurveSection:
     """The curve section; each variant is marked ``used`` when it is the
-    analysis's own curve and given its spline non-linearity test."""
+    analysis's own curve and given its spline non-linearity test (a pooled
+    spline's is the test on the pooled coefficients' own covariance)."""
     comparison = tuple(_variant(v, curve) for v in comparison)
     sensitivity = tuple(_variant(v, curve) for v in sensitivity)
-    return CurveSection(curve, bands, comparison, sensitivity, nonlinearity_p(curve),
+    linear_p = nonlinearity_p(curve) if pooling is None else (
+        None if pooling.nonlinearity is None else pooling.nonlinearity[2])
+    return CurveSection(curve, bands, comparison, sensitivity, linear_p,
                         share_above(exposure, curve.max_dose),
-                        share_above(exposure, curve.data_max))
+                        share_above(exposure, curve.data_max), pooling)
 
 
 def exposure_section(curve: Curve, exposure: AnyExposure, *,

@@ -34,6 +34,7 @@ from doseattr.analysis.specs import (
     MeasuredExposure,
     PercentilesExposure,
     PointsCurve,
+    PooledCurve,
     ShapeCurve,
     StrataExposure,
     SummaryExposure,
@@ -45,7 +46,7 @@ from doseattr.core.curves.base import Curve, CurveModel
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
-from doseattr.results.records import BandTable
+from doseattr.results.records import BandTable, PoolingSection
 
 if TYPE_CHECKING:
     from doseattr.analysis.grid_exposure import BuiltGrid
@@ -82,6 +83,8 @@ class BuiltCurve:
     bands: BandTable | None
     warnings: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    #: The studies pooled into the curve (``[[curve.study]]``), or ``None``.
+    pooling: PoolingSection | None = None
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -111,6 +114,19 @@ def fit_table_curve(spec: TableCurve, inputs: CurveInputs, *, model: str | None 
                     dose_rule: str | None = None) -> BuiltCurve:
     """Fit a model to the study table (``model`` and ``dose_rule`` override
     the spec's, for comparisons and sensitivity tables)."""
+    return _fit_table(spec, inputs, model, dose_rule)
+
+
+def fit_pooled_study(spec: TableCurve, inputs: CurveInputs,
+                     knots: FloatArray | None) -> BuiltCurve:
+    """One study of a pooled curve, fitted exactly as :func:`fit_table_curve`
+    fits a single table; a spline takes the ``knots`` shared by every
+    study (checked by the caller against all the studies' doses)."""
+    return _fit_table(spec, inputs, None, None, knots)
+
+
+def _fit_table(spec: TableCurve, inputs: CurveInputs, model: str | None,
+               dose_rule: str | None, knots: FloatArray | None = None) -> BuiltCurve:
     from doseattr.core.curves.fit import fit_curve
 
     t = spec.table
@@ -123,7 +139,7 @@ def fit_table_curve(spec: TableCurve, inputs: CurveInputs, *, model: str | None 
                          "other band", source=t.source)
     cov, warnings, notes = log_rr_covariance(spec, t)
     notes = list(bd.notes) + notes
-    curve_model = _table_model(spec, model_name, doses, inputs.source)
+    curve_model = _table_model(spec, model_name, doses, inputs.source, knots)
     data_max = float(doses.max())
     max_dose = None if spec.beyond == "extend" else (
         spec.max_dose if spec.max_dose is not None else data_max)
@@ -230,7 +246,7 @@ def log_rr_covariance(spec: TableCurve,
 
 
 def _table_model(spec: TableCurve, name: str, doses: FloatArray,
-                 src: str | None) -> CurveModel:
+                 src: str | None, shared_knots: FloatArray | None = None) -> CurveModel:
     from doseattr.core.curves.registry import make_model
     from doseattr.core.curves.spline import default_knots
 
@@ -239,7 +255,9 @@ def _table_model(spec: TableCurve, name: str, doses: FloatArray,
     if name == "power":
         settings["offset"] = spec.offset
     if name == "spline":
-        if spec.knots is not None:
+        if shared_knots is not None:
+            knots = shared_knots
+        elif spec.knots is not None:
             knots = np.asarray(spec.knots, dtype=float)
             if knots[0] < doses.min() or knots[-1] > doses.max():
                 raise InputError(f"knots must lie within the assigned doses ({doses.min():g} "
@@ -357,10 +375,18 @@ def _check_shape_draws(spec: ShapeCurve, source: str | None) -> None:
                              source=source, location=key_location("curve", f"{name}_se"))
 
 
+def _pooled(spec: PooledCurve, inputs: CurveInputs) -> BuiltCurve:
+    """Several studies fitted one by one and pooled
+    (:func:`~doseattr.analysis.pooled_curve.build_pooled`)."""
+    from doseattr.analysis.pooled_curve import build_pooled
+
+    return build_pooled(spec, inputs)
+
+
 #: The builder of each source of curve.
 CURVE_BUILDERS: dict[type, Callable[[Any, CurveInputs], BuiltCurve]] = {
     TableCurve: _table, EnteredCurve: _entered, PointsCurve: _points, DrawsCurve: _draws,
-    ShapeCurve: _shape}
+    ShapeCurve: _shape, PooledCurve: _pooled}
 
 
 # -- exposure -------------------------------------------------------------------
@@ -431,7 +457,8 @@ def _long_term(built: BuiltExposure, m: Measurements, unexposed: float) -> Built
     with as_input_error(m.source, "column 'worker'",
                         "the within- and between-worker model cannot be fitted: "):
         model = fit_workers(m.values, m.detected, m.worker)
-    exposure = long_term_exposure(model)
+    with as_input_error(m.source, "column 'worker'"):
+        exposure = long_term_exposure(model)
     if unexposed:
         exposure = dataclasses.replace(exposure, unexposed=unexposed)
     assert isinstance(built.exposure, Exposure)
@@ -653,7 +680,9 @@ def build_scenarios(analysis: Analysis, built: BuiltExposure | None = None
         with as_input_error(analysis.source, key_location("scenario", spec.kind, spec.index)):
             if spec.kind == "comply":
                 assert built is not None, "comply needs the built exposure"
-                p95 = float(built.sampled.ppf(0.95))
+                sampled = built.sampled
+                assert isinstance(sampled, Exposure), "[limit] needs a fitted family"
+                p95 = float(sampled.ppf(0.95))
                 sc: Scenario = Comply.from_percentile(spec.value, p95, name=spec.name)
                 out.append((dataclasses.replace(spec, value=sc.value), sc))
             else:

@@ -40,6 +40,7 @@ from doseattr.analysis.specs import (
     OutcomeSpec,
     PercentilesExposure,
     PointsCurve,
+    PooledCurve,
     ShapeCurve,
     StrataExposure,
     SummaryExposure,
@@ -213,7 +214,7 @@ class divergence:
         if issubclass(kind, FloatRangeError):
             raise InputError(f"there is no PAF: {exc}", source=a.source,
                              location="[curve]") from None
-        how = ("beyond = \"flat\"" if isinstance(a.curve, TableCurve)
+        how = ("beyond = \"flat\"" if isinstance(a.curve, (TableCurve, PooledCurve))
                else "max_dose with beyond = \"flat\"")
         raise InputError(
             f"the expected RR is infinite, so there is no PAF: {str(exc).rstrip('.')} "
@@ -249,7 +250,22 @@ def describe(p: Prepared) -> list[str]:
              _attribution_line(a, p), _uncertainty_line(a)]
     if p.strata is not None and a.burden is not None:
         lines.append(_burden_line(a.burden.table, p.strata, p.built_exposure.exposure))
+    if a.limit is not None:
+        lines.append(_limit_line(a, p.built_exposure))
     return lines
+
+
+def _limit_line(a: Analysis, built: BuiltExposure) -> str:
+    """What ``[limit]`` will test, and on which samples."""
+    assert a.limit is not None
+    fit = built.sampled.fit
+    n = 0 if fit is None else fit.n
+    test = ("EN 689 screening test" if 3 <= n <= 5 else "EN 689 statistical test (upper "
+            f"tolerance limit of the 95th percentile at {a.limit.confidence:.0%})")
+    workers = ("" if built.worker_model is None else
+               f"; {built.worker_model.n_workers} workers: within- and between-worker model, "
+               "PAF over their long-term means")
+    return f"limit: {a.limit.value:g} {a.unit}, {test} on {n} samples{workers}"
 
 
 COVARIANCE_WORDS = {"counts": "Greenland-Longnecker covariance from the counts",
@@ -289,10 +305,28 @@ def _entered_words(spec: EnteredCurve, built: BuiltCurve, unit: str) -> str:
     return f"{spec.model} from a published {spec.estimate} = {spec.value:g} per {spec.per:g} {unit}"
 
 
+def _pooled_words(spec: PooledCurve, built: BuiltCurve, unit: str) -> str:
+    """The studies, how they are pooled and which draws the Monte Carlo makes."""
+    how = ("fixed effect (inverse-variance GLS)" if spec.pooling == "fixed" else
+           f"random effects (between-study variance by {spec.tau_method.upper()})")
+    studies = "; ".join(f"'{n}': {_table_words(s, _own_notes(built, n), unit)}"
+                        for n, s in zip(spec.names, spec.studies))
+    draws = ("draws of a new population's curve (predict = true)" if spec.predict
+             else "draws of the pooled mean curve")
+    return (f"{spec.model} fitted to each of {len(spec.studies)} studies and pooled by {how}, "
+            f"{draws} [{studies}]")
+
+
+def _own_notes(built: BuiltCurve, name: str) -> BuiltCurve:
+    """``built`` with only the notes of study ``name``."""
+    own = f"study '{name}': "
+    return dataclasses.replace(built, notes=tuple(t for t in built.notes if t.startswith(own)))
+
+
 #: How each source of curve is described (before where it is held flat).
 _CURVE_WORDS: dict[type, Callable[[Any, BuiltCurve, str], str]] = {
     TableCurve: _table_words, PointsCurve: _given_words, DrawsCurve: _given_words,
-    ShapeCurve: _shape_words, EnteredCurve: _entered_words}
+    ShapeCurve: _shape_words, EnteredCurve: _entered_words, PooledCurve: _pooled_words}
 
 
 def _exposure_line(a: Analysis, built: BuiltExposure) -> str:

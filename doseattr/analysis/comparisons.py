@@ -79,6 +79,13 @@ def exposure_variants(analysis: Analysis, curve, exposure, built_exposure,
     fit = exposure.fit
     out = [ExposureVariant(exposure.family.name, exposure.parameters,
                            None if fit is None else fit.aic, paf_value)]
+    samples = built_exposure.samples
+    if samples is not None:  # a worker column: the PAF over workers' long-term means
+        out = [ExposureVariant(f"{exposure.family.name}, workers' long-term means",
+                               exposure.parameters, None, paf_value),
+               _exposure_variant(f"{samples.family.name}, single samples", samples.parameters,
+                                 getattr(samples.fit, "aic", None),
+                                 lambda: paf(curve, samples, minimum_risk=m))]
     empirical_main = exposure.family.name == "empirical"
     unexposed = exposure.zero_share if empirical_main else exposure.unexposed
     others = list(exposure.alternatives) + [(e.family, e.params, e.fit)

@@ -256,7 +256,9 @@ def _strata_exposure(burden: BurdenSpec | None, outcomes: tuple[OutcomeSpec, ...
 
 def _curve(c: dict[str, Any], ctx: Context, units: Units) -> CurveSpec:
     """``[curve]`` checked, its doses converted to the file's unit."""
-    spec = parse_curve(c, ctx)
+    from doseattr.analysis.pooled_section import parse_pooled
+
+    spec = parse_pooled(c, ctx, units) if "study" in c else parse_curve(c, ctx)
     conv = conversion(units, c.get("unit"), "curve", ctx)
     return convert_curve(spec, conv, c.get("unit"))
 

@@ -29,8 +29,15 @@ from doseattr.analysis.tables import (
 )
 from doseattr.errors import InputError
 
+#: Keys of ``[curve]`` that only a pooled curve (``[[curve.study]]``) takes.
+POOLED_KEYS = ("pooling", "tau_method", "predict")
+
 
 def parse_curve(c: dict[str, Any], ctx: Context) -> CurveSpec:
+    for key in POOLED_KEYS:
+        if key in c:
+            raise ctx.error(f"'{key}' goes with [[curve.study]] blocks (several study tables "
+                            "pooled into one curve)", "curve", key)
     entered = only_one(c, ("rr", "err", "exponent"), ctx, "curve")
     given = [k for k in ("table", "points", "draws") if k in c] + ([entered] if entered else [])
     if len(given) > 1:
@@ -82,18 +89,7 @@ def _fitted_curve(c: dict[str, Any], ctx: Context) -> TableCurve:
     if beyond == "extend" and max_dose is not None:
         raise ctx.error("max_dose holds the curve flat above it; it cannot go with "
                         "beyond = \"extend\"", "curve", "max_dose")
-    knots = None
-    if "knots" in c:
-        knots = tuple(float(v) for v in c["knots"])
-        if len(knots) < 3 or any(b <= a for a, b in zip(knots, knots[1:])):
-            raise ctx.error("knots must be at least 3 increasing doses, for example [5, 20, 60]",
-                            "curve", "knots")
-        if "knot_count" in c:
-            raise ctx.error("give knots or knot_count, not both", "curve", "knot_count")
-    knot_count = int(c.get("knot_count", 3))
-    if not 3 <= knot_count <= 5:
-        raise ctx.error(f"knot_count must be 3, 4 or 5 (default knots at Harrell's percentiles "
-                        f"of the doses), got {knot_count}", "curve", "knot_count")
+    knots, knot_count = knot_settings(c, ctx)
     compare = tuple(c.get("compare_models", ()))
     for name in compare:
         if name not in FITTED_MODELS:
@@ -107,6 +103,24 @@ def _fitted_curve(c: dict[str, Any], ctx: Context) -> TableCurve:
                      knot_count=knot_count, compare_models=compare,
                      notes=tuple(notes) + table.notes, total_cases=total_cases,
                      total_noncases=total_noncases)
+
+
+def knot_settings(c: dict[str, Any], ctx: Context) -> tuple[tuple[float, ...] | None, int]:
+    """``[curve] knots`` (at least 3 increasing doses) or ``knot_count``
+    (3, 4 or 5; default 3), checked."""
+    knots = None
+    if "knots" in c:
+        knots = tuple(float(v) for v in c["knots"])
+        if len(knots) < 3 or any(b <= a for a, b in zip(knots, knots[1:])):
+            raise ctx.error("knots must be at least 3 increasing doses, for example [5, 20, 60]",
+                            "curve", "knots")
+        if "knot_count" in c:
+            raise ctx.error("give knots or knot_count, not both", "curve", "knot_count")
+    knot_count = int(c.get("knot_count", 3))
+    if not 3 <= knot_count <= 5:
+        raise ctx.error(f"knot_count must be 3, 4 or 5 (default knots at Harrell's percentiles "
+                        f"of the doses), got {knot_count}", "curve", "knot_count")
+    return knots, knot_count
 
 
 #: The key of the study's total non-cases for each design with effective counts.

@@ -38,7 +38,7 @@ from doseattr.analysis.grid_inputs import (
 from doseattr.errors import InputError
 
 #: ``reduce_block(conc, pop, zone_index, n_zones) -> BlockSums``.
-Reducer = Callable[[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64], int], Any]
+Reducer = Callable[[NDArray[Any], NDArray[Any], NDArray[np.integer], int], Any]
 #: Partial results merged per task of the tree sum.
 FAN_IN = 8
 #: Longest side, in cells, of the sample of the rasters kept for maps.
@@ -99,14 +99,19 @@ class GridNotes:
         return tuple(out)
 
 
+#: A block's cells of the map sample: (sample row, sample column, arrays).
+Piece = tuple[int, int, tuple[NDArray[Any], ...]]
+
+
 @dataclass
 class _Partial:
-    """A block's sums, its cell count and its cells in unknown zones
-    (cells and population by zone id)."""
+    """A block's sums, its cell count, its cells in unknown zones (cells
+    and population by zone id) and its cells of the map sample."""
 
     sums: Any
     cells: int
     unknown: dict[int, tuple[int, float]] = field(default_factory=dict)
+    pieces: list[Piece] = field(default_factory=list)
 
 
 def reduce_grid(spec: GridSpec, zone_ids: Sequence[int], *, scheduler: str | None = None,
@@ -172,6 +177,13 @@ def _core_reducer() -> Reducer:
     return reduce_block  # type: ignore[no-any-return, unused-ignore]
 
 
+def _release_scratch() -> None:
+    """Free the core reducer's per-thread work arrays after a pass."""
+    from doseattr.core.exposure.grid import release_scratch
+
+    release_scratch()
+
+
 # -- rasters ------------------------------------------------------------------
 def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
              scheduler: str | None) -> tuple[_Partial, GridSample]:
@@ -186,20 +198,55 @@ def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
             else layers.zones.data.to_delayed().ravel())
     nodata = None if layers.zones is None else layers.zones.nodata
     block = dask.delayed(_raster_block, pure=True)
-    parts = [block(c, p, z, zones, nodata, n_zones, reduce_block)
-             for c, p, z in zip(conc, pop, zone)]
-    root = _tree(parts, dask.delayed(_merge, pure=True))
     step = max(1, -(-max(layers.concentration.shape) // MAP_SIDE))
-    sampled = [layer.data[::step, ::step] for layer in
-               (layers.concentration, layers.population, layers.zones) if layer is not None]
-    total, conc_s, pop_s, *zone_s = _compute(root, *sampled, scheduler=scheduler)
-    if zones is None:
+    origins = _block_origins(layers.concentration.data.chunks)
+    assert layers.population.data.chunks == layers.concentration.data.chunks
+    parts = [block(c, p, z, zones, nodata, n_zones, reduce_block, origin, step)
+             for c, p, z, origin in zip(conc, pop, zone, origins, strict=True)]
+    root = _tree(parts, dask.delayed(_merge, pure=True))
+    try:
+        (total,) = _compute(root, scheduler=scheduler)
+    finally:
+        _release_scratch()
+    conc_s, pop_s, zone_s = _assemble(total.pieces, layers.concentration.shape, step)
+    if zones is None or zone_s is None:
         index = np.zeros(np.shape(conc_s), dtype=np.int64)
     else:
-        index = zones.indices(np.asarray(zone_s[0]), nodata)[0]
+        index = zones.indices(zone_s, nodata)[0].astype(np.int64)
     sample = GridSample(_floats(conc_s), _floats(pop_s), index, step,
                         _extent(layers.concentration), layers.concentration.crs)
     return total, sample
+
+
+def _block_origins(chunks: tuple[tuple[int, ...], ...]) -> list[tuple[int, int]]:
+    """(first row, first column) of each block, in the order of
+    ``to_delayed().ravel()`` (row of blocks by row of blocks)."""
+    rows = np.cumsum((0, *chunks[0][:-1]))
+    cols = np.cumsum((0, *chunks[1][:-1]))
+    return [(int(r), int(c)) for r in rows for c in cols]
+
+
+def _piece(origin: tuple[int, int], step: int, *blocks: Any) -> Piece:
+    """The cells of a block on the sample's lattice (global rows and columns
+    divisible by ``step``), taken while the block is in memory, so the
+    sample costs no second read of the rasters."""
+    r0, c0 = origin
+    dr, dc = -r0 % step, -c0 % step
+    arrays = tuple(np.array(np.asarray(b)[dr::step, dc::step]) for b in blocks)
+    return (r0 + dr) // step, (c0 + dc) // step, arrays
+
+
+def _assemble(pieces: list[Piece], shape: tuple[int, int], step: int
+              ) -> tuple[NDArray[Any], NDArray[Any], NDArray[Any] | None]:
+    """The sample (every ``step``-th row and column of the grid) from the
+    blocks' pieces: concentration, population and zones (``None`` without)."""
+    size = (-(-shape[0] // step), -(-shape[1] // step))
+    kinds = len(pieces[0][2])
+    out = [np.empty(size, dtype=pieces[0][2][k].dtype) for k in range(kinds)]
+    for r, c, arrays in pieces:
+        for k, a in enumerate(arrays):
+            out[k][r:r + a.shape[0], c:c + a.shape[1]] = a
+    return out[0], out[1], out[2] if kinds > 2 else None
 
 
 def _extent(layer: Any) -> tuple[float, float, float, float] | None:
@@ -220,14 +267,20 @@ def _extent(layer: Any) -> tuple[float, float, float, float] | None:
 
 
 def _raster_block(conc: Any, pop: Any, zone: Any, zones: ZoneMap | None, nodata: float | None,
-                  n_zones: int, reduce_block: Reducer) -> _Partial:
-    c, p = _floats(conc), _floats(pop)
+                  n_zones: int, reduce_block: Reducer, origin: tuple[int, int] = (0, 0),
+                  step: int = 1) -> _Partial:
+    # as read (float32 stays float32): the reducer skips non-finite values itself
+    c, p = np.asarray(conc), np.asarray(pop)
+    index: NDArray[np.integer]
     if zones is None:
         index = np.zeros(c.shape, dtype=np.int64)
         unknown_ids = np.zeros(0, dtype=np.int64)
     else:
         index, unknown_ids = zones.indices(zone, nodata)
-    return _partial(reduce_block(c, p, index, n_zones), c, p, index, unknown_ids)
+    part = _partial(reduce_block(c, p, index, n_zones), c, p, index, unknown_ids)
+    part.pieces.append(_piece(origin, step, c, p) if zone is None
+                       else _piece(origin, step, c, p, zone))
+    return part
 
 
 def _floats(block: Any) -> NDArray[np.float64]:
@@ -237,8 +290,8 @@ def _floats(block: Any) -> NDArray[np.float64]:
     return x
 
 
-def _partial(sums: Any, conc: NDArray[np.float64], pop: NDArray[np.float64],
-             index: NDArray[np.int64], unknown_ids: NDArray[np.int64]) -> _Partial:
+def _partial(sums: Any, conc: NDArray[Any], pop: NDArray[Any], index: NDArray[np.integer],
+             unknown_ids: NDArray[np.int64]) -> _Partial:
     """Wrap a block's sums with its cell count and, per unknown zone id, the
     cells and their population (finite, non-negative population only)."""
     unknown: dict[int, tuple[int, float]] = {}
@@ -260,7 +313,8 @@ def _merge(*parts: _Partial) -> _Partial:
         for z, (n, t) in part.unknown.items():
             n0, t0 = unknown.get(z, (0, 0.0))
             unknown[z] = (n0 + n, t0 + t)
-    return _Partial(sums, sum(p.cells for p in parts), unknown)
+    return _Partial(sums, sum(p.cells for p in parts), unknown,
+                    [piece for p in parts for piece in p.pieces])
 
 
 def _tree(parts: list[Any], merge: Callable[..., Any]) -> Any:

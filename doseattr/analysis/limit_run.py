@@ -72,13 +72,15 @@ def limit_warnings(lim: LimitSection | None) -> list[str]:
     return out
 
 
-def _worker_exceedance(model, limit: float) -> WorkerExceedance:
+def _worker_exceedance(model, limit: float) -> WorkerExceedance | None:
     from doseattr.core.hygiene.workers import exceedance_of_worker_means
 
+    method = ("1 - Phi((ln L - mu - sw^2/2) / sb), delta method on the probit scale "
+              "(Rappaport & Kupper 2008, from memory)")
+    if model.sigma_between == 0 or model.cov is None:
+        return None
     est, lo, hi = exceedance_of_worker_means(model, limit, level=INTERVAL_LEVEL)
-    return WorkerExceedance(est, lo, hi, INTERVAL_LEVEL,
-                            "1 - Phi((ln L - mu - sw^2/2) / sb), delta method on the probit "
-                            "scale (Rappaport & Kupper 2008, from memory)")
+    return WorkerExceedance(est, lo, hi, INTERVAL_LEVEL, method)
 
 
 def _above(model, limit: float):

@@ -159,7 +159,8 @@ def _run_block(p: Prepared, progress: bool) -> tuple[Results, RowDraws | None]:
     warnings.extend(limit_warnings(limit))
     return Results(
         title=analysis.title, unit=analysis.unit,
-        curve_section=curve_section(curve, exposure, built.bands, comparison, sensitivity),
+        curve_section=curve_section(curve, exposure, built.bands, comparison, sensitivity,
+                                    built.pooling),
         exposure_section=exposure_section(
             curve, exposure,
             comparison=families,

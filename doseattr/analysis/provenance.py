@@ -152,12 +152,24 @@ def _path_keys(settings: Mapping[str, Any]) -> Iterator[tuple[str, str]]:
     for section in TABLE_SECTIONS:
         for key, value in _section_paths(settings.get(section), section):
             yield key_location(section, key), value
+        if section == "curve":
+            yield from _study_paths(settings.get("curve"), "")
     outcomes = settings.get("outcome")
     for i, block in enumerate(outcomes if isinstance(outcomes, list) else []):
         for section in ("curve", "burden"):
             values = block.get(section) if isinstance(block, Mapping) else None
             for key, value in _section_paths(values, section):
                 yield f"[[outcome]] {i + 1} [outcome.{section}] key '{key}'", value
+            if section == "curve":
+                yield from _study_paths(values, f"[[outcome]] {i + 1} ")
+
+
+def _study_paths(curve: Any, prefix: str) -> Iterator[tuple[str, str]]:
+    """The tables of a pooled curve's ``[[curve.study]]`` blocks."""
+    blocks = curve.get("study") if isinstance(curve, Mapping) else None
+    for j, block in enumerate(blocks if isinstance(blocks, list) else []):
+        for key, value in _section_paths(block, "curve.study"):
+            yield f"{prefix}{key_location('curve.study', key, j)}", value
 
 
 def _section_paths(values: Any, section: str) -> Iterator[tuple[str, str]]:

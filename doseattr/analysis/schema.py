@@ -19,7 +19,14 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from doseattr.analysis.specs import BURDEN_METHODS, FITTED_FAMILIES, FITTED_MODELS, SHAPE_MODELS
+from doseattr.analysis.specs import (
+    BURDEN_METHODS,
+    FITTED_FAMILIES,
+    FITTED_MODELS,
+    POOLING_METHODS,
+    SHAPE_MODELS,
+    TAU_METHODS,
+)
 from doseattr.core.attribution.scenarios import SCENARIO_KINDS
 from doseattr.core.exposure.sandwich import WEIGHT_MEANINGS
 from doseattr.errors import InputError
@@ -43,8 +50,9 @@ class Key:
     ``kind`` is one of ``"text"``, ``"number"``, ``"integer"``, ``"bool"``,
     ``"numbers"`` (a list of numbers), ``"pair"`` (two numbers),
     ``"number-or-pair"``, ``"texts"`` (a list of text), ``"table"`` (a
-    TOML inline table of numbers keyed by number) or ``"path"`` (text naming
-    a file, relative to the analysis file). ``choices`` restricts text.
+    TOML inline table of numbers keyed by number), ``"blocks"`` (an array
+    of tables, ``[[curve.study]]``) or ``"path"`` (text naming a file,
+    relative to the analysis file). ``choices`` restricts text.
     """
 
     kind: str
@@ -89,6 +97,26 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "alpha_se": Key("number"), "gamma_se": Key("number"), "delta_se": Key("number"),
         "theta": Key("number"), "theta_se": Key("number"),
         "scale": Key("number"), "midpoint": Key("number"), "spread": Key("number"),
+        "study": Key("blocks", help="[[curve.study]] blocks: two or more study tables pooled "
+                                    "into one curve"),
+        "pooling": Key("text", POOLING_METHODS, help="how the studies' coefficients are "
+                                                     "pooled (default random-effects)"),
+        "tau_method": Key("text", TAU_METHODS, help="between-study variance: reml (default) "
+                                                    "or dl (DerSimonian & Laird 1986)"),
+        "predict": Key("bool", help="Monte Carlo draws of a new population's curve (adds the "
+                                    "between-study variance)"),
+    },
+    "curve.study": {
+        "name": Key("text", help="a short label for the study"),
+        "table": Key("path", help="CSV of the study's bands"),
+        "design": Key("text", DESIGNS),
+        "covariance": Key("text", ("counts", "effective-counts", "independent")),
+        "dose": Key("text", ("given", "midpoint", "band-mean", "band-median")),
+        "unit": Key("text", help="unit of the study's doses (default: the curve's unit)"),
+        "total_cases": Key("number", help="the study's total cases (effective counts)"),
+        "total_controls": Key("number", help="the study's total controls (effective counts)"),
+        "total_person_time": Key("number",
+                                 help="the study's total person-time (effective counts)"),
     },
     "exposure": {
         "table": Key("path", help="CSV of measurements (column value, optional weight)"),
@@ -244,6 +272,9 @@ def check_value(value: Any, spec: Key, *, section: str, key: str, source: str | 
     elif kind == "table":
         if not isinstance(value, dict):
             fail("a table like {50 = 8.0, 95 = 20.0}")
+    elif kind == "blocks":
+        if not (isinstance(value, list) and all(isinstance(v, dict) for v in value)):
+            fail(f"[[{section}.{key}]] blocks (double brackets), one block per {key}")
     else:  # pragma: no cover - a schema error, not a user error
         raise AssertionError(f"unknown kind {kind}")
 

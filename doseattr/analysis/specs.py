@@ -10,7 +10,7 @@ results.json spell it:
 - curve (:data:`CurveSpec`): :class:`TableCurve` (``"table"``),
   :class:`EnteredCurve` (``"entered"``), :class:`PointsCurve`
   (``"points"``), :class:`DrawsCurve` (``"draws"``), :class:`ShapeCurve`
-  (``"shape"``);
+  (``"shape"``), :class:`PooledCurve` (``"pooled"``, several study tables);
 - exposure (:data:`ExposureSpec`): :class:`MeasuredExposure`
   (``"measurements"``), :class:`SummaryExposure` (``"gm-gsd"``,
   ``"shape-scale"`` or ``"mean-sd"``), :class:`PercentilesExposure`
@@ -38,6 +38,8 @@ from doseattr.analysis.tables import (
     PointsTable,
     StudyTable,
 )
+from doseattr.core.curves.pooling import METHODS
+from doseattr.core.curves.pooling import TAU_METHODS as POOLING_TAU_METHODS
 from doseattr.core.curves.registry import MODELS
 from doseattr.core.exposure.registry import FAMILIES
 
@@ -180,8 +182,37 @@ class ShapeCurve(_NoStudyTable, _Curve):
         return "shape"
 
 
+#: ``[curve] pooling`` and ``tau_method``: the core's choices, defaults first.
+POOLING_METHODS, TAU_METHODS = METHODS, POOLING_TAU_METHODS
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class PooledCurve(_NoStudyTable, _Curve):
+    """Two or more ``[[curve.study]]`` blocks, each a :class:`TableCurve`
+    fitted on its own (``studies``, named ``names``), their coefficients
+    pooled by ``pooling`` (``"random-effects"`` or ``"fixed"``) with the
+    between-study variance by ``tau_method`` (``"reml"`` or ``"dl"``).
+    ``predict`` draws the Monte Carlo coefficients from the predictive
+    distribution of a new population's curve. The spline's ``knots`` (or
+    ``knot_count``) and the power model's ``offset`` are shared."""
+
+    studies: tuple[TableCurve, ...]
+    names: tuple[str, ...]
+    pooling: str = POOLING_METHODS[0]
+    tau_method: str = TAU_METHODS[0]
+    predict: bool = False
+    offset: float = 0.0
+    knots: tuple[float, ...] | None = None
+    knot_count: int = 3
+
+    @property
+    def source(self) -> str:
+        return "pooled"
+
+
 #: What ``[curve]`` asks for: one type per source.
-CurveSpec: TypeAlias = TableCurve | EnteredCurve | PointsCurve | DrawsCurve | ShapeCurve
+CurveSpec: TypeAlias = (TableCurve | EnteredCurve | PointsCurve | DrawsCurve | ShapeCurve
+                        | PooledCurve)
 
 
 # -- exposure -----------------------------------------------------------------------

@@ -38,6 +38,7 @@ from doseattr.analysis.specs import (
     MeasuredExposure,
     PercentilesExposure,
     PointsCurve,
+    PooledCurve,
     ShapeCurve,
     StrataExposure,
     SummaryExposure,
@@ -195,10 +196,18 @@ def _shape_doses(spec: ShapeCurve, f: float) -> dict[str, Any]:
     return {"reference_dose": spec.reference_dose * f, **_shape_in_unit(spec, f)}
 
 
+def _pooled_doses(spec: PooledCurve, f: float) -> dict[str, Any]:
+    """Each study's doses (already in the curve's unit) and the shared
+    knots and offset."""
+    studies = tuple(dataclasses.replace(s, **_table_doses(s, f)) for s in spec.studies)
+    return {"offset": spec.offset * f, "studies": studies,
+            "knots": None if spec.knots is None else tuple(k * f for k in spec.knots)}
+
+
 #: For each source of curve, its doses on the new scale (fields to replace).
 _CURVE_DOSES: dict[type, Callable[[Any, float], dict[str, Any]]] = {
     TableCurve: _table_doses, EnteredCurve: _entered_doses, PointsCurve: _given_doses,
-    DrawsCurve: _given_doses, ShapeCurve: _shape_doses}
+    DrawsCurve: _given_doses, ShapeCurve: _shape_doses, PooledCurve: _pooled_doses}
 
 
 def _shape_in_unit(spec: ShapeCurve, f: float) -> dict[str, Any]:

@@ -30,6 +30,7 @@ from doseattr.outputs.markup import (
     with_unit,
     worded,
 )
+from doseattr.outputs.pooling_report import pooling_block
 from doseattr.outputs.text import COVARIANCE_MEANING
 from doseattr.results import BandTable, CurveSection, CurveVariant
 
@@ -60,6 +61,7 @@ def curve_section(s: CurveSection, unit: str | None, images: Mapping[str, bytes]
                           + worded(COVARIANCE_MEANING, method, "")))
     elif c.source == "entered":
         parts.append(para(COVARIANCE_MEANING["entered"]))
+    parts.append(pooling_block(s.pooling, unit, images))
     parts.append(bands_table(s, unit))
     parts.append(fit_block(c))
     if s.nonlinearity_p is not None:
@@ -71,6 +73,9 @@ def curve_section(s: CurveSection, unit: str | None, images: Mapping[str, bytes]
     caption = ("Fitted relative-risk curve with its pointwise 95% interval; points are the "
                "study's band estimates at their assigned doses with reported 95% CIs."
                if _has_bands(s.bands) else "Relative-risk curve with its pointwise 95% interval.")
+    if s.pooling is not None and s.pooling.predict:
+        caption += (" Pooled curve (predict = true): the interval is that of a new "
+                    "population's curve.")
     if others:
         caption += " Dashed lines: the other models compared (" + ", ".join(others) + ")."
     parts.append(figure(images, "curve", caption))
@@ -153,6 +158,7 @@ def _nonlinearity_meaning(p: float) -> str:
 
 def _source_text(source: str | None) -> str:
     return worded({"fitted": "fitted to the study's category-level estimates",
+                   "pooled": "pooled from several studies' fitted curves",
                    "entered": "entered as published"}, str(source), str(source or NA))
 
 

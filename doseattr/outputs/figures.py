@@ -204,7 +204,8 @@ def is_empirical(exposure: AnyExposure) -> bool:
 def plot_exposure(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = None, *,
                   x_max: float | None = None, bins: int = 30, alternatives: bool = True,
                   compare: Sequence[Exposure] = (),
-                  data_label: str = "measurements") -> Axes:
+                  data_label: str = "measurements",
+                  long_term: Exposure | None = None) -> Axes:
     """Exposure data (weighted histogram) against the fitted density.
 
     The histogram (``gid="data-hist"``) covers the detected values; bar
@@ -220,6 +221,9 @@ def plot_exposure(exposure: AnyExposure, ax: Axes | None = None, unit: str | Non
     ``compare`` (fitted to the same values for comparison only) are drawn
     dotted (``gid="compare-<family>"``). ``data_label`` names the data in
     the legend (workers' cumulative exposures rather than measurements).
+    With ``long_term`` (samples that name their workers), ``exposure`` is
+    the single samples' fit and ``long_term`` the distribution of workers'
+    long-term means the PAF uses, drawn beside it (``gid="long-term-density"``).
     """
     with styled():
         ax = new_axes(ax)
@@ -230,7 +234,15 @@ def plot_exposure(exposure: AnyExposure, ax: Axes | None = None, unit: str | Non
         elif data is not None:
             _draw_data(ax, data, top, bins, data_label)
         x = np.linspace(top / (4 * GRID_POINTS), top, GRID_POINTS)
-        if isinstance(exposure, Exposure):
+        if isinstance(exposure, Exposure) and long_term is not None:
+            ax.plot(x, np.exp(exposure.family.logpdf(x, exposure.params)),
+                    color=COLORS["density"], linewidth=1.4, linestyle="--",
+                    label=f"fitted {exposure.family.name} density of single samples",
+                    gid="fitted-density")
+            ax.plot(x, np.exp(long_term.family.logpdf(x, long_term.params)), color=CYCLE[0],
+                    linewidth=2, label="workers' long-term means (used)",
+                    gid="long-term-density")
+        elif isinstance(exposure, Exposure):
             _draw_densities(ax, exposure, x, alternatives)
         else:
             if data is not None:

@@ -18,6 +18,7 @@ from numpy.typing import NDArray
 
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
+from doseattr.core.exposure.base import Exposure
 from doseattr.outputs import burden_figures as bf
 from doseattr.outputs import figures as fig
 from doseattr.outputs import grid_figures as gf
@@ -41,7 +42,7 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
 #: File names (without ``.png``) in report order.
-FIGURE_NAMES = ("curve", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
+FIGURE_NAMES = ("curve", "pooled", "models", "outcome_curves", "exposure", "qq", "workers", "contribution",
                 "categorical", "paf_draws", "burden", "burden_rates", "grid_concentration",
                 "grid_attributable")
 
@@ -52,6 +53,7 @@ def render_figures(results: Results) -> dict[str, bytes]:
     curve, exposure = results.curve_section, results.exposure_section
     makers: dict[str, Callable[[], Figure | None]] = {
         "curve": lambda: _curve(curve, exposure.exposure, unit),
+        "pooled": lambda: _pooled(curve, exposure.exposure, unit),
         "models": lambda: _models(curve, exposure.exposure, unit),
         "outcome_curves": lambda: _outcome_curves(results.outcomes, unit),
         "exposure": lambda: _exposure(exposure, unit),
@@ -93,6 +95,17 @@ def _curve(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Fi
             fig.add_curve(ax, other, color=MODEL_COLORS[i % len(MODEL_COLORS)], label=label,
                           x_max=top)
     return _figure(ax)
+
+
+def _pooled(section: CurveSection, exposure: AnyExposure, unit: str | None) -> Figure | None:
+    """Each pooled study's curve and band estimates with the pooled curve
+    (:func:`~doseattr.outputs.pooling_figures.plot_pooled`)."""
+    if section.pooling is None:
+        return None
+    from doseattr.outputs.pooling_figures import plot_pooled
+
+    return plot_pooled(section.pooling, unit, x_max=fig.curve_extent(section.curve, None,
+                                                                     exposure))
 
 
 #: Line colours of the other models on the curve plot: the Okabe-Ito
@@ -143,14 +156,19 @@ def _exposure(section: ExposureSection, unit: str | None) -> Figure:
     compare = section.parametric_fits if section.is_empirical else ()
     label = ("workers' cumulative exposures" if section.workers is not None
              else "measurements")
-    ax = fig.plot_exposure(section.exposure, unit=unit, compare=compare, data_label=label)
+    if section.samples is not None and isinstance(section.exposure, Exposure):
+        # a worker column: the single samples, and workers' long-term means
+        ax = fig.plot_exposure(section.samples, unit=unit, data_label="single samples",
+                               long_term=section.exposure)
+    else:
+        ax = fig.plot_exposure(section.exposure, unit=unit, compare=compare, data_label=label)
     return _figure(ax)
 
 
 def _qq(section: ExposureSection, unit: str | None) -> Figure | None:
     """Q-Q plot of the measurements against the family used, and beside it
     against every other family tried (``family = "best"``)."""
-    exposure = section.exposure
+    exposure = section.exposure if section.samples is None else section.samples
     fit = exposure.fit
     if (section.is_empirical or fit is None or fig.is_banded(fit) or fit.values is None
             or fit.loglik is None or fit.n < 3):

@@ -7,9 +7,12 @@ workers at risk. Reads :class:`~doseattr.results.records.LimitSection`.
 
 from __future__ import annotations
 
-from doseattr.outputs.markup import definition_list, num, para, table, warning_box
+from collections.abc import Sequence
+
+from doseattr.outputs.burden_report import cases
+from doseattr.outputs.markup import definition_list, estimate_text, num, para, table, warning_box
 from doseattr.results.numbers import share_text
-from doseattr.results.records import LimitSection
+from doseattr.results.records import LimitSection, ScenarioResult
 
 #: Shown beside every compliance statement.
 DEFER = ("A statistical compliance statement supports, and does not replace, the judgement of "
@@ -22,12 +25,15 @@ DEFER = ("A statistical compliance statement supports, and does not replace, the
 VERDICT_CLASS = {"complies": "verdict", "does not comply": "verdict fail"}
 
 
-def limit_section(lim: LimitSection | None, unit: str | None) -> str:
-    """The section's HTML; empty without ``[limit]``."""
+def limit_section(lim: LimitSection | None, unit: str | None,
+                  scenarios: Sequence[ScenarioResult] = ()) -> str:
+    """The section's HTML; empty without ``[limit]``. ``scenarios`` are the
+    run's; a ``comply`` scenario's PIF (and averted cases) is repeated here."""
     if lim is None:
         return ""
     parts = [decision_block(lim, unit), statistics_table(lim, unit),
              para(methods_text(lim)), workers_block(lim, unit),
+             *(compliance_text(s) for s in scenarios if s.kind == "comply"),
              para("limit.csv holds these figures; limit_workers.csv each worker's estimate "
                   "when the samples name their workers." if lim.workers is not None else
                   "limit.csv holds these figures."),
@@ -49,6 +55,15 @@ def decision_block(lim: LimitSection, unit: str | None) -> str:
             f"{d.verdict} (EN 689 {d.test} test). {rule}{memory}.")
     cls = VERDICT_CLASS.get(d.verdict, "verdict")
     return f'<div class="{cls}"><p>{_escape(text)}</p></div>'
+
+
+def compliance_text(s: ScenarioResult) -> str:
+    """What compliance would prevent: the comply scenario's PIF and, with a
+    burden table, its averted cases."""
+    averted = ("" if s.averted is None else
+               f", {estimate_text(s.averted, cases)} cases averted")
+    return para(f"If the group complied (scenario '{s.name}': {s.description}), the "
+                f"fraction of cases prevented would be {estimate_text(s.pif)}{averted}.")
 
 
 def _escape(text: str) -> str:
@@ -93,8 +108,7 @@ def methods_text(lim: LimitSection) -> str:
     s = lim.stats
     how = ("exact methods for lognormal samples without non-detects" if s.exact else
            "the profile likelihood of the fitted distribution, with non-detects left-censored")
-    methods = list(dict.fromkeys([s.exceedance.method, s.p95.method, s.mean.method,
-                                  *s.methods]))
+    methods = list(dict.fromkeys(s.methods))
     return (f"Fitted distribution: {s.family}; {s.n} samples, {s.n_censored} below a detection "
             f"limit; confidence limits by {how}. Methods: " + "; ".join(methods) + ".")
 

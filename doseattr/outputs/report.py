@@ -332,7 +332,8 @@ def render_report(results: Results, *, images: Mapping[str, bytes] | None = None
                 + key_numbers(results) + totals_block(results) + warnings_block(results)
                 + notes_list(results.notes, "How the inputs were read:")),
         section("outcomes", "Outcomes side by side", outcomes_section(results, images)),
-        section("limit", "Compliance with the limit value", limit_section(results.limit, unit)),
+        section("limit", "Compliance with the limit value",
+                limit_section(results.limit, unit, a.scenarios)),
         section("curve", "Relative-risk curve",
                 curve_section(results.curve_section, unit, images, paf=a.paf.estimate)),
         section("exposure", "Exposure distribution",

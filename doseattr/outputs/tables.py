@@ -23,6 +23,7 @@ import numpy as np
 from doseattr.core.attribution.categorical import CategoricalComparison
 from doseattr.core.curves.base import Curve
 from doseattr.outputs.limit_tables import limit_table, limit_workers_table
+from doseattr.outputs.pooling_tables import studies_table
 from doseattr.outputs.zones import zone_rows
 from doseattr.results.estimate import Estimate
 from doseattr.results.records import (
@@ -530,6 +531,7 @@ def all_tables(results: Results) -> dict[str, Table]:
                                  [s.name for s in results.attribution.scenarios], unit),
         "limit.csv": limit_table(results.limit, unit),
         "limit_workers.csv": limit_workers_table(results.limit, unit),
+        "studies.csv": studies_table(curve, unit),
     }
     tables.update({name: t for name, t in optional.items() if t is not None})
     return tables

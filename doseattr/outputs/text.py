@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from doseattr.core.exposure.registry import unit_parameters
-from doseattr.results.records import METHOD_TEXT
+from doseattr.results.records import METHOD_TEXT, PoolingSection
 
 if TYPE_CHECKING:  # pragma: no cover
     from doseattr.results import Results
@@ -158,7 +158,45 @@ def references(results: Results) -> list[str]:
         refs.append(EXTRA_REFERENCES["aic"])
     if results.burden_blocks:
         refs.append(IMPACT_REFERENCE)
-    return refs
+    return refs + pooling_references(results.curve_section.pooling)
+
+
+#: References of a pooled curve ([[curve.study]]), by what the run used.
+POOLING_REFERENCES = {
+    "dl": "DerSimonian R, Laird N (1986). Meta-analysis in clinical trials. Control Clin "
+          "Trials 7:177. \u2020",
+    "dl-multivariate": "Jackson D, White IR, Thompson SG (2010). Extending DerSimonian and "
+                       "Laird's methodology to perform multivariate random effects "
+                       "meta-analyses. Stat Med 29:1282. \u2020",
+    "reml": "Viechtbauer W (2005). Bias and efficiency of meta-analytic variance estimators "
+            "in the random-effects model. J Educ Behav Stat 30:261. \u2020",
+    "reml-multivariate": "Jackson D, Riley RD, White IR (2011). Multivariate meta-analysis: "
+                         "potential and promise. Stat Med 30:2481. \u2020",
+    "reml-multivariate-2": "Gasparrini A, Armstrong B, Kenward MG (2012). Multivariate "
+                           "meta-analysis for non-linear and other multi-parameter "
+                           "associations. Stat Med 31:3821. \u2020",
+    "i2": "Higgins JPT, Thompson SG (2002). Quantifying heterogeneity in a meta-analysis. "
+          "Stat Med 21:1539. \u2020",
+    "predict": "Higgins JPT, Thompson SG, Spiegelhalter DJ (2009). A re-evaluation of "
+               "random-effects meta-analysis. J R Stat Soc A 172:137. \u2020",
+}
+
+
+def pooling_references(p: PoolingSection | None) -> list[str]:
+    """What a pooled curve used: the between-study variance's method (for
+    one coefficient or several), I^2 and, with ``predict``, the predictive
+    distribution."""
+    if p is None:
+        return []
+    multi = p.pooled.coefficients.size > 1
+    keys = {"dl": ["dl", "dl-multivariate"] if multi else ["dl"],
+            # the REML search starts from the DerSimonian-Laird estimate
+            "reml": ["dl", "reml-multivariate", "reml-multivariate-2"] if multi
+            else ["dl", "reml"]}.get(str(p.pooled.tau_method), [])
+    keys.append("i2")
+    if p.predict:
+        keys.append("predict")
+    return [POOLING_REFERENCES[k] for k in keys]
 
 
 def burden_methods(results: Results) -> tuple[str, ...]:
@@ -187,8 +225,9 @@ def computed_paragraph(results: Results) -> str:
     """One paragraph saying what was computed."""
     c, unit = results.curve, results.unit or ""
     m_text = f"{_g(results.minimum_risk)} {unit}".strip()
-    source = "fitted to a study's category-level estimates" if c.source == "fitted" \
-        else "entered as published"
+    source = {"fitted": "fitted to a study's category-level estimates",
+              "pooled": "pooled from several studies' category-level estimates"}.get(
+        str(c.source), "entered as published")
     n = len(results.scenarios)
     text = (f"This report combines a {c.model.name} relative-risk curve ({source}) with "
             f"the {results.exposure.family.name} distribution of exposure in the population to "

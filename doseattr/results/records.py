@@ -18,6 +18,7 @@ from numpy.typing import NDArray
 
 from doseattr.core.attribution.contribution import Contribution
 from doseattr.core.curves.base import Curve
+from doseattr.core.curves.pooling import Pooled
 from doseattr.core.exposure.base import Exposure
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.results.estimate import Estimate
@@ -142,8 +143,43 @@ class Workers:
 
 
 @dataclass(frozen=True, eq=False)
+class PooledStudy:
+    """One ``[[curve.study]]`` of a pooled curve: its stage-one fit
+    (``curve``, coefficients with their own covariance), the bands it was
+    fitted to, its design, the covariance method of its log RRs, the unit
+    it was given in (``None``: the curve's) and its share of the pooled
+    estimate (``weight``)."""
+
+    name: str
+    curve: Curve
+    bands: BandTable
+    weight: float
+    design: str | None
+    covariance_method: str
+    unit: str | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class PoolingSection:
+    """Two-stage pooling of several studies' coefficients: the core's
+    :class:`~doseattr.core.curves.pooling.Pooled` (``pooled``), each
+    study, the pooled curve with the covariance of the mean (``mean``)
+    and, with ``predict``, with the predictive covariance (``prediction``,
+    the curve the Monte Carlo draws from), and the Wald test of
+    non-linearity of a pooled spline ``(W, df, p)``."""
+
+    pooled: Pooled
+    studies: tuple[PooledStudy, ...]
+    mean: Curve
+    predict: bool = False
+    prediction: Curve | None = None
+    nonlinearity: tuple[float, int, float] | None = None
+
+
+@dataclass(frozen=True, eq=False)
 class CurveSection:
-    """The relative-risk curve and everything said about it."""
+    """The relative-risk curve and everything said about it (``pooling``:
+    the studies pooled into it, or ``None`` for one study or source)."""
 
     curve: Curve
     bands: BandTable | None
@@ -152,6 +188,7 @@ class CurveSection:
     nonlinearity_p: float | None
     share_beyond_max_dose: float | None
     share_beyond_data: float | None
+    pooling: PoolingSection | None = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -32,6 +32,8 @@ from doseattr.results.records import (
     GoodnessOfFit,
     GridSection,
     LimitSection,
+    PooledStudy,
+    PoolingSection,
     SourceWidth,
     StratumExposure,
     StratumResult,
@@ -172,7 +174,47 @@ def curve_dict(s: CurveSection) -> dict[str, Any]:
         "log_rr_covariance": None if fit is None else matrix(fit.log_rr_covariance),
         "formula": c.model.describe(),
         "notes": list(c.notes),
+        "pooling": pooling_dict(s.pooling),
+        # The Monte Carlo's covariance: the pooled mean's, or with [curve]
+        # predict = true the predictive one (mean's + tau^2); "covariance"
+        # above always holds the pooled mean's.
+        "draws_covariance": matrix(c.cov),
+    } | ({} if s.pooling is None else {"covariance": matrix(s.pooling.mean.cov),
+                                       "standard_errors": standard_errors(s.pooling.mean)})
+
+
+def pooling_dict(p: PoolingSection | None) -> dict[str, Any] | None:
+    """``curve.pooling``: the heterogeneity statistics and each study's
+    stage-one coefficients, or ``None`` for one study or source."""
+    if p is None:
+        return None
+    r = p.pooled
+    w = p.nonlinearity
+    return {
+        "method": r.method, "tau_method": r.tau_method,
+        "tau2": num(r.tau2) if np.ndim(r.tau2) == 0 else matrix(r.tau2),
+        "q": num(r.q), "df": int(r.df), "p": num(r.p_value), "i2": num(r.i2),
+        "converged": bool(r.converged),
+        "coefficients": nums(r.coefficients), "covariance": matrix(r.covariance),
+        "predictive_covariance": matrix(r.predictive_covariance()),
+        "predict": bool(p.predict),
+        "nonlinearity": None if w is None else {"w": num(w[0]), "df": int(w[1]), "p": num(w[2])},
+        "studies": [pooled_study_dict(st) for st in p.studies],
+        "notes": list(r.notes),
     }
+
+
+def pooled_study_dict(st: PooledStudy) -> dict[str, Any]:
+    """One study of ``curve.pooling.studies``: its own fit and weight."""
+    c, fit = st.curve, st.curve.fit
+    return {"name": st.name, "coefficients": nums(c.coef), "covariance": matrix(c.cov),
+            "standard_errors": standard_errors(c), "weight": num(st.weight),
+            "design": st.design, "covariance_method": st.covariance_method, "unit": st.unit,
+            "reference_dose": num(c.model.reference_dose), "data_max": num(c.data_max),
+            "q": None if fit is None else num(fit.q),
+            "df": None if fit is None else int(fit.df),
+            "p_value": None if fit is None else num(fit.p_value),
+            "bands": bands_list(st.bands)}
 
 
 def gof_dict(g: GoodnessOfFit | None) -> dict[str, Any] | None:

@@ -88,7 +88,7 @@ def empirical_excess_draws(curve: Curve, coef: ArrayLike, values: ArrayLike, wei
 
 
 #: Elements (draws x points) evaluated at once by :func:`weighted_rows`.
-CHUNK_ELEMENTS = 1 << 22
+CHUNK_ELEMENTS = 1 << 16
 
 
 def weighted_rows(fn: LogRisk, values: FloatArray, weights: FloatArray, d: int,
@@ -105,13 +105,15 @@ def weighted_rows(fn: LogRisk, values: FloatArray, weights: FloatArray, d: int,
     n = values.shape[1]
     step = max(1, CHUNK_ELEMENTS // max(n, 1))
     out = np.empty(d)
+    shared = np.sum(weights, axis=1) if weights.shape[0] == 1 else None  # as each row's sum
     with np.errstate(over="ignore", invalid="ignore"):
         for start in range(0, d, step):
             rows = slice(start, min(start + step, d))
             x, w = _rows(values, rows), _rows(weights, rows)
             if scale is not None:
                 x = x * scale[rows, None]
-            out[rows] = np.sum(fn(x, rows) * w, axis=1) / np.sum(w, axis=1)
+            total = np.sum(w, axis=1) if shared is None else shared
+            out[rows] = np.sum(fn(x, rows) * w, axis=1) / total
     return out
 
 
@@ -143,7 +145,11 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
         c, mm = coef[rows], np.minimum(m[rows, None], top)
         y = x if scenario is None else scenario.apply(x, mm)
         # one pass for both the minimum-risk floor and the flat extension
-        return curve.model.log_rr(np.clip(y, mm, top), c) - curve.model.log_rr(mm, c)
+        # (np.maximum alone without a top: the same values, a third of the cost)
+        lifted = np.maximum(y, mm) if top == np.inf else np.clip(y, mm, top)
+        base = curve.model.log_rr(mm, c)
+        out = curve.model.log_rr(lifted, c)
+        return out - base if np.any(base) else out  # ln RR(m) = 0 (m at the reference)
 
     return log_rr
 

@@ -68,22 +68,29 @@ the binning error above for any realistic grid.
 
 Memory and cost
 ---------------
-:func:`reduce_block` holds two float64 arrays of ``n_zones * (N_BINS + 1)``
+A block's sums cover only the zone rows its valid cells touch
+(:class:`BlockSums` ``sums``, ``2 * rows * (N_BINS + 1)`` float64, 442 kB a
+row): one ``np.bincount`` index per cell, ``zone * (N_BINS + 1) + slot``,
+over the range of indices the block uses. Adding two sums allocates the
+union of their rows, so the tree of additions ends at the zones present
 (:func:`dense_bytes`: 442 kB per zone, 44 MB for 100 zones, 442 MB for
-1,000) plus O(block) temporaries (a few arrays of the block's length).
-Those dense arrays are allocated and zeroed per block, so a block should
-hold well over ``n_zones * N_BINS`` cells (2.8e6 for 100 zones) for that
-fixed cost to stay small against the per-cell work (about 30 ns per cell
-measured on a 2-core machine with 100 zones and 4e6-cell blocks, after the
-first call). Many thousands of zones would need a sparse (zone, bin) store
-instead; this module does not provide one.
+1,000, the size of the dense arrays of :class:`GridSummary` too). Each
+thread keeps its work arrays (about 40 bytes per cell of its largest
+block) from block to block, since fresh arrays of a few tens of MB are
+mapped and zeroed page by page by the C library on every call
+(:func:`release_scratch` frees them). The bin of a cell comes from a
+float32 logarithm, corrected at the edges (:func:`_bins`): measured about
+25 ns per cell on one core of a 2-core machine (100 zones, float32 rasters,
+4e6-cell blocks). Many thousands of zones in one block would need a sparse
+(zone, bin) store instead; this module does not provide one.
 """
 
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass, field, replace
-from typing import cast
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -120,19 +127,31 @@ def bin_lower(b: ArrayLike) -> FloatArray:
     return np.exp(LOG_MIN + LOG_STEP * np.asarray(b, dtype=float))
 
 
+#: Slots per zone row of a block's sums: slot 0 holds concentration 0, slot
+#: ``1 + b`` bin ``b``.
+WIDTH = N_BINS + 1
+#: Lower edges ``exp(LOG_MIN + b LOG_STEP)`` of bins ``b = 0..N_BINS`` (float64).
+EDGES = np.exp(LOG_MIN + LOG_STEP * np.arange(N_BINS + 1, dtype=float))
+#: Cells whose float32 bin coordinate lies within this many bins of an edge
+#: are placed by comparing their value with the float64 edge instead.
+NEAR_EDGE = 0.02
+
+
 @dataclass(frozen=True, eq=False)
 class BlockSums:
-    """Sums over some cells: ``weight`` and ``moment`` ``(n_zones, N_BINS)``
-    (population and population times concentration per zone and bin),
-    ``zero (n_zones,)`` (population at concentration 0), ``cells
-    (n_zones,)`` (cells counted, any population), ``skipped`` cells
-    with their ``skipped_population``, and for each of the sorted ``cuts``
-    ``(K,)`` the sums ``cut_weight``/``cut_moment`` ``(n_zones, K)`` over the
-    cells of the cut's bin below the cut."""
+    """Sums over some cells, per zone and bin: population and population
+    times concentration, held for the zone rows ``row0 .. row0 + r - 1``
+    touched so far as ``sums (2, r, WIDTH)`` (other rows are 0; column 0 is
+    concentration 0, column ``1 + b`` bin ``b``); ``cells (n_zones,)``
+    (cells counted, any population), ``skipped`` cells with their
+    ``skipped_population``, and for each of the sorted ``cuts`` ``(K,)`` the
+    sums ``cut_weight``/``cut_moment`` ``(n_zones, K)`` over the cells of
+    the cut's bin below the cut. :attr:`weight`, :attr:`moment` ``(n_zones,
+    N_BINS)`` and :attr:`zero` ``(n_zones,)`` give them dense."""
 
-    weight: FloatArray
-    moment: FloatArray
-    zero: FloatArray
+    n_zones: int
+    row0: int
+    sums: FloatArray
     cells: IntArray
     skipped: int = 0
     skipped_population: float = 0.0
@@ -141,27 +160,58 @@ class BlockSums:
     cut_moment: FloatArray | None = None
 
     def __post_init__(self) -> None:
+        assert self.sums.ndim == 3 and self.sums.shape[0] == 2 and self.sums.shape[2] == WIDTH
+        assert self.row0 >= 0 and self.row0 + self.sums.shape[1] <= self.n_zones
         if self.cut_weight is None:
             empty = np.zeros((self.n_zones, self.cuts.size))
             object.__setattr__(self, "cut_weight", empty)
             object.__setattr__(self, "cut_moment", empty.copy())
 
     @property
-    def n_zones(self) -> int:
-        return int(self.zero.size)
+    def weight(self) -> FloatArray:
+        """Population per zone and bin, ``(n_zones, N_BINS)``."""
+        return self._dense(0)[:, 1:]
+
+    @property
+    def moment(self) -> FloatArray:
+        """Population times concentration per zone and bin, ``(n_zones, N_BINS)``."""
+        return self._dense(1)[:, 1:]
+
+    @property
+    def zero(self) -> FloatArray:
+        """Population at concentration 0 per zone, ``(n_zones,)``."""
+        return self._dense(0)[:, 0].copy()
+
+    def _dense(self, k: int) -> FloatArray:
+        out = np.zeros((self.n_zones, WIDTH))
+        out[self.row0:self.row0 + self.sums.shape[1]] = self.sums[k]
+        return out
 
     @staticmethod
-    def empty(n_zones: int) -> BlockSums:
+    def dense(weight: FloatArray, moment: FloatArray, zero: FloatArray, cells: IntArray,
+              skipped: int = 0, skipped_population: float = 0.0,
+              cuts: FloatArray | None = None, cut_weight: FloatArray | None = None,
+              cut_moment: FloatArray | None = None) -> BlockSums:
+        """From dense ``weight``, ``moment`` ``(n_zones, N_BINS)`` and ``zero``."""
+        z = int(np.size(zero))
+        sums = np.empty((2, z, WIDTH))
+        sums[0, :, 0], sums[1, :, 0] = zero, 0.0
+        sums[0, :, 1:], sums[1, :, 1:] = weight, moment
+        return BlockSums(z, 0, sums, np.asarray(cells, dtype=np.int64), int(skipped),
+                         float(skipped_population),
+                         np.zeros(0) if cuts is None else cuts, cut_weight, cut_moment)
+
+    @staticmethod
+    def empty(n_zones: int, cuts: FloatArray | None = None) -> BlockSums:
         """The sums over no cells (the identity of ``+``)."""
         z = _check_zones(n_zones)
-        return BlockSums(np.zeros((z, N_BINS)), np.zeros((z, N_BINS)), np.zeros(z),
-                         np.zeros(z, np.int64))
+        return BlockSums(z, 0, np.zeros((2, 0, WIDTH)), np.zeros(z, np.int64),
+                         cuts=np.zeros(0) if cuts is None else cuts)
 
     def __add__(self, other: BlockSums) -> BlockSums:
         assert self.n_zones == other.n_zones, (self.n_zones, other.n_zones)
         assert np.array_equal(self.cuts, other.cuts), (self.cuts, other.cuts)
-        return BlockSums(self.weight + other.weight, self.moment + other.moment,
-                         self.zero + other.zero, self.cells + other.cells,
+        return BlockSums(self.n_zones, *_add_rows(self, other), self.cells + other.cells,
                          self.skipped + other.skipped,
                          self.skipped_population + other.skipped_population, self.cuts,
                          self._cut_weight + other._cut_weight,
@@ -186,13 +236,29 @@ class BlockSums:
     def from_tuple(parts: tuple[FloatArray, FloatArray, FloatArray, IntArray, int, float]
                    ) -> BlockSums:
         weight, moment, zero, cells, skipped, skipped_population = parts
-        return BlockSums(weight, moment, zero, cells, int(skipped), float(skipped_population))
+        return BlockSums.dense(weight, moment, zero, cells, int(skipped),
+                               float(skipped_population))
 
     def summary(self) -> GridSummary:
         """The finished reduction."""
-        return GridSummary(self.n_zones, self.weight, self.moment, self.zero, self.cells,
-                           self.skipped, self.skipped_population, self.cuts,
+        weight, moment = self._dense(0), self._dense(1)
+        return GridSummary(self.n_zones, weight[:, 1:], moment[:, 1:], weight[:, 0].copy(),
+                           self.cells, self.skipped, self.skipped_population, self.cuts,
                            self._cut_weight, self._cut_moment)
+
+
+def _add_rows(a: BlockSums, b: BlockSums) -> tuple[int, FloatArray]:
+    """The row range covering both and the sums over it."""
+    if not b.sums.shape[1]:
+        return a.row0, a.sums
+    if not a.sums.shape[1]:
+        return b.row0, b.sums
+    lo = min(a.row0, b.row0)
+    hi = max(a.row0 + a.sums.shape[1], b.row0 + b.sums.shape[1])
+    out = np.zeros((2, hi - lo, WIDTH))
+    for part in (a, b):
+        out[:, part.row0 - lo:part.row0 - lo + part.sums.shape[1]] += part.sums
+    return lo, out
 
 
 def combine(a: BlockSums, b: BlockSums) -> BlockSums:
@@ -211,38 +277,174 @@ def reduce_block(conc: ArrayLike, pop: ArrayLike, zone_index: ArrayLike,
     population is not finite or negative, or its zone index is -1 (outside
     every zone) or any other negative number; ``skipped_population`` sums the
     finite, non-negative populations of skipped cells. Zone indices must be
-    integers below ``n_zones`` (ModelError otherwise).
+    integers below ``n_zones`` (ModelError otherwise). float32 and float64
+    inputs are used as they are (other types as float64); the sums are
+    float64 either way.
     """
     z = _check_zones(n_zones)
-    x, p = np.ravel(np.asarray(conc, dtype=float)), np.ravel(np.asarray(pop, dtype=float))
+    x, p = _values(conc), _values(pop)
     zi = np.ravel(np.asarray(zone_index))
     if not (x.size == p.size == zi.size):
         raise ModelError(f"a block needs as many concentrations, populations and zone indices; "
                          f"got {x.size}, {p.size} and {zi.size}")
     if zi.size and not np.issubdtype(zi.dtype, np.integer):
         raise ModelError(f"zone indices must be integers, got {zi.dtype}")
-    zi = zi.astype(np.int64, copy=False)
-    if zi.size and int(zi.max()) >= z:
-        raise ModelError(f"zone index {int(zi.max())} is outside 0..{z - 1} ({z} zones)")
-    good_p = np.isfinite(p) & (p >= 0)
-    ok = np.isfinite(x) & (x >= 0) & good_p & (zi >= 0)
-    skipped = int(ok.size - np.count_nonzero(ok))
-    skipped_population = 0.0
-    if skipped:
-        # a skipped cell becomes zone 0, concentration 0, population 0: it adds nothing
-        skipped_population = float(p[~ok & good_p].sum())
-        x, p, zi = np.where(ok, x, 0.0), np.where(ok, p, 0.0), np.where(ok, zi, 0)
-    width = N_BINS + 1
-    slots = _slots(x)
-    flat = zi * width + slots
-    weight = _sums(flat, p, z * width).reshape(z, width)
-    moment = _sums(flat, p * x, z * width).reshape(z, width)
-    counted = np.bincount(zi, weights=ok if skipped else None, minlength=z)
-    cells = np.rint(counted).astype(np.int64)
     k = check_cuts(cuts)
-    below_w, below_m = _below_cuts(x, p, zi, z, slots, k)
-    return BlockSums(weight[:, 1:], moment[:, 1:], weight[:, 0].copy(), cells, skipped,
-                     skipped_population, k, below_w, below_m)
+    if not zi.size:
+        return BlockSums.empty(z, k)
+    low, high = int(zi.min()), int(zi.max())
+    if high >= z:
+        raise ModelError(f"zone index {high} is outside 0..{z - 1} ({z} zones)")
+    s = _scratch(x.size)
+    ok, skipped, skipped_population = _valid(x, p, zi, low < 0, s)
+    if skipped == x.size:
+        return replace(BlockSums.empty(z, k), skipped=skipped,
+                       skipped_population=skipped_population)
+    bins = _bins(x, s)
+    sums, row0, cells = _block_sums(x, p, zi, bins, ok, skipped, z, s)
+    below_w, below_m = _below_cuts(x, p, zi, z, bins, ok, k)
+    return BlockSums(z, row0, sums, cells, skipped, skipped_population, k, below_w, below_m)
+
+
+def _values(a: ArrayLike) -> NDArray[np.floating]:
+    """``a`` flattened, float32 or float64 as given (other types as float64)."""
+    v = np.ravel(np.asarray(a))
+    return v if v.dtype in (np.float32, np.float64) else v.astype(np.float64)
+
+
+class _Scratch:
+    """Work arrays of one thread, reused from block to block (fresh arrays
+    of a block's size would each be mapped and zeroed page by page)."""
+
+    def __init__(self) -> None:
+        self.arrays: dict[str, NDArray[np.generic]] = {}
+
+    def get(self, name: str, n: int, dtype: type) -> NDArray[Any]:
+        a = self.arrays.get(name)
+        if a is None or a.size < n or a.dtype != dtype:
+            a = self.arrays[name] = np.empty(n, dtype=dtype)
+        return a[:n]
+
+
+#: Each thread's work arrays, by thread id (see :func:`release_scratch`).
+_SCRATCH: dict[int, _Scratch] = {}
+#: Blocks below this many cells use fresh arrays (nothing worth keeping).
+SCRATCH_MIN = 1 << 16
+
+
+def _scratch(n: int) -> _Scratch:
+    if n < SCRATCH_MIN:
+        return _Scratch()
+    return _SCRATCH.setdefault(threading.get_ident(), _Scratch())
+
+
+def release_scratch() -> None:
+    """Drop every thread's work arrays (after a pass over a grid)."""
+    _SCRATCH.clear()
+
+
+def _valid(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np.integer],
+           negative_zones: bool, s: _Scratch) -> tuple[NDArray[np.bool_], int, float]:
+    """Cells with finite non-negative concentration and population and a
+    zone index >= 0; how many are not, and their finite non-negative
+    population."""
+    n = x.size
+    ok, good_p, tmp = (s.get(name, n, np.bool_) for name in ("ok", "good_p", "tmp"))
+    np.greater_equal(p, 0, out=good_p)
+    np.less(p, np.inf, out=tmp)
+    good_p &= tmp
+    np.greater_equal(x, 0, out=ok)
+    np.less(x, np.inf, out=tmp)
+    ok &= tmp
+    ok &= good_p
+    if negative_zones:
+        np.greater_equal(zi, 0, out=tmp)
+        ok &= tmp
+    skipped = n - int(np.count_nonzero(ok))
+    if not skipped:
+        return ok, 0, 0.0
+    np.logical_not(ok, out=tmp)
+    tmp &= good_p
+    return ok, skipped, float(np.sum(p, where=tmp, dtype=np.float64))
+
+
+def _bins(x: NDArray[np.floating], s: _Scratch) -> NDArray[np.int32]:
+    """Bin ``floor((ln x - LOG_MIN) / LOG_STEP)`` of each cell, clipped to
+    ``[0, N_BINS - 1]``, and -1 at x = 0 (garbage where x is not finite and
+    non-negative).
+
+    The logarithm is taken in float32 (a fraction of the cost of float64),
+    whose error in the bin coordinate is below 0.005 bin; a cell whose
+    coordinate lies within :data:`NEAR_EDGE` of an integer is placed by
+    comparing its value with the float64 edge :data:`EDGES`, so every cell
+    of bin ``b`` lies in ``[EDGES[b], EDGES[b + 1])`` (but for the clipped
+    ends) as with a float64 logarithm.
+    """
+    n = x.size
+    t, r = s.get("t", n, np.float32), s.get("r", n, np.float32)
+    bins = s.get("bins", n, np.int32)
+    near = s.get("near", n, np.bool_)
+    with np.errstate(all="ignore"):
+        np.log(x, out=t, dtype=np.float32, casting="same_kind")
+        t *= np.float32(1.0 / LOG_STEP)
+        t -= np.float32(LOG_MIN / LOG_STEP)
+        np.clip(t, 0.0, N_BINS - 1, out=t)  # also sends log(0) = -inf to 0
+        np.copyto(bins, t, casting="unsafe")  # truncation is floor on t >= 0
+        np.rint(t, out=r)
+        t -= r
+        np.abs(t, out=t)
+        np.less(t, NEAR_EDGE, out=near)
+    held = np.flatnonzero(near)  # concentration 0 among them (t clipped to 0)
+    edge = r[held].astype(np.int64)
+    xs = x[held]
+    bins[held] = np.where(xs == 0, -1, np.clip(edge - (xs < EDGES[edge]), 0, N_BINS - 1))
+    return bins
+
+
+def _block_sums(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np.integer],
+                bins: NDArray[np.int32], ok: NDArray[np.bool_], skipped: int, z: int,
+                s: _Scratch) -> tuple[FloatArray, int, IntArray]:
+    """Population and population x concentration per zone row and slot over
+    the rows the valid cells touch, the first such row, and cells per zone.
+
+    Each cell's slot ``zone * WIDTH + 1 + bin`` (``zone * WIDTH`` at
+    concentration 0, where the bin is -1) is one ``np.bincount`` index;
+    skipped cells are sent to a valid cell's slot with weight 0 (and taken
+    off its count).
+    """
+    n = x.size
+    flat = s.get("flat", n, np.int64)
+    tmp = s.get("tmp", n, np.bool_)
+    np.multiply(zi, WIDTH, out=flat, dtype=np.int64, casting="unsafe")
+    flat += bins  # the slot less 1 (bin -1 at concentration 0)
+    w, m = s.get("w", n, np.float64), s.get("m", n, np.float64)
+    np.copyto(w, p)
+    np.multiply(w, x, out=m)
+    ref = 0
+    if skipped:
+        first = int(np.argmax(ok))
+        ref = int(flat[first])
+        np.logical_not(ok, out=tmp)
+        np.putmask(flat, tmp, ref)
+        np.putmask(w, tmp, 0.0)
+        np.putmask(m, tmp, 0.0)
+    lo, hi = int(flat.min()), int(flat.max())
+    flat -= lo
+    size = hi - lo + 1
+    counts = np.bincount(flat, minlength=size)
+    if skipped:
+        counts[ref - lo] -= skipped
+    lo, hi = lo + 1, hi + 1  # as slots
+    row0, rows = lo // WIDTH, hi // WIDTH - lo // WIDTH + 1
+    at = lo - row0 * WIDTH
+    sums = np.zeros((2, rows * WIDTH))
+    sums[0, at:at + size] = np.bincount(flat, weights=w, minlength=size)
+    sums[1, at:at + size] = np.bincount(flat, weights=m, minlength=size)
+    per_row = np.zeros(rows * WIDTH, np.int64)
+    per_row[at:at + size] = counts
+    cells = np.zeros(z, np.int64)
+    cells[row0:row0 + rows] = per_row.reshape(rows, WIDTH).sum(axis=1)
+    return sums.reshape(2, rows, WIDTH), row0, cells
 
 
 def check_cuts(cuts: ArrayLike) -> FloatArray:
@@ -253,23 +455,26 @@ def check_cuts(cuts: ArrayLike) -> FloatArray:
     return cast(FloatArray, k)
 
 
-def _below_cuts(x: FloatArray, p: FloatArray, zi: IntArray, z: int, slots: IntArray,
+def _below_cuts(x: NDArray[np.floating], p: NDArray[np.floating], zi: NDArray[np.integer],
+                z: int, bins: NDArray[np.int32], ok: NDArray[np.bool_],
                 cuts: FloatArray) -> tuple[FloatArray, FloatArray]:
     """Per zone and cut, population and population x concentration of the
-    cells in the cut's bin that lie below it (the bins' cells only are
+    valid cells in the cut's bin that lie below it (the bins' cells only are
     looked at again)."""
     w = np.zeros((z, cuts.size))
     m = np.zeros((z, cuts.size))
     if not cuts.size:
         return w, m
-    cut_slots = _slots(cuts)
-    mask = np.zeros(slots.shape, bool)
-    for slot in np.unique(cut_slots):  # a few cuts: one comparison each beats np.isin
-        mask |= slots == slot
+    cut_bins = bin_index(cuts)
+    mask = np.zeros(bins.shape, bool)
+    for b in np.unique(cut_bins):  # a few cuts: one comparison each beats np.isin
+        mask |= bins == b
+    mask &= ok
+    mask &= x > 0
     held = np.flatnonzero(mask)
-    xs, ps, zs, ss = x[held], p[held], zi[held], slots[held]
-    for j, (c, slot) in enumerate(zip(cuts, cut_slots, strict=True)):
-        sel = (ss == slot) & (xs < c)
+    xs, ps, zs, bs = x[held].astype(float), p[held].astype(float), zi[held], bins[held]
+    for j, (c, b) in enumerate(zip(cuts, cut_bins, strict=True)):
+        sel = (bs == b) & (xs < c)
         w[:, j] = np.bincount(zs[sel], weights=ps[sel], minlength=z)
         m[:, j] = np.bincount(zs[sel], weights=ps[sel] * xs[sel], minlength=z)
     return w, m
@@ -286,12 +491,6 @@ def _slots(x: FloatArray) -> IntArray:
     out += 1
     out *= x > 0
     return cast(IntArray, out)
-
-
-def _sums(index: IntArray, weights: FloatArray, size: int) -> FloatArray:
-    """``np.bincount`` of ``weights`` (float64 sums) over ``size`` slots."""
-    sums = np.bincount(index, weights=weights, minlength=size)
-    return cast(FloatArray, sums.astype(float, copy=False))
 
 
 def _check_zones(n_zones: int) -> int:

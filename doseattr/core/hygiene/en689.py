@@ -6,13 +6,14 @@ exposure limit values" (CEN 2018), as recalled here (from memory, not
 checked against the text):
 
 * fewer than 3 measurements: no test is possible;
-* any measured result above the limit: the exposure does not comply;
-* 3, 4 or 5 measurements (screening test): it complies when every result
-  is below 0.1, 0.15 or 0.2 times the limit respectively; otherwise more
+* 3, 4 or 5 measurements (screening test): any result above the limit
+  means the exposure does not comply; it complies when every result is
+  below 0.1, 0.15 or 0.2 times the limit respectively; otherwise more
   measurements are needed;
 * 6 or more (statistical test): it complies when the upper confidence
   limit (at 70% by default) of the 95th percentile is below the limit,
-  and does not comply otherwise.
+  and does not comply otherwise (the test itself weighs single results
+  above the limit).
 
 A non-detect counts as below a threshold only when its detection limit is
 below it; a non-detect is never a result above the limit.
@@ -122,10 +123,7 @@ def en689_decision(data: Measurements, limit: float, utl_p95: float | None = Non
         raise ModelError(f"EN 689 needs at least 3 measurements, got {n}; take more samples")
     if not (np.isfinite(limit) and limit > 0):
         raise ModelError(f"the limit must be a positive number, got {limit}")
-    test = "screening" if n <= 5 else "statistical"
-    over = _above_limit(data, limit, test)
-    if over is not None:
-        return over
     if n <= 5:
-        return _screening(data, limit)
+        over = _above_limit(data, limit, "screening")
+        return over if over is not None else _screening(data, limit)
     return _statistical(n, limit, utl_p95, confidence)
