@@ -1,25 +1,35 @@
-"""Benchmark: the vectorised quadrature engine against per-draw scipy quad.
+"""Benchmark: the vectorised quadrature engine against per-integral scipy quad.
 
-Inputs are generated here (not data): a linear excess-risk curve held flat
-beyond 60 units, with slope draws from N(0.012, 0.003^2); ``--strata``
-strata, each with its own lognormal exposure (GM 4 to 40, GSD 1.5 to 4)
-whose parameters are drawn per draw from a normal on the log scale (as
-for a fitted exposure; ``--fixed-exposure`` keeps them fixed, so only the
-curve varies and the engine builds each stratum's nodes once); a minimum-risk level of 2; three scenarios (cap at
-15, scale by 0.7, lower by 3). Every (draw, stratum, scenario) is one
-integral E[RR_m(g(X))] - 1.
+Inputs are generated here (not data). Cases, each ``draws x strata x 4``
+integrals E[RR_m(g(X))] - 1 (current exposure and three scenarios: cap at 15,
+scale by 0.7, lower by 3; minimum-risk level 2):
 
-The engine runs on every integral. The reference loop runs
-``scipy.integrate.quad`` per integral on a sample of draws, split at every
-kink, in two styles: "lean" (integrand from the math module) and
-"scipy.stats" (the density from scipy.stats inside the integrand, the way a
-quick script is usually written); the time per integral is scaled from the
-sample. Printed: time per integral, speed ratios, the largest relative
-difference between engine and quad on the sampled integrals, and the
-process's peak resident memory (getrusage) before and after the engine ran.
+* ``general``: a linear excess-risk curve held flat beyond 60 units, slope
+  draws from N(0.012, 0.003^2); each stratum its own lognormal exposure (GM 4
+  to 40, GSD 1.5 to 4) whose parameters are drawn per draw (a normal on the
+  log scale, as for a fitted exposure), so every integral has its own
+  exposure and its own kinks;
+* ``steep-flat``: the same strata, a steep log-linear curve (slope draws
+  from N(0.4, 0.02^2)) held flat beyond 30 (RR about 1.6e5 there);
+* ``gamma`` and ``weibull``: the general curve over gamma and Weibull
+  exposures with the same means and SDs as the lognormal strata, parameters
+  drawn per draw.
+
+Printed per case: CPU time per integral (``time.process_time``, the best of
+``--repeats`` runs, since other jobs may share the machine), the values the
+engine evaluates per integral (counted in a separate pass), a bare
+``np.exp`` over the same number of values (best of the repeats), the
+largest relative difference from ``scipy.integrate.quad`` on a sample of
+integrals, and for ``general`` the process's peak resident memory
+(getrusage, taken right after that case). The analyst's reference loop runs
+``scipy.integrate.quad`` per integral on a sample, split at every kink, in
+two styles: "lean" (integrand from the math module) and "scipy.stats" (the
+density from scipy.stats, the way a quick script is usually written); its
+time per integral is scaled from the sample.
 
 Usage:  python scripts/benchmark_engine.py [--draws 10000] [--strata 100]
-        [--sample 40] [--stats-sample 3] [--seed 1] [--fixed-exposure]
+        [--other-strata 25] [--repeats 3] [--sample 40] [--stats-sample 3]
+        [--seed 1] [--cases general,steep-flat,gamma,weibull]
 """
 
 from __future__ import annotations
@@ -29,51 +39,140 @@ import math
 import platform
 import resource
 import time
+from collections.abc import Callable
 
 import numpy as np
-from scipy import integrate, stats
+from scipy import integrate
 
+from doseattr.core.attribution import fractions
 from doseattr.core.attribution.fractions import excess_draws
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
 from doseattr.core.curves.base import Curve
 from doseattr.core.curves.linear import LinearExcess
+from doseattr.core.curves.loglinear import LogLinear
 from doseattr.core.exposure.registry import FAMILIES
 
-MAX_DOSE = 60.0
 MINIMUM_RISK = 2.0
 SCENARIOS = (None, Cap(15.0, name="cap"), Scale(0.7, name="scale"), ReduceBy(3.0, name="reduce"))
+CASES = ("general", "steep-flat", "gamma", "weibull")
 
 
-def inputs(draws: int, strata: int, rng: np.random.Generator, fixed: bool = False):
-    curve = Curve(LinearExcess(), np.array([0.012]), np.array([[0.003**2]]), max_dose=MAX_DOSE)
-    slope = rng.normal(0.012, 0.003, size=(draws, 1))
-    gm = np.exp(rng.uniform(np.log(4), np.log(40), size=strata))
-    gsd = rng.uniform(1.5, 4.0, size=strata)
-    params = []
-    for s in range(strata):
-        sd = 0.0 if fixed else 0.05
-        theta = np.column_stack([rng.normal(np.log(gm[s]), sd, draws),
-                                 rng.normal(np.log(np.log(gsd[s])), sd, draws)])
-        params.append(FAMILIES["lognormal"].from_internal(theta))
-    return curve, slope, params
+class Case:
+    """One benchmark case: curve, coefficient draws, family, per-stratum draws."""
+
+    def __init__(self, name: str, draws: int, strata: int, rng: np.random.Generator) -> None:
+        self.name = name
+        if name == "steep-flat":
+            self.curve = Curve(LogLinear(), np.array([0.4]), np.array([[0.02**2]]), max_dose=30.0)
+            self.coef = rng.normal(0.4, 0.02, size=(draws, 1))
+        else:
+            self.curve = Curve(LinearExcess(), np.array([0.012]), np.array([[0.003**2]]),
+                               max_dose=60.0)
+            self.coef = rng.normal(0.012, 0.003, size=(draws, 1))
+        self.family = FAMILIES["lognormal" if name in ("general", "steep-flat") else name]
+        gm = np.exp(rng.uniform(np.log(4), np.log(40), size=strata))
+        gsd = rng.uniform(1.5, 4.0, size=strata)
+        self.params = []
+        ln = FAMILIES["lognormal"]
+        for s in range(strata):
+            theta = np.column_stack([rng.normal(np.log(gm[s]), 0.05, draws),
+                                     rng.normal(np.log(np.log(gsd[s])), 0.05, draws)])
+            p = ln.from_internal(theta)
+            if self.family.name != "lognormal":
+                p = self._matched(p)
+            self.params.append(p)
+
+    def _matched(self, ln_params: np.ndarray) -> np.ndarray:
+        """Gamma or Weibull parameters with the lognormal draws' mean and SD."""
+        s = np.log(ln_params[:, 1])
+        mean = ln_params[:, 0] * np.exp(0.5 * s * s)
+        sd = mean * np.sqrt(np.expm1(s * s))
+        if self.family.name == "gamma":
+            return np.column_stack([(mean / sd) ** 2, sd * sd / mean])
+        # Weibull: the shape for the stratum's median CV, varied per draw by a
+        # lognormal factor of SD 0.05; the scale per draw from its mean.
+        k0 = float(self.family.from_moments(float(np.median(mean)), float(np.median(sd)))[0])
+        k = k0 * np.median(s) / s
+        lgam = np.array([math.lgamma(1 + 1 / v) for v in k])
+        return np.column_stack([k, mean / np.exp(lgam)])
+
+    @property
+    def integrals(self) -> int:
+        return self.coef.shape[0] * len(self.params) * len(SCENARIOS)
+
+    def run(self) -> np.ndarray:
+        out = np.empty((len(self.params), len(SCENARIOS), self.coef.shape[0]))
+        for s, p in enumerate(self.params):
+            for j, scn in enumerate(SCENARIOS):
+                out[s, j] = excess_draws(self.curve, self.coef, self.family, p, 0.0,
+                                         MINIMUM_RISK, scn)
+        return out
 
 
-def run_engine(curve, slope, params):
-    out = np.empty((len(params), len(SCENARIOS), slope.shape[0]))
-    for s, p in enumerate(params):
-        for j, scn in enumerate(SCENARIOS):
-            out[s, j] = excess_draws(curve, slope, FAMILIES["lognormal"], p, 0.0, MINIMUM_RISK, scn)
-    return out
+def best_cpu(fn: Callable[[], object], repeats: int) -> tuple[float, object]:
+    best, result = math.inf, None
+    for _ in range(repeats):
+        t0 = time.process_time()
+        result = fn()
+        best = min(best, time.process_time() - t0)
+    return best, result
 
 
-def quad_one(b: float, gm: float, gsd: float, scenario, style: str) -> float:
+def bare_exp(values: float, repeats: int, chunk: int = 32_768) -> float:
+    """CPU seconds of np.exp over ``values`` values, in chunks of ``chunk``
+    (best of ``repeats``)."""
+    buf = np.linspace(-1.0, 1.0, chunk)
+    out = np.empty_like(buf)
+    calls = max(1, round(values / chunk))
+
+    def run() -> None:
+        for _ in range(calls):
+            np.exp(buf, out=out)
+    return best_cpu(run, repeats)[0]
+
+
+def values_per_integral(case: Case, strata: int = 3) -> float:
+    """Values of log RR the engine evaluates per integral (separate pass)."""
+    count = [0]
+    original = fractions._log_rr_m
+
+    def counting(*args, **kwargs):
+        inner = original(*args, **kwargs)
+
+        def log_rr(x, rows):
+            count[0] += np.size(x)
+            return inner(x, rows)
+        return log_rr
+
+    fractions._log_rr_m = counting
+    try:
+        for p in case.params[:strata]:
+            for scn in SCENARIOS:
+                excess_draws(case.curve, case.coef, case.family, p, 0.0, MINIMUM_RISK, scn)
+    finally:
+        fractions._log_rr_m = original
+    return count[0] / (case.coef.shape[0] * min(strata, len(case.params)) * len(SCENARIOS))
+
+
+def quad_one(case: Case, coef: float, params: np.ndarray, scenario, style: str) -> float:
     """E[RR_m(g(X))] - 1 by adaptive quadrature, split at every kink."""
-    mu, s = math.log(gm), math.log(gsd)
-    norm = 1.0 / (s * math.sqrt(2 * math.pi))
-    frozen = stats.lognorm(s, scale=gm)
+    frozen = case.family.scipy(params)
+    top = float(case.curve.max_dose)
+    model = case.curve.model
+    base = float(model.log_rr(np.array([MINIMUM_RISK]), np.array([coef]))[0])
+    if case.family.name == "lognormal":
+        mu, s = math.log(params[0]), math.log(params[1])
+        norm = 1.0 / (s * math.sqrt(2 * math.pi))
 
+        def density(x: float) -> float:
+            return norm / x * math.exp(-0.5 * ((math.log(x) - mu) / s) ** 2)
+    else:
+        density = frozen.pdf
+    if style != "lean":
+        density = frozen.pdf
     kind = None if scenario is None else scenario.kind
     v = 0.0 if scenario is None else scenario.value
+    linear = isinstance(model, LinearExcess)
 
     def g(x: float) -> float:
         if kind == "cap":
@@ -85,17 +184,14 @@ def quad_one(b: float, gm: float, gsd: float, scenario, style: str) -> float:
         return x
 
     def excess(x: float) -> float:
-        y = min(max(g(x), MINIMUM_RISK), MAX_DOSE)
-        return (1 + b * y) / (1 + b * MINIMUM_RISK) - 1
+        y = min(max(g(x), MINIMUM_RISK), top)
+        lr = math.log1p(coef * y) if linear else coef * y
+        return math.expm1(lr - base)
 
-    if style == "lean":
-        def f(x: float) -> float:
-            return excess(x) * norm / x * math.exp(-0.5 * ((math.log(x) - mu) / s) ** 2)
-    else:
-        def f(x: float) -> float:
-            return excess(x) * frozen.pdf(x)
+    def f(x: float) -> float:
+        return excess(x) * density(x)
 
-    pts = [MINIMUM_RISK, MAX_DOSE]
+    pts = [MINIMUM_RISK, top]
     if scenario is not None:
         pts = list(scenario.preimage(np.array(pts))) + list(scenario.own_kinks())
     edges = [0.0] + sorted(p for p in set(pts) if p > 0) + [math.inf]
@@ -103,50 +199,60 @@ def quad_one(b: float, gm: float, gsd: float, scenario, style: str) -> float:
                for a, c in zip(edges[:-1], edges[1:]) if c > a)
 
 
+def compare(case: Case, result: np.ndarray, rng: np.random.Generator, sample: int,
+            stats_sample: int) -> tuple[dict[str, float], float]:
+    draws, strata = case.coef.shape[0], len(case.params)
+    picks = [(int(rng.integers(draws)), int(rng.integers(strata)), int(rng.integers(len(SCENARIOS))))
+             for _ in range(max(sample, stats_sample))]
+    timings, worst = {}, 0.0
+    for style, k in (("lean", sample), ("scipy.stats", stats_sample)):
+        if k == 0:
+            continue
+        t0 = time.process_time()
+        for d, s, j in picks[:k]:
+            ref = quad_one(case, float(case.coef[d, 0]), case.params[s][d], SCENARIOS[j], style)
+            worst = max(worst, abs(result[s, j, d] - ref) / abs(ref))
+        timings[style] = (time.process_time() - t0) / k
+    return timings, worst
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--draws", type=int, default=10_000)
-    ap.add_argument("--strata", type=int, default=100)
+    ap.add_argument("--strata", type=int, default=100, help="strata of the general case")
+    ap.add_argument("--other-strata", type=int, default=25, help="strata of the other cases")
+    ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--sample", type=int, default=40, help="integrals for the lean quad loop")
     ap.add_argument("--stats-sample", type=int, default=3, help="integrals for the scipy.stats loop")
     ap.add_argument("--seed", type=int, default=1)
-    ap.add_argument("--fixed-exposure", action="store_true",
-                    help="each stratum's exposure known exactly (only the curve varies)")
+    ap.add_argument("--cases", default=",".join(CASES))
     args = ap.parse_args()
     rng = np.random.default_rng(args.seed)
-    curve, slope, params = inputs(args.draws, args.strata, rng, args.fixed_exposure)
-    n_int = args.draws * args.strata * len(SCENARIOS)
-
-    rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    t0 = time.perf_counter()
-    result = run_engine(curve, slope, params)
-    engine_s = time.perf_counter() - t0
-    rss_after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    per_engine = engine_s / n_int
-
-    picks = [(int(rng.integers(args.draws)), int(rng.integers(args.strata)),
-              int(rng.integers(len(SCENARIOS)))) for _ in range(max(args.sample, args.stats_sample))]
-    timings, worst = {}, 0.0
-    for style, k in (("lean", args.sample), ("scipy.stats", args.stats_sample)):
-        t0 = time.perf_counter()
-        for d, s, j in picks[:k]:
-            gm, gsd = params[s][d]
-            ref = quad_one(float(slope[d, 0]), float(gm), float(gsd), SCENARIOS[j], style)
-            worst = max(worst, abs(result[s, j, d] - ref) / abs(ref))
-        timings[style] = (time.perf_counter() - t0) / k
-
     print(f"machine: {platform.machine()}, {platform.processor() or 'cpu'}, "
-          f"python {platform.python_version()}, numpy {np.__version__}")
-    print(f"engine: {args.draws} draws x {args.strata} strata x {len(SCENARIOS)} "
-          f"(current + 3 scenarios) = {n_int:,} integrals in {engine_s:.1f} s "
-          f"= {per_engine * 1e6:.2f} us per integral")
-    print(f"peak resident memory of the process: {rss_after / 1024:.0f} MiB "
-          f"({rss_before / 1024:.0f} MiB before the engine ran: inputs, numpy, scipy)")
-    for style, per in timings.items():
-        print(f"quad loop ({style} integrand): {per * 1e6:,.0f} us per integral; "
-              f"engine is {per / per_engine:,.0f} times faster")
-    print(f"largest relative difference engine vs quad (excess risk, "
-          f"{max(args.sample, args.stats_sample)} integrals): {worst:.1e}")
+          f"python {platform.python_version()}, numpy {np.__version__}; CPU time, best of "
+          f"{args.repeats}")
+    for name in args.cases.split(","):
+        strata = args.strata if name == "general" else args.other_strata
+        case = Case(name, args.draws, strata, rng)
+        n_int = case.integrals
+        cpu, result = best_cpu(case.run, args.repeats)
+        rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+        per = cpu / n_int
+        nodes = values_per_integral(case)
+        exp_cpu = bare_exp(nodes * n_int, args.repeats) / n_int
+        timings, worst = compare(case, np.asarray(result), rng, args.sample if name == "general"
+                                 else max(args.sample // 4, 1), args.stats_sample
+                                 if name == "general" else 0)
+        print(f"\n[{name}] {args.draws} draws x {strata} strata x {len(SCENARIOS)} = "
+              f"{n_int:,} integrals: {per * 1e6:.3f} us per integral (CPU), "
+              f"{nodes:.1f} values per integral")
+        print(f"  bare np.exp over the same number of values: {exp_cpu * 1e6:.3f} us per integral")
+        for style, t in timings.items():
+            print(f"  quad loop ({style} integrand): {t * 1e6:,.0f} us per integral; "
+                  f"engine {t / per:,.0f} times faster")
+        print(f"  largest relative difference from quad: {worst:.1e}")
+        if name == "general":
+            print(f"  peak resident memory of the process: {rss / 1024:.0f} MiB")
 
 
 if __name__ == "__main__":

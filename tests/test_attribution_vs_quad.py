@@ -7,9 +7,12 @@ scipy.stats density, split at every kink, epsrel=1e-12. Required agreement:
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
-from reference_integrals import expect_over
+from reference_integrals import expect_over, expect_over_log_dose
+from scipy import stats
 
 from doseattr.core.attribution.fractions import excess_draws, expected_rr
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
@@ -132,3 +135,49 @@ def test_extremely_steep_flat_curve(rr10, fam, p, scn):
     scenario = SCENARIOS[scn]
     ref = quad_expected_rr(curve, ex, 1.0, scenario)
     assert expected_rr(curve, ex, 1.0, scenario) == pytest.approx(ref, rel=1e-8)
+
+
+def _quad_excess_flat(curve, exposure):
+    """E[RR(X)] - 1 for a curve held flat beyond max_dose D (RR(0) = 1):
+    scipy.integrate.quad on the log-dose scale from far below the body to
+    ln D, split at body quantiles and at graded points below D where a steep
+    curve's integrand peaks, plus expm1(L(D)) times scipy.stats' sf(D)."""
+    dist = exposure.family.scipy(exposure.params)
+    top = curve.max_dose
+    c = float(curve.coef[0])
+
+    def log_rr(x):
+        return float(curve.model.log_rr(np.array([x]), curve.coef)[0])
+
+    pts = [float(dist.ppf(q)) for q in (1e-12, 1e-6, 0.01, 0.5, 0.99, 1 - 1e-6)]
+    scale = c * top if isinstance(curve.model, LogLinear) else 1.0
+    pts += [top * math.exp(-j / scale) for j in (0.5, 1, 2, 4, 8, 16, 32, 64)]
+    body = expect_over_log_dose(lambda x: math.expm1(log_rr(x)), dist, pts,
+                                t_lower=math.log(dist.ppf(1e-30)), t_upper=math.log(top),
+                                epsrel=1e-13, limit=1000)
+    return body + math.expm1(log_rr(top)) * dist.sf(top)
+
+
+@pytest.mark.parametrize("kind", ["log-linear", "power"])
+@pytest.mark.parametrize("log10_rr", [11, 17, 23])
+@pytest.mark.parametrize("z_far", [9.0, 10.0, 11.0])
+@pytest.mark.parametrize("fam,p", [("lognormal", [1.0, 2.0]), ("lognormal", [3.0, 1.5]),
+                                   ("gamma", [40.0, 0.5]), ("weibull", [3.0, 10.0])])
+def test_far_tail_flat_point(kind, log10_rr, z_far, fam, p):
+    """A curve held flat at a very large RR (1e11 to 1e23) at a dose D far
+    beyond a narrow exposure (survival probability at D that of a normal
+    9 to 11 SD out): the part of E[RR] between the body and D, where RR
+    outgrows the density, must not be dropped. Relative to the excess
+    E[RR] - 1, against quad on the log-dose scale (scipy.integrate.quad,
+    scipy.stats; the engine's earlier panels stopped at 8.6 SD and missed up
+    to 43% here)."""
+    ex = Exposure(FAMILIES[fam], np.array(p))
+    top = float(ex.family.scipy(ex.params).isf(stats.norm.sf(z_far)))
+    log_rr_top = log10_rr * math.log(10)
+    if kind == "log-linear":
+        curve = Curve(LogLinear(), np.array([log_rr_top / top]), np.eye(1), max_dose=top)
+    else:
+        curve = Curve(Power(offset=1.0), np.array([log_rr_top / math.log1p(top)]), np.eye(1),
+                      max_dose=top)
+    got = excess_draws(curve, curve.coef, ex.family, ex.params, 0.0, 0.0)[0]
+    assert got == pytest.approx(_quad_excess_flat(curve, ex), rel=1e-8)

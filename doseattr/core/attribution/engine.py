@@ -3,56 +3,85 @@ r"""Fixed-node quadrature of expectations over exposure distributions.
 Every attributable fraction is built from the expected excess risk
 :math:`E[RR(X) - 1] = \int_0^\infty \mathrm{expm1}(L(x)) f(x)\,dx`, with
 :math:`L = \ln RR`. Integrating the excess rather than the RR keeps full
-relative precision when the fraction is small. The engine integrates on the
-log-exposure scale :math:`t = \ln x`,
+relative precision when the fraction is small. The engine integrates in each
+family's standardised variable ``w`` (:mod:`.standard`; :math:`\ln x = a + b w`,
+for the lognormal :math:`z = (\ln x - \mu)/s`),
 
-.. math:: E[\mathrm{expm1}(L(X))] = \int_{-\infty}^{\infty}
-          \mathrm{expm1}(L(e^t))\, f_T(t)\, dt,
+.. math:: E[\mathrm{expm1}(L(X))] = \int_{w_0}^{w^*}
+          \mathrm{expm1}(L(e^{a + b w}))\, f_W(w)\, dw
+          + \mathrm{expm1}(L(x^*))\, S(x^*),
 
-where :math:`f_T` is the density of :math:`T = \ln X`, which is smooth and
-decays in both directions for the lognormal, gamma and Weibull families.
-The real line is cut into panels at
+where :math:`w_0` is the image of the dose below which the integrand is zero
+(the minimum-risk level, ``zero_below``) and :math:`x^*` the dose beyond
+which it is constant (``flat_from``, e.g. ``max_dose``), whose part is exact
+from the tail probability. The window :math:`[w_0, w^*]` is cut
 
-* the family's breakpoints (:meth:`Family.log_breaks`), which cover the
-  body and both tails to about 1e-16 of probability;
-* when ``h`` grows without bound, breakpoints of the distribution tilted by
-  that growth (:meth:`Family.tilted_log_breaks`), so the panels reach as
-  far as ``h f`` has mass; a divergent expectation is refused there;
-* the logarithm of every dose where ``h`` has a kink (minimum-risk level,
-  the dose beyond which the curve is held flat, spline knots, scenario
-  limits), so every panel integrand is smooth;
+* into panels of equal width in the normal score of ``W`` (a small number,
+  set by the window's width: one or two for a lognormal), placed by formula;
+  the body stops at a normal score of 7.5 (3.2e-14 of probability beyond)
+  unless the integrand can matter further out: up to the flat point when
+  :math:`|\mathrm{expm1}(L(x^*))|` times the probability beyond the body is
+  not negligible beside the result (a steep curve held flat far in the
+  tail), or up to the tilted distribution's breakpoints
+  (:meth:`Family.tilted_log_breaks`) when ``h`` grows without bound, where a
+  divergent expectation is refused;
+* exactly at every kink inside the window (spline knots, scenario limits,
+  graded breaks below a steep curve's flat point), each kink adding a panel;
 
-and each panel gets the same Gauss-Legendre rule
-(:func:`scipy.special.roots_legendre`). Panels, nodes and parameters are all
-arrays over draws, so one call evaluates thousands of integrals at once,
-in chunks of draws to bound memory. Written here because no library offers
-fixed-rule quadrature that is vectorised over per-draw panel limits.
+and each panel gets a Gauss-Legendre rule (:func:`scipy.special.roots_legendre`):
+16 nodes, or 8 on a panel much narrower than the body's. No node falls where
+the integrand is zero or constant. Every draw's panels depend on that draw
+alone (draws with fewer panels are padded with empty ones), so a draw gives
+the same result in any chunk. Draws are evaluated in chunks of about
+:data:`CHUNK_VALUES` nodes. Two checks guard the rule: the nodes must recover
+the probability of the window (to :data:`MASS_TOLERANCE`), and for a growing
+integrand the expectation of the growth bound over the window (closed forms
+in :mod:`.standard`'s families, to :data:`TILT_TOLERANCE` relative). Written
+here because no library offers fixed-rule quadrature that is vectorised
+over per-draw panel limits.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 from functools import lru_cache
 from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.special import roots_legendre
+from scipy.special import gammaln, ndtr, poch, roots_legendre
 
+from doseattr.core.attribution.standard import Z_MAX, ZB, Standard, between, standard_for
 from doseattr.core.curves.base import Growth
 from doseattr.core.exposure.base import Family
+from doseattr.core.exposure.gamma import gamma_between
 from doseattr.errors import ConvergenceError, FloatRangeError
 
 FloatArray = NDArray[np.float64]
+BoolArray = NDArray[np.bool_]
+#: A window's ends in the normal score and whether each is exact.
+Window = tuple[FloatArray, FloatArray, BoolArray, BoolArray]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
 
 #: Gauss-Legendre nodes per panel.
-NODES = 12
-#: Largest number of (draw x node) values held in memory at once.
-CHUNK_VALUES = 32_768
+NODES = 16
+#: Nodes on a panel narrower than a quarter of the body's panels.
+NARROW_NODES = 8
+#: Widest panel on the log-dose scale: curves change shape over about a
+#: unit of ln x (saturation, logistic weights), which a panel must resolve.
+LOG_DOSE_WIDTH = 4.0
+#: Doses whose logarithm lies outside this range are 0 or inf in floats.
+_LOG_DOSE_RANGE = (-745.0, 710.0)
+#: Most equal-score panels in a window.
+MAX_PANELS = 48
+#: About this many (draw x node) values are held at once.
+CHUNK_VALUES = 65_536
 #: Probability mass the panels must recover before a result is trusted.
 MASS_TOLERANCE = 1e-9
+#: Relative accuracy the panels must reach on the growth bound's expectation.
+TILT_TOLERANCE = 1e-9
+#: Beyond the body, a part bounded by this fraction of the result is dropped.
+FAR_TOLERANCE = 1e-11
 
 
 @lru_cache(maxsize=8)
@@ -63,7 +92,8 @@ def _legendre(n: int) -> tuple[FloatArray, FloatArray]:
 
 def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
                     growth: Growth, kinks: FloatArray, flat_from: float | FloatArray | None = None,
-                    nodes: int = NODES) -> FloatArray:
+                    nodes: int = NODES,
+                    zero_below: float | FloatArray | None = None) -> FloatArray:
     r"""E[expm1(L(X))] = E[RR(X) - 1] for each draw of an exposure family.
 
     Parameters
@@ -83,6 +113,11 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
         any. The panels then stop at ``x*`` and the rest is exact:
         :math:`\mathrm{expm1}(L(x^*))\,S(x^*)`, however far into the tail
         of the exposure distribution ``x*`` lies.
+    nodes
+        Gauss-Legendre nodes per (body) panel.
+    zero_below
+        Dose per draw (or shared) below which ``L`` is 0 (the minimum-risk
+        level's pre-image), if known: no nodes are placed there.
 
     Returns
     -------
@@ -94,121 +129,274 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
         When the expectation is infinite for some draw.
     ConvergenceError
         When the panels fail to recover the distribution's probability mass
-        (an internal check of the quadrature).
+        or the growth bound's expectation (an internal check).
     """
     params = np.atleast_2d(np.asarray(params, dtype=float))
     d = params.shape[0]
     kinks = np.asarray(kinks, dtype=float)
-    if kinks.ndim == 1:
-        kinks = np.broadcast_to(kinks, (d, kinks.shape[0]))
+    kinks = np.broadcast_to(kinks, (d, kinks.shape[-1]))
     rate = np.broadcast_to(np.asarray(growth.rate, dtype=float), (d,))
     top = np.broadcast_to(np.inf if flat_from is None else np.asarray(flat_from, float), (d,))
-    xi, wi = _legendre(nodes)
-    if d > 1 and _same_rows(params) and _same_rows(kinks) and np.all(top == top[0]):
-        # One exposure distribution and one set of kinks for every draw
-        # (only the curve varies): build the nodes once and reuse them.
-        shared = Growth(growth.kind, rate.max(keepdims=True))
-        grid = _grid(family, params[:1], shared, kinks[:1], top[:1], xi, wi)
-        step = max(1, CHUNK_VALUES // grid.x.shape[1])
-        return np.concatenate([_integrate(log_rr, grid, slice(s, min(d, s + step)))
-                               for s in range(0, d, step)])
-    n_edges = _edges(family, params[:1], _sub_growth(growth, rate, slice(0, 1)),
-                     kinks[:1]).shape[1]
-    step = max(1, CHUNK_VALUES // max(1, (n_edges - 1) * nodes))
+    low = np.broadcast_to(0.0 if zero_below is None else np.asarray(zero_below, float), (d,))
+    tilt = None
+    if growth.kind != "bounded" and np.any(rate > 0):
+        # refuses a divergent expectation; its last breakpoint bounds the window
+        breaks = np.atleast_2d(family.tilted_log_breaks(params, growth))
+        tilt = np.broadcast_to(np.where(rate[:, None] > 0, breaks, -np.inf),
+                               (d, breaks.shape[-1]))
+    std = standard_for(family)
+    rules = (_legendre(nodes), _legendre(min(nodes, NARROW_NODES)))
+    step = max(1, CHUNK_VALUES // (nodes * (3 + kinks.shape[1])))
     out = np.empty(d)
     for start in range(0, d, step):
         rows = slice(start, min(d, start + step))
-        grid = _grid(family, params[rows], _sub_growth(growth, rate, rows), kinks[rows],
-                     top[rows], xi, wi)
-        out[rows] = _integrate(log_rr, grid, rows)
+        chunk = _Chunk(std, params[rows], kinks[rows], top[rows], low[rows],
+                       None if tilt is None else tilt[rows], growth.kind, rate[rows])
+        out[rows] = chunk.integrate(log_rr, rows, rules)
     return out
 
 
-def _same_rows(a: FloatArray) -> bool:
-    return bool(a.shape[1] == 0 or np.all(a == a[:1]))
+class _Chunk:
+    """The window, panels and checks for a chunk of draws."""
 
-
-def _sub_growth(growth: Growth, rate: FloatArray, rows: slice) -> Growth:
-    return Growth(growth.kind, rate[rows])
-
-
-@dataclass(frozen=True)
-class Grid:
-    """Quadrature nodes for a chunk of draws: doses ``x``, log densities,
-    weights and weighted densities ``(d, N)``; the flat tail's start
-    ``tail_x (d, 1)`` and its probability ``tail_p (d,)``."""
-
-    x: FloatArray
-    log_f: FloatArray
-    weight: FloatArray
-    dens: FloatArray
-    tail_x: FloatArray
-    tail_p: FloatArray
-
-
-def _grid(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray,
-          top: FloatArray, xi: FloatArray, wi: FloatArray) -> Grid:
-    """Nodes up to ``top`` (the start of a flat tail, or inf); checks that
-    the weights and the tail recover the distribution's probability."""
-    edges = _edges(family, params, growth, kinks)
-    with np.errstate(divide="ignore"):
-        # A flat tail from 0 (max_dose = 0) leaves no panels: every panel
-        # is squeezed onto the lowest edge and the tail holds all the mass.
-        cap = np.where(top > 0, np.log(top), edges.min(axis=1))
-        edges = np.minimum(edges, cap[:, None])
-    half = 0.5 * np.diff(edges, axis=1)                      # (d, P)
-    mid = 0.5 * (edges[:, 1:] + edges[:, :-1])
-    d, p = half.shape
-    t = (mid[:, :, None] + half[:, :, None] * xi).reshape(d, p * xi.size)
-    log_f = family.log_density_log(t, params)
-    weight = (half[:, :, None] * wi).reshape(d, p * xi.size)
-    dens = np.exp(log_f) * weight
-    finite = np.isfinite(top)
-    tail_x = np.where(finite, top, 1.0)[:, None]
-    tail_p = np.where(finite, family.sf(tail_x, params)[:, 0], 0.0)
-    mass = dens.sum(axis=1) + tail_p
-    if np.any(np.abs(mass - 1.0) > MASS_TOLERANCE):
-        worst = float(np.max(np.abs(mass - 1.0)))
-        raise ConvergenceError(
-            f"quadrature recovered the {family.name} distribution's probability only to "
-            f"{worst:.1e}; parameters are too extreme for the fixed rule")
-    return Grid(np.exp(t), log_f, weight, dens, tail_x, tail_p)
-
-
-def _integrate(log_rr: LogRisk, grid: Grid, rows: slice) -> FloatArray:
-    # RR past the float range gives inf (and inf - inf nan) here; both are
-    # refused below, so the warnings on the way say nothing new.
-    with np.errstate(over="ignore", invalid="ignore"):
-        total = _weighted_excess(log_rr(grid.x, rows), grid.log_f, grid.weight, grid.dens)
-        if np.any(grid.tail_p > 0):
-            total = total + np.expm1(log_rr(grid.tail_x, rows)[:, 0]) * grid.tail_p
-    if not np.all(np.isfinite(total)):
-        raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
-                              "the relative risk is too large over the exposure range; check "
-                              "the curve's coefficients and units")
-    return total
-
-
-def _edges(family: Family, params: FloatArray, growth: Growth, kinks: FloatArray) -> FloatArray:
-    """Panel edges for a chunk of draws: family breaks, tilted breaks, kinks."""
-    d = params.shape[0]
-    if growth.kind != "bounded" and np.any(growth.rate > 0):
-        breaks = family.tilted_log_breaks(params, growth)   # includes the family's own
-    else:
-        breaks = family.log_breaks(params)
-    parts = [np.broadcast_to(breaks, (d, _width(breaks)))]
-    allb = np.concatenate(parts, axis=1)
-    lo = allb.min(axis=1, keepdims=True)
-    hi = allb.max(axis=1, keepdims=True)
-    if kinks.shape[1]:
+    def __init__(self, std: Standard, params: FloatArray, kinks: FloatArray, top: FloatArray,
+                 low: FloatArray, tilt: FloatArray | None, kind: str, rate: FloatArray) -> None:
+        self.std, self.params, self.kind, self.rate = std, params, kind, rate
+        self.a, self.b = std.affine(params)
         with np.errstate(divide="ignore"):
-            logk = np.log(np.maximum(kinks, 0.0))
-        parts.append(np.clip(logk, lo, hi))
-    return np.sort(np.concatenate(parts, axis=1), axis=1)
+            self.w_low = (np.log(np.maximum(low, 0.0))[:, None] - self.a) / self.b
+            self.w_top = (np.log(np.maximum(top, 0.0))[:, None] - self.a) / self.b
+            self.w_kinks = (np.log(np.maximum(kinks, 0.0)) - self.a) / self.b
+        self.finite = np.isfinite(top)[:, None]
+        self.top = np.where(self.finite, top[:, None], 1.0)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            self.z_low = _no_nan(std.zeta_low(self.w_low, params), self.w_low)
+            z_top, self.log_sf_top = std.zeta_top(self.w_top, params)
+        self.z_top = _no_nan(z_top, self.w_top)
+        self.cap = np.full_like(self.z_top, ZB)
+        self.w_tilt = None if tilt is None else (tilt - self.a) / self.b
+
+    def _zeta(self, w: FloatArray) -> FloatArray:
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            return _no_nan(self.std.zeta(w, self.params), w)
+
+    def integrate(self, log_rr: LogRisk, rows: slice,
+                  rules: tuple[tuple[FloatArray, FloatArray], ...]) -> FloatArray:
+        body, top_excess = self._window(log_rr, rows, rules, self.cap)
+        sf = self._top_sf()
+        with np.errstate(invalid="ignore", over="ignore"):
+            tail = np.where(self.finite & (sf > 0), top_excess * sf, 0.0)[:, 0]
+        bound_top = np.where(self.finite, np.abs(top_excess), 0.0)
+        far = self.finite & (self.z_top > self.cap) & (bound_top > 0)
+        if np.any(far):
+            # beyond the body up to a far flat point: is the part there
+            # (at most |expm1 L(x*)| x the probability beyond) negligible?
+            beyond = bound_top * np.exp(self.std.log_sf(self._w_of(self.cap), self.params))
+            need = far & (beyond > FAR_TOLERANCE * np.abs(body[:, None]))
+            if np.any(need):
+                cap = np.where(need, np.minimum(self.z_top, Z_MAX), self.cap)
+                body = self._window(log_rr, rows, rules, cap)[0]
+        total = body + tail
+        if not np.all(np.isfinite(total)):
+            raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
+                                  "the relative risk is too large over the exposure range; "
+                                  "check the curve's coefficients and units")
+        return total
+
+    def _w_of(self, zeta: FloatArray) -> FloatArray:
+        return self.std.from_zeta(zeta, self.params)
+
+    def _top_sf(self) -> FloatArray:
+        """S(x*), the probability of the flat part (1 when it starts at 0)."""
+        if not np.any(self.finite):
+            return np.zeros_like(self.w_top)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            sf = np.exp(np.where(self.finite, self.log_sf_top, -np.inf))
+        return cast(FloatArray, np.where(self.w_top == -np.inf, 1.0, sf))
+
+    def _zwindow(self, cap: FloatArray) -> tuple[FloatArray, FloatArray, BoolArray, BoolArray]:
+        """The window in the normal score ``(z_lo, z_hi)``, finite, and where
+        its ends are exact (the zero-below dose, the flat point)."""
+        z_hi = np.minimum(self.z_top, cap)
+        empty = z_hi <= -ZB
+        z_hi = np.where(empty, -ZB, z_hi)
+        z_lo = np.minimum(np.maximum(self.z_low, -ZB), z_hi)
+        lo_exact = (self.z_low >= -ZB) & ~empty
+        hi_exact = (self.z_top <= cap) & ~empty
+        return z_lo, z_hi, lo_exact, hi_exact
+
+    def _edges(self, cap: FloatArray) -> tuple[FloatArray, FloatArray | None, Window]:
+        """Panel edges in ``w`` ``(d, Q + 1)`` and the narrowest body panel
+        (``None`` when no kink cuts the body: its panels are all alike), and
+        the window: its ends' normal scores and whether they are exact."""
+        z_lo, z_hi, lo_exact, hi_exact = self._zwindow(cap)
+        width = self.std.panel_width(self.params)
+        t_lo, t_hi = (np.clip(self.a + self.b * self._w_of(z), *_LOG_DOSE_RANGE)
+                      for z in (z_lo, z_hi))
+        count = np.maximum(np.ceil((z_hi - z_lo) / width - 1e-9),
+                           np.ceil((t_hi - t_lo) / LOG_DOSE_WIDTH - 1e-9))
+        count = np.clip(count, 1, MAX_PANELS).astype(int)
+        j = np.arange(int(count.max()) + 1)
+        frac = np.minimum(j / count, 1.0)
+        body = self._w_of(z_lo + (z_hi - z_lo) * frac)
+        first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
+                         body[:, :1])
+        last = np.maximum(np.where(hi_exact, self.w_top, body[:, -1:]), first)
+        body = np.clip(np.maximum.accumulate(body, axis=1), first, last)
+        body[:, :1] = first
+        pad = j[None, :] >= count
+        body[pad] = np.broadcast_to(last, body.shape)[pad]
+        z_end = z_hi
+        if self.w_tilt is not None:
+            # the tilted body beyond the equal-score panels: its own breaks
+            end = np.minimum(np.where(self.finite, self.w_top, np.inf),
+                             self.w_tilt.max(axis=1, keepdims=True))
+            grow = ~hi_exact & (end > last)
+            last = np.where(grow, end, last)
+            extra = np.where(grow, np.concatenate([self.w_tilt, end], axis=1), last)
+            body = np.concatenate([body, np.clip(extra, body[:, -1:], last)], axis=1)
+            body.sort(axis=1)
+            z_end = np.where(grow, np.minimum(self._zeta(last), Z_MAX), z_hi)
+            # no constant cap beyond the tilted breaks: the integrand grows there
+            hi_exact = hi_exact | grow
+        gaps = np.diff(body, axis=1)
+        narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
+        cuts = np.concatenate([self.w_kinks, self.std.extra_breaks(self.params)], axis=1)
+        inside = (cuts > first) & (cuts < last)
+        cuts = np.clip(cuts[:, inside.any(axis=0)], first, last)
+        window = (z_lo, z_end, lo_exact, hi_exact)
+        if cuts.shape[1] == 0 and self.w_tilt is None:
+            return body, None, window
+        return np.sort(np.concatenate([body, cuts], axis=1), axis=1), narrowest, window
+
+    def _window(self, log_rr: LogRisk, rows: slice,
+                rules: tuple[tuple[FloatArray, FloatArray], ...],
+                cap: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """Body integral over the window up to ``cap`` and expm1(L(x*))."""
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            edges, narrowest, window = self._edges(cap)
+        half = 0.5 * np.diff(edges, axis=1)
+        mid = edges[:, :-1] + half
+        groups: list[tuple[FloatArray, FloatArray, FloatArray, FloatArray]] = []
+        if narrowest is None:
+            groups.append((mid, half, *rules[0]))
+        else:
+            kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
+            for group, (xi, wi) in enumerate(rules):
+                order = np.argsort(kind != group, axis=1, kind="stable")
+                n = int((kind == group).sum(axis=1).max())
+                if n == 0:
+                    continue
+                take = order[:, :n]
+                h = np.take_along_axis(half, take, axis=1)
+                h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
+                groups.append((np.take_along_axis(mid, take, axis=1), h, xi, wi))
+        rows_n = edges.shape[0]
+        nodes = sum(h.shape[1] * xi.size for _, h, xi, _ in groups)
+        w = np.empty((rows_n, nodes + 3))
+        weight = np.empty_like(w)
+        col = 0
+        for m, h, xi, wi in groups:
+            q = h.shape[1] * xi.size
+            shape = (rows_n, h.shape[1], xi.size)
+            w[:, col:col + q] = (m[:, :, None] + h[:, :, None] * xi).reshape(rows_n, q)
+            np.multiply(h[:, :, None], wi, out=weight[:, col:col + q].reshape(shape))
+            col += q
+        # Three more columns, evaluated with the nodes: the window's ends,
+        # carrying the probability beyond them where the window was cut at
+        # the body (the integrand held at its value there, not dropped), and
+        # the flat point x*.
+        z_lo, z_hi, lo_exact, hi_exact = window
+        beyond = np.where(self.finite, between(z_hi, np.maximum(self.z_top, z_hi)), ndtr(-z_hi))
+        caps = np.concatenate([np.where(lo_exact, 0.0, ndtr(z_lo)),
+                               np.where(hi_exact, 0.0, beyond), np.zeros_like(z_lo)], axis=1)
+        w[:, nodes:] = np.concatenate([edges[:, :1], edges[:, -1:],
+                                       np.where(self.finite, self.w_top, 0.0)], axis=1)
+        weight[:, nodes:] = 1.0
+        x = w * self.b
+        x += self.a
+        np.exp(x, out=x)
+        x[:, -1:] = np.maximum(self.top, 0.0)
+        tilt_w = w[:, :nodes].copy() if self.kind != "bounded" else None
+        log_f = self.std.log_density(w, self.params)
+        with np.errstate(divide="ignore"):
+            log_f[:, nodes:] = np.log(caps)
+        dens = np.exp(log_f)
+        dens *= weight
+        self._check_mass(dens[:, :nodes], z_lo, z_hi)
+        if tilt_w is not None:
+            self._check_tilt(tilt_w, log_f[:, :nodes], weight[:, :nodes], edges)
+        lr = np.asarray(log_rr(x, rows), dtype=float)
+        if not (lr.flags.writeable and lr.flags.owndata):
+            lr = lr.copy()
+        with np.errstate(over="ignore", invalid="ignore"):
+            top_excess = np.expm1(lr[:, -1:])
+            lr[:, -1] = 0.0
+            return _weighted_excess(lr, log_f, weight, dens), top_excess
+
+    def _check_mass(self, dens: FloatArray, z_lo: FloatArray, z_hi: FloatArray) -> None:
+        want = between(z_lo, z_hi)[:, 0]
+        gap = np.abs(dens.sum(axis=1) - want)
+        if np.any(gap > MASS_TOLERANCE):
+            raise ConvergenceError(
+                f"quadrature recovered the {self.std.family.name} distribution's probability "
+                f"only to {float(gap.max()):.1e}; parameters are too extreme for the fixed rule")
+
+    def _check_tilt(self, w: FloatArray, log_f: FloatArray, weight: FloatArray,
+                    edges: FloatArray) -> None:
+        """The growth bound's expectation over the window, nodes against closed form."""
+        pair = _tilted_mass(self.std.family.name, self.kind, self.rate[:, None], self.params,
+                            self.a, self.b, edges[:, :1], edges[:, -1:])
+        if pair is None:
+            return
+        log_g, ref = pair
+        with np.errstate(over="ignore", invalid="ignore"):
+            got = (np.exp(log_g(w) + log_f) * weight).sum(axis=1)
+            rel = np.abs(got / ref[:, 0] - 1.0)
+        rel = np.where(ref[:, 0] > 0, rel, 0.0)
+        if np.any(rel > TILT_TOLERANCE) or np.any(np.isnan(rel)):
+            raise ConvergenceError(
+                f"quadrature recovered the expected growth of the relative risk over the "
+                f"{self.std.family.name} distribution only to {float(np.nanmax(rel)):.1e} "
+                f"(relative); parameters are too extreme for the fixed rule")
 
 
-def _width(a: FloatArray) -> int:
-    return int(np.shape(a)[-1])
+def _no_nan(z: FloatArray, w: FloatArray) -> FloatArray:
+    """A normal score with NaN (from an infinite ``w``) set to +-inf."""
+    return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
+
+
+def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: FloatArray,
+                 b: FloatArray, w_lo: FloatArray, w_hi: FloatArray
+                 ) -> tuple[Callable[[FloatArray], FloatArray], FloatArray] | None:
+    r"""The log growth bound ``g`` in ``w`` (up to a constant) and
+    :math:`\int_{w_{lo}}^{w_{hi}} g\, f_W` in closed form, by completing the
+    square (lognormal, power growth :math:`x^r`: :math:`e^{r^2 s^2/2}
+    [\Phi(z_{hi} - rs) - \Phi(z_{lo} - rs)]`), or from the gamma integral
+    (gamma, :math:`y^r`: :math:`\Gamma(k+r)/\Gamma(k)\,[P(k+r, y_{hi}) -
+    P(k+r, y_{lo})]`; gamma, :math:`e^{cx}`: :math:`(1-c\theta)^{-k}
+    [P(k, (1-c\theta) y_{hi}) - P(k, (1-c\theta) y_{lo})]`; Weibull,
+    :math:`E^{r/k}`: :math:`\Gamma(1+r/k)\,[P(1+r/k, E_{hi}) - P(1+r/k,
+    E_{lo})]`); derived here. ``None`` where there is no closed form
+    (exponential growth over a Weibull of shape above 1)."""
+    with np.errstate(over="ignore"):
+        y_lo, y_hi = np.exp(w_lo), np.exp(w_hi)
+    if name == "lognormal" and kind == "power":
+        rs = r * b
+        return (lambda w: rs * w), np.exp(0.5 * rs * rs) * between(w_lo - rs, w_hi - rs)
+    if name == "gamma":
+        k = params[:, :1]
+        if kind == "power":
+            ref = poch(k, r) * gamma_between(k + r, y_lo, y_hi)
+            return (lambda w: r * w), ref
+        ct = r * params[:, 1:2]
+        ref = np.exp(-k * np.log1p(-ct)) * gamma_between(k, y_lo * (1 - ct), y_hi * (1 - ct))
+        return (lambda w: ct * np.exp(w)), ref
+    if name == "weibull" and kind == "power":
+        q = r * b
+        ref = np.exp(gammaln(1 + q)) * gamma_between(1 + q, y_lo, y_hi)
+        return (lambda w: q * w), ref
+    return None
 
 
 def _weighted_excess(lr: FloatArray, log_f: FloatArray, weight: FloatArray,
@@ -219,9 +407,9 @@ def _weighted_excess(lr: FloatArray, log_f: FloatArray, weight: FloatArray,
     negligible; those nodes are evaluated as exp(log_f + lr) instead.
     """
     if lr.max(initial=0.0) < 600.0:
-        if dens.shape[0] == 1:
-            return cast(FloatArray, np.expm1(lr) @ dens[0])
-        return cast(FloatArray, np.einsum("ij,ij->i", np.expm1(lr), dens))
+        np.expm1(lr, out=lr)
+        lr *= dens
+        return cast(FloatArray, lr.sum(axis=1))
     with np.errstate(over="ignore", invalid="ignore"):
         big = np.exp(log_f + lr) * -np.expm1(-np.maximum(lr, 0.5)) * weight
     small = np.expm1(np.minimum(lr, 0.5)) * dens

@@ -59,7 +59,8 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
     body = expected_excess(_log_rr_m(curve, coef, m, scenario), family, params,
                            growth=_growth(curve, coef, scenario),
                            kinks=_kinks(curve, coef, m, scenario),
-                           flat_from=_flat_from(curve, scenario))
+                           flat_from=_flat_from(curve, scenario),
+                           zero_below=m if scenario is None else scenario.preimage(m))
     return (1.0 - u) * body
 
 
@@ -235,9 +236,15 @@ def paf_from_excess(excess0: ArrayLike) -> FloatArray:
     return e0 / (1.0 + e0)
 
 
+#: Expected RR below which the quadrature's rounding (about 1e-15) dominates.
+_UNRESOLVED_RR = 1e-12
+
+
 def _refuse_zero_rr(e0: FloatArray) -> None:
-    """An expected RR of 0 in double precision leaves no fraction to form."""
-    if np.any(1.0 + e0 <= 0.0):
+    """An expected RR of 0 in double precision leaves no fraction to form; the
+    quadrature resolves E[RR] to about 1e-15 absolute, so values below
+    :data:`_UNRESOLVED_RR` count as 0."""
+    if np.any(1.0 + e0 <= _UNRESOLVED_RR):
         raise FloatRangeError("the expected RR underflows to 0 in double precision (the curve "
                               "lowers the risk by a factor beyond the float range); check the "
                               "curve's coefficients and units")

@@ -92,7 +92,8 @@ def impact_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
     body = expected_excess(_log_ratio(curve, coef, m, scenario), family, params,
                            growth=_ratio_growth(curve, coef, scenario),
                            kinks=_ratio_kinks(curve, coef, m, scenario),
-                           flat_from=_ratio_flat_from(curve, scenario))
+                           flat_from=_ratio_flat_from(curve, scenario),
+                           zero_below=m if scenario is None else np.minimum(m, scenario.preimage(m)))
     return cast(FloatArray, -(1.0 - u) * body)
 
 

@@ -83,13 +83,14 @@ class SaturatingExponential(_ThresholdShape):
 
     def kinks(self, coef: ArrayLike) -> FloatArray:
         """The threshold and a mesh graded towards it, ``cf (1 + 8^-j)``,
-        j = 1..6: ``z^delta`` is not smooth at the threshold (an infinite
+        j = -1..6 (out to 9 cf, so the panels beyond the finest ones also
+        grow only eightfold from one to the next): ``z^delta`` is not smooth at the threshold (an infinite
         slope for ``delta < 1``, an infinite higher derivative for other
         non-integer ``delta``), and graded panels keep a fixed rule accurate
         there. With no threshold, ``x^delta`` is smooth on the log scale."""
         if self.threshold <= 0:
             return np.array([self.threshold])
-        return self.threshold * (1.0 + np.concatenate([[0.0], 8.0 ** -np.arange(1, 7)]))
+        return self.threshold * (1.0 + np.concatenate([[0.0], 8.0 ** -np.arange(-1, 7)]))
 
     def start(self, x: FloatArray, y: FloatArray) -> FloatArray:
         """alpha twice the largest excess RR, delta 1, gamma so the curve is
