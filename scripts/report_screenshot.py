@@ -78,7 +78,8 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("report", type=Path, help="report.html of a doseattr run")
     parser.add_argument("--out", type=Path, default=None,
-                        help="folder for the screenshots (default: beside the report)")
+                        help="folder for the screenshots (default: the current folder; "
+                             "not the run's folder, which holds only what doseattr wrote)")
     parser.add_argument("--widths", type=int, nargs="+", default=list(WIDTHS))
     args = parser.parse_args(argv)
     browser = find_chromium()
@@ -87,7 +88,7 @@ def main(argv: list[str] | None = None) -> int:
               file=sys.stderr)
         return 2
     report = args.report.resolve()
-    out = (args.out or report.parent).resolve()
+    out = (args.out or Path.cwd()).resolve()
     out.mkdir(parents=True, exist_ok=True)
     overflow = False
     with tempfile.TemporaryDirectory() as tmp:
