@@ -237,3 +237,15 @@ def test_check_says_what_the_limit_will_test(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "limit: 0.5 mg/m3, EN 689 statistical test" in out and "on 6 samples" in out
     assert "3 workers" in out
+
+
+def test_limit_in_its_own_unit_is_converted(tmp_path):
+    rows = [("", f"{x:.8g}") for x in np.exp(np.random.default_rng(4).normal(-1, 0.6, 10))]
+    a = load_analysis(_write(tmp_path / "a", _analysis('value = 500\nunit = "ug/m3"\n'), rows,
+                             worker=False))
+    b = load_analysis(_write(tmp_path / "b", _analysis("value = 0.5\n"), rows, worker=False))
+    # 1 mg/m3 = 1000 ug/m3 (definition of the units)
+    assert a.limit.value == pytest.approx(0.5, rel=1e-12)
+    ra, rb = run_analysis(a), run_analysis(b)
+    assert ra.limit.stats.p95.ucl == pytest.approx(rb.limit.stats.p95.ucl, rel=1e-12)
+    assert any("ug/m3" in n for n in ra.limit.notes)
