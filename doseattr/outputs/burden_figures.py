@@ -19,6 +19,9 @@ from doseattr.outputs.style import COLORS, CYCLE, new_axes, outside_legend, styl
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
 
+#: At most this many strata get their own bar or row in a burden figure;
+#: the rest are summed into one bar (the full table is burden.csv).
+MAX_STRATA = 40
 #: Mark after the name of a stratum whose fractions use its own exposure.
 OWN_MARK = "\u2020"
 #: Legend note explaining :data:`OWN_MARK`.

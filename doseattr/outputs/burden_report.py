@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING
 
-from doseattr.outputs.burden_figures import per_text
+from doseattr.outputs.burden_figures import MAX_STRATA, per_text
 from doseattr.outputs.markup import (
     NA,
     estimate_text,
@@ -203,7 +203,8 @@ def burden_section(burden: BurdenResult | None, unit: str | None,
     parts.append(figure(images, "burden",
                         "Attributable cases by stratum (left) and, in total, all cases "
                         "attributable to exposure above the minimum-risk level and the cases "
-                        "each scenario averts (right); whiskers are 95% intervals."))
+                        "each scenario averts (right); whiskers are 95% intervals."
+                        + _capped_caption(blocks)))
     parts.append(figure(images, "burden_rates", _rates_caption(blocks)))
     parts.append(para("Totals are sums over the strata draw by draw, so their intervals are "
                       "consistent with the strata; the total PAF is the total attributable over "
@@ -213,13 +214,29 @@ def burden_section(burden: BurdenResult | None, unit: str | None,
     return "".join(p for p in parts if p)
 
 
+def _capped_caption(blocks: Sequence[BurdenBlock]) -> str:
+    """The note on the strata bars when some outcome has more than
+    :data:`MAX_STRATA` rows."""
+    if not any(len(b.strata) > MAX_STRATA for _, b in blocks):
+        return ""
+    return (f" With more than {MAX_STRATA} strata, the {MAX_STRATA} with the most "
+            "attributable cases are drawn, largest first, and the rest are summed into one "
+            "bar (its cases are the sum of their estimates; it has no interval). The full "
+            "table, every stratum with its interval, is burden.csv.")
+
+
 def _rates_caption(blocks: Sequence[BurdenBlock]) -> str:
     pers = list(dict.fromkeys(per_text(b.rate_per) for _, b in blocks
                               if b.has_groups and b.has_rates))
     per = " or ".join(pers) or per_text(100_000.0)
+    capped = any(len(dict.fromkeys(s.stratum for s in b.strata)) > MAX_STRATA
+                 for _, b in blocks if b.has_groups and b.has_rates)
+    more = (f" With more than {MAX_STRATA} strata, only the {MAX_STRATA} with the most "
+            "attributable cases are drawn (rates do not add, so the rest are not summed); "
+            "every stratum is in burden.csv." if capped else "")
     return (f"Attributable cases per {per} people by group (colour and marker) in each "
             "stratum (row), one panel per outcome with groups and rates; whiskers are 95% "
-            "intervals.")
+            "intervals." + more)
 
 
 def method_text(blocks: Sequence[BurdenBlock]) -> str:

@@ -280,8 +280,8 @@ def burden_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[Bur
     """
     out = []
     for outcome, burden in blocks:
-        strata = _bars([(s.stratum, s.attributable) for s in burden.strata],
-                       own=tuple(_own_exposure(s) for s in burden.strata))
+        strata = capped_bars(_bars([(s.stratum, s.attributable) for s in burden.strata],
+                                   own=tuple(_own_exposure(s) for s in burden.strata)))
         total = burden.total
         scen = None
         if total.scenarios:
@@ -293,6 +293,37 @@ def burden_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[Bur
 
 def _own_exposure(stratum: StratumResult) -> bool:
     return stratum.exposure is not None and stratum.exposure.own
+
+
+#: At most this many strata get their own bar or row in a burden figure.
+MAX_STRATA = bf.MAX_STRATA
+
+
+def capped_bars(bars: Bars, cap: int = MAX_STRATA) -> Bars:
+    """``bars`` unchanged when it has at most ``cap`` bars; otherwise the
+    ``cap`` largest estimates (largest first) and one bar ``"other N
+    strata"`` holding the sum of the rest's estimates, without an interval
+    (the sum of limits is not a limit of the sum), so the figure's height
+    stays bounded whatever the number of strata."""
+    n = len(bars.names)
+    if n <= cap:
+        return bars
+    keep, rest = _largest(bars.estimate, cap)
+    own = bars.own or (False,) * n
+    other = float(np.sum(np.asarray(bars.estimate, float)[rest]))
+    return Bars(tuple(bars.names[i] for i in keep) + (f"other {rest.size:,} strata",),
+                tuple(bars.estimate[i] for i in keep) + (other,),
+                tuple(bars.lower[i] for i in keep) + (None,),
+                tuple(bars.upper[i] for i in keep) + (None,),
+                tuple(own[i] for i in keep) + (False,))
+
+
+def _largest(estimate: Sequence[float], cap: int) -> tuple[list[int], NDArray[np.intp]]:
+    """Indices of the ``cap`` largest estimates (largest first, ties in
+    table order; NaN counts as smallest) and of the rest, in table order."""
+    est = np.asarray(estimate, float)
+    order = np.argsort(-np.nan_to_num(est, nan=-np.inf), kind="stable")
+    return [int(i) for i in order[:cap]], np.sort(order[cap:])
 
 
 def _bars(items: Sequence[tuple[str, Estimate]], own: tuple[bool, ...] = ()) -> Bars:
@@ -339,6 +370,8 @@ class RatePanel:
     estimate: tuple[tuple[float | None, ...], ...]
     lower: tuple[tuple[float | None, ...], ...]
     upper: tuple[tuple[float | None, ...], ...]
+    #: Strata left out (beyond the :data:`MAX_STRATA` with most cases).
+    hidden: int = 0
 
 
 def rate_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[RatePanel]:
@@ -350,11 +383,25 @@ def rate_panels(blocks: Sequence[tuple[str | None, BurdenResult]]) -> list[RateP
             continue
         rows = [s for s in burden.strata if s.group is not None]
         strata = tuple(dict.fromkeys(s.stratum for s in rows))
+        strata, hidden = _largest_strata(burden, strata)
         groups = tuple(dict.fromkeys(str(s.group) for s in rows))
         cell = {(s.stratum, str(s.group)): s.attributable_rate for s in rows}
-        grid = [_grid(cell, strata, groups, part) for part in ("estimate", "lower", "upper")]
-        out.append(RatePanel(outcome, float(burden.rate_per), strata, groups, *grid))
+        est, lo, hi = (_grid(cell, strata, groups, part) for part in ("estimate", "lower", "upper"))
+        out.append(RatePanel(outcome, float(burden.rate_per), strata, groups, est, lo, hi,
+                             hidden))
     return out
+
+
+def _largest_strata(burden: BurdenResult, strata: tuple[str, ...],
+                    cap: int = MAX_STRATA) -> tuple[tuple[str, ...], int]:
+    """The ``cap`` strata with the most attributable cases (summed over
+    their groups; largest first) and how many are left out, when there are
+    more than ``cap`` (rates do not add, so the rest are not summed)."""
+    if len(strata) <= cap:
+        return strata, 0
+    cases = {s.stratum: s.attributable.estimate for s in burden.stratum_totals}
+    keep, _ = _largest([cases.get(s, np.nan) for s in strata], cap)
+    return tuple(strata[i] for i in keep), len(strata) - cap
 
 
 def _grid(cell: dict[tuple[str, str], Estimate | None], strata: tuple[str, ...],
@@ -383,15 +430,19 @@ def _burden_rates(blocks: Sequence[tuple[str | None, BurdenResult]]) -> Figure |
                                     figsize=(6.8, sum(heights)), height_ratios=heights)
     for ax, p in zip(axes[:, 0], panels):
         prefix = f"{p.outcome}: " if p.outcome else ""
+        more = (f"\n({MAX_STRATA} strata with most cases; {p.hidden:,} more in burden.csv)"
+                if p.hidden else "")
         bf.plot_group_rates(p.strata, p.groups, p.estimate, ax, lower=p.lower, upper=p.upper,
                             xlabel=f"Attributable per {bf.per_text(p.rate_per)} people",
-                            title=f"{prefix}attributable rate by group and stratum")
+                            title=f"{prefix}attributable rate by group and stratum{more}")
     return figure
 
 
 __all__ = [
     "FIGURE_NAMES",
+    "MAX_STRATA",
     "burden_panels",
+    "capped_bars",
     "model_panels",
     "other_models",
     "outcome_panels",

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from doseattr.core.attribution.categorical import CategoricalComparison
+from doseattr.core.attribution.contribution import Contribution, summarise
 from doseattr.core.curves.base import Curve
 from doseattr.results.estimate import Estimate
 from doseattr.results.numbers import json_safe, matrix, num, nums, params
@@ -67,9 +68,7 @@ def results_dict(r: Results) -> dict[str, Any]:
         "curve": curve_dict(r.curve_section),
         "exposure": exposure_dict(r.exposure_section),
         "categorical": categorical_dict(r.categorical),
-        "contribution": {"x": nums(a.contribution.x), "density": nums(a.contribution.density),
-                         "cumulative": nums(a.contribution.cumulative),
-                         "median": num(a.contribution.median)},
+        "contribution": contribution_dict(a.contribution),
         "bands": bands_list(r.curve_section.bands),
         "uncertainty": uncertainty_dict(r.uncertainty),
         "burden": burden_dict(r.burden, r.grand_total),
@@ -86,6 +85,17 @@ def results_dict(r: Results) -> dict[str, Any]:
         "provenance": r.provenance,
     }
     return json_safe(d)  # type: ignore[no-any-return]
+
+
+def contribution_dict(c: Contribution) -> dict[str, Any]:
+    """The burden along the exposure axis at most
+    :data:`~doseattr.core.attribution.contribution.SUMMARY_POINTS` points
+    (:func:`~doseattr.core.attribution.contribution.summarise`): ``points``
+    is how many the full curve has, ``summarised`` whether it was thinned
+    (then ``density`` is the share carried between consecutive points)."""
+    s = summarise(c)
+    return {"x": nums(s.x), "density": nums(s.density), "cumulative": nums(s.cumulative),
+            "median": num(s.median), "points": int(c.x.size), "summarised": s is not c}
 
 
 def estimate_dict(e: Estimate) -> dict[str, float | None]:

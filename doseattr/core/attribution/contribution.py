@@ -97,3 +97,31 @@ def _empirical(curve: Curve, exposure: EmpiricalExposure, m: float) -> Contribut
     total = float(contrib.sum())
     share = np.cumsum(contrib) / total if total > 0 else np.zeros_like(x)
     return Contribution(x, contrib / e_total, share, _median(x, share, total), total / e_total)
+
+
+#: Most points a summary of the contribution keeps (see :func:`summarise`).
+SUMMARY_POINTS = 201
+
+
+def summarise(c: Contribution, points: int = SUMMARY_POINTS) -> Contribution:
+    r"""At most ``points`` points of ``c``, so its size does not grow with
+    the data: ``c`` itself when it is that small (the parametric path's
+    fixed grid), else the points at ranks :math:`k(n-1)/(p-1)`,
+    :math:`k = 0..p-1`, rounded (a fixed grid of sample quantiles of the
+    sorted values, first and last included), each moved to the last rank
+    holding the same value, so that ``cumulative`` is the share at or
+    below that value whatever the order within ties.
+
+    ``x``, ``cumulative``, ``median`` and ``paf`` are ``c``'s own values at
+    those points (exact). ``density`` becomes the share carried by the
+    values in :math:`(x_{k-1}, x_k]` (the first point carries all up to
+    it), :math:`\sum_{i \in (r_{k-1}, r_k]} c_i`, so the summary's
+    densities add up to ``c``'s.
+    """
+    n = c.x.size
+    if n <= points:
+        return c
+    grid = np.rint(np.linspace(0.0, n - 1.0, points)).astype(np.intp)
+    idx = np.unique(np.searchsorted(c.x, c.x[grid], side="right") - 1)
+    mass = np.diff(np.concatenate([[0.0], np.cumsum(c.density)[idx]]))
+    return Contribution(c.x[idx], mass, c.cumulative[idx], c.median, c.paf)
