@@ -2,9 +2,9 @@
 
 ::
 
-    doseattr run ANALYSIS.toml --out DIR [--quiet]
+    doseattr run ANALYSIS.toml --out DIR [--quiet] [--profile]
     doseattr check ANALYSIS.toml
-    doseattr demo --out DIR [--quiet]
+    doseattr demo --out DIR [--quiet] [--profile]
     doseattr init KIND DIR
 
 Every error this package raises on purpose is caught in :func:`main`, and
@@ -15,7 +15,9 @@ computed (it must be new, empty or hold a previous doseattr run; see
 at the end, so a failed or interrupted run leaves ``DIR`` as it was.
 SIGINT and SIGTERM print one line and return 130 and 143 (128 + signal
 number, the shell convention); any other exception is a bug and prints one
-``internal error`` line, status 1.
+``internal error`` line, status 1. ``--profile`` prints wall and CPU seconds
+per stage (:class:`StageClock`) on standard error after a run; it changes no
+output but the command line recorded in ``provenance.command``.
 """
 
 from __future__ import annotations
@@ -24,9 +26,11 @@ import argparse
 import signal
 import sys
 import threading
+import time
 import warnings
 from collections.abc import Iterator, Sequence
 from contextlib import ExitStack, contextmanager, nullcontext
+from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
 
@@ -44,6 +48,14 @@ DEMO_SUFFIXES = (".toml", ".csv", ".md")
 TEMPLATE_KINDS = ("concentration", "workplace", "districts", "grid")
 STOP_SIGNALS = ("SIGINT", "SIGTERM")
 _PYTHON_SHOWWARNING = warnings.showwarning
+PROFILE_READING = "reading and checks"
+PROFILE_FITTING = "fitting and other computing"
+PROFILE_DRAWS = "Monte Carlo draws"
+PROFILE_FIGURES = "figures"
+PROFILE_FILES = "report and files"
+#: The names the progress callbacks use, as the stages ``--profile`` shows.
+PROFILE_STAGES = {"fitting": PROFILE_FITTING, "": PROFILE_FITTING,
+                  "figures": PROFILE_FIGURES, "report": PROFILE_FILES}
 
 
 class Stopped(BaseException):
@@ -53,6 +65,47 @@ class Stopped(BaseException):
     def __init__(self, signum: int) -> None:
         self.signum = signum
         super().__init__(signal.Signals(signum).name)
+
+
+@dataclass
+class StageClock:
+    """Wall and CPU seconds per stage for ``--profile``, in the order the
+    stages were first entered. The time since the last :meth:`enter` goes to
+    the stage then open; a stage entered twice adds up. CPU seconds are the
+    process's (``time.process_time``, every thread: they may exceed the wall
+    seconds when the numerics run in parallel)."""
+
+    wall: dict[str, float] = field(default_factory=dict)
+    cpu: dict[str, float] = field(default_factory=dict)
+    _open: str | None = None
+    _since: tuple[float, float] = (0.0, 0.0)
+
+    def enter(self, stage: str) -> None:
+        """Close the open stage (if any) and open ``stage``."""
+        now = (time.perf_counter(), time.process_time())
+        if self._open is not None:
+            self.wall[self._open] = self.wall.get(self._open, 0.0) + now[0] - self._since[0]
+            self.cpu[self._open] = self.cpu.get(self._open, 0.0) + now[1] - self._since[1]
+        self._open, self._since = stage, now
+
+    def callback(self, name: str) -> None:
+        """:meth:`enter` for a progress callback's stage name (a progress
+        bar's label, such as ``draws``, counts as Monte Carlo draws)."""
+        self.enter(PROFILE_STAGES.get(name, PROFILE_DRAWS))
+
+    def stop(self) -> None:
+        """Close the open stage."""
+        self.enter("")
+        self._open = None
+
+    def lines(self) -> list[str]:
+        """``doseattr: profile: STAGE  WALL s wall  CPU s CPU`` per stage,
+        then the total."""
+        width = max([len(s) for s in self.wall] + [len("total")])
+        rows = [(s, self.wall[s], self.cpu[s]) for s in self.wall]
+        rows.append(("total", sum(self.wall.values()), sum(self.cpu.values())))
+        return [f"doseattr: profile: {s:<{width}}  {w:8.3f} s wall  {c:8.3f} s CPU"
+                for s, w, c in rows]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -96,6 +149,8 @@ def _common(p: argparse.ArgumentParser) -> None:
                    help="output folder: new, empty, or holding a previous doseattr run "
                         "(replaced as a whole); nothing is written on error")
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
+    p.add_argument("--profile", action="store_true",
+                   help="print wall and CPU seconds per stage on standard error at the end")
 
 
 def _scheduler(p: argparse.ArgumentParser) -> None:
@@ -119,7 +174,8 @@ def main(argv: Sequence[str] | None = None) -> int:
                     else str(stack.enter_context(_demo_file())))
             inputs = _demo_inputs(Path(path)) if args.command == "demo" else ()
             return _run(path, args.out, quiet=args.quiet, command=["doseattr", *argv],
-                        scheduler=getattr(args, "scheduler", None), inputs=inputs)
+                        scheduler=getattr(args, "scheduler", None), inputs=inputs,
+                        profile=args.profile)
     except DoseattrError as exc:
         print(f"doseattr: error: {_line(exc)}", file=sys.stderr)
         return EXIT_ERROR
@@ -144,38 +200,49 @@ def _load(path: str, scheduler: str | None):
 
 
 def _run(path: str, out: str, *, quiet: bool, command: list[str],
-         scheduler: str | None = None, inputs: Sequence[tuple[str, Path]] = ()) -> int:
+         scheduler: str | None = None, inputs: Sequence[tuple[str, Path]] = (),
+         profile: bool = False) -> int:
+    clock = StageClock()
+    clock.enter("start-up (imports)")
     from doseattr.analysis.pipeline import run_analysis
-    from doseattr.analysis.progress import show_stage
+    from doseattr.analysis.progress import show_stage, stage_listener
     from doseattr.analysis.provenance import protected_paths, provenance
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
+    def stage(name: str) -> None:
+        show_stage(name, not quiet)
+        clock.callback(name)
+
+    clock.enter(PROFILE_READING)
     analysis = _load(path, scheduler)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance(analysis)
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings(record=True) as caught, stage_listener(clock.callback):
         # our own lines rather than Python's: as they arise, and again at the
         # end with --quiet (they may change a decision)
         warnings.simplefilter("always", DoseattrWarning)
         if not quiet:
             warnings.showwarning = _show_now
-        show_stage("fitting", not quiet)
+        stage("fitting")
         results = run_analysis(analysis, progress=not quiet)
+    clock.enter(PROFILE_FILES)
     _same_inputs(read, results.provenance, path)  # as the run finished
     _same_inputs(read, provenance(analysis), path)  # and now, before writing
     try:
-        written = write_outputs(results, out, command=command, inputs=inputs,
-                                stage=lambda name: show_stage(name, not quiet))
+        written = write_outputs(results, out, command=command, inputs=inputs, stage=stage)
     except OSError as exc:
         raise InputError(f"cannot write the outputs: {exc.strerror or exc}",
                          location=out_location(out)) from None
     finally:
         show_stage("", not quiet)
+    clock.stop()
     for w in caught:
         _show_now(w.message, w.category, w.filename, w.lineno)
     if not quiet:
         print(results.summary(brief=True))
         print(f"\nwrote {len(written)} files to {out} (open {Path(out) / 'report.html'})")
+    if profile:
+        print("\n".join(clock.lines()), file=sys.stderr)
     return EXIT_OK
 
 

@@ -5,7 +5,8 @@ The core reports work in units of ``draws x exposures x (1 + scenarios)``
 (one unit per fraction drawn); :func:`progress_bar` rescales them so that
 the bar counts draws, the number the analysis file asked for. Both are
 shown only on a terminal (tqdm's ``disable=None``) and the bar only after a
-second (``delay``), on standard error.
+second (``delay``), on standard error. :func:`stage_listener` lets a caller
+(``doseattr run --profile``) hear each bar begin and end, shown or not.
 """
 
 from __future__ import annotations
@@ -15,6 +16,23 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 
 STAGES = ("fitting", "draws", "figures", "report")
+_LISTENERS: list[Callable[[str], None]] = []
+
+
+@contextmanager
+def stage_listener(callback: Callable[[str], None]) -> Iterator[None]:
+    """Call ``callback(stage)`` as each progress bar begins and
+    ``callback("")`` as it ends, for the block's duration."""
+    _LISTENERS.append(callback)
+    try:
+        yield
+    finally:
+        _LISTENERS.remove(callback)
+
+
+def _notify(stage: str) -> None:
+    for callback in list(_LISTENERS):
+        callback(stage)
 
 
 @contextmanager
@@ -23,6 +41,17 @@ def progress_bar(units: int, enabled: bool, *, draws: int | None = None,
     """A tqdm bar of ``draws`` steps (default ``units``) labelled ``stage``;
     yields the callback the core calls with units of work done (or ``None``
     when disabled)."""
+    _notify(stage)
+    try:
+        with _bar(units, enabled, draws, stage) as tick:
+            yield tick
+    finally:
+        _notify("")
+
+
+@contextmanager
+def _bar(units: int, enabled: bool, draws: int | None,
+         stage: str) -> Iterator[Callable[[int], None] | None]:
     if not enabled:
         yield None
         return

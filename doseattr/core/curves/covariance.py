@@ -16,9 +16,7 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.optimize import brentq
 from scipy.special import expit
-from scipy.stats import norm
 
 from doseattr.core.curves.base import FloatArray
 from doseattr.errors import ModelError
@@ -72,6 +70,8 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
     (common practice; the interval is assumed symmetric on the log scale).
     Raises :class:`ModelError` unless ``0 < lo < hi`` and ``lo <= rr <= hi``.
     """
+    from scipy.stats import norm
+
     rr, lo, hi = (np.asarray(v, dtype=float) for v in (rr, lo, hi))
     ok = np.isfinite(lo) & np.isfinite(hi) & (lo > 0) & (lo < hi) & (lo <= rr) & (rr <= hi)
     if not np.all(ok):
@@ -176,6 +176,8 @@ def _case_control_counts(rr: FloatArray, cases: FloatArray, controls: FloatArray
     :math:`u \ge \log(M_1 / \sum N_i RR_i)`; :math:`1 - \operatorname{expit}(s) < e^{-s}`
     gives :math:`u \le \log(\sum (N_i/RR_i) / M_0)`.
     """
+    from scipy.optimize import brentq
+
     n = cases + controls
     m1, m0 = cases.sum(), controls.sum()
     if m1 <= 0 or m0 <= 0 or n[ref] <= 0:

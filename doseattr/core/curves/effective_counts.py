@@ -19,7 +19,6 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.optimize import brentq
 from scipy.special import expit
 
 from doseattr.core.curves.base import FloatArray
@@ -263,6 +262,8 @@ def _incidence_rate(rr: FloatArray, v: FloatArray, share: float,
 
 def _root(f: Callable[[float], float], what: str,
           bracket: tuple[float, float] | FloatArray = (-BRACKET, BRACKET)) -> float:
+    from scipy.optimize import brentq
+
     lo, hi = (float(b) for b in bracket)
     f_lo, f_hi = f(lo), f(hi)
     if not (np.isfinite(f_lo) and np.isfinite(f_hi)) or f_lo * f_hi > 0:

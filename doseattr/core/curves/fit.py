@@ -11,9 +11,6 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.linalg import cholesky, solve_triangular
-from scipy.optimize import least_squares
-from scipy.stats import chi2
 
 from doseattr.core.curves.base import Curve, CurveFit, CurveModel, FloatArray
 from doseattr.core.curves.covariance import LogRRCovariance
@@ -80,6 +77,8 @@ def _validate(model: CurveModel, doses: ArrayLike, log_rr: ArrayLike,
 
 
 def _cholesky(v: FloatArray) -> FloatArray:
+    from scipy.linalg import cholesky
+
     try:
         return cast(FloatArray, cholesky(v, lower=True))
     except np.linalg.LinAlgError:
@@ -88,6 +87,8 @@ def _cholesky(v: FloatArray) -> FloatArray:
 
 def _whiten(chol: FloatArray, a: FloatArray) -> FloatArray:
     """``L^{-1} a`` for ``V = L L'``."""
+    from scipy.linalg import solve_triangular
+
     return cast(FloatArray, solve_triangular(chol, a, lower=True))
 
 
@@ -100,6 +101,8 @@ def _fit_linear(model: CurveModel, x: FloatArray, y: FloatArray,
 
 def _fit_nonlinear(model: CurveModel, x: FloatArray, y: FloatArray,
                    chol: FloatArray) -> tuple[FloatArray, FloatArray]:
+    from scipy.optimize import least_squares
+
     yw = _whiten(chol, y)
 
     def residual(b: FloatArray) -> FloatArray:
@@ -156,6 +159,8 @@ def check_curve(model: CurveModel, coef: FloatArray, doses: FloatArray) -> None:
 
 def _diagnostics(model: CurveModel, x: FloatArray, y: FloatArray, v: FloatArray,
                  fitted: FloatArray, chol: FloatArray, method: str) -> CurveFit:
+    from scipy.stats import chi2
+
     rw = _whiten(chol, y - fitted)
     q = float(rw @ rw)
     df = x.size - len(model.param_names)

@@ -31,7 +31,6 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.stats import chi2
 
 from doseattr.core.curves.base import FloatArray
 from doseattr.core.curves.pooling_reml import (
@@ -140,6 +139,8 @@ def pool(coefficients: Sequence[ArrayLike], covariances: Sequence[ArrayLike], *,
     names
         Study labels for messages and notes (default ``"study 1"``, ...).
     """
+    from scipy.stats import chi2
+
     labels = _labels(names, len(coefficients))
     b, s = _validate(coefficients, covariances, labels)
     _check_choice(method, tau_method)
@@ -174,6 +175,8 @@ def nonlinearity_test(pooled: Pooled, indices: Sequence[int]) -> tuple[float, in
     pooled curve (Wald test; common practice). Returns ``(W, df, p)`` like
     :func:`doseattr.core.curves.spline.nonlinearity_test`.
     """
+    from scipy.stats import chi2
+
     idx = np.asarray(indices, dtype=int).ravel()
     p = pooled.coefficients.size
     if idx.size == 0 or np.unique(idx).size != idx.size or np.any((idx < 0) | (idx >= p)):
@@ -286,6 +289,8 @@ def _reml_note(converged: bool, message: str = "") -> list[str]:
 
 
 def _general_notes(k: int, p: int, q: float, df: int, method: str) -> list[str]:
+    from scipy.stats import chi2
+
     notes = []
     if method == "random-effects" and p > 1 and k < p + 2:
         notes.append(f"only {k} studies for {p * (p + 1) // 2} between-study (co)variances: "

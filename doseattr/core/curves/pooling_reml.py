@@ -27,7 +27,6 @@ from dataclasses import dataclass
 from typing import cast
 
 import numpy as np
-from scipy.optimize import minimize
 
 from doseattr.core.curves.base import FloatArray
 
@@ -112,6 +111,8 @@ def _to_theta(t: FloatArray) -> FloatArray:
 
 
 def _optimise(b: FloatArray, s: FloatArray, start: FloatArray) -> tuple[FloatArray, float, bool, str]:
+    from scipy.optimize import minimize
+
     p = b.shape[1]
     rows, cols = np.tril_indices(p)
     on_diag = rows == cols

@@ -8,7 +8,6 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.stats import norm
 
 from doseattr.core.curves.base import Curve, CurveModel, FloatArray
 from doseattr.core.curves.covariance import var_log_rr_from_ci
@@ -69,6 +68,8 @@ class ShiftedLogCurve(Curve):
                     level: float = 0.95) -> tuple[FloatArray, FloatArray, FloatArray]:
         """RR(x) with the pointwise interval at the slope's quantiles (the RR
         is monotone in the slope), so the published limits come back."""
+        from scipy.stats import norm
+
         z = norm.ppf(0.5 + level / 2)
         ends = self.from_normal([-z, z])
         at = [self.rr(x, coef=e) for e in ends]
@@ -80,6 +81,8 @@ def symmetrizing_scale(value: float, lo: float, hi: float,
     """``(side, a u / d, sigma)`` of :class:`ShiftedLogCurve` for an estimate
     and its CI, or ``None`` when the CI is symmetric (within
     :data:`SYMMETRIC_TOL` of its width)."""
+    from scipy.stats import norm
+
     below, above = value - lo, hi - value
     if abs(above - below) <= SYMMETRIC_TOL * (hi - lo) or min(below, above) <= 0:
         return None
@@ -211,6 +214,8 @@ def _linear(rr: float | None, err: float | None, ci: tuple[float, float] | None,
 def _on_scale(what: str, value: float | None, ci: tuple[float, float] | None,
               level: float) -> tuple[float, float]:
     r"""Estimate and variance :math:`((hi - lo)/(2 z))^2` from a symmetric CI."""
+    from scipy.stats import norm
+
     if value is None or not np.isfinite(value):
         raise ModelError(f"a finite {what} is required, got {value}")
     if ci is None:

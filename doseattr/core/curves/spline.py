@@ -6,7 +6,6 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy.stats import chi2
 
 from doseattr.core.curves.base import Curve, CurveModel, FloatArray, Growth
 from doseattr.errors import ModelError
@@ -136,6 +135,8 @@ def nonlinearity_test(curve: Curve) -> tuple[float, int, float]:
     (Wald test of linearity; Harrell 2015, section 2.4.5). Returns
     ``(W, df, p)``.
     """
+    from scipy.stats import chi2
+
     model = curve.model
     if not isinstance(model, RestrictedCubicSpline):
         raise ModelError(f"the non-linearity test needs a spline curve, not {model.name}")

@@ -19,7 +19,6 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
 from scipy.special import gammainc, gammaincc, gammaincinv, gammaln, polygamma
 
 from doseattr.core.curves.base import Growth
@@ -119,6 +118,8 @@ class Gamma(PositiveFamily):
         return k * theta * gamma_between(k + 1, lo, hi)
 
     def scipy(self, params: ArrayLike) -> Any:
+        from scipy import stats
+
         k, theta = np.asarray(params, dtype=float)
         return stats.gamma(a=k, scale=theta)
 

@@ -22,7 +22,6 @@ from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import stats
 
 from doseattr.core.exposure.base import Exposure, FloatArray
 from doseattr.core.exposure.nondetects import ros_plotting_positions
@@ -49,6 +48,8 @@ def goodness_of_fit(exposure: Exposure) -> dict[str, Any]:
     Returns a dict with ``test``, ``statistic``, ``p_value``, ``n`` and
     ``note`` (``test`` is ``None`` when no test applies, with the reason).
     """
+    from scipy import stats
+
     x, d, w = _measured(exposure)
     if w is not None and not np.allclose(w, w[0]):
         return probability_plot_correlation(exposure, "weighted data (positions unweighted)")

@@ -21,7 +21,6 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
 from scipy.special import log_ndtr, ndtr, ndtri
 
 from doseattr.core.curves.base import Growth
@@ -134,6 +133,8 @@ class LogNormal(Family):
         return cast(FloatArray, np.exp(mu + 0.5 * s * s) * ndtr_between(za, zb))
 
     def scipy(self, params: ArrayLike) -> Any:
+        from scipy import stats
+
         gm, gsd = np.asarray(params, dtype=float)
         return stats.lognorm(s=np.log(gsd), scale=gm)
 

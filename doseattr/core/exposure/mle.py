@@ -14,8 +14,6 @@ from dataclasses import dataclass
 from typing import cast
 
 import numpy as np
-from scipy.optimize import minimize
-from statsmodels.tools.numdiff import approx_fprime, approx_hess3
 
 from doseattr.core.exposure.base import FloatArray
 from doseattr.errors import FitError
@@ -42,6 +40,8 @@ def _negative(loglik: LogLik) -> LogLik:
 
 
 def _stationary(neg: LogLik, theta: FloatArray) -> bool:
+    from statsmodels.tools.numdiff import approx_fprime
+
     value = neg(theta)
     if not np.isfinite(value):
         return False
@@ -58,6 +58,8 @@ def _search(neg: LogLik, theta0: FloatArray) -> FloatArray:
 
 
 def _bfgs_then_simplex(neg: LogLik, theta0: FloatArray) -> FloatArray:
+    from scipy.optimize import minimize
+
     res = minimize(neg, theta0, method="BFGS", options={"gtol": 1e-9})
     if _stationary(neg, res.x):
         return cast(FloatArray, res.x)
@@ -76,6 +78,8 @@ NOT_POSITIVE = ("the observed information is not positive definite: the fit has 
 def information(loglik: LogLik, theta: FloatArray) -> FloatArray | None:
     """Observed information (minus the Hessian of ``loglik``) at ``theta``,
     symmetrised; ``None`` when it is not finite and positive definite."""
+    from statsmodels.tools.numdiff import approx_hess3
+
     info = approx_hess3(np.asarray(theta, dtype=float), _negative(loglik))
     info = 0.5 * (info + info.T)
     if np.all(np.isfinite(info)) and np.all(np.linalg.eigvalsh(info) > 0):

@@ -18,7 +18,6 @@ from collections.abc import Mapping
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.optimize import least_squares
 from scipy.special import ndtri
 
 from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray, check_usable
@@ -83,6 +82,8 @@ def from_percentiles(family: str | Family, percentiles: Mapping[float, float]) -
     """The member through the given percentiles, ``{pct: value}`` with
     ``0 < pct < 100`` (module docstring). ModelError when two percentiles
     cannot be matched exactly."""
+    from scipy.optimize import least_squares
+
     fam = get_family(family)
     p, x = _percentile_table(percentiles)
     z = ndtri(p[[0, -1]])

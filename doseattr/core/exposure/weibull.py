@@ -20,8 +20,6 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
-from scipy.optimize import brentq
 from scipy.special import gammaln
 
 from doseattr.core.curves.base import Growth
@@ -108,12 +106,16 @@ class Weibull(PositiveFamily):
         return cast(FloatArray, full * gamma_between(1 + 1 / k, ea, eb))
 
     def scipy(self, params: ArrayLike) -> Any:
+        from scipy import stats
+
         k, lam = np.asarray(params, dtype=float)
         return stats.weibull_min(c=k, scale=lam)
 
     def from_moments(self, mean: float, sd: float) -> FloatArray:
         r"""Solve :math:`\ln(1 + CV^2) = \ln\Gamma(1 + 2/k) - 2\ln\Gamma(1 + 1/k)`
         for ``k`` (brentq on ``ln k``), then ``scale = mean / Gamma(1 + 1/k)``."""
+        from scipy.optimize import brentq
+
         target = log1p_square(sd / mean)
 
         def gap(logk: float) -> float:
