@@ -11,6 +11,7 @@ from collections.abc import Sequence
 
 from doseattr.outputs.burden_report import cases
 from doseattr.outputs.markup import definition_list, estimate_text, num, para, table, warning_box
+from doseattr.results.numbers import share_or_dash as _share
 from doseattr.results.numbers import share_text
 from doseattr.results.records import LimitSection, ScenarioResult
 
@@ -90,14 +91,6 @@ def statistics_table(lim: LimitSection, unit: str | None) -> str:
             f"The exceedance fraction's upper limit at {conf} is at or below the tolerated "
             f"{share_text(s.exceedance_tolerated)}.")
     return table(header, rows) + para(over) + "".join(para(n) for n in notes)
-
-
-def _share(v: float | None) -> str:
-    if v is None:
-        return "-"
-    if 0 < v < 0.001:
-        return "<0.1%"
-    return share_text(v)
 
 
 def _pair(lo, hi, fmt) -> str:

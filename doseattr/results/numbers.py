@@ -88,6 +88,11 @@ def share_text(v: float) -> str:
     return percent(v, digits=2, floor=0.1, zeros=False)
 
 
+def share_or_dash(v: float | None) -> str:
+    """:func:`share_text`, or ``"-"`` for ``None`` (a bound not found)."""
+    return "-" if v is None else share_text(v)
+
+
 def sig(v: float | None) -> str:
     """Four significant digits, or ``"-"`` for ``None``."""
     return "-" if v is None else f"{v:.4g}"

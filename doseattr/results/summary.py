@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from doseattr.results.estimate import Estimate
+from doseattr.results.numbers import share_or_dash as _share
 from doseattr.results.numbers import share_text
 from doseattr.results.records import CASE_WEIGHTED_PAF, POPULATION_PAF, StratumExposure
 
@@ -66,10 +67,6 @@ def _limit(r: Results) -> list[str]:
                      f"{_share(lim.worker_exceedance.estimate)}; {len(lim.workers_above)} of "
                      f"{w.n_workers} workers above it")
     return lines + [""]
-
-
-def _share(v: float | None) -> str:
-    return "-" if v is None else ("<0.1%" if 0 < v < 0.001 else share_text(v))
 
 
 def _num(v: float | None) -> str:
