@@ -54,15 +54,23 @@ def _ranks_within(groups: np.ndarray, keys: FloatArray) -> FloatArray:
 
 
 def _exceedance(x: FloatArray, d: np.ndarray, limits: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """P_e per limit (with the trailing 0), and the counts A and C."""
+    """P_e per limit (with the trailing 0), and the counts A and C.
+
+    The counts come from the sorted detects and sorted non-detects by
+    binary search (``np.searchsorted``), so the cost is
+    :math:`O(n \log n)` whatever the number of limits; the recursion for
+    :math:`P_e` is one step per limit."""
+    det, cen = np.sort(x[d]), np.sort(x[~d])
     upper = np.append(limits[1:], np.inf)
-    a = np.array([np.sum(d & (x >= lo) & (x < hi)) for lo, hi in zip(limits, upper)], float)
-    b = np.array([np.sum(~d & (x <= lo)) + np.sum(d & (x < lo)) for lo in limits], float)
-    c = np.array([np.sum(~d & (x == lo)) for lo in limits], float)
-    pe = np.zeros(limits.size + 1)
-    for j in range(limits.size - 1, -1, -1):
-        pe[j] = pe[j + 1] + a[j] / (a[j] + b[j]) * (1 - pe[j + 1])
-    return pe, a, c
+    det_below = np.searchsorted(det, limits, side="left")
+    a = (np.searchsorted(det, upper, side="left") - det_below).astype(float)
+    cen_at_or_below = np.searchsorted(cen, limits, side="right")
+    b = (cen_at_or_below + det_below).astype(float)
+    c = (cen_at_or_below - np.searchsorted(cen, limits, side="left")).astype(float)
+    pe = [0.0] * (limits.size + 1)
+    for j, (aj, bj) in reversed(list(enumerate(zip(a.tolist(), b.tolist())))):
+        pe[j] = pe[j + 1] + aj / (aj + bj) * (1 - pe[j + 1])
+    return np.array(pe), a, c
 
 
 def ros_plotting_positions(values: ArrayLike, detected: ArrayLike) -> FloatArray:
