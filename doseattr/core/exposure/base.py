@@ -67,6 +67,14 @@ def check_usable(fam: Family, params: FloatArray,
         raise ModelError(problem)
 
 
+def pool(values: FloatArray, weights: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """The distinct ``values`` (sorted) and the summed ``weights`` of each:
+    equal values contribute identical likelihood terms, so one term with
+    their total weight stands for them."""
+    uniq, inverse = np.unique(values, return_inverse=True)
+    return uniq, np.bincount(inverse.ravel(), weights=weights, minlength=uniq.size)
+
+
 def pcol(params: ArrayLike, j: int) -> FloatArray:
     """Parameter ``j`` of ``params`` shaped to broadcast against ``x``."""
     return np.asarray(params, dtype=float)[..., j, None]
@@ -188,6 +196,41 @@ class Family(ABC):
         """Weighted maximum-likelihood public parameters in closed form for
         fully observed ``x``, or ``None`` when the family has none."""
         return None
+
+    def uncensored_mle(self, x: FloatArray, w: FloatArray) -> FloatArray | None:
+        """Weighted maximum-likelihood public parameters of fully observed
+        ``x`` found without a general search (closed form, or a
+        one-dimensional root on sufficient statistics), or ``None``; by
+        default :meth:`closed_form_mle`."""
+        return self.closed_form_mle(x, w)
+
+    def information_at_mle(self, x: FloatArray, w: FloatArray,
+                           params: FloatArray) -> FloatArray | None:
+        """Observed information of the internal parameters at the weighted
+        MLE ``params`` of fully observed ``x`` in closed form, or ``None``
+        (then it is differentiated numerically)."""
+        return None
+
+    def log_terms_scores(self, x: FloatArray, params: ArrayLike, *,
+                         censored: bool) -> tuple[FloatArray, FloatArray]:
+        r"""Each value's log-likelihood term, :math:`\ln f(x_i)` (or
+        :math:`\ln F(x_i)` when ``censored``: ``x`` are detection limits),
+        shape ``(n,)``, and its gradient with respect to the internal
+        parameters, shape ``(n, p)``, in one pass over ``x``.
+
+        This default differentiates centrally (step
+        :math:`\epsilon^{1/3} \max(1, |\theta_j|)`); the families override
+        it with the analytic derivatives."""
+        term = self.logcdf if censored else self.logpdf
+        theta = self.to_internal(params)
+        steps = np.finfo(float).eps ** (1 / 3) * np.maximum(1.0, np.abs(theta))
+        cols = []
+        for j, h in enumerate(steps):
+            e = np.zeros_like(theta)
+            e[j] = h
+            up, down = term(x, self.from_internal(theta + e)), term(x, self.from_internal(theta - e))
+            cols.append((up - down) / (2 * h))
+        return term(x, params), np.stack(cols, axis=1)
 
     # -- integration support ---------------------------------------------
     @abstractmethod

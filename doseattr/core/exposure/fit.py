@@ -30,9 +30,18 @@ from numpy.typing import ArrayLike, NDArray
 
 from doseattr.core.exposure.base import Exposure, ExposureFit, Family, FloatArray, check_usable
 from doseattr.core.exposure.gof import goodness_of_fit
-from doseattr.core.exposure.mle import Maximum, covariance, maximise
+from doseattr.core.exposure.likelihood import (
+    observed_information,
+    pool_measurements,
+    value_and_gradient,
+)
+from doseattr.core.exposure.mle import (
+    Maximum,
+    invert_information,
+    search_with_gradient,
+)
 from doseattr.core.exposure.registry import FAMILIES, get_family
-from doseattr.core.exposure.sandwich import check_meaning, kish_effective_n, sandwich, scores
+from doseattr.core.exposure.sandwich import check_meaning, kish_effective_n, sandwich
 from doseattr.errors import ConvergenceError, FitError, ModelError
 
 
@@ -100,26 +109,54 @@ def measurement_terms(family: Family, params: ArrayLike, data: Measurements) -> 
 
 
 def _maximum(family: Family, data: Measurements) -> Maximum:
-    def loglik(theta: FloatArray) -> float:
-        return measurement_loglik(family, family.from_internal(theta), data)
+    """The maximum of :func:`measurement_loglik`: for fully observed data
+    the family's :meth:`~doseattr.core.exposure.base.Family.uncensored_mle`
+    when it has one (with its closed-form information when it has that),
+    otherwise a BFGS search on the exact gradient over the pooled data
+    (:mod:`doseattr.core.exposure.likelihood`); the covariance is the
+    inverse observed information, from the exact gradient unless in closed
+    form."""
+    if data.detected.all():
+        closed = family.uncensored_mle(data.x, data.w)
+        if closed is not None:
+            theta = family.to_internal(closed)
+            info = family.information_at_mle(data.x, data.w, closed)
+            if info is None:
+                pooled = pool_measurements(data.x, data.detected, data.w)
+                info = observed_information(family, theta, pooled)
+            cov, warns = invert_information(info)
+            return Maximum(theta, measurement_loglik(family, closed, data), cov, warns)
+    pooled = pool_measurements(data.x, data.detected, data.w)
 
-    closed = family.closed_form_mle(data.x, data.w) if data.detected.all() else None
-    if closed is not None:
-        theta = family.to_internal(closed)
-        cov, warns = covariance(loglik, theta)
-        return Maximum(theta, loglik(theta), cov, warns)
+    def value_grad(theta: FloatArray) -> tuple[float, FloatArray]:
+        return value_and_gradient(family, theta, pooled)
+
     start = family.to_internal(family.start(data.x, data.w))
-    return maximise(loglik, start, what=f"{family.name} fit")
+    theta = search_with_gradient(value_grad, start, scale=pooled.total, what=f"{family.name} fit")
+    cov, warns = invert_information(observed_information(family, theta, pooled))
+    return Maximum(theta, measurement_loglik(family, family.from_internal(theta), data), cov, warns)
+
+
+def measurement_scores(family: Family, params: ArrayLike, data: Measurements) -> FloatArray:
+    """Each value's gradient of its :func:`measurement_terms` entry with
+    respect to the internal parameters, shape ``(n, p)`` (exact, from
+    :meth:`~doseattr.core.exposure.base.Family.log_terms_scores`)."""
+    d = data.detected
+    out = np.empty((data.x.size, len(family.param_names)))
+    out[d] = family.log_terms_scores(data.x[d], params, censored=False)[1]
+    if not d.all():
+        out[~d] = family.log_terms_scores(data.x[~d], params, censored=True)[1]
+    return out
 
 
 def robust_covariance(family: Family, data: Measurements, best: Maximum) -> Maximum:
     """``best`` with its covariance replaced by the sandwich for importance
-    weights (:func:`~doseattr.core.exposure.sandwich.sandwich`), scores by
-    central differences of :func:`measurement_terms`."""
+    weights (:func:`~doseattr.core.exposure.sandwich.sandwich`), with the
+    exact per-value scores (:func:`measurement_scores`)."""
     if best.cov is None:
         return best
     with np.errstate(all="ignore"):
-        s = scores(lambda th: measurement_terms(family, family.from_internal(th), data), best.theta)
+        s = measurement_scores(family, family.from_internal(best.theta), data)
     cov = sandwich(best.cov, s, data.w)
     if cov is None:
         return replace(best, cov=None, warnings=best.warnings + (

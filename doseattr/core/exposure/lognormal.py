@@ -159,6 +159,35 @@ class LogNormal(Family):
                              "a spread is needed to fit a distribution")
         return np.array([np.exp(mu), np.exp(s)])
 
+    def log_terms_scores(self, x: FloatArray, params: ArrayLike, *,
+                         censored: bool) -> tuple[FloatArray, FloatArray]:
+        r"""Analytic terms and scores in the internal parameters
+        :math:`(\mu, \eta = \ln s)`, with :math:`z = (\ln x - \mu)/s`
+        (derived here): a detect has :math:`\ln f = -z^2/2 - \eta - \ln
+        \sqrt{2\pi} - \ln x` with gradient :math:`(z/s,\; z^2 - 1)`; a limit
+        has :math:`\ln \Phi(z)` with gradient :math:`(-r/s,\; -r z)`,
+        :math:`r = \varphi(z)/\Phi(z)` (the inverse Mills ratio, from the
+        log CDF so that it stays finite far in the lower tail)."""
+        p = np.asarray(params, dtype=float)
+        mu, s = float(np.log(p[0])), float(np.log(p[1]))
+        y = _log(x)
+        z = (y - mu) / s
+        if censored:
+            terms = cast(FloatArray, log_ndtr(z))
+            r = np.exp(-0.5 * z * z - _LOG_SQRT_2PI - terms)
+            return terms, np.stack([-r / s, -r * z], axis=1)
+        terms = -0.5 * z * z - (np.log(s) + _LOG_SQRT_2PI) - y
+        return terms, np.stack([z / s, z * z - 1.0], axis=1)
+
+    def information_at_mle(self, x: FloatArray, w: FloatArray,
+                           params: FloatArray) -> FloatArray:
+        r"""At the MLE, :math:`\mathrm{diag}(W/s^2,\; 2W)` in
+        :math:`(\mu, \ln s)`, :math:`W = \sum w` (derived here: the cross
+        term is :math:`-2\sum w (y - \hat\mu)/s^2 = 0` and
+        :math:`-\partial^2\ell/\partial(\ln s)^2 = 2\sum w (y - \hat\mu)^2/s^2 = 2W`)."""
+        total, s = float(np.sum(w)), float(np.log(params[1]))
+        return np.diag([total / s**2, 2 * total])
+
     def log_breaks(self, params: ArrayLike) -> FloatArray:
         mu, s = self._mu_s(params)
         return cast(FloatArray, mu + s * Z_BREAKS)

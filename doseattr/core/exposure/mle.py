@@ -107,3 +107,63 @@ def maximise(loglik: LogLik, theta0: FloatArray, *, what: str) -> Maximum:
                        "check the data for outliers or try another family")
     cov, warnings = covariance(loglik, theta)
     return Maximum(theta, -neg(theta), cov, warnings)
+
+
+#: A log-likelihood that returns its gradient too: ``theta -> (value, gradient)``.
+ValueGrad = Callable[[FloatArray], tuple[float, FloatArray]]
+
+
+def _negative_scaled(value_grad: ValueGrad, scale: float) -> Callable[[FloatArray], tuple[float, FloatArray]]:
+    def neg(theta: FloatArray) -> tuple[float, FloatArray]:
+        with np.errstate(all="ignore"):
+            value, grad = value_grad(np.asarray(theta, dtype=float))
+        if not (np.isfinite(value) and np.all(np.isfinite(grad))):
+            return np.inf, np.zeros_like(np.asarray(theta, dtype=float))
+        return -value / scale, -np.asarray(grad, dtype=float) / scale
+    return neg
+
+
+def stationary_with_gradient(value_grad: ValueGrad, theta: FloatArray) -> bool:
+    """The test of :func:`maximise` (largest gradient component below
+    1e-4 x max(1, |loglik|)) with the exact gradient."""
+    with np.errstate(all="ignore"):
+        value, grad = value_grad(np.asarray(theta, dtype=float))
+    return bool(np.isfinite(value) and np.all(np.isfinite(grad))
+                and np.max(np.abs(grad)) < 1e-4 * max(1.0, abs(value)))
+
+
+def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: float,
+                         what: str) -> FloatArray:
+    """Where ``value_grad`` peaks, by BFGS on the exact gradient of
+    ``loglik / scale`` (``scale`` the total weight, so that the tolerance
+    ``gtol = 1e-10`` is relative to the per-value log-likelihood), with a
+    Nelder-Mead restart as in :func:`maximise` if BFGS stops away from a
+    stationary point; FitError naming ``what`` if none is found."""
+    from scipy.optimize import minimize
+
+    neg = _negative_scaled(value_grad, scale)
+    theta0 = np.asarray(theta0, dtype=float)
+    with np.errstate(invalid="ignore", over="ignore"):
+        res = minimize(neg, theta0, jac=True, method="BFGS", options={"gtol": 1e-10})
+        theta = cast(FloatArray, res.x)
+        if not stationary_with_gradient(value_grad, theta):
+            start = theta if np.isfinite(res.fun) else theta0
+            simplex = minimize(lambda th: neg(th)[0], start, method="Nelder-Mead",
+                               options={"xatol": 1e-10, "fatol": 1e-14, "maxiter": 10000})
+            res = minimize(neg, simplex.x, jac=True, method="BFGS", options={"gtol": 1e-10})
+            theta = cast(FloatArray, res.x)
+    if not stationary_with_gradient(value_grad, theta):
+        raise FitError(f"{what}: the maximum-likelihood search did not converge "
+                       f"(stopped at internal parameters {np.round(theta, 4).tolist()}); "
+                       "check the data for outliers or try another family")
+    return theta
+
+
+def invert_information(info: FloatArray | None) -> tuple[FloatArray | None, tuple[str, ...]]:
+    """The inverse of a symmetrised observed information when it is finite
+    and positive definite; ``None`` with a warning otherwise."""
+    if info is not None:
+        info = 0.5 * (info + info.T)
+        if np.all(np.isfinite(info)) and np.all(np.linalg.eigvalsh(info) > 0):
+            return cast(FloatArray, np.linalg.inv(info)), ()
+    return None, (NOT_POSITIVE,)

@@ -46,7 +46,8 @@ def _checked(values: ArrayLike, detected: ArrayLike) -> tuple[FloatArray, np.nda
 
 def _ranks_within(groups: np.ndarray, keys: FloatArray) -> FloatArray:
     """Rank 1, 2, ... of each element within its group, in order of ``keys``."""
-    order = np.lexsort((keys, groups))
+    by_key = np.argsort(keys, kind="stable")
+    order = by_key[np.argsort(groups[by_key], kind="stable")]  # = np.lexsort((keys, groups))
     g = groups[order]
     ranks = np.empty(groups.size)
     ranks[order] = np.arange(groups.size) - np.searchsorted(g, g, side="left") + 1
@@ -54,7 +55,7 @@ def _ranks_within(groups: np.ndarray, keys: FloatArray) -> FloatArray:
 
 
 def _exceedance(x: FloatArray, d: np.ndarray, limits: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """P_e per limit (with the trailing 0), and the counts A and C.
+    r"""P_e per limit (with the trailing 0), and the counts A and C.
 
     The counts come from the sorted detects and sorted non-detects by
     binary search (``np.searchsorted``), so the cost is
