@@ -145,7 +145,7 @@ def main() -> None:
     ap.add_argument("--compare")
     args = ap.parse_args()
 
-    import doseattr.core.exposure  # noqa: F401  (imports outside the timings)
+    import doseattr.core.exposure  # imports outside the timings
     print(f"package from {os.path.dirname(doseattr.core.exposure.__file__)}")
     print(f"start: {uptime()}")
     results: dict[str, Any] = {}

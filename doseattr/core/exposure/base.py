@@ -72,7 +72,8 @@ def pool(values: FloatArray, weights: FloatArray) -> tuple[FloatArray, FloatArra
     equal values contribute identical likelihood terms, so one term with
     their total weight stands for them."""
     uniq, inverse = np.unique(values, return_inverse=True)
-    return uniq, np.bincount(inverse.ravel(), weights=weights, minlength=uniq.size)
+    summed = np.bincount(inverse.ravel(), weights=weights, minlength=uniq.size)
+    return uniq, summed.astype(float)
 
 
 def pcol(params: ArrayLike, j: int) -> FloatArray:

@@ -22,6 +22,7 @@ symmetrised.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -75,5 +76,5 @@ def observed_information(family: Family, theta: FloatArray, data: Pooled) -> Flo
             up = value_and_gradient(family, theta + e, data)[1]
             down = value_and_gradient(family, theta - e, data)[1]
             rows.append(-(up - down) / (2 * h))
-    info = np.array(rows)
-    return 0.5 * (info + info.T)
+    info = np.array(rows, dtype=float)
+    return cast(FloatArray, 0.5 * (info + info.T))
