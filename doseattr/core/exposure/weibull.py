@@ -84,12 +84,7 @@ class Weibull(PositiveFamily):
         return np.exp(-self._e(x, params))
 
     def logcdf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
-        r""":math:`\ln(1 - e^{-E})`; for ``E < 1e-13`` it equals ``ln E`` to
-        double precision, which also covers ``E`` underflowing to zero."""
-        u = self._u(x, params, log_scale=False)[1]
-        with np.errstate(over="ignore", divide="ignore"):
-            direct = np.log(-np.expm1(-np.exp(u)))
-        return np.where(u < -30, u, direct)
+        return _log1m_exp_neg(self._u(x, params, log_scale=False)[1])
 
     def logsf(self, x: ArrayLike, params: ArrayLike) -> FloatArray:
         return -self._e(x, params)
@@ -154,7 +149,7 @@ class Weibull(PositiveFamily):
         with np.errstate(over="ignore", invalid="ignore"):
             e = np.exp(u)
             if censored:
-                terms = np.where(u < -30, u, np.log(-np.expm1(-e)))
+                terms = _log1m_exp_neg(u)
                 g = np.where(u < -30, 1.0, np.where(e > 800, 0.0, e * np.exp(-e) / -np.expm1(-e)))
                 return terms, np.stack([g * u, -g * k], axis=1)
             terms = np.log(k) + u - e - y
@@ -227,6 +222,20 @@ class Weibull(PositiveFamily):
             log_e = log_gamma_break_quantiles((1 + rate / k)[..., 0])
             return merge(own, np.log(lam) + log_e / k)
         return merge(own, _exp_tilt_breaks(k, lam, rate))
+
+
+def _log1m_exp_neg(u: FloatArray) -> FloatArray:
+    r""":math:`\ln(1 - e^{-E})` at :math:`E = e^u`: ``log(-expm1(-E))`` for
+    ``E`` up to ln 2 and ``log1p(-exp(-E))`` above, each where it keeps
+    full precision (Maechler 2012, "Accurately computing log(1 - exp(-|a|))",
+    from memory); for ``u < -30`` it is ``u`` (``ln E`` to double precision,
+    which also covers ``E`` underflowing to zero)."""
+    u = np.asarray(u, dtype=float)
+    with np.errstate(over="ignore", divide="ignore"):
+        e = np.exp(u)
+        near = np.log(-np.expm1(-e))
+        far = np.log1p(-np.exp(-e))
+    return cast(FloatArray, np.where(u < -30, u, np.where(e <= np.log(2.0), near, far)))
 
 
 def _exp_tilt_breaks(k: FloatArray, lam: FloatArray, c: FloatArray) -> FloatArray:
