@@ -132,7 +132,8 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
         return value_and_gradient(family, theta, pooled)
 
     start = family.to_internal(family.start(data.x, data.w))
-    theta = search_with_gradient(value_grad, start, scale=pooled.total, what=f"{family.name} fit")
+    theta = search_with_gradient(value_grad, start, scale=pooled.total, what=f"{family.name} fit",
+                                 info0=observed_information(family, start, pooled))
     cov, warns = invert_information(observed_information(family, theta, pooled))
     return Maximum(theta, measurement_loglik(family, family.from_internal(theta), data), cov, warns)
 

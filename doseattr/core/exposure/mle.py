@@ -113,14 +113,45 @@ def maximise(loglik: LogLik, theta0: FloatArray, *, what: str) -> Maximum:
 ValueGrad = Callable[[FloatArray], tuple[float, FloatArray]]
 
 
+#: Largest gradient component of ``loglik / scale`` at which a search stops.
+GTOL = 1e-10
+
+
+class _Converged(Exception):
+    """Raised from inside a search as soon as a point meets :data:`GTOL`:
+    there the log-likelihood is flat to rounding, and line searches would
+    only spend passes over the data failing to decrease it further."""
+
+    def __init__(self, theta: FloatArray) -> None:
+        super().__init__()
+        self.theta = theta
+
+
 def _negative_scaled(value_grad: ValueGrad, scale: float) -> Callable[[FloatArray], tuple[float, FloatArray]]:
     def neg(theta: FloatArray) -> tuple[float, FloatArray]:
+        theta = np.array(theta, dtype=float)
         with np.errstate(all="ignore"):
-            value, grad = value_grad(np.asarray(theta, dtype=float))
+            value, grad = value_grad(theta)
         if not (np.isfinite(value) and np.all(np.isfinite(grad))):
-            return np.inf, np.zeros_like(np.asarray(theta, dtype=float))
+            return np.inf, np.zeros_like(theta)
+        if np.max(np.abs(grad)) <= GTOL * scale:
+            raise _Converged(theta)
         return -value / scale, -np.asarray(grad, dtype=float) / scale
     return neg
+
+
+def _minimize(neg: Callable[[FloatArray], tuple[float, FloatArray]], theta0: FloatArray,
+              method: str, options: dict[str, object]) -> tuple[FloatArray, float]:
+    from scipy.optimize import minimize
+
+    try:
+        if method == "BFGS":
+            res = minimize(neg, theta0, jac=True, method="BFGS", options=options)
+        else:
+            res = minimize(lambda th: neg(th)[0], theta0, method=method, options=options)
+    except _Converged as done:
+        return done.theta, 0.0
+    return cast(FloatArray, res.x), float(res.fun)
 
 
 def stationary_with_gradient(value_grad: ValueGrad, theta: FloatArray) -> bool:
@@ -132,26 +163,45 @@ def stationary_with_gradient(value_grad: ValueGrad, theta: FloatArray) -> bool:
                 and np.max(np.abs(grad)) < 1e-4 * max(1.0, abs(value)))
 
 
+def _inverse_hessian_seed(info: FloatArray | None, scale: float) -> FloatArray | None:
+    """``scale`` x the inverse of ``info`` when that has a Cholesky factor
+    (the test BFGS applies), else ``None``."""
+    inv, _ = invert_information(info)
+    if inv is None:
+        return None
+    seed = 0.5 * (inv + inv.T) * scale
+    try:
+        np.linalg.cholesky(seed)
+    except np.linalg.LinAlgError:
+        return None
+    return cast(FloatArray, seed)
+
+
 def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: float,
-                         what: str) -> FloatArray:
+                         what: str, info0: FloatArray | None = None) -> FloatArray:
     """Where ``value_grad`` peaks, by BFGS on the exact gradient of
     ``loglik / scale`` (``scale`` the total weight, so that the tolerance
-    ``gtol = 1e-10`` is relative to the per-value log-likelihood), with a
+    :data:`GTOL` is relative to the per-value log-likelihood; the search
+    stops at the first point within it), with a
     Nelder-Mead restart as in :func:`maximise` if BFGS stops away from a
-    stationary point; FitError naming ``what`` if none is found."""
-    from scipy.optimize import minimize
+    stationary point; FitError naming ``what`` if none is found.
 
+    ``info0``, the observed information at ``theta0`` when known, seeds the
+    BFGS inverse Hessian (when positive definite), so the first steps are
+    Newton steps rather than steepest descent."""
     neg = _negative_scaled(value_grad, scale)
     theta0 = np.asarray(theta0, dtype=float)
+    options: dict[str, object] = {"gtol": GTOL}
+    seed = _inverse_hessian_seed(info0, scale)
+    if seed is not None:
+        options["hess_inv0"] = seed
     with np.errstate(invalid="ignore", over="ignore"):
-        res = minimize(neg, theta0, jac=True, method="BFGS", options={"gtol": 1e-10})
-        theta = cast(FloatArray, res.x)
+        theta, fun = _minimize(neg, theta0, "BFGS", options)
         if not stationary_with_gradient(value_grad, theta):
-            start = theta if np.isfinite(res.fun) else theta0
-            simplex = minimize(lambda th: neg(th)[0], start, method="Nelder-Mead",
-                               options={"xatol": 1e-10, "fatol": 1e-14, "maxiter": 10000})
-            res = minimize(neg, simplex.x, jac=True, method="BFGS", options={"gtol": 1e-10})
-            theta = cast(FloatArray, res.x)
+            start = theta if np.isfinite(fun) else theta0
+            theta, _ = _minimize(neg, start, "Nelder-Mead",
+                                 {"xatol": 1e-10, "fatol": 1e-14, "maxiter": 10000})
+            theta, _ = _minimize(neg, theta, "BFGS", {"gtol": GTOL})
     if not stationary_with_gradient(value_grad, theta):
         raise FitError(f"{what}: the maximum-likelihood search did not converge "
                        f"(stopped at internal parameters {np.round(theta, 4).tolist()}); "
