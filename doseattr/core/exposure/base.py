@@ -205,6 +205,17 @@ class Family(ABC):
         default :meth:`closed_form_mle`."""
         return self.closed_form_mle(x, w)
 
+    def detect_summary(self, x: FloatArray, w: FloatArray) -> FloatArray | None:
+        """Sufficient statistics of detected values ``x`` with weights ``w``
+        for :meth:`summary_loglik`, or ``None`` when the family has none
+        of fixed size (then the values themselves are used)."""
+        return None
+
+    def summary_loglik(self, summary: FloatArray, params: ArrayLike) -> tuple[float, FloatArray]:
+        """The detects' weighted log-likelihood and its gradient in the
+        internal parameters, from :meth:`detect_summary` (in constant time)."""
+        raise NotImplementedError(f"{self.name} has no detect summary")
+
     def information_at_mle(self, x: FloatArray, w: FloatArray,
                            params: FloatArray) -> FloatArray | None:
         """Observed information of the internal parameters at the weighted

@@ -122,11 +122,11 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
             theta = family.to_internal(closed)
             info = family.information_at_mle(data.x, data.w, closed)
             if info is None:
-                pooled = pool_measurements(data.x, data.detected, data.w)
+                pooled = pool_measurements(family, data.x, data.detected, data.w)
                 info = observed_information(family, theta, pooled)
             cov, warns = invert_information(info)
             return Maximum(theta, measurement_loglik(family, closed, data), cov, warns)
-    pooled = pool_measurements(data.x, data.detected, data.w)
+    pooled = pool_measurements(family, data.x, data.detected, data.w)
 
     def value_grad(theta: FloatArray) -> tuple[float, FloatArray]:
         return value_and_gradient(family, theta, pooled)

@@ -181,6 +181,23 @@ class Gamma(PositiveFamily):
             return None
         return np.array([k, np.exp(ybar + s) / k])
 
+    def detect_summary(self, x: FloatArray, w: FloatArray) -> FloatArray:
+        r"""``[W, xbar, ybar]``: the total weight and the weighted means of
+        ``x`` and ``ln x``."""
+        total = float(np.sum(w))
+        return np.array([total, float(np.dot(w, x)) / total, float(np.dot(w, np.log(x))) / total])
+
+    def summary_loglik(self, summary: FloatArray, params: ArrayLike) -> tuple[float, FloatArray]:
+        r""":math:`\sum w \ln f = W[(k-1)\bar y - \bar x/\theta - \ln\Gamma(k) - k\ln\theta]`
+        with gradient :math:`W\,(k(\bar y - \psi(k) - \ln\theta),\; \bar x/\theta - k)`
+        in ``(ln k, ln theta)`` (derived here)."""
+        total, xbar, ybar = (float(v) for v in summary)
+        k, theta = (float(v) for v in np.asarray(params, dtype=float))
+        lt = float(np.log(theta))
+        value = total * ((k - 1) * ybar - xbar / theta - float(gammaln(k)) - k * lt)
+        grad = total * np.array([k * (ybar - float(digamma(k)) - lt), xbar / theta - k])
+        return value, grad
+
     def information_at_mle(self, x: FloatArray, w: FloatArray,
                            params: FloatArray) -> FloatArray:
         r"""At the MLE, :math:`W \begin{pmatrix} k^2\psi_1(k) & k \\ k & k

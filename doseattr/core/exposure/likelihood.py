@@ -2,8 +2,11 @@ r"""The weighted, left-censored measurement log-likelihood with its exact
 gradient, over pooled data.
 
 Equal detected values, and equal detection limits, give identical terms,
-so each distinct one enters once with its summed weight (:class:`Pooled`).
-One evaluation is one pass over the distinct values: the family's
+so each distinct one enters once with its summed weight (:class:`Pooled`);
+where the family has sufficient statistics for its densities (lognormal:
+weighted sums of ``ln x`` and ``ln^2 x``; gamma: of ``x`` and ``ln x``) the
+detects enter through them alone. One evaluation is one pass over the
+distinct values that remain: the family's
 :meth:`~doseattr.core.exposure.base.Family.log_terms_scores` gives each
 term and its gradient together, and
 
@@ -33,20 +36,30 @@ from doseattr.core.exposure.base import Family, FloatArray, pool
 @dataclass(frozen=True)
 class Pooled:
     """Distinct detected values and distinct detection limits, each with its
-    summed weight; ``total`` is the sum of all weights."""
+    summed weight; ``total`` is the sum of all weights. When the family has
+    sufficient statistics for detects (``summary``,
+    :meth:`~doseattr.core.exposure.base.Family.detect_summary`), they stand
+    for the detects, and ``detects`` is empty."""
 
     detects: FloatArray
     detect_weights: FloatArray
     limits: FloatArray
     limit_weights: FloatArray
     total: float
+    summary: FloatArray | None = None
 
 
-def pool_measurements(x: FloatArray, detected: NDArray[np.bool_], w: FloatArray) -> Pooled:
-    """Pool equal values within the detects and within the limits."""
-    dx, dw = pool(x[detected], w[detected])
+def pool_measurements(family: Family, x: FloatArray, detected: NDArray[np.bool_],
+                      w: FloatArray) -> Pooled:
+    """Pool equal values within the limits, and within the detects unless
+    the family summarises them."""
+    summary = family.detect_summary(x[detected], w[detected])
+    if summary is None:
+        dx, dw = pool(x[detected], w[detected])
+    else:
+        dx, dw = np.empty(0), np.empty(0)
     cx, cw = pool(x[~detected], w[~detected])
-    return Pooled(dx, dw, cx, cw, float(np.sum(w)))
+    return Pooled(dx, dw, cx, cw, float(np.sum(w)), summary)
 
 
 def value_and_gradient(family: Family, theta: FloatArray, data: Pooled) -> tuple[float, FloatArray]:
@@ -54,6 +67,8 @@ def value_and_gradient(family: Family, theta: FloatArray, data: Pooled) -> tuple
     parameters ``theta`` (module docstring)."""
     params = family.from_internal(theta)
     value, grad = 0.0, np.zeros(len(theta))
+    if data.summary is not None:
+        value, grad = family.summary_loglik(data.summary, params)
     for x, w, censored in ((data.detects, data.detect_weights, False),
                            (data.limits, data.limit_weights, True)):
         if x.size:

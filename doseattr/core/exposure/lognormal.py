@@ -179,6 +179,26 @@ class LogNormal(Family):
         terms = -0.5 * z * z - (np.log(s) + _LOG_SQRT_2PI) - y
         return terms, np.stack([z / s, z * z - 1.0], axis=1)
 
+    def detect_summary(self, x: FloatArray, w: FloatArray) -> FloatArray:
+        r"""``[W, ybar, m2]``: :math:`W = \sum w`, :math:`\bar y = \sum w \ln x / W`,
+        :math:`m_2 = \sum w (\ln x - \bar y)^2` (two passes, no cancellation)."""
+        y = np.log(x)
+        total = float(np.sum(w))
+        ybar = float(np.dot(w, y)) / total
+        return np.array([total, ybar, float(np.dot(w, (y - ybar) ** 2))])
+
+    def summary_loglik(self, summary: FloatArray, params: ArrayLike) -> tuple[float, FloatArray]:
+        r""":math:`\sum w \ln f = -W\bar y - W(\ln s + \ln\sqrt{2\pi}) - Q/(2s^2)`,
+        :math:`Q = m_2 + W(\bar y - \mu)^2`, with gradient
+        :math:`(W(\bar y - \mu)/s^2,\; Q/s^2 - W)` in :math:`(\mu, \ln s)`
+        (derived here)."""
+        total, ybar, m2 = (float(v) for v in summary)
+        p = np.asarray(params, dtype=float)
+        mu, s = float(np.log(p[0])), float(np.log(p[1]))
+        q = m2 + total * (ybar - mu) ** 2
+        value = -total * ybar - total * (np.log(s) + _LOG_SQRT_2PI) - q / (2 * s * s)
+        return float(value), np.array([total * (ybar - mu) / s**2, q / s**2 - total])
+
     def information_at_mle(self, x: FloatArray, w: FloatArray,
                            params: FloatArray) -> FloatArray:
         r"""At the MLE, :math:`\mathrm{diag}(W/s^2,\; 2W)` in

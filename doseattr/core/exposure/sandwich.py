@@ -30,7 +30,6 @@ weighted values carry the same information about a weighted mean.
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from typing import Literal, cast
 
 import numpy as np
@@ -42,10 +41,6 @@ WeightMeaning = Literal["frequency", "importance"]
 
 #: What weights may mean (see module docstring).
 WEIGHT_MEANINGS: tuple[WeightMeaning, ...] = ("frequency", "importance")
-
-#: Per-observation log-likelihood contributions at internal parameters.
-Terms = Callable[[FloatArray], FloatArray]
-
 
 def check_meaning(meaning: str) -> WeightMeaning:
     """``meaning`` itself when it is one of :data:`WEIGHT_MEANINGS`; ModelError otherwise."""
@@ -59,21 +54,6 @@ def kish_effective_n(w: FloatArray) -> float:
     Survey Sampling, from memory); ``n`` when all weights are equal."""
     w = np.asarray(w, dtype=float)
     return float(w.sum() ** 2 / np.dot(w, w))
-
-
-def scores(terms: Terms, theta: FloatArray) -> FloatArray:
-    r"""Per-observation scores :math:`s_{ij} = \partial \ell_i / \partial \theta_j`,
-    shape ``(n, p)``, by central differences with step
-    :math:`h_j = \epsilon^{1/3} \max(1, |\theta_j|)` (error :math:`O(h^2)`;
-    Nocedal & Wright 2006, Numerical Optimization, sec. 8.1, from memory)."""
-    theta = np.asarray(theta, dtype=float)
-    step = np.finfo(float).eps ** (1 / 3) * np.maximum(1.0, np.abs(theta))
-    cols = []
-    for j, h in enumerate(step):
-        e = np.zeros_like(theta)
-        e[j] = h
-        cols.append((terms(theta + e) - terms(theta - e)) / (2 * h))
-    return np.stack(cols, axis=1)
 
 
 def sandwich(bread: FloatArray, s: FloatArray, w: FloatArray) -> FloatArray | None:
