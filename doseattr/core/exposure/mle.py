@@ -5,6 +5,10 @@ Shared by measurement fits (:mod:`.fit`) and grouped-data fits
 Nelder-Mead restart if BFGS stops away from a stationary point);
 ``statsmodels.tools.numdiff`` gives the observed information, whose inverse
 is the asymptotic covariance of the internal parameters.
+
+A log-likelihood that returns its exact gradient (measurement fits,
+:mod:`.likelihood`) goes to :func:`search_with_gradient` instead: BFGS on
+that gradient, no finite differences.
 """
 
 from __future__ import annotations
