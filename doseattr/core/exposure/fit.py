@@ -19,6 +19,15 @@ measurements; importance (population) weights take the sandwich
 whose standard errors reflect the unequal weights (about the Kish
 effective sample size). Several detection limits in one dataset need
 nothing special.
+
+Cost: fully observed data take the family's
+:meth:`~doseattr.core.exposure.base.Family.uncensored_mle` (lognormal in
+closed form, gamma from two weighted sums, Weibull by a Newton root of its
+profile equation, one pass over the distinct values per step); censored
+data a BFGS search on the exact gradient over pooled data
+(:mod:`doseattr.core.exposure.likelihood`), each evaluation one pass over
+the distinct values (the limits only, for families whose detects have
+sufficient statistics).
 """
 
 from __future__ import annotations
