@@ -45,7 +45,7 @@ from doseattr.core.attribution.scenarios import SCENARIO_KINDS, Comply, Scenario
 from doseattr.core.curves.base import Curve, CurveModel
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
-from doseattr.errors import DivergenceError, DoseattrError, InputError, ModelError
+from doseattr.errors import DivergenceError, InputError, ModelError
 from doseattr.results.records import BandTable, PoolingSection
 
 if TYPE_CHECKING:
@@ -573,18 +573,11 @@ def _empirical(values: FloatArray, weights: FloatArray | None, source: str, unex
 def _comparison_fits(values: FloatArray,
                      weights: FloatArray | None) -> tuple[tuple[Exposure, ...], list[str]]:
     """Each family of the core registry fitted to the positive values (for
-    the comparison table beside the empirical PAF); a failure is a note."""
-    from doseattr.core.exposure.fit import fit_measurements
+    the comparison table beside the empirical PAF); a failure is a note
+    (:func:`doseattr.analysis.comparisons.comparison_fits`)."""
+    from doseattr.analysis.comparisons import comparison_fits
 
-    keep = np.asarray(values) > 0
-    w = None if weights is None else np.asarray(weights)[keep]
-    fits, why = [], []
-    for name in FITTED_FAMILIES:
-        try:
-            fits.append(fit_measurements(name, np.asarray(values)[keep], weights=w))
-        except DoseattrError as exc:
-            why.append(f"{name} not fitted for comparison: {exc}")
-    return tuple(fits), why
+    return comparison_fits(values, weights, FITTED_FAMILIES)
 
 
 def fit_substituted(spec: MeasuredExposure, exposure: Exposure, fraction: float) -> AnyExposure:

@@ -274,11 +274,37 @@ def strata_table(burden: BurdenResult, unit: str | None, caption: str) -> str:
     the years of life lost (each with its interval), and the exposure the
     row's fractions used."""
     groups = burden.has_groups
-    rows = [_stratum_row(s.stratum, s, unit, burden) for s in burden.strata]
+    shown = largest_rows(burden.strata)
+    rows = [_stratum_row(s.stratum, s, unit, burden) for s in shown]
     rows.append(_stratum_row("Total", burden.total, unit, burden))
     return table(["Stratum", *(["Group"] if groups else []), "Cases", "Attributable cases",
                   "95% interval", *_impact_header(burden), "PAF", "95% interval",
-                  "Exposure"], rows, caption=caption)
+                  "Exposure"], rows, caption=caption) + left_out_note(
+        len(burden.strata), "burden.csv")
+
+
+def largest_rows(records: Sequence[StratumResult],
+                 cap: int = MAX_STRATA) -> Sequence[StratumResult]:
+    """``records`` unchanged when there are at most ``cap``; otherwise the
+    ``cap`` with the most attributable cases, largest first (ties in table
+    order, a missing estimate last), so that a report table's length stays
+    bounded whatever the number of strata (the full table is a CSV file)."""
+    if len(records) <= cap:
+        return records
+    est = [r.attributable.estimate for r in records]
+    key = [-(e if e is not None and e == e else -float("inf")) for e in est]
+    order = sorted(range(len(records)), key=key.__getitem__)  # stable: ties in table order
+    return [records[i] for i in order[:cap]]
+
+
+def left_out_note(n: int, where: str, cap: int = MAX_STRATA) -> str:
+    """The line under a table cut to its ``cap`` largest rows (empty when
+    all ``n`` rows are shown)."""
+    if n <= cap:
+        return ""
+    return para(f"The table shows the {cap} of the {n:,} rows with the most attributable "
+                f"cases, largest first; the total is over all {n:,}. Every row, with its "
+                f"interval, is in {where}.")
 
 
 def _stratum_row(label: str, r: StratumResult, unit: str | None,
@@ -300,13 +326,15 @@ def sums_table(burden: BurdenResult, sums: Sequence[StratumResult], label: str,
     the PAF (attributable over cases)."""
     if not sums:
         return ""
-    records = [((s.group or NA) if label == "Group" else s.stratum, s) for s in sums]
+    records = [((s.group or NA) if label == "Group" else s.stratum, s)
+               for s in largest_rows(sums)]
     rows = [[name, cases(s.cases), cases(s.attributable.estimate),
              interval(s.attributable.lower, s.attributable.upper, cases),
              *_impact_cells(burden, s), estimate_text(s.paf)]
             for name, s in (*records, ("Total", burden.total))]
     return table([label, "Cases", "Attributable cases", "95% interval",
-                  *_impact_header(burden), "PAF (95% interval)"], rows, caption=caption)
+                  *_impact_header(burden), "PAF (95% interval)"], rows,
+                 caption=caption) + left_out_note(len(sums), "burden_groups.csv")
 
 
 def stratum_exposure_text(e: StratumExposure | None, unit: str | None) -> str:
@@ -339,6 +367,11 @@ def own_exposure_text(burden: BurdenResult) -> str:
         return para("Every stratum had its own exposure description in the burden table, so "
                     "their PAFs differ only through exposure (mean exposures count the "
                     "unexposed share at zero).")
+    if len(own) > MAX_STRATA:  # a list of names would outgrow the page
+        return para(f"{len(own):,} strata had their own exposure descriptions in the burden "
+                    "table (burden.csv says which) and the other strata use the shared "
+                    "exposure distribution, so their PAFs differ only through exposure (mean "
+                    "exposures count the unexposed share at zero).")
     names = own[0] if len(own) == 1 else ", ".join(own[:-1]) + " and " + own[-1]
     whose = "its own exposure description" if len(own) == 1 else \
         "their own exposure descriptions"
@@ -352,7 +385,7 @@ def scenarios_table(burden: BurdenResult, caption: str) -> str:
     pair per scenario: the PIF and the cases averted, each with its
     interval; with groups a group column and with life expectancy the
     years of life lost averted."""
-    records = [(s.stratum, s) for s in burden.strata] + [("Total", burden.total)]
+    records = [(s.stratum, s) for s in largest_rows(burden.strata)] + [("Total", burden.total)]
     names = [e.name for e in records[0][1].scenarios]
     if not names:
         return ""
@@ -372,7 +405,8 @@ def scenarios_table(burden: BurdenResult, caption: str) -> str:
     header = ["Stratum"] + (["Group"] if groups else [])
     for n in names:
         header += [f"{n}: PIF", f"{n}: cases averted"] + ([f"{n}: YLL averted"] if yll else [])
-    return table(header, rows, caption=caption)
+    return table(header, rows, caption=caption) + left_out_note(len(burden.strata),
+                                                                "burden_scenarios.csv")
 
 
 def _effect(r: StratumResult, name: str) -> StratumEffect | None:

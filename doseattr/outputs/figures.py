@@ -41,6 +41,10 @@ FloatArray = NDArray[np.float64]
 
 #: Number of points on plotted curves.
 GRID_POINTS = 400
+#: At most this many markers of each kind (detected, censored) in a Q-Q
+#: plot: beyond it the points at evenly spaced ranks are drawn (a PNG does
+#: not resolve more, and a million markers take seconds to draw).
+MAX_QQ_POINTS = 2000
 
 
 def curve_extent(curve: Curve, band_table: BandTable | None = None,
@@ -292,7 +296,9 @@ def plot_qq(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = No
     at their value; a non-detect (``gid="qq-censored"``) at its detection
     limit with a downward marker, since its true value lies below. The line
     ``y = x`` (``gid="qq-line"``) is where points fall when the family fits.
-    Both axes are logarithmic. ``family`` and ``params`` draw the same
+    Both axes are logarithmic. With more than :data:`MAX_QQ_POINTS`
+    points of a kind, those at evenly spaced ranks are drawn
+    (:func:`qq_points`). ``family`` and ``params`` draw the same
     measurements against another family fitted to them (the alternatives
     tried when the analysis picks the family by AIC).
     """
@@ -305,8 +311,9 @@ def plot_qq(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = No
         raise ValueError("a Q-Q plot needs measurements (not bands) fitted by a family")
     with styled():
         ax = new_axes(ax, size=(5.2, 4.4))
-        values, det = data.values, data.detected
-        pos = ros_plotting_positions(values, det)
+        pos = ros_plotting_positions(data.values, data.detected)
+        keep = qq_points(pos, data.detected)
+        values, det, pos = data.values[keep], data.detected[keep], pos[keep]
         family = exposure.family if family is None else family
         params = exposure.params if params is None else params
         theory = np.asarray(family.ppf(pos, params), float).reshape(-1)
@@ -315,8 +322,8 @@ def plot_qq(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = No
         if (~det).any():
             ax.plot(theory[~det], values[~det], "v", color=COLORS["censored"], markersize=6,
                     label="below detection limit (drawn at the limit)", gid="qq-censored")
-        lo = float(min(theory.min(), values.min())) / 1.2
-        hi = float(max(theory.max(), values.max())) * 1.2
+        lo = float(min(theory.min(), data.values.min())) / 1.2
+        hi = float(max(theory.max(), data.values.max())) * 1.2
         ax.plot([lo, hi], [lo, hi], color=COLORS["limit"], linewidth=1, gid="qq-line",
                 label="perfect agreement")
         ax.set_xscale("log")
@@ -334,6 +341,23 @@ def plot_qq(exposure: AnyExposure, ax: Axes | None = None, unit: str | None = No
         if legend:
             ax.legend(loc="upper left")
     return ax
+
+
+def qq_points(positions: FloatArray, detected: NDArray[np.bool_],
+              cap: int = MAX_QQ_POINTS) -> NDArray[np.intp]:
+    """Indices of the points a Q-Q plot draws, in the data's order: every
+    point when the detected and the censored points each number at most
+    ``cap``; otherwise, within each kind, the points at ``cap`` evenly
+    spaced ranks of their plotting position (``round(linspace(0, k - 1,
+    cap))``, the lowest and highest included), so the plot is the same
+    curve drawn from fewer points and the same data give the same figure."""
+    keep = []
+    for kind in (np.flatnonzero(detected), np.flatnonzero(~detected)):
+        if kind.size > cap:
+            ranked = kind[np.argsort(positions[kind], kind="stable")]
+            kind = ranked[np.unique(np.round(np.linspace(0, kind.size - 1, cap)).astype(np.intp))]
+        keep.append(kind)
+    return np.sort(np.concatenate(keep))
 
 
 def _aic_text(fit: ExposureFit | None, template: str) -> str:

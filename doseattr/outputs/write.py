@@ -31,6 +31,7 @@ import tomllib
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager, suppress
 from pathlib import Path
+from typing import Any
 
 from doseattr.analysis.report_section import ReportSettings, report_settings_of
 from doseattr.errors import InputError
@@ -43,9 +44,35 @@ INPUT_FOLDER = "inputs"
 HINT = "give a folder of its own, for example --out results"
 
 
+#: A list longer than this is written one compact entry a line (strata records).
+LONG_LIST = 40
+
+
 def results_json(results: Results) -> str:
     """results.json text; ``ValueError`` if any number is NaN or infinite."""
-    return json.dumps(results.to_dict(), indent=2, allow_nan=False) + "\n"
+    return indented_json(results.to_dict()) + "\n"
+
+
+def indented_json(obj: Any, level: int = 0) -> str:
+    """JSON text laid out as ``json.dumps(obj, indent=2)`` would, except
+    that each entry of a list longer than :data:`LONG_LIST` is written
+    compact on a line of its own: the same data (``json.loads`` gives it
+    back), and the long lists go through the json module's C encoder
+    instead of its much slower indenting one. ``ValueError`` on NaN or
+    infinity."""
+    pad, inner = "  " * level, "  " * (level + 1)
+    if isinstance(obj, dict) and obj:
+        items = [f"{inner}{json.dumps(str(k))}: {indented_json(v, level + 1)}"
+                 for k, v in obj.items()]
+        return "{\n" + ",\n".join(items) + "\n" + pad + "}"
+    if isinstance(obj, (list, tuple)) and obj:
+        if len(obj) > LONG_LIST:
+            items = [inner + json.dumps(v, allow_nan=False, separators=(", ", ": "))
+                     for v in obj]
+        else:
+            items = [inner + indented_json(v, level + 1) for v in obj]
+        return "[\n" + ",\n".join(items) + "\n" + pad + "]"
+    return json.dumps(obj, allow_nan=False)
 
 
 def with_command(results: Results, command: Sequence[str]) -> Results:

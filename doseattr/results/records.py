@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -343,11 +344,12 @@ class BurdenResult:
     #: Each stratum summed across its groups (empty without groups).
     stratum_totals: tuple[StratumResult, ...] = ()
 
-    @property
+    # cached: the report asks once per row, and a scan per ask is quadratic in the strata
+    @cached_property
     def any_own_exposure(self) -> bool:
         return any(s.exposure is not None and s.exposure.own for s in self.strata)
 
-    @property
+    @cached_property
     def has_groups(self) -> bool:
         return any(s.group is not None for s in self.strata)
 
