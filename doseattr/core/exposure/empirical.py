@@ -127,7 +127,7 @@ class EmpiricalExposure:
         exactly (up to rounding): any expectation needs ``h`` only at the
         ``U`` distinct values."""
         values, inverse = np.unique(self.values, return_inverse=True)
-        weights = np.bincount(inverse, weights=self.weights, minlength=values.size)
+        weights = np.bincount(inverse, weights=self.weights, minlength=values.size).astype(float)
         return values, weights, inverse.ravel()
 
     def bootstrap_chunks(self, rng: np.random.Generator, draws: int
@@ -151,10 +151,14 @@ class EmpiricalExposure:
         for rows, idx, kept in self._resampled_rows(rng, int(draws), indices=True):
             assert idx is not None
             k = rows.stop - rows.start
-            cells = (inverse[idx] + (u * np.arange(k))[:, None]).ravel()
-            w = np.bincount(cells, weights=None if kept is None else kept.ravel(),
-                            minlength=k * u).reshape(k, u).astype(float)
-            yield rows, w / w.sum(axis=1, keepdims=True)
+            cells = inverse[idx]
+            del idx
+            cells += (u * np.arange(k))[:, None]
+            w = np.bincount(cells.ravel(), weights=None if kept is None else kept.ravel(),
+                            minlength=k * u).reshape(k, u).astype(float, copy=False)
+            del cells, kept
+            w /= w.sum(axis=1, keepdims=True)
+            yield rows, w
 
     def skip_bootstrap(self, rng: np.random.Generator, draws: int) -> None:
         """Advance ``rng`` past the numbers :meth:`bootstrap` would draw,
