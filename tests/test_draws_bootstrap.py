@@ -41,18 +41,23 @@ def _numpy_rows(e: EmpiricalExposure, rng: np.random.Generator, draws: int):
     return idx, e.weights[idx]
 
 
+@pytest.mark.parametrize("rounding", [1, None])
 @pytest.mark.parametrize("meaning", ["importance", "frequency", None])
-def test_chunks_are_the_row_bootstrap_on_distinct_values(meaning, monkeypatch):
+def test_chunks_are_the_row_bootstrap_on_distinct_values(meaning, rounding, monkeypatch):
     """Small chunks (7 draws) that do not divide the draws: per draw, the
     weights on the distinct values give the resample's weighted mean of
     any h (numpy row bootstrap, same seed), and the generator ends where
-    numpy's calls leave it."""
-    x, w = _values(500)
+    numpy's calls leave it. Rounded values have duplicates, collapsed;
+    distinct ones are their own points."""
+    x, w = _values(500, rounding=rounding)
     e = empirical(x, None if meaning is None else w, weight_meaning=meaning or "importance")
     monkeypatch.setattr(EmpiricalExposure, "CHUNK_ELEMENTS", 7 * x.size)
     values, point_weights, inverse = e.points
-    assert values.size < x.size  # rounding made duplicates
-    np.testing.assert_array_equal(values[inverse], x)  # numpy.unique's inverse
+    if rounding is None:
+        assert inverse is None and values is e.values
+    else:
+        assert inverse is not None and values.size < x.size
+        np.testing.assert_array_equal(values[inverse], x)  # numpy.unique's inverse
     np.testing.assert_allclose(point_weights @ np.sqrt(values), e.weights @ np.sqrt(x), rtol=1e-12)
     ref_rng, rng = np.random.default_rng(9), np.random.default_rng(9)
     idx, kept = _numpy_rows(e, ref_rng, 50)

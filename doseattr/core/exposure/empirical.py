@@ -118,15 +118,19 @@ class EmpiricalExposure:
         return 1.0 - self.cdf(x)
 
     @cached_property
-    def points(self) -> tuple[FloatArray, FloatArray, NDArray[np.intp]]:
-        r"""The distinct values ``(U,)`` ascending, their summed weights
-        ``(U,)`` and each row's index into them ``(n,)``.
+    def points(self) -> tuple[FloatArray, FloatArray, NDArray[np.intp] | None]:
+        r"""The distinct values ``(U,)``, their summed weights ``(U,)`` and
+        each row's index into them ``(n,)``.
 
         Rows with equal values collapse into one point carrying the sum of
         their weights, so :math:`\sum_i w_i h(x_i) = \sum_u W_u h(x_u)`
         exactly (up to rounding): any expectation needs ``h`` only at the
-        ``U`` distinct values."""
+        ``U`` distinct values, ascending. When the values are already
+        distinct the points are the rows themselves, in their order, and the
+        index is ``None`` (the identity)."""
         values, inverse = np.unique(self.values, return_inverse=True)
+        if values.size == self.values.size:
+            return self.values, self.weights, None
         weights = np.bincount(inverse, weights=self.weights, minlength=values.size).astype(float)
         return values, weights, inverse.ravel()
 
@@ -144,19 +148,24 @@ class EmpiricalExposure:
         same numbers (``integers`` and ``random`` fill arrays element by
         element from one stream), so ``sum_u W_du h(x_u)`` is draw ``d``'s
         weighted mean of :meth:`bootstrap` up to rounding, at
-        O(chunk x (n + U)) memory instead of O(draws x n).
+        O(chunk x (n + U)) memory instead of O(draws x n). Each chunk counts
+        how often each row was drawn (``bincount``), times its weight
+        (importance weights), summed over the rows of each distinct value.
         """
         values, _, inverse = self.points
-        u = values.size
-        for rows, idx, kept in self._resampled_rows(rng, int(draws), indices=True):
+        n, u = self.values.size, values.size
+        kept = None if self._frequency() or np.all(self.weights == self.weights[0]) else self.weights
+        for rows, idx in self._resampled_rows(rng, int(draws), indices=True):
             assert idx is not None
             k = rows.stop - rows.start
-            cells = inverse[idx]
+            idx += (n * np.arange(k))[:, None]
+            w = np.bincount(idx.ravel(), minlength=k * n).reshape(k, n).astype(float)
             del idx
-            cells += (u * np.arange(k))[:, None]
-            w = np.bincount(cells.ravel(), weights=None if kept is None else kept.ravel(),
-                            minlength=k * u).reshape(k, u).astype(float, copy=False)
-            del cells, kept
+            if kept is not None:
+                w *= kept
+            if inverse is not None:  # rows -> distinct values
+                cells = (inverse + (u * np.arange(k))[:, None]).ravel()
+                w = np.bincount(cells, weights=w.ravel(), minlength=k * u).reshape(k, u)
             w /= w.sum(axis=1, keepdims=True)
             yield rows, w
 
@@ -174,32 +183,26 @@ class EmpiricalExposure:
         return self.weights_meaning == "frequency" and not np.allclose(self.weights, 1.0 / n)
 
     def _resampled_rows(self, rng: np.random.Generator, draws: int, *, indices: bool
-                        ) -> Iterator[tuple[slice, NDArray[np.intp] | None, FloatArray | None]]:
-        """``(rows, idx, weights)`` per chunk of draws: the row indices
-        ``(k, n)`` drawn as :meth:`bootstrap` draws them (``numpy``'s
-        ``choice`` with ``p`` is ``searchsorted`` of the normalised
-        cumulative weights on ``random`` numbers) and the weights they keep
-        (``None`` when all are equal); with ``indices`` false, only the
-        numbers are drawn."""
+                        ) -> Iterator[tuple[slice, NDArray[np.intp] | None]]:
+        """``(rows, idx)`` per chunk of draws: the row indices ``(k, n)``
+        drawn as :meth:`bootstrap` draws them (``numpy``'s ``choice`` with
+        ``p`` is ``searchsorted`` of the normalised cumulative weights on
+        ``random`` numbers); with ``indices`` false only the numbers are
+        drawn (``idx`` ``None``)."""
         n = self.values.size
         step = max(1, self.CHUNK_ELEMENTS // n)
         frequency = self._frequency()
         cdf = np.cumsum(self.weights)
         cdf /= cdf[-1]
-        equal = frequency or bool(np.all(self.weights == self.weights[0]))
         for start in range(0, draws, step):
             rows = slice(start, min(start + step, draws))
             shape = (rows.stop - rows.start, n)
             if frequency:
-                u = rng.random(shape)
-                idx = cdf.searchsorted(u, side="right") if indices else None
+                uniform = rng.random(shape)
+                yield rows, cdf.searchsorted(uniform, side="right") if indices else None
             else:
                 idx = rng.integers(0, n, size=shape)
-            if not indices:
-                yield rows, None, None
-                continue
-            assert idx is not None
-            yield rows, idx, None if equal else self.weights[idx]
+                yield rows, idx if indices else None
 
     def bootstrap(self, rng: np.random.Generator, draws: int) -> tuple[FloatArray, FloatArray]:
         r"""Resampled points, ``(values, weights)`` each of shape ``(draws, n)``.
