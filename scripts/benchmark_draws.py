@@ -23,11 +23,14 @@ own; ``VmHWM`` from /proc/self/status, which an exec does not inherit):
     starts ``draws, one source``) timed apart through
     ``doseattr.analysis.progress.stage_listener``.
 ``curve-only``
-    ``run_analysis`` with the exposure entered as GM 8, GSD 2 (no sampling
-    error), the minimum-risk level fixed at 3 units and a linear excess
-    risk, ERR 0.01 per unit (95% CI 0.005 to 0.015; a log-linear curve
-    extended over a lognormal tail has no finite mean): only the curve
-    varies, so the width table is the joint interval (no new draws now).
+    ``run_analysis`` of a burden table of ``--zones`` strata (zones, as in
+    a grid run), zone ``z`` with ``50 + z`` cases and its own lognormal
+    exposure entered as numbers, GM ``6 + 0.02 z``, GSD ``1.5 + 0.004 z``
+    (no sampling error), the minimum-risk level fixed at 3 units and a
+    linear excess risk, ERR 0.01 per unit (95% CI 0.005 to 0.015; a
+    log-linear curve extended over a lognormal tail has no finite mean):
+    only the curve varies, so the width table is the joint interval (the
+    Monte Carlo ran twice before).
 
 ``--repo`` runs a case against another checkout (``/work/main`` for the
 figures before a change). ``--memory-cap-gb`` sets ``RLIMIT_AS`` in each
@@ -38,7 +41,7 @@ seconds (``time.process_time``, all threads of the child), the best of
 each, as CPU time on a shared 2-core machine still moves with the load.
 
 Usage:  python scripts/benchmark_draws.py [--repo DIR] [--values 100000,1000000]
-        [--draws 1000] [--cases core,width,curve-only] [--width-values 100000]
+        [--draws 1000] [--cases core,width,curve-only] [--width-values 100000] [--zones 200]
         [--memory-cap-gb 8] [--repeat 1] [--json FILE]
 """
 
@@ -107,9 +110,14 @@ def child_analysis(n: int, draws: int, curve_only: bool) -> dict[str, Any]:
 
     with tempfile.TemporaryDirectory() as folder:
         curve = CURVE
+        extra: dict[str, Any] = {}
         if curve_only:
             exposure: dict[str, Any] = {"gm": 8.0, "gsd": 2.0}
             curve = LINEAR
+            rows = "".join(f"Zone {z:03d},{50 + z},{6.0 + 0.02 * z:.2f},{1.5 + 0.004 * z:.3f}\n"
+                           for z in range(n))
+            (Path(folder) / "zones.csv").write_text("stratum,cases,gm,gsd\n" + rows)
+            extra = {"burden": {"table": "zones.csv"}}
         else:
             x, w = make_values(n, False)
             lines = "".join(f"{a!r},{b!r}\n" for a, b in zip(x.tolist(), w.tolist()))
@@ -117,7 +125,7 @@ def child_analysis(n: int, draws: int, curve_only: bool) -> dict[str, Any]:
             exposure = {"table": "values.csv", "family": "empirical", "weights": "importance"}
         d = {"unit": "ug/m3", "curve": curve, "exposure": exposure,
              "attribution": {"minimum_risk": 3.0 if curve_only else list(MINIMUM_RISK)},
-             "uncertainty": {"draws": draws, "seed": 5}}
+             "uncertainty": {"draws": draws, "seed": 5}, **extra}
         analysis = analysis_from_dict(d, base_dir=Path(folder))
         stages: dict[str, float] = {}
         current: list[tuple[str, float]] = []
@@ -198,6 +206,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--repo", default=str(REPO), help="checkout whose doseattr is measured")
     p.add_argument("--values", default="100000,1000000", help="sizes for the core case")
     p.add_argument("--width-values", type=int, default=100_000, help="size for 'width'")
+    p.add_argument("--zones", type=int, default=200, help="strata for 'curve-only'")
     p.add_argument("--draws", type=int, default=1000)
     p.add_argument("--cases", default="core,width,curve-only")
     p.add_argument("--memory-cap-gb", type=float, default=8.0, help="RLIMIT_AS per child (0: none)")
@@ -215,7 +224,7 @@ def main(argv: list[str] | None = None) -> int:
     results = []
     for case in args.cases.split(","):
         sizes = ([int(float(v)) for v in args.values.split(",")] if case.startswith("core")
-                 else [args.width_values])
+                 else [args.zones] if case == "curve-only" else [args.width_values])
         for n in sizes:
             r = run_child(args, case, n)
             print(describe(r), flush=True)
