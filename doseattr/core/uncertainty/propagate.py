@@ -152,8 +152,9 @@ def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scena
     sources
         Which inputs vary: any of ``"curve"``, ``"exposure"``,
         ``"minimum_risk"``, ``"cases"`` (Poisson). The others stay at their
-        point values; passing one source at a time shows which input
-        drives the width of an interval.
+        point values. To see which input drives the width of an interval,
+        :func:`vary_only` takes one source at a time from the draws this
+        run keeps (``Propagation.inputs``).
     progress
         Called with the number of integrals finished, after each batch.
     method
@@ -223,9 +224,18 @@ def vary_only(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scena
         m = (inputs.minimum_risk if "minimum_risk" in sources
              else np.full(n, inputs.minimum_risk_point))
         ex_draws = {key: (inputs.exposures[key][1] if "exposure" in sources
-                          else fixed_exposure(e, n)) for key, e in exposures.items()}
+                          else _at_points(e, n)) for key, e in exposures.items()}
         fractions = _fractions(method, curve, coef, exposures, ex_draws, m, scenarios, progress, n)
     return _assemble(strata, scenarios, cases, fractions, sources, inputs, method)
+
+
+def _at_points(exposure: AnyExposure, n: int) -> ExposureDraws:
+    """The exposure at its point estimate; an empirical one on its distinct
+    values with their summed weights (the same expectation, fewer points)."""
+    if isinstance(exposure, EmpiricalExposure):
+        values, weights, _ = exposure.points
+        return ExposureDraws(values=values[None, :], weights=weights[None, :])
+    return fixed_exposure(exposure, n)
 
 
 def _varying(sources: Sequence[str], curve: Curve, coef: FloatArray, m_range: bool,
