@@ -111,9 +111,10 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
     numbers), so a row with the shared exposure has the population's
     fraction draw by draw, and scenarios and rows differ only by what
     differs. With ``method = "impact-function"`` the population's PAF
-    (``1 - 1/E[RR]``) is drawn again from the same seeds (so the same draws).
+    (``1 - 1/E[RR]``) is integrated over the same draws (core ``vary_only``
+    with every source), not drawn again.
     """
-    from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate
+    from doseattr.core.uncertainty.propagate import Stratum, point_values, propagate, vary_only
 
     spec = burden_spec(analysis)
     method = spec.method
@@ -132,9 +133,7 @@ def run_burden(analysis: Analysis, curve, strata: list, scenarios, progress: boo
                               progress=tick, method=method, **streams(analysis, stream))
         population = draws
         if method != "paf":
-            population = propagate(curve, strata[:1], transforms, draws=u.draws,
-                                   minimum_risk=minimum_risk_range(analysis), sources=SOURCES,
-                                   **streams(analysis, stream))
+            population = vary_only(curve, strata[:1], transforms, draws, SOURCES)
     rows = row_draws(spec, point, draws)
     rate_per = spec.rate_per
     records = tuple(dataclasses.replace(

@@ -8,10 +8,15 @@ bootstrap of the values on the empirical path), the minimum-risk level
 uniform over its range, and optionally Poisson variation of the observed
 cases. Intervals are the 2.5th and 97.5th percentiles of the draws.
 
-The width table reruns the propagation with one source varying at a time
-(the others at their point values) and reports the 95% interval of the
-overall PAF for each: a one-at-a-time sensitivity analysis (common
-practice; the widths do not add up to the joint width).
+The width table varies one source at a time (the others at their point
+values) and reports the 95% interval of the overall PAF for each: a
+one-at-a-time sensitivity analysis (common practice; the widths do not add
+up to the joint width). Each one-source run reuses the joint run's draws of
+that source (common random numbers; core
+:func:`~doseattr.core.uncertainty.propagate.vary_only`) rather than drawing
+afresh, so it integrates only what that source changes, nothing for the
+cases (point fractions times the case draws), and a source that is the
+only one varying in the joint run has the joint run's interval itself.
 """
 
 from __future__ import annotations
@@ -141,24 +146,29 @@ def varying_sources(analysis: Analysis, curve, strata: Sequence) -> tuple[str, .
 
 
 def width_by_source(analysis: Analysis, curve, strata: Sequence, point: float,
-                    progress: bool, method: str = "paf") -> tuple[SourceWidth, ...]:
+                    progress: bool, method: str = "paf", *, joint) -> tuple[SourceWidth, ...]:
     """The 95% interval of the overall PAF (total attributable over total
     cases with ``[burden]``, else the PAF) with one source varying at a
-    time; one entry per source that varies."""
-    from doseattr.core.uncertainty.propagate import propagate
+    time; one entry per source that varies.
+
+    ``joint`` is the run with every source varying (core ``Propagation``,
+    its overall PAF from the same ``strata``); each source's draws are
+    the joint run's own (common random numbers), so the widths change with
+    the seed together with the joint interval, not independently of it."""
+    from doseattr.core.uncertainty.propagate import vary_only
 
     u = settings(analysis)
     sources = varying_sources(analysis, curve, strata)
+    alone = [s for s in sources if set(joint.inputs.varying) <= {s}]
+    integrated = [s for s in sources if s not in alone and s != "cases"]
+    units = u.draws * len(integrated) * len({id(s.exposure) for s in strata})
     out = []
-    units = u.draws * len(sources) * len({id(s.exposure) for s in strata})
-    with progress_bar(units, progress, draws=u.draws * len(sources),
-                      stage=f"draws, one source at a time ({len(sources)} x {u.draws})"
+    with progress_bar(units, progress and units > 0, draws=u.draws * len(integrated),
+                      stage=f"draws, one source at a time ({len(integrated)} x {u.draws})"
                       ) as tick:
-        for i, source in enumerate(sources):
-            prop = propagate(curve, strata, [], draws=u.draws,
-                             rng=np.random.default_rng([u.seed, 2, i]),
-                             minimum_risk=minimum_risk_range(analysis), sources=(source,),
-                             progress=tick, method=method)
+        for source in sources:
+            prop = joint if source in alone else vary_only(
+                curve, strata, [], joint, (source,), method=method, progress=tick)
             out.append(source_width(analysis, source, point, prop))
     return tuple(out)
 

@@ -257,7 +257,8 @@ def _monte_carlo(analysis: Analysis, curve, exposure, scenarios, point: _Point,
                                                      point.scenarios)
         overall = run.result.total.paf.estimate
         method = run.result.method
-    widths = width_by_source(analysis, curve, strata, overall, progress, method=method)
+    widths = width_by_source(analysis, curve, strata, overall, progress, method=method,
+                             joint=draws)
     u = analysis.uncertainty
     section = UncertaintySection(int(u.draws), int(u.seed), 0.95, widths,
                                  source_width(analysis, "all", overall, draws), prop,

@@ -10,16 +10,21 @@ point mass at zero (0 unless set, e.g. with ``dataclasses.replace``), so
     E[h(X)] = u\,h(0) + (1 - u) \sum_i w_i\, h(x_i).
 
 The attribution engine sums over the points; :meth:`EmpiricalExposure.bootstrap`
-gives resampled points for uncertainty.
+gives resampled points for uncertainty, and
+:meth:`EmpiricalExposure.bootstrap_chunks` the same resamples a few draws at a
+time as weights on the distinct values (:attr:`EmpiricalExposure.points`), so
+that memory stays bounded by chunk x distinct values however many draws.
 """
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
+from functools import cached_property
 from typing import ClassVar
 
 import numpy as np
-from numpy.typing import ArrayLike
+from numpy.typing import ArrayLike, NDArray
 
 from doseattr.core.exposure.base import Alternative, ExposureFit, FloatArray
 from doseattr.core.exposure.sandwich import check_meaning, kish_effective_n
@@ -112,6 +117,93 @@ class EmpiricalExposure:
     def sf(self, x: ArrayLike) -> FloatArray:
         return 1.0 - self.cdf(x)
 
+    @cached_property
+    def points(self) -> tuple[FloatArray, FloatArray, NDArray[np.intp] | None]:
+        r"""The distinct values ``(U,)``, their summed weights ``(U,)`` and
+        each row's index into them ``(n,)``.
+
+        Rows with equal values collapse into one point carrying the sum of
+        their weights, so :math:`\sum_i w_i h(x_i) = \sum_u W_u h(x_u)`
+        exactly (up to rounding): any expectation needs ``h`` only at the
+        ``U`` distinct values, ascending. When the values are already
+        distinct the points are the rows themselves, in their order, and the
+        index is ``None`` (the identity)."""
+        values, inverse = np.unique(self.values, return_inverse=True)
+        if values.size == self.values.size:
+            return self.values, self.weights, None
+        weights = np.bincount(inverse, weights=self.weights, minlength=values.size).astype(float)
+        return values, weights, inverse.ravel()
+
+    def bootstrap_chunks(self, rng: np.random.Generator, draws: int
+                         ) -> Iterator[tuple[slice, FloatArray]]:
+        r"""The resamples of :meth:`bootstrap`, a few draws at a time, as
+        weights on the distinct values (:attr:`points`).
+
+        Yields ``(rows, W)`` with ``W`` of shape ``(k, U)`` for the draws
+        ``rows``: :math:`W_{du} = \sum_{j: x_{i_{dj}} = x_u} \omega_{dj} /
+        \sum_j \omega_{dj}`, the resampled weights :math:`\omega_{dj}` of
+        the ``n`` rows :math:`i_{dj}` drawn in draw ``d`` summed at each
+        distinct value. The generator calls are those of :meth:`bootstrap`
+        split by rows of draws, which numpy's Generator answers with the
+        same numbers (``integers`` and ``random`` fill arrays element by
+        element from one stream), so ``sum_u W_du h(x_u)`` is draw ``d``'s
+        weighted mean of :meth:`bootstrap` up to rounding, at
+        O(chunk x (n + U)) memory instead of O(draws x n). Each chunk counts
+        how often each row was drawn (``bincount``), times its weight
+        (importance weights), summed over the rows of each distinct value.
+        """
+        values, _, inverse = self.points
+        n, u = self.values.size, values.size
+        kept = None if self._frequency() or np.all(self.weights == self.weights[0]) else self.weights
+        for rows, idx in self._resampled_rows(rng, int(draws), indices=True):
+            assert idx is not None
+            k = rows.stop - rows.start
+            idx += (n * np.arange(k))[:, None]
+            w = np.bincount(idx.ravel(), minlength=k * n).reshape(k, n).astype(float)
+            del idx
+            if kept is not None:
+                w *= kept
+            if inverse is not None:  # rows -> distinct values
+                cells = (inverse + (u * np.arange(k))[:, None]).ravel()
+                w = np.bincount(cells, weights=w.ravel(), minlength=k * u).reshape(k, u)
+            w /= w.sum(axis=1, keepdims=True)
+            yield rows, w
+
+    def skip_bootstrap(self, rng: np.random.Generator, draws: int) -> None:
+        """Advance ``rng`` past the numbers :meth:`bootstrap` would draw,
+        in chunks (no draws x n array), without resampling anything."""
+        for _ in self._resampled_rows(rng, int(draws), indices=False):
+            pass
+
+    #: Rows (draws x values) resampled at once by :meth:`bootstrap_chunks`.
+    CHUNK_ELEMENTS: ClassVar[int] = 1 << 20
+
+    def _frequency(self) -> bool:
+        n = self.values.size
+        return self.weights_meaning == "frequency" and not np.allclose(self.weights, 1.0 / n)
+
+    def _resampled_rows(self, rng: np.random.Generator, draws: int, *, indices: bool
+                        ) -> Iterator[tuple[slice, NDArray[np.intp] | None]]:
+        """``(rows, idx)`` per chunk of draws: the row indices ``(k, n)``
+        drawn as :meth:`bootstrap` draws them (``numpy``'s ``choice`` with
+        ``p`` is ``searchsorted`` of the normalised cumulative weights on
+        ``random`` numbers); with ``indices`` false only the numbers are
+        drawn (``idx`` ``None``)."""
+        n = self.values.size
+        step = max(1, self.CHUNK_ELEMENTS // n)
+        frequency = self._frequency()
+        cdf = np.cumsum(self.weights)
+        cdf /= cdf[-1]
+        for start in range(0, draws, step):
+            rows = slice(start, min(start + step, draws))
+            shape = (rows.stop - rows.start, n)
+            if frequency:
+                uniform = rng.random(shape)
+                yield rows, cdf.searchsorted(uniform, side="right") if indices else None
+            else:
+                idx = rng.integers(0, n, size=shape)
+                yield rows, idx if indices else None
+
     def bootstrap(self, rng: np.random.Generator, draws: int) -> tuple[FloatArray, FloatArray]:
         r"""Resampled points, ``(values, weights)`` each of shape ``(draws, n)``.
 
@@ -135,9 +227,13 @@ class EmpiricalExposure:
         frequency weights.)
 
         Survey design (strata, clusters) is ignored; ``unexposed`` stays fixed.
+
+        This holds ``draws x n`` arrays; the Monte Carlo uses
+        :meth:`bootstrap_chunks`, which draws the same numbers in bounded
+        memory.
         """
         n = self.values.size
-        if self.weights_meaning == "frequency" and not np.allclose(self.weights, 1.0 / n):
+        if self._frequency():
             idx = rng.choice(n, size=(int(draws), n), p=self.weights)
             return self.values[idx], np.full(idx.shape, 1.0 / n)
         idx = rng.integers(0, n, size=(int(draws), n))

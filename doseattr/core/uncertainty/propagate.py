@@ -15,11 +15,21 @@ consistent with the strata, and the overall PAF is
 :math:`\sum_s A_{sd} / \sum_s N_{sd}`. Strata that share an exposure
 distribution share its draws (one sample of the shared survey), and are
 integrated once.
+
+A weighted bootstrap of an empirical exposure is never held as a draws x
+values array: its resamples are replayed a few draws at a time as weights on
+the distinct values (:class:`~doseattr.core.uncertainty.sampling.Resample`),
+every scenario integrated on each chunk, and when neither the curve nor the
+minimum-risk level varies the integrand is evaluated once per distinct value.
+
+The propagation keeps its input draws (:class:`InputDraws`), so
+:func:`vary_only` gives the outputs with some inputs at their point values
+from the same draws (common random numbers) without drawing again.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import cast
 
@@ -61,12 +71,34 @@ class Stratum:
     exposure: AnyExposure
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
+class InputDraws:
+    """The draws a propagation was computed from: coefficients ``(D, p)``,
+    minimum-risk levels ``(D,)`` and its point value, each unique
+    exposure's draws (by ``id``, with the exposure), the case draws ``(D,)``
+    by stratum name, and which sources actually vary in them (draws that
+    are not all at the point value)."""
+
+    coef: FloatArray
+    minimum_risk: FloatArray
+    minimum_risk_point: float
+    exposures: dict[int, tuple[AnyExposure, ExposureDraws]]
+    cases: dict[str, FloatArray]
+    varying: tuple[str, ...]
+
+    @property
+    def draws(self) -> int:
+        return int(self.minimum_risk.size)
+
+
+@dataclass(frozen=True, eq=False)
 class Propagation:
     """Draws of every output, shape ``(S, D)`` per stratum or ``(D,)``.
 
     ``paf[s]``, ``attributable[s]``; ``pif[name][s]`` and
-    ``averted[name][s]`` per scenario; ``total_*`` summed over strata.
+    ``averted[name][s]`` per scenario; ``total_*`` summed over strata;
+    ``inputs`` the draws they came from (``None`` for point values),
+    ``method`` as in :func:`propagate`.
     """
 
     strata: tuple[str, ...]
@@ -76,6 +108,8 @@ class Propagation:
     pif: dict[str, FloatArray]
     averted: dict[str, FloatArray]
     sources: tuple[str, ...] = field(default=SOURCES)
+    inputs: InputDraws | None = None
+    method: str = "paf"
 
     @property
     def total_cases(self) -> FloatArray:
@@ -118,8 +152,9 @@ def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scena
     sources
         Which inputs vary: any of ``"curve"``, ``"exposure"``,
         ``"minimum_risk"``, ``"cases"`` (Poisson). The others stay at their
-        point values; passing one source at a time shows which input
-        drives the width of an interval.
+        point values. To see which input drives the width of an interval,
+        :func:`vary_only` takes one source at a time from the draws this
+        run keeps (``Propagation.inputs``).
     progress
         Called with the number of integrals finished, after each batch.
     method
@@ -146,10 +181,71 @@ def propagate(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scena
     exposures = _unique_exposures(strata)
     ex_draws = {key: (exposure_draws(e, n, rng) if "exposure" in sources else fixed_exposure(e, n))
                 for key, e in exposures.items()}
-    cases = case_draws(np.array([s.cases for s in strata]), n,
-                       rng if case_rng is None else case_rng, "cases" in sources)
+    observed = np.array([s.cases for s in strata], dtype=float)
+    cases = np.asarray(case_draws(observed, n, rng if case_rng is None else case_rng,
+                                  "cases" in sources), dtype=float)
     fractions = _fractions(method, curve, coef, exposures, ex_draws, m, scenarios, progress, n)
-    return _assemble(strata, scenarios, np.asarray(cases, dtype=float), fractions, tuple(sources))
+    varying = _varying(sources, curve, coef, lo < hi, ex_draws.values(), cases, observed)
+    inputs = InputDraws(coef, m, 0.5 * (lo + hi),
+                        {key: (e, ex_draws[key]) for key, e in exposures.items()},
+                        {s.name: cases[i] for i, s in enumerate(strata)}, varying)
+    return _assemble(strata, scenarios, cases, fractions, tuple(sources), inputs, method)
+
+
+def vary_only(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scenario],
+              joint: Propagation, sources: Sequence[str], *, method: str = "paf",
+              progress: Callable[[int], None] | None = None) -> Propagation:
+    """The outputs with only ``sources`` varying, from the draws of the run
+    ``joint`` (common random numbers), the other inputs at their point
+    values: the one-at-a-time runs of a sensitivity analysis without new
+    draws.
+
+    ``strata`` may differ from the joint run's, but each exposure and (when
+    ``"cases"`` varies) each stratum name must be among its. Nothing is
+    integrated when none of the varying sources enters the integrals (only
+    ``"cases"``, or inputs whose draws sit at their point values): the
+    point fractions then stand for every draw.
+    """
+    inputs = joint.inputs
+    assert inputs is not None, "vary_only needs the draws of a propagate run"
+    assert set(sources) <= set(SOURCES) and method in METHODS, (sources, method)
+    n, sources = inputs.draws, tuple(sources)
+    exposures = _unique_exposures(strata)
+    cases = np.stack([inputs.cases[s.name] if "cases" in sources
+                      else np.full(n, float(s.cases)) for s in strata])
+    if not set(sources) & set(inputs.varying) - {"cases"}:
+        fixed = {key: fixed_exposure(e, 1) for key, e in exposures.items()}
+        point = _fractions(method, curve, curve.coef[None, :], exposures, fixed,
+                           np.array([inputs.minimum_risk_point]), scenarios, None, 1)
+        fractions = {key: np.broadcast_to(v, (n,)) for key, v in point.items()}
+    else:
+        coef = (inputs.coef if "curve" in sources
+                else np.broadcast_to(curve.coef, (n, curve.coef.size)))
+        m = (inputs.minimum_risk if "minimum_risk" in sources
+             else np.full(n, inputs.minimum_risk_point))
+        ex_draws = {key: (inputs.exposures[key][1] if "exposure" in sources
+                          else _at_points(e, n)) for key, e in exposures.items()}
+        fractions = _fractions(method, curve, coef, exposures, ex_draws, m, scenarios, progress, n)
+    return _assemble(strata, scenarios, cases, fractions, sources, inputs, method)
+
+
+def _at_points(exposure: AnyExposure, n: int) -> ExposureDraws:
+    """The exposure at its point estimate; an empirical one on its distinct
+    values with their summed weights (the same expectation, fewer points)."""
+    if isinstance(exposure, EmpiricalExposure):
+        values, weights, _ = exposure.points
+        return ExposureDraws(values=values[None, :], weights=weights[None, :])
+    return fixed_exposure(exposure, n)
+
+
+def _varying(sources: Sequence[str], curve: Curve, coef: FloatArray, m_range: bool,
+             ex_draws: Iterable[ExposureDraws], cases: FloatArray,
+             observed: FloatArray) -> tuple[str, ...]:
+    """The sources whose draws are not all at their point values."""
+    flags = {"curve": bool(np.any(coef != curve.coef)), "minimum_risk": m_range,
+             "exposure": any(ex.varies for ex in ex_draws),
+             "cases": bool(np.any(cases != observed[:, None]))}
+    return tuple(k for k in SOURCES if k in sources and flags[k])
 
 
 def point_values(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Scenario],
@@ -161,7 +257,7 @@ def point_values(curve: Curve, strata: Sequence[Stratum], scenarios: Sequence[Sc
     fractions = _fractions(method, curve, curve.coef[None, :], exposures, fixed,
                            np.array([minimum_risk]), scenarios, None, 1)
     cases = np.array([[s.cases] for s in strata], dtype=float)
-    return _assemble(strata, scenarios, cases, fractions, ())
+    return _assemble(strata, scenarios, cases, fractions, (), method=method)
 
 
 #: The two ways from fractions to attributable cases.
@@ -178,29 +274,60 @@ def _fractions(method: str, curve: Curve, coef: FloatArray, exposures: dict[int,
     """The attributable fraction (key ``None``) and each scenario's
     averted fraction per unique exposure, by ``method``."""
     out: _Fractions = {}
+    functions = (excess_draws, empirical_excess_draws) if method == "paf" else (
+        impact_draws, empirical_impact_draws)
     for key, e in exposures.items():
-        if method == "paf":
-            excess = {None if scn is None else scn.name: _excess(curve, coef, e, ex_draws[key], m, scn)
-                      for scn in (None, *scenarios)}
-            out[key, None] = paf_from_excess(excess[None])
-            for g in scenarios:
-                out[key, g.name] = pif_from_excess(excess[None], excess[g.name])
+        ex = ex_draws[key]
+        if ex.resample is not None:
+            values = _resampled(functions[1], curve, coef, e, ex, m, scenarios)
         else:
-            for scn in (None, *scenarios):
-                out[key, None if scn is None else scn.name] = _impact(curve, coef, e, ex_draws[key],
-                                                                      m, scn)
+            values = {None if scn is None else scn.name:
+                      _expectation(functions, curve, coef, e, ex, m, scn)
+                      for scn in (None, *scenarios)}
+        if method == "paf":
+            out[key, None] = paf_from_excess(values[None])
+            for g in scenarios:
+                out[key, g.name] = pif_from_excess(values[None], values[g.name])
+        else:
+            out.update({(key, name): v for name, v in values.items()})
         if progress is not None:
             progress(n * (1 + len(scenarios)))
     return out
 
 
+def _resampled(function: Callable[..., FloatArray], curve: Curve, coef: FloatArray,
+               exposure: AnyExposure, ex: ExposureDraws, m: FloatArray,
+               scenarios: Sequence[Scenario]) -> dict[str | None, FloatArray]:
+    r"""``function`` (an empirical path) per draw over a replayed bootstrap,
+    every scenario on each chunk of resampled weights ``W (k, U)``.
+
+    When the coefficients and the minimum-risk level are the same in every
+    draw, the integrand is evaluated once at the ``U`` distinct values
+    (each value its own one-point "draw") and draw ``d``'s expectation is
+    the weighted sum :math:`\sum_u W_{du} h(x_u)`."""
+    assert ex.resample is not None and ex.values is not None
+    values, n = ex.values, ex.resample.draws
+    jobs = [(None if g is None else g.name, g) for g in (None, *scenarios)]
+    out = {key: np.empty(n) for key, _ in jobs}
+    u = exposure.unexposed
+    fixed = bool(np.all(coef == coef[0]) and np.all(m == m[0]))
+    at_points = ({key: function(curve, coef[:1], values.T, np.ones((values.size, 1)), u, m[0], g)
+                  for key, g in jobs} if fixed else {})
+    for rows, w in ex.resample.chunks():
+        for key, g in jobs:
+            out[key][rows] = (w @ at_points[key] if fixed
+                              else function(curve, coef[rows], values, w, u, m[rows], g))
+    return out
+
+
 def _assemble(strata: Sequence[Stratum], scenarios: Sequence[Scenario], cases: FloatArray,
-              fractions: _Fractions, sources: tuple[str, ...]) -> Propagation:
+              fractions: _Fractions, sources: tuple[str, ...], inputs: InputDraws | None = None,
+              method: str = "paf") -> Propagation:
     keys = [id(s.exposure) for s in strata]
     paf = np.stack([fractions[k, None] for k in keys])
     pif = {scn.name: np.stack([fractions[k, scn.name] for k in keys]) for scn in scenarios}
     return Propagation(tuple(s.name for s in strata), cases, paf, paf * cases, pif,
-                       {k: v * cases for k, v in pif.items()}, sources)
+                       {k: v * cases for k, v in pif.items()}, sources, inputs, method)
 
 
 def _unique_exposures(strata: Sequence[Stratum]) -> dict[int, AnyExposure]:

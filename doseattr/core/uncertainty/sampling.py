@@ -11,7 +11,9 @@
   which keeps positive parameters positive. Distributions entered as
   numbers have no sampling error and stay fixed.
 * Empirical exposure: a weighted bootstrap of the rows (none for a census,
-  whose points are the whole population). A census with an exposure-model
+  whose points are the whole population), kept as a :class:`Resample` that
+  replays the same resamples chunk by chunk instead of a draws x values
+  array. A census with an exposure-model
   error (``error_gsd``) keeps its points and draws one multiplicative
   lognormal factor per draw for all of them (:func:`model_error_factors`).
 * Minimum-risk level: uniform over ``[low, high]``.
@@ -20,6 +22,8 @@
 
 from __future__ import annotations
 
+import copy
+from collections.abc import Iterator
 from dataclasses import dataclass, replace
 from typing import cast
 
@@ -34,19 +38,40 @@ from doseattr.core.exposure.empirical import EmpiricalExposure
 FloatArray = NDArray[np.float64]
 
 
+@dataclass(frozen=True, eq=False)
+class Resample:
+    """A weighted bootstrap of an empirical exposure that can be replayed:
+    the generator as it stood before the resamples were drawn, so every
+    :meth:`chunks` gives the same ``draws`` resamples
+    (:meth:`~doseattr.core.exposure.empirical.EmpiricalExposure.bootstrap_chunks`)."""
+
+    exposure: EmpiricalExposure
+    draws: int
+    start: np.random.Generator
+
+    def chunks(self) -> Iterator[tuple[slice, FloatArray]]:
+        """``(rows, W)``: the weights ``W (k, U)`` on the distinct values of
+        the draws ``rows``, from a copy of the starting generator."""
+        return self.exposure.bootstrap_chunks(copy.deepcopy(self.start), self.draws)
+
+
 @dataclass(frozen=True)
 class ExposureDraws:
     """Exposure draws: ``params (D, k)`` for a family, or ``values`` and
     ``weights (D, n)`` (or ``(1, n)``, shared by every draw) for the
     empirical path, whose values draw ``d`` multiplies by ``scale[d]`` when
     ``scale (D,)`` is set (an exposure-model error); ``varies`` says whether
-    the draws carry any uncertainty."""
+    the draws carry any uncertainty. A bootstrapped empirical exposure has
+    ``resample`` set, with ``values`` and ``weights (1, U)`` its distinct
+    values and their point weights; its per-draw weights come from
+    ``resample.chunks()``."""
 
     params: FloatArray | None = None
     values: FloatArray | None = None
     weights: FloatArray | None = None
     varies: bool = False
     scale: FloatArray | None = None
+    resample: Resample | None = None
 
 
 def curve_draws(curve: Curve, n: int, rng: np.random.Generator) -> FloatArray:
@@ -80,8 +105,7 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
             assert exposure.error_seed is not None
             return replace(fixed, varies=True,
                            scale=model_error_factors(exposure.error_gsd, exposure.error_seed, n))
-        values, weights = exposure.bootstrap(rng, n)
-        return ExposureDraws(values=values, weights=weights, varies=exposure.values.size > 1)
+        return bootstrap_draws(exposure, n, rng)
     cov = None if exposure.fit is None else exposure.fit.cov_internal
     if cov is None:
         return ExposureDraws(params=np.broadcast_to(exposure.params, (n, exposure.params.size)))
@@ -92,6 +116,20 @@ def exposure_draws(exposure: Exposure | EmpiricalExposure, n: int,
     else:
         draws = multivariate_t(theta, cov * _hc1(exposure), df, n, rng)
     return ExposureDraws(params=exposure.family.from_internal(draws), varies=True)
+
+
+def bootstrap_draws(exposure: EmpiricalExposure, n: int,
+                    rng: np.random.Generator) -> ExposureDraws:
+    """The weighted bootstrap of ``exposure`` (its ``bootstrap`` method) as
+    a :class:`Resample`: ``rng`` is copied, then advanced past the numbers
+    the resamples take, so the draws after it are those after
+    ``exposure.bootstrap(rng, n)``."""
+    start = copy.deepcopy(rng)
+    exposure.skip_bootstrap(rng, n)
+    values, weights, _ = exposure.points
+    return ExposureDraws(values=values[None, :], weights=weights[None, :],
+                         varies=exposure.values.size > 1,
+                         resample=Resample(exposure, int(n), start))
 
 
 def model_error_factors(gsd: float, seed: int, n: int) -> FloatArray:
