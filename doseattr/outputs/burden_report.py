@@ -131,9 +131,9 @@ def width_block(u: UncertaintySection | None, *, strata: bool,
     what = ("the total PAF over the strata (total attributable over total cases)"
             if strata else "the PAF")
     return "".join(tables) + para(
-        f"Each row reruns the Monte Carlo draws with one source of uncertainty varying and the "
-        f"others held at their estimates, and gives the 95% interval of {what}. The widths "
-        f"of the rows need not add up to the full width.")
+        f"Each row uses the same Monte Carlo draws as the full interval, with one source of "
+        f"uncertainty varying and the others held at their estimates, and gives the 95% "
+        f"interval of {what}. The widths of the rows need not add up to the full width.")
 
 
 def width_table(u: UncertaintySection | None, prefix: str) -> str:
