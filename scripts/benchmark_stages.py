@@ -4,12 +4,12 @@ Inputs are generated here (not data; every number is invented):
 
 - **empirical**: ``measurements.csv`` with ``--values`` rows (default 1e6) of
   ``value,weight``: values lognormal (GM 8, GSD 2) rounded to 0.01 (as a
-  monitor network reports them, so many values repeat), about 2% of the
-  rows non-detects ``<0.5`` when the value falls below 0.5, weights whole
-  numbers 1 to 20; ``family = "empirical"``, a log-linear curve entered as
+  monitor network reports them, so many values repeat; no non-detects,
+  which the empirical family refuses), weights whole numbers 1 to 20;
+  ``family = "empirical"``, a log-linear curve entered as
   published (RR 1.08 per 10 units, 95% CI 1.05 to 1.11, flat above 80),
-  minimum risk 5, one cap scenario, ``[uncertainty] draws`` (default 100:
-  the bootstrap holds draws x values numbers, 0.8 GB at 1e6 values).
+  minimum risk 5, one cap scenario, ``[uncertainty] draws`` (default 100,
+  the size the issue's "before" figure was measured at).
 - **burden**: ``districts.csv`` with ``--strata`` rows (default 3,000) of
   ``stratum,population,rate,gm,gsd`` (population 5,000 to 500,000, rate 300
   to 1,200 per 100,000, GM 4 to 20, GSD 1.3 to 2.2) and the same curve.
