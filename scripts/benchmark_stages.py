@@ -8,8 +8,7 @@ Inputs are generated here (not data; every number is invented):
   which the empirical family refuses), weights whole numbers 1 to 20;
   ``family = "empirical"``, a log-linear curve entered as
   published (RR 1.08 per 10 units, 95% CI 1.05 to 1.11, flat above 80),
-  minimum risk 5, one cap scenario, ``[uncertainty] draws`` (default 100,
-  the size the issue's "before" figure was measured at).
+  minimum risk 5, one cap scenario, ``[uncertainty] draws`` (default 100).
 - **burden**: ``districts.csv`` with ``--strata`` rows (default 3,000) of
   ``stratum,population,rate,gm,gsd`` (population 5,000 to 500,000, rate 300
   to 1,200 per 100,000, GM 4 to 20, GSD 1.3 to 2.2) and the same curve.
