@@ -45,7 +45,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from functools import lru_cache
-from typing import cast
+from typing import NamedTuple, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -62,6 +62,8 @@ BoolArray = NDArray[np.bool_]
 #: A window's ends in the normal score and whether each is exact.
 Window = tuple[FloatArray, FloatArray, BoolArray, BoolArray]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
+#: ``excess(x, rows, out)``: expm1(L(x)) into ``out``, or ``None``.
+Excess = Callable[[FloatArray, slice, FloatArray], FloatArray | None]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 16
@@ -74,8 +76,13 @@ LOG_DOSE_WIDTH = 4.0
 _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
 MAX_PANELS = 48
-#: About this many (draw x node) values are held at once.
-CHUNK_VALUES = 65_536
+#: About this many (draw x node) values are evaluated at once.
+CHUNK_VALUES = 32_768
+#: Draws whose windows and panels are placed at once.
+BLOCK_DRAWS = 16_384
+#: Largest expm1(L) taken directly at the nodes (its product with a
+#: weighted density stays finite); larger values go through ``log_rr``.
+_DIRECT_LIMIT = 1e250
 #: Probability mass the panels must recover before a result is trusted.
 MASS_TOLERANCE = 1e-9
 #: Relative accuracy the panels must reach on the growth bound's expectation.
@@ -93,7 +100,8 @@ def _legendre(n: int) -> tuple[FloatArray, FloatArray]:
 def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
                     growth: Growth, kinks: FloatArray, flat_from: float | FloatArray | None = None,
                     nodes: int = NODES,
-                    zero_below: float | FloatArray | None = None) -> FloatArray:
+                    zero_below: float | FloatArray | None = None,
+                    excess: Excess | None = None) -> FloatArray:
     r"""E[expm1(L(X))] = E[RR(X) - 1] for each draw of an exposure family.
 
     Parameters
@@ -118,6 +126,12 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     zero_below
         Dose per draw (or shared) below which ``L`` is 0 (the minimum-risk
         level's pre-image), if known: no nodes are placed there.
+    excess
+        Optionally ``excess(x, rows, out)``: :math:`\mathrm{expm1}(L(x))`
+        written to ``out`` (same shape as ``x``, which it must not change),
+        or ``None`` where it has no direct form for these draws; the engine
+        then (and where the values are too large for the product with the
+        density) takes ``log_rr``.
 
     Returns
     -------
@@ -146,18 +160,71 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
                                (d, breaks.shape[-1]))
     std = standard_for(family)
     rules = (_legendre(nodes), _legendre(min(nodes, NARROW_NODES)))
-    step = max(1, CHUNK_VALUES // (nodes * (3 + kinks.shape[1])))
     out = np.empty(d)
-    for start in range(0, d, step):
-        rows = slice(start, min(d, start + step))
-        chunk = _Chunk(std, params[rows], kinks[rows], top[rows], low[rows],
+    for start in range(0, d, BLOCK_DRAWS):
+        rows = slice(start, min(d, start + BLOCK_DRAWS))
+        block = _Block(std, params[rows], kinks[rows], top[rows], low[rows],
                        None if tilt is None else tilt[rows], growth.kind, rate[rows])
-        out[rows] = chunk.integrate(log_rr, rows, rules)
+        out[rows] = block.integrate(_Integrand(log_rr, excess, rows), rules)
     return out
 
 
-class _Chunk:
-    """The window, panels and checks for a chunk of draws."""
+class _Group(NamedTuple):
+    """Panels sharing a Gauss-Legendre rule: midpoints and half-widths in
+    ``w`` ``(d, P)`` (empty panels have half-width 0), nodes and weights."""
+
+    mid: FloatArray
+    half: FloatArray
+    xi: FloatArray
+    wi: FloatArray
+
+
+def _groups(edges: FloatArray, narrowest: FloatArray | None,
+            rules: tuple[tuple[FloatArray, FloatArray], ...]) -> list[_Group]:
+    """The panels between ``edges``, each given the full rule, or the narrow
+    one where it is much narrower than the body's narrowest panel."""
+    half = 0.5 * np.diff(edges, axis=1)
+    mid = edges[:, :-1] + half
+    if narrowest is None:
+        return [_Group(mid, half, *rules[0])]
+    groups = []
+    kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
+    for group, (xi, wi) in enumerate(rules):
+        order = np.argsort(kind != group, axis=1, kind="stable")
+        n = int((kind == group).sum(axis=1).max())
+        if n == 0:
+            continue
+        take = order[:, :n]
+        h = np.take_along_axis(half, take, axis=1)
+        h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
+        groups.append(_Group(np.take_along_axis(mid, take, axis=1), h, xi, wi))
+    if not groups:
+        groups.append(_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1]))
+    return groups
+
+
+class _Integrand:
+    """``expm1(L)`` at the nodes of a block of draws ``rows``: directly where
+    an ``excess`` function is given, else (and where its values are too
+    large) from ``log_rr``."""
+
+    def __init__(self, log_rr: LogRisk, excess: Excess | None, rows: slice) -> None:
+        self.log_rr, self.excess, self.rows = log_rr, excess, rows
+
+    def weighted(self, x: FloatArray, rows: slice, log_f: FloatArray, weight: FloatArray,
+                 dens: FloatArray, ones: FloatArray) -> FloatArray:
+        """Row sums of expm1(L(x)) * dens, with dens = exp(log_f) * weight."""
+        if self.excess is not None:
+            e = self.excess(x, rows, np.empty_like(x))
+            if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT:
+                e *= dens
+                return cast(FloatArray, e @ ones)
+        lr = np.array(self.log_rr(x, rows), dtype=float)
+        return _weighted_excess(lr, log_f, weight, dens)
+
+
+class _Block:
+    """The window, panels and checks for a block of draws."""
 
     def __init__(self, std: Standard, params: FloatArray, kinks: FloatArray, top: FloatArray,
                  low: FloatArray, tilt: FloatArray | None, kind: str, rate: FloatArray) -> None:
@@ -180,9 +247,9 @@ class _Chunk:
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return _no_nan(self.std.zeta(w, self.params), w)
 
-    def integrate(self, log_rr: LogRisk, rows: slice,
+    def integrate(self, f: _Integrand,
                   rules: tuple[tuple[FloatArray, FloatArray], ...]) -> FloatArray:
-        body, top_excess = self._window(log_rr, rows, rules, self.cap)
+        body, top_excess = self._window(f, rules, self.cap)
         sf = self._top_sf()
         with np.errstate(invalid="ignore", over="ignore"):
             tail = np.where(self.finite & (sf > 0), top_excess * sf, 0.0)[:, 0]
@@ -195,7 +262,7 @@ class _Chunk:
             need = far & (beyond > FAR_TOLERANCE * np.abs(body[:, None]))
             if np.any(need):
                 cap = np.where(need, np.minimum(self.z_top, Z_MAX), self.cap)
-                body = self._window(log_rr, rows, rules, cap)[0]
+                body = self._window(f, rules, cap)[0]
         total = body + tail
         if not np.all(np.isfinite(total)):
             raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
@@ -269,89 +336,108 @@ class _Chunk:
             return body, None, window
         return np.sort(np.concatenate([body, cuts], axis=1), axis=1), narrowest, window
 
-    def _window(self, log_rr: LogRisk, rows: slice,
-                rules: tuple[tuple[FloatArray, FloatArray], ...],
+    def _window(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
                 cap: FloatArray) -> tuple[FloatArray, FloatArray]:
         """Body integral over the window up to ``cap`` and expm1(L(x*))."""
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             edges, narrowest, window = self._edges(cap)
-        half = 0.5 * np.diff(edges, axis=1)
-        mid = edges[:, :-1] + half
-        groups: list[tuple[FloatArray, FloatArray, FloatArray, FloatArray]] = []
-        if narrowest is None:
-            groups.append((mid, half, *rules[0]))
-        else:
-            kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
-            for group, (xi, wi) in enumerate(rules):
-                order = np.argsort(kind != group, axis=1, kind="stable")
-                n = int((kind == group).sum(axis=1).max())
-                if n == 0:
-                    continue
-                take = order[:, :n]
-                h = np.take_along_axis(half, take, axis=1)
-                h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
-                groups.append((np.take_along_axis(mid, take, axis=1), h, xi, wi))
-        rows_n = edges.shape[0]
-        nodes = sum(h.shape[1] * xi.size for _, h, xi, _ in groups)
-        w = np.empty((rows_n, nodes + 3))
-        weight = np.empty_like(w)
-        col = 0
-        for m, h, xi, wi in groups:
-            q = h.shape[1] * xi.size
-            shape = (rows_n, h.shape[1], xi.size)
-            w[:, col:col + q] = (m[:, :, None] + h[:, :, None] * xi).reshape(rows_n, q)
-            np.multiply(h[:, :, None], wi, out=weight[:, col:col + q].reshape(shape))
-            col += q
-        # Three more columns, evaluated with the nodes: the window's ends,
-        # carrying the probability beyond them where the window was cut at
-        # the body (the integrand held at its value there, not dropped), and
-        # the flat point x*.
+        groups = _groups(edges, narrowest, rules)
         z_lo, z_hi, lo_exact, hi_exact = window
-        beyond = np.where(self.finite, between(z_hi, np.maximum(self.z_top, z_hi)), ndtr(-z_hi))
-        caps = np.concatenate([np.where(lo_exact, 0.0, ndtr(z_lo)),
-                               np.where(hi_exact, 0.0, beyond), np.zeros_like(z_lo)], axis=1)
-        w[:, nodes:] = np.concatenate([edges[:, :1], edges[:, -1:],
-                                       np.where(self.finite, self.w_top, 0.0)], axis=1)
-        weight[:, nodes:] = 1.0
-        x = w * self.b
-        x += self.a
-        np.exp(x, out=x)
+        body, mass, tilted = self._nodes(f, groups)
+        # the window's ends, carrying the probability beyond them where the
+        # window was cut at the body (the integrand held at its value there,
+        # not dropped), and the flat point x*
+        below = ndtr(z_lo)
+        above = ndtr(-z_hi)
+        self._check_mass(mass, (1.0 - below[:, 0]) - above[:, 0])
+        if tilted is not None:
+            self._check_tilt(tilted, edges)
+        if np.all(self.finite):
+            beyond = above - ndtr(-np.maximum(self.z_top, z_hi))
+        else:
+            beyond = np.where(self.finite, above - ndtr(-np.maximum(self.z_top, z_hi)), above)
+        caps = np.concatenate([np.where(lo_exact, 0.0, below), np.where(hi_exact, 0.0, beyond)],
+                              axis=1)
+        w = np.concatenate([edges[:, :1], edges[:, -1:], np.where(self.finite, self.w_top, 0.0)],
+                           axis=1)
+        with np.errstate(over="ignore"):
+            x = np.exp(w * self.b + self.a)
         x[:, -1:] = np.maximum(self.top, 0.0)
-        tilt_w = w[:, :nodes].copy() if self.kind != "bounded" else None
-        log_f = self.std.log_density(w, self.params)
-        with np.errstate(divide="ignore"):
-            log_f[:, nodes:] = np.log(caps)
-        dens = np.exp(log_f)
-        dens *= weight
-        self._check_mass(dens[:, :nodes], z_lo, z_hi)
-        if tilt_w is not None:
-            self._check_tilt(tilt_w, log_f[:, :nodes], weight[:, :nodes], edges)
-        lr = np.asarray(log_rr(x, rows), dtype=float)
-        if not (lr.flags.writeable and lr.flags.owndata):
-            lr = lr.copy()
-        with np.errstate(over="ignore", invalid="ignore"):
+        lr = np.array(f.log_rr(x, f.rows), dtype=float)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             top_excess = np.expm1(lr[:, -1:])
-            lr[:, -1] = 0.0
-            return _weighted_excess(lr, log_f, weight, dens), top_excess
+            ends = _weighted_excess(lr[:, :2], np.log(caps), np.ones_like(caps), caps)
+        return body + ends, top_excess
 
-    def _check_mass(self, dens: FloatArray, z_lo: FloatArray, z_hi: FloatArray) -> None:
-        want = between(z_lo, z_hi)[:, 0]
-        gap = np.abs(dens.sum(axis=1) - want)
+    def _nodes(self, f: _Integrand, groups: list[_Group]
+               ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
+        """Sums over the nodes per draw: of the integrand times the weighted
+        density, of the weighted density (the mass check) and, for a growing
+        integrand, of the growth bound times it (the tilt check)."""
+        d = self.params.shape[0]
+        n = sum(g.half.shape[1] * g.xi.size for g in groups)
+        step = max(1, min(d, CHUNK_VALUES // n))
+        body, mass = np.empty(d), np.empty(d)
+        tilted = None if self.kind == "bounded" else np.empty(d)
+        buffers = [np.empty((step, n)) for _ in range(4)]
+        ones = np.ones(n)
+        scale = np.exp(self.std.log_norm(self.params))
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for lo in range(0, d, step):
+                hi = min(d, lo + step)
+                sub = slice(lo, hi)
+                w, weight, x, dens = (b[:hi - lo] for b in buffers)
+                col = 0
+                for g in groups:
+                    q = g.half.shape[1] * g.xi.size
+                    shape = (hi - lo, g.half.shape[1], g.xi.size)
+                    wv = w[:, col:col + q].reshape(shape)
+                    np.multiply(g.half[sub, :, None], g.xi, out=wv)
+                    wv += g.mid[sub, :, None]
+                    np.multiply((g.half[sub] * scale[sub])[:, :, None], g.wi,
+                                out=weight[:, col:col + q].reshape(shape))
+                    col += q
+                np.multiply(w, self.b[sub], out=x)
+                x += self.a[sub]
+                np.exp(x, out=x)
+                if tilted is not None:
+                    w_nodes = w.copy()
+                log_f = self.std.kernel(w, x, self.params[sub])
+                np.exp(log_f, out=dens)
+                dens *= weight
+                mass[sub] = dens @ ones
+                rows = slice(f.rows.start + lo, f.rows.start + hi)
+                if tilted is not None:
+                    tilted[sub] = self._tilt_sum(w_nodes, log_f, weight, sub)
+                body[sub] = f.weighted(x, rows, log_f, weight, dens, ones)
+        return body, mass, tilted
+
+    def _tilt_sum(self, w: FloatArray, log_f: FloatArray, weight: FloatArray,
+                  sub: slice) -> FloatArray:
+        log_g = _tilt_exponent(self.std.family.name, self.kind, self.rate[sub, None],
+                               self.params[sub], self.b[sub])
+        if log_g is None:
+            return np.zeros(w.shape[0])
+        t = log_g(w)
+        t += log_f
+        np.exp(t, out=t)
+        t *= weight
+        return cast(FloatArray, t.sum(axis=1))
+
+    def _check_mass(self, got: FloatArray, want: FloatArray) -> None:
+        gap = np.abs(got - want)
         if np.any(gap > MASS_TOLERANCE):
             raise ConvergenceError(
                 f"quadrature recovered the {self.std.family.name} distribution's probability "
                 f"only to {float(gap.max()):.1e}; parameters are too extreme for the fixed rule")
 
-    def _check_tilt(self, w: FloatArray, log_f: FloatArray, weight: FloatArray,
-                    edges: FloatArray) -> None:
+    def _check_tilt(self, got: FloatArray, edges: FloatArray) -> None:
         """The growth bound's expectation over the window, nodes against closed form."""
-        pair = _tilted_mass(self.std.family.name, self.kind, self.rate[:, None], self.params,
-                            self.a, self.b, edges[:, :1], edges[:, -1:])
-        if pair is None:
+        ref = _tilted_mass(self.std.family.name, self.kind, self.rate[:, None], self.params,
+                           self.b, edges[:, :1], edges[:, -1:])
+        if ref is None:
             return
-        log_g, ref = pair
         with np.errstate(over="ignore", invalid="ignore"):
-            got = (np.exp(log_g(w) + log_f) * weight).sum(axis=1)
             rel = np.abs(got / ref[:, 0] - 1.0)
         rel = np.where(ref[:, 0] > 0, rel, 0.0)
         if np.any(rel > TILT_TOLERANCE) or np.any(np.isnan(rel)):
@@ -366,11 +452,28 @@ def _no_nan(z: FloatArray, w: FloatArray) -> FloatArray:
     return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
 
 
-def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: FloatArray,
-                 b: FloatArray, w_lo: FloatArray, w_hi: FloatArray
-                 ) -> tuple[Callable[[FloatArray], FloatArray], FloatArray] | None:
-    r"""The log growth bound ``g`` in ``w`` (up to a constant) and
-    :math:`\int_{w_{lo}}^{w_{hi}} g\, f_W` in closed form, by completing the
+def _tilt_exponent(name: str, kind: str, r: FloatArray, params: FloatArray,
+                   b: FloatArray) -> Callable[[FloatArray], FloatArray] | None:
+    """The log growth bound ``g`` in ``w`` (up to a constant) of
+    :func:`_tilted_mass`; ``None`` where that has no closed form."""
+    if name == "lognormal" and kind == "power":
+        rs = r * b
+        return lambda w: rs * w
+    if name == "gamma":
+        if kind == "power":
+            return lambda w: r * w
+        ct = r * params[:, 1:2]
+        return lambda w: ct * np.exp(w)
+    if name == "weibull" and kind == "power":
+        q = r * b
+        return lambda w: q * w
+    return None
+
+
+def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, b: FloatArray,
+                 w_lo: FloatArray, w_hi: FloatArray) -> FloatArray | None:
+    r""":math:`\int_{w_{lo}}^{w_{hi}} g\, f_W` in closed form, with ``g`` the
+    growth bound of :func:`_tilt_exponent`, by completing the
     square (lognormal, power growth :math:`x^r`: :math:`e^{r^2 s^2/2}
     [\Phi(z_{hi} - rs) - \Phi(z_{lo} - rs)]`), or from the gamma integral
     (gamma, :math:`y^r`: :math:`\Gamma(k+r)/\Gamma(k)\,[P(k+r, y_{hi}) -
@@ -383,19 +486,17 @@ def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: Flo
         y_lo, y_hi = np.exp(w_lo), np.exp(w_hi)
     if name == "lognormal" and kind == "power":
         rs = r * b
-        return (lambda w: rs * w), np.exp(0.5 * rs * rs) * between(w_lo - rs, w_hi - rs)
+        return cast(FloatArray, np.exp(0.5 * rs * rs) * between(w_lo - rs, w_hi - rs))
     if name == "gamma":
         k = params[:, :1]
         if kind == "power":
-            ref = poch(k, r) * gamma_between(k + r, y_lo, y_hi)
-            return (lambda w: r * w), ref
+            return cast(FloatArray, poch(k, r) * gamma_between(k + r, y_lo, y_hi))
         ct = r * params[:, 1:2]
-        ref = np.exp(-k * np.log1p(-ct)) * gamma_between(k, y_lo * (1 - ct), y_hi * (1 - ct))
-        return (lambda w: ct * np.exp(w)), ref
+        return cast(FloatArray, np.exp(-k * np.log1p(-ct))
+                    * gamma_between(k, y_lo * (1 - ct), y_hi * (1 - ct)))
     if name == "weibull" and kind == "power":
         q = r * b
-        ref = np.exp(gammaln(1 + q)) * gamma_between(1 + q, y_lo, y_hi)
-        return (lambda w: q * w), ref
+        return cast(FloatArray, np.exp(gammaln(1 + q)) * gamma_between(1 + q, y_lo, y_hi))
     return None
 
 

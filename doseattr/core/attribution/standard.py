@@ -32,6 +32,7 @@ from numpy.typing import NDArray
 from scipy.special import gammainc, gammaincc, log_ndtr, ndtr, ndtri
 
 from doseattr.core.exposure.base import Family
+from doseattr.core.exposure.gamma import stirling_correction
 from doseattr.core.exposure.incomplete_gamma import _log_lower_quantile, _log_upper_quantile
 
 FloatArray = NDArray[np.float64]
@@ -46,8 +47,10 @@ _LOG_SQRT_2PI = 0.5 * np.log(2 * np.pi)
 
 
 def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
-    """Phi(hi) - Phi(lo) on the side of zero that keeps precision."""
-    return cast(FloatArray, np.where(lo > 0, ndtr(-lo) - ndtr(-hi), ndtr(hi) - ndtr(lo)))
+    """Phi(hi) - Phi(lo) on the side of zero that keeps precision (for
+    ``lo > 0`` as ``Phi(-lo) - Phi(-hi)``)."""
+    sign = np.where(lo > 0, -1.0, 1.0)
+    return cast(FloatArray, sign * (ndtr(sign * hi) - ndtr(sign * lo)))
 
 
 class Standard(ABC):
@@ -65,8 +68,21 @@ class Standard(ABC):
         """``(a, b)``, each ``(d, 1)``, with ``ln x = a + b w``."""
 
     @abstractmethod
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray) -> FloatArray:
+        """Log density of ``W`` at ``w`` ``(d, n)`` less :meth:`log_norm`,
+        given the doses ``x = exp(a + b w)`` too (may overwrite ``w``, not ``x``)."""
+
+    @abstractmethod
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        """The log density's part that depends on the draw alone ``(d, 1)``."""
+
     def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        """Log density of ``W`` at ``w`` ``(d, n)`` (may overwrite ``w``)."""
+        """Log density of ``W`` at ``w`` ``(d, n)``."""
+        a, b = self.affine(params)
+        with np.errstate(over="ignore"):
+            x = np.exp(a + b * w)
+        return cast(FloatArray, self.kernel(np.array(w, dtype=float), x, params)
+                    + self.log_norm(params))
 
     @abstractmethod
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
@@ -103,11 +119,13 @@ class LogNormalStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, :1]), np.log(params[:, 1:2])
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray) -> FloatArray:
         w *= w
         w *= -0.5
-        w -= _LOG_SQRT_2PI
         return w
+
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        return np.full((params.shape[0], 1), -_LOG_SQRT_2PI)
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return w
@@ -123,11 +141,14 @@ class WeibullStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), 1.0 / params[:, :1]
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(over="ignore"):
             e = np.exp(w)
         w -= e
         return w
+
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        return np.zeros((params.shape[0], 1))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(over="ignore"):
@@ -188,9 +209,21 @@ class GammaStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        unit = np.column_stack([params[:, 0], np.ones(params.shape[0])])
-        return self.family.log_density_log(w, unit)
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray) -> FloatArray:
+        r""":math:`-k\,(\mathrm{expm1}(v) - v)`, :math:`v = w - \ln k`: the
+        gamma log density written about its mode (see
+        :meth:`doseattr.core.exposure.gamma.Gamma.log_density_log`)."""
+        k = params[:, :1]
+        w -= np.log(k)
+        with np.errstate(over="ignore", invalid="ignore"):
+            e = np.expm1(w)
+        e -= w
+        e *= -k
+        return cast(FloatArray, e)
+
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        k = params[:, :1]
+        return cast(FloatArray, 0.5 * np.log(k) - _LOG_SQRT_2PI - stirling_correction(k))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         k = params[:, :1]
