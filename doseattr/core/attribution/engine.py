@@ -203,6 +203,35 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
     return groups
 
 
+class _PanelSums:
+    """Weighted row sums of node values ``(d, N)`` laid out as the groups'
+    panels: :math:`\sum_p h_p \sum_i w_i v_{pi}`, with ``factors`` the
+    panels' :math:`h_p` ``(d, P)`` per group."""
+
+    def __init__(self, groups: list[_Group], factors: list[FloatArray]) -> None:
+        self.groups, self.factors = groups, factors
+
+    def __call__(self, v: FloatArray) -> FloatArray:
+        total: FloatArray | None = None
+        col = 0
+        for g, h in zip(self.groups, self.factors, strict=True):
+            q = h.shape[1] * g.xi.size
+            if q == v.shape[1]:
+                part = (v.reshape(-1, g.xi.size) @ g.wi).reshape(v.shape[0], -1)
+            else:
+                part = v[:, col:col + q].reshape(v.shape[0], h.shape[1], g.xi.size) @ g.wi
+            s = part[:, 0] * h[:, 0] if h.shape[1] == 1 else np.einsum("ij,ij->i", part, h)
+            total = s if total is None else total + s
+            col += q
+        assert total is not None
+        return total
+
+    def weights(self) -> FloatArray:
+        """The node weights ``(d, N)``."""
+        return np.concatenate([(h[:, :, None] * g.wi).reshape(h.shape[0], -1)
+                               for g, h in zip(self.groups, self.factors, strict=True)], axis=1)
+
+
 class _Integrand:
     """``expm1(L)`` at the nodes of a block of draws ``rows``: directly where
     an ``excess`` function is given, else (and where its values are too
@@ -211,16 +240,24 @@ class _Integrand:
     def __init__(self, log_rr: LogRisk, excess: Excess | None, rows: slice) -> None:
         self.log_rr, self.excess, self.rows = log_rr, excess, rows
 
-    def weighted(self, x: FloatArray, rows: slice, log_f: FloatArray, weight: FloatArray,
-                 dens: FloatArray, ones: FloatArray) -> FloatArray:
-        """Row sums of expm1(L(x)) * dens, with dens = exp(log_f) * weight."""
-        if self.excess is not None:
+    def direct(self, x: FloatArray, rows: slice) -> FloatArray | None:
+        """expm1(L(x)) from ``excess``, if given and small enough."""
+        if self.excess is None:
+            return None
+        with np.errstate(over="ignore", invalid="ignore"):
             e = self.excess(x, rows, np.empty_like(x))
-            if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT:
-                e *= dens
-                return cast(FloatArray, e @ ones)
+        return e if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT else None
+
+    def weighted(self, x: FloatArray, rows: slice, log_f: FloatArray, dens: FloatArray,
+                 sums: _PanelSums) -> FloatArray:
+        """Weighted row sums of expm1(L(x)) exp(log_f), with dens = exp(log_f)."""
+        e = self.direct(x, rows)
+        if e is not None:
+            e *= dens
+            return sums(e)
         lr = np.array(self.log_rr(x, rows), dtype=float)
-        return _weighted_excess(lr, log_f, weight, dens)
+        weight = sums.weights()
+        return _weighted_excess(lr, log_f, weight, dens * weight)
 
 
 class _Block:
@@ -230,15 +267,14 @@ class _Block:
                  low: FloatArray, tilt: FloatArray | None, kind: str, rate: FloatArray) -> None:
         self.std, self.params, self.kind, self.rate = std, params, kind, rate
         self.a, self.b = std.affine(params)
-        with np.errstate(divide="ignore"):
-            self.w_low = (np.log(np.maximum(low, 0.0))[:, None] - self.a) / self.b
-            self.w_top = (np.log(np.maximum(top, 0.0))[:, None] - self.a) / self.b
-            self.w_kinks = (np.log(np.maximum(kinks, 0.0)) - self.a) / self.b
+        self.w_low = (_log_dose(low[:, None]) - self.a) / self.b
+        self.w_top = (_log_dose(top[:, None]) - self.a) / self.b
+        self.w_kinks = (_log_dose(kinks) - self.a) / self.b
         self.finite = np.isfinite(top)[:, None]
         self.top = np.where(self.finite, top[:, None], 1.0)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             self.z_low = _no_nan(std.zeta_low(self.w_low, params), self.w_low)
-            z_top, self.log_sf_top = std.zeta_top(self.w_top, params)
+            z_top, self.sf_top = std.zeta_top(self.w_top, params)
         self.z_top = _no_nan(z_top, self.w_top)
         self.cap = np.full_like(self.z_top, ZB)
         self.w_tilt = None if tilt is None else (tilt - self.a) / self.b
@@ -277,8 +313,7 @@ class _Block:
         """S(x*), the probability of the flat part (1 when it starts at 0)."""
         if not np.any(self.finite):
             return np.zeros_like(self.w_top)
-        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            sf = np.exp(np.where(self.finite, self.log_sf_top, -np.inf))
+        sf = np.where(self.finite, self.sf_top, 0.0)
         return cast(FloatArray, np.where(self.w_top == -np.inf, 1.0, sf))
 
     def _zwindow(self, cap: FloatArray) -> tuple[FloatArray, FloatArray, BoolArray, BoolArray]:
@@ -304,15 +339,21 @@ class _Block:
                            np.ceil((t_hi - t_lo) / LOG_DOSE_WIDTH - 1e-9))
         count = np.clip(count, 1, MAX_PANELS).astype(int)
         j = np.arange(int(count.max()) + 1)
-        frac = np.minimum(j / count, 1.0)
-        body = self._w_of(z_lo + (z_hi - z_lo) * frac)
-        first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
-                         body[:, :1])
-        last = np.maximum(np.where(hi_exact, self.w_top, body[:, -1:]), first)
-        body = np.clip(np.maximum.accumulate(body, axis=1), first, last)
-        body[:, :1] = first
-        pad = j[None, :] >= count
-        body[pad] = np.broadcast_to(last, body.shape)[pad]
+        if j.size == 2:
+            # one panel per draw: from the window's start to its end
+            ends = self._w_of(np.concatenate([z_lo, z_lo + (z_hi - z_lo)], axis=1))
+            first, last = self._first_last(ends[:, :1], ends[:, 1:], lo_exact, hi_exact)
+            body = np.concatenate([first, last], axis=1)
+        else:
+            frac = np.minimum(j / count, 1.0)
+            body = self._w_of(z_lo + (z_hi - z_lo) * frac)
+            first, last = self._first_last(body[:, :1], body[:, -1:], lo_exact, hi_exact)
+            for col in range(1, body.shape[1]):
+                # a running maximum over the few columns (faster than accumulate)
+                np.maximum(body[:, col], body[:, col - 1], out=body[:, col])
+            np.clip(body, first, last, out=body)
+            body[:, :1] = first
+            np.copyto(body, last, where=j[None, :] >= count)
         z_end = z_hi
         if self.w_tilt is not None:
             # the tilted body beyond the equal-score panels: its own breaks
@@ -326,15 +367,22 @@ class _Block:
             z_end = np.where(grow, np.minimum(self._zeta(last), Z_MAX), z_hi)
             # no constant cap beyond the tilted breaks: the integrand grows there
             hi_exact = hi_exact | grow
-        gaps = np.diff(body, axis=1)
-        narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
         cuts = np.concatenate([self.w_kinks, self.std.extra_breaks(self.params)], axis=1)
         inside = (cuts > first) & (cuts < last)
         cuts = np.clip(cuts[:, inside.any(axis=0)], first, last)
         window = (z_lo, z_end, lo_exact, hi_exact)
         if cuts.shape[1] == 0 and self.w_tilt is None:
             return body, None, window
+        gaps = np.diff(body, axis=1)
+        narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
         return np.sort(np.concatenate([body, cuts], axis=1), axis=1), narrowest, window
+
+    def _first_last(self, start: FloatArray, end: FloatArray, lo_exact: BoolArray,
+                    hi_exact: BoolArray) -> tuple[FloatArray, FloatArray]:
+        """The first and last edges: the window's exact ends where they are."""
+        first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
+                         start)
+        return first, np.maximum(np.where(hi_exact, self.w_top, end), first)
 
     def _window(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
                 cap: FloatArray) -> tuple[FloatArray, FloatArray]:
@@ -363,6 +411,9 @@ class _Block:
         with np.errstate(over="ignore"):
             x = np.exp(w * self.b + self.a)
         x[:, -1:] = np.maximum(self.top, 0.0)
+        e = f.direct(x, f.rows)
+        if e is not None:
+            return body + np.einsum("ij,ij->i", e[:, :2], caps), e[:, -1:]
         lr = np.array(f.log_rr(x, f.rows), dtype=float)
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             top_excess = np.expm1(lr[:, -1:])
@@ -379,23 +430,22 @@ class _Block:
         step = max(1, min(d, CHUNK_VALUES // n))
         body, mass = np.empty(d), np.empty(d)
         tilted = None if self.kind == "bounded" else np.empty(d)
-        buffers = [np.empty((step, n)) for _ in range(4)]
-        ones = np.ones(n)
+        buffers = [np.empty((step, n)) for _ in range(3)]
         scale = np.exp(self.std.log_norm(self.params))
+        # a panel's weights are its half-width (times the density's
+        # normaliser) times the rule's: node sums go panel by panel
+        factors = [g.half * scale for g in groups]
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             for lo in range(0, d, step):
                 hi = min(d, lo + step)
                 sub = slice(lo, hi)
-                w, weight, x, dens = (b[:hi - lo] for b in buffers)
+                w, x, dens = (b[:hi - lo] for b in buffers)
                 col = 0
                 for g in groups:
                     q = g.half.shape[1] * g.xi.size
-                    shape = (hi - lo, g.half.shape[1], g.xi.size)
-                    wv = w[:, col:col + q].reshape(shape)
+                    wv = w[:, col:col + q].reshape(hi - lo, g.half.shape[1], g.xi.size)
                     np.multiply(g.half[sub, :, None], g.xi, out=wv)
                     wv += g.mid[sub, :, None]
-                    np.multiply((g.half[sub] * scale[sub])[:, :, None], g.wi,
-                                out=weight[:, col:col + q].reshape(shape))
                     col += q
                 np.multiply(w, self.b[sub], out=x)
                 x += self.a[sub]
@@ -404,15 +454,15 @@ class _Block:
                     w_nodes = w.copy()
                 log_f = self.std.kernel(w, x, self.params[sub])
                 np.exp(log_f, out=dens)
-                dens *= weight
-                mass[sub] = dens @ ones
+                sums = _PanelSums(groups, [h[sub] for h in factors])
+                mass[sub] = sums(dens)
                 rows = slice(f.rows.start + lo, f.rows.start + hi)
                 if tilted is not None:
-                    tilted[sub] = self._tilt_sum(w_nodes, log_f, weight, sub)
-                body[sub] = f.weighted(x, rows, log_f, weight, dens, ones)
+                    tilted[sub] = self._tilt_sum(w_nodes, log_f, sums, sub)
+                body[sub] = f.weighted(x, rows, log_f, dens, sums)
         return body, mass, tilted
 
-    def _tilt_sum(self, w: FloatArray, log_f: FloatArray, weight: FloatArray,
+    def _tilt_sum(self, w: FloatArray, log_f: FloatArray, sums: _PanelSums,
                   sub: slice) -> FloatArray:
         log_g = _tilt_exponent(self.std.family.name, self.kind, self.rate[sub, None],
                                self.params[sub], self.b[sub])
@@ -421,8 +471,7 @@ class _Block:
         t = log_g(w)
         t += log_f
         np.exp(t, out=t)
-        t *= weight
-        return cast(FloatArray, t.sum(axis=1))
+        return sums(t)
 
     def _check_mass(self, got: FloatArray, want: FloatArray) -> None:
         gap = np.abs(got - want)
@@ -447,8 +496,19 @@ class _Block:
                 f"(relative); parameters are too extreme for the fixed rule")
 
 
+def _log_dose(x: FloatArray) -> FloatArray:
+    """``ln max(x, 0)`` of doses ``(d, K)``, once when all rows are alike
+    (a shared level or kink)."""
+    if x.shape[0] > 1 and (x.strides[0] == 0 or bool(np.all(x == x[:1]))):
+        return np.broadcast_to(_log_dose(x[:1]), x.shape)
+    with np.errstate(divide="ignore"):
+        return cast(FloatArray, np.log(np.maximum(x, 0.0)))
+
+
 def _no_nan(z: FloatArray, w: FloatArray) -> FloatArray:
     """A normal score with NaN (from an infinite ``w``) set to +-inf."""
+    if not np.isnan(z).any():
+        return z
     return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
 
 

@@ -101,8 +101,10 @@ class Standard(ABC):
         return self.zeta(w, params)
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        """:meth:`zeta` (its upper tail in full precision) and :meth:`log_sf`."""
-        return self.zeta(w, params), self.log_sf(w, params)
+        """:meth:`zeta` (its upper tail in full precision) and the survival
+        probability beyond ``w``."""
+        with np.errstate(over="ignore"):
+            return self.zeta(w, params), np.exp(self.log_sf(w, params))
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Panel width in the normal score per draw ``(d, 1)``."""
@@ -135,6 +137,9 @@ class LogNormalStandard(Standard):
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return cast(FloatArray, log_ndtr(-w))
+
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        return w, cast(FloatArray, ndtr(-w))
 
 
 class WeibullStandard(Standard):
@@ -261,7 +266,7 @@ class GammaStandard(Standard):
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         with np.errstate(over="ignore", divide="ignore"):
             q = gammaincc(params[:, :1], np.exp(w))
-            return cast(FloatArray, -ndtri(q)), cast(FloatArray, np.log(q))
+            return cast(FloatArray, -ndtri(q)), cast(FloatArray, q)
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Narrower panels for a small shape, whose density in ``w`` has a
