@@ -189,47 +189,54 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
         return [_Group(mid, half, *rules[0])]
     groups = []
     kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
+    if bool(np.all(kind == kind[:1])):
+        # the same rules in the same columns for every draw
+        for group, (xi, wi) in enumerate(rules):
+            cols = np.flatnonzero(kind[0] == group)
+            if cols.size:
+                groups.append(_Group(mid[:, cols], half[:, cols], xi, wi))
+        return groups or [_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1])]
     for group, (xi, wi) in enumerate(rules):
-        order = np.argsort(kind != group, axis=1, kind="stable")
-        n = int((kind == group).sum(axis=1).max())
+        mask = kind == group
+        counts = mask.sum(axis=1)
+        n = int(counts.max())
         if n == 0:
             continue
-        take = order[:, :n]
-        h = np.take_along_axis(half, take, axis=1)
-        h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
-        groups.append(_Group(np.take_along_axis(mid, take, axis=1), h, xi, wi))
+        # each draw's panels of this group, in order, to the left
+        src = np.flatnonzero(mask)
+        row = src // mask.shape[1]
+        dst = row * n + (np.arange(src.size) - (np.cumsum(counts) - counts)[row])
+        h = np.zeros((mask.shape[0], n))
+        m = np.repeat(mid[:, :1], n, axis=1)
+        h.ravel()[dst] = half.ravel()[src]
+        m.ravel()[dst] = mid.ravel()[src]
+        groups.append(_Group(m, h, xi, wi))
     if not groups:
         groups.append(_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1]))
     return groups
 
 
 class _PanelSums:
-    """Weighted row sums of node values ``(d, N)`` laid out as the groups'
-    panels: :math:`\sum_p h_p \sum_i w_i v_{pi}`, with ``factors`` the
-    panels' :math:`h_p` ``(d, P)`` per group."""
+    """Weighted row sums of a group's node values ``(d, P n)``:
+    :math:`\sum_p h_p \sum_i w_i v_{pi}`, with ``factors`` the panels'
+    :math:`h_p` ``(d, P)``."""
 
-    def __init__(self, groups: list[_Group], factors: list[FloatArray]) -> None:
-        self.groups, self.factors = groups, factors
+    def __init__(self, group: _Group, factors: FloatArray) -> None:
+        self.wi, self.factors = group.wi, factors
 
     def __call__(self, v: FloatArray) -> FloatArray:
-        total: FloatArray | None = None
-        col = 0
-        for g, h in zip(self.groups, self.factors, strict=True):
-            q = h.shape[1] * g.xi.size
-            if q == v.shape[1]:
-                part = (v.reshape(-1, g.xi.size) @ g.wi).reshape(v.shape[0], -1)
-            else:
-                part = v[:, col:col + q].reshape(v.shape[0], h.shape[1], g.xi.size) @ g.wi
-            s = part[:, 0] * h[:, 0] if h.shape[1] == 1 else np.einsum("ij,ij->i", part, h)
-            total = s if total is None else total + s
-            col += q
-        assert total is not None
-        return total
+        h = self.factors
+        # v is node-major in memory: the rule's weights meet it as a matrix
+        part = self.wi @ v.T.reshape(h.shape[1], self.wi.size, h.shape[0])
+        if h.shape[1] == 1:
+            return cast(FloatArray, part[0] * h[:, 0])
+        part *= h.T
+        return cast(FloatArray, part.sum(axis=0))
 
     def weights(self) -> FloatArray:
-        """The node weights ``(d, N)``."""
-        return np.concatenate([(h[:, :, None] * g.wi).reshape(h.shape[0], -1)
-                               for g, h in zip(self.groups, self.factors, strict=True)], axis=1)
+        """The node weights ``(d, P n)``."""
+        h = self.factors
+        return cast(FloatArray, (h[:, :, None] * self.wi).reshape(h.shape[0], -1))
 
 
 class _Integrand:
@@ -369,7 +376,9 @@ class _Block:
             hi_exact = hi_exact | grow
         cuts = np.concatenate([self.w_kinks, self.std.extra_breaks(self.params)], axis=1)
         inside = (cuts > first) & (cuts < last)
-        cuts = np.clip(cuts[:, inside.any(axis=0)], first, last)
+        cuts = cuts[:, inside.any(axis=0)]
+        if cuts.shape[1]:
+            cuts = np.clip(cuts, first, last)
         window = (z_lo, z_end, lo_exact, hi_exact)
         if cuts.shape[1] == 0 and self.w_tilt is None:
             return body, None, window
@@ -396,20 +405,20 @@ class _Block:
         # window was cut at the body (the integrand held at its value there,
         # not dropped), and the flat point x*
         below = ndtr(z_lo)
-        above = ndtr(-z_hi)
+        # Phi(-z*) is the flat part's probability, known: where the window
+        # ends there, and beyond a window cut at the body
+        at_top = self.finite & (z_hi == self.z_top)
+        above = self.sf_top if np.all(at_top) else np.where(at_top, self.sf_top, ndtr(-z_hi))
         self._check_mass(mass, (1.0 - below[:, 0]) - above[:, 0])
         if tilted is not None:
             self._check_tilt(tilted, edges)
-        if np.all(self.finite):
-            beyond = above - ndtr(-np.maximum(self.z_top, z_hi))
-        else:
-            beyond = np.where(self.finite, above - ndtr(-np.maximum(self.z_top, z_hi)), above)
+        beyond = np.where(self.finite, np.where(self.z_top > z_hi, above - self.sf_top, 0.0),
+                          above)
         caps = np.concatenate([np.where(lo_exact, 0.0, below), np.where(hi_exact, 0.0, beyond)],
                               axis=1)
-        w = np.concatenate([edges[:, :1], edges[:, -1:], np.where(self.finite, self.w_top, 0.0)],
-                           axis=1)
+        x = np.empty_like(caps, shape=(caps.shape[0], 3))
         with np.errstate(over="ignore"):
-            x = np.exp(w * self.b + self.a)
+            np.exp(edges[:, ::edges.shape[1] - 1] * self.b + self.a, out=x[:, :2])
         x[:, -1:] = np.maximum(self.top, 0.0)
         e = f.direct(x, f.rows)
         if e is not None:
@@ -426,40 +435,39 @@ class _Block:
         density, of the weighted density (the mass check) and, for a growing
         integrand, of the growth bound times it (the tilt check)."""
         d = self.params.shape[0]
-        n = sum(g.half.shape[1] * g.xi.size for g in groups)
-        step = max(1, min(d, CHUNK_VALUES // n))
-        body, mass = np.empty(d), np.empty(d)
-        tilted = None if self.kind == "bounded" else np.empty(d)
-        buffers = [np.empty((step, n)) for _ in range(3)]
+        body, mass = np.zeros(d), np.zeros(d)
+        tilted = None if self.kind == "bounded" else np.zeros(d)
         scale = np.exp(self.std.log_norm(self.params))
-        # a panel's weights are its half-width (times the density's
-        # normaliser) times the rule's: node sums go panel by panel
-        factors = [g.half * scale for g in groups]
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            for lo in range(0, d, step):
-                hi = min(d, lo + step)
-                sub = slice(lo, hi)
-                w, x, dens = (b[:hi - lo] for b in buffers)
-                col = 0
-                for g in groups:
-                    q = g.half.shape[1] * g.xi.size
-                    wv = w[:, col:col + q].reshape(hi - lo, g.half.shape[1], g.xi.size)
+            for g in groups:
+                g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi)
+                # a panel's weights are its half-width (times the density's
+                # normaliser) times the rule's: node sums go panel by panel
+                factors = g.half * scale
+                shape = (g.half.shape[1], g.xi.size)
+                n = shape[0] * shape[1]
+                step = max(1, min(d, CHUNK_VALUES // n))
+                # node-major: each node's values over the draws are contiguous,
+                # so per-draw coefficients broadcast along whole rows
+                buffers = [np.empty((n, step)).T for _ in range(3)]
+                for lo in range(0, d, step):
+                    hi = min(d, lo + step)
+                    sub = slice(lo, hi)
+                    w, x, dens = (b[:hi - lo] for b in buffers)
+                    wv = w.reshape(hi - lo, *shape)
                     np.multiply(g.half[sub, :, None], g.xi, out=wv)
                     wv += g.mid[sub, :, None]
-                    col += q
-                np.multiply(w, self.b[sub], out=x)
-                x += self.a[sub]
-                np.exp(x, out=x)
-                if tilted is not None:
-                    w_nodes = w.copy()
-                log_f = self.std.kernel(w, x, self.params[sub])
-                np.exp(log_f, out=dens)
-                sums = _PanelSums(groups, [h[sub] for h in factors])
-                mass[sub] = sums(dens)
-                rows = slice(f.rows.start + lo, f.rows.start + hi)
-                if tilted is not None:
-                    tilted[sub] = self._tilt_sum(w_nodes, log_f, sums, sub)
-                body[sub] = f.weighted(x, rows, log_f, dens, sums)
+                    _doses(x.reshape(hi - lo, *shape), g, sub, self.a[sub], self.b[sub], w)
+                    if tilted is not None:
+                        w_nodes = w.copy()
+                    log_f = self.std.kernel(w, x, self.params[sub])
+                    np.exp(log_f, out=dens)
+                    sums = _PanelSums(g, factors[sub])
+                    mass[sub] += sums(dens)
+                    rows = slice(f.rows.start + lo, f.rows.start + hi)
+                    if tilted is not None:
+                        tilted[sub] += self._tilt_sum(w_nodes, log_f, sums, sub)
+                    body[sub] += f.weighted(x, rows, log_f, dens, sums)
         return body, mass, tilted
 
     def _tilt_sum(self, w: FloatArray, log_f: FloatArray, sums: _PanelSums,
@@ -494,6 +502,34 @@ class _Block:
                 f"quadrature recovered the expected growth of the relative risk over the "
                 f"{self.std.family.name} distribution only to {float(np.nanmax(rel)):.1e} "
                 f"(relative); parameters are too extreme for the fixed rule")
+
+
+#: Largest |ln x| at a panel's midpoint for which its doses are formed as
+#: products (below the exponential's overflow, with room for the half-width).
+_PRODUCT_LOG_DOSE = 700.0
+
+
+def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
+           w: FloatArray) -> None:
+    r"""The doses :math:`x = e^{a + b w}` at a group's nodes into ``x``
+    ``(d, P, n)``. The rule's nodes are symmetric, :math:`\xi_{n-1-i} =
+    -\xi_i`, so with :math:`c = a + b\,m_p` and :math:`q_i = e^{b h_p \xi_i}`
+    the pair is :math:`e^c q_i` and :math:`e^c / q_i`: half the exponentials.
+    Where a midpoint's dose is near the float range, directly from ``w``."""
+    n = g.xi.size
+    c = g.mid[sub] * b
+    c += a
+    if n % 2 or np.abs(c).max(initial=0.0) > _PRODUCT_LOG_DOSE:
+        np.multiply(w, b, out=x.reshape(w.shape))
+        x += a[:, :, None]
+        np.exp(x, out=x)
+        return
+    half = n // 2
+    q = np.multiply((g.half[sub] * b)[:, :, None], g.xi[half:], out=x[:, :, half:])
+    np.exp(q, out=q)
+    np.exp(c, out=c)
+    np.divide(c[:, :, None], q[:, :, ::-1], out=x[:, :, :half])
+    q *= c[:, :, None]
 
 
 def _log_dose(x: FloatArray) -> FloatArray:
