@@ -217,7 +217,7 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
 
 
 class _PanelSums:
-    """Weighted row sums of a group's node values ``(d, P n)``:
+    r"""Weighted row sums of a group's node values ``(d, P n)``:
     :math:`\sum_p h_p \sum_i w_i v_{pi}`, with ``factors`` the panels'
     :math:`h_p` ``(d, P)``."""
 
@@ -376,7 +376,7 @@ class _Block:
             hi_exact = hi_exact | grow
         cuts = np.concatenate([self.w_kinks, self.std.extra_breaks(self.params)], axis=1)
         inside = (cuts > first) & (cuts < last)
-        cuts = cuts[:, inside.any(axis=0)]
+        cuts = cuts[:, inside.any(axis=0)] if inside.any() else cuts[:, :0]
         if cuts.shape[1]:
             cuts = np.clip(cuts, first, last)
         window = (z_lo, z_end, lo_exact, hi_exact)
@@ -417,9 +417,14 @@ class _Block:
         caps = np.concatenate([np.where(lo_exact, 0.0, below), np.where(hi_exact, 0.0, beyond)],
                               axis=1)
         x = np.empty_like(caps, shape=(caps.shape[0], 3))
+        x[:, -1:] = np.maximum(self.top, 0.0)
+        if not caps.any():
+            # both ends exact: only the flat point's value is needed
+            e = f.direct(x[:, -1:], f.rows)
+            if e is not None:
+                return body, e
         with np.errstate(over="ignore"):
             np.exp(edges[:, ::edges.shape[1] - 1] * self.b + self.a, out=x[:, :2])
-        x[:, -1:] = np.maximum(self.top, 0.0)
         e = f.direct(x, f.rows)
         if e is not None:
             return body + np.einsum("ij,ij->i", e[:, :2], caps), e[:, -1:]
