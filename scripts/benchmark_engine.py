@@ -141,25 +141,36 @@ def bare_exp(values: float, repeats: int, chunk: int = 32_768) -> float:
 
 
 def values_per_integral(case: Case, strata: int = 3) -> float:
-    """Values of log RR the engine evaluates per integral (separate pass)."""
+    """Values of the integrand (log RR, or RR - 1 in the engine's direct
+    form) the engine evaluates per integral (separate pass)."""
     count = [0]
-    original = fractions._log_rr_m
+    originals = fractions._log_rr_m, fractions._excess_m
 
-    def counting(*args, **kwargs):
-        inner = original(*args, **kwargs)
+    def counting_log_rr(*args, **kwargs):
+        inner = originals[0](*args, **kwargs)
 
         def log_rr(x, rows):
             count[0] += np.size(x)
             return inner(x, rows)
         return log_rr
 
-    fractions._log_rr_m = counting
+    def counting_excess(*args, **kwargs):
+        inner = originals[1](*args, **kwargs)
+        if inner is None:
+            return None
+
+        def excess(x, rows, out):
+            count[0] += np.size(x)
+            return inner(x, rows, out)
+        return excess
+
+    fractions._log_rr_m, fractions._excess_m = counting_log_rr, counting_excess
     try:
         for p in case.params[:strata]:
             for scn in SCENARIOS:
                 excess_draws(case.curve, case.coef, case.family, p, 0.0, MINIMUM_RISK, scn)
     finally:
-        fractions._log_rr_m = original
+        fractions._log_rr_m, fractions._excess_m = originals
     return count[0] / (case.coef.shape[0] * min(strata, len(case.params)) * len(SCENARIOS))
 
 

@@ -77,7 +77,7 @@ _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
 MAX_PANELS = 48
 #: About this many (draw x node) values are evaluated at once.
-CHUNK_VALUES = 32_768
+CHUNK_VALUES = 16_384
 #: Draws whose windows and panels are placed at once.
 BLOCK_DRAWS = 16_384
 #: Largest expm1(L) taken directly at the nodes (its product with a
@@ -443,6 +443,7 @@ class _Block:
         body, mass = np.zeros(d), np.zeros(d)
         tilted = None if self.kind == "bounded" else np.zeros(d)
         scale = np.exp(self.std.log_norm(self.params))
+        zeros, ones = np.zeros((d, 1)), np.ones((d, 1))
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             for g in groups:
                 g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi)
@@ -454,18 +455,22 @@ class _Block:
                 step = max(1, min(d, CHUNK_VALUES // n))
                 # node-major: each node's values over the draws are contiguous,
                 # so per-draw coefficients broadcast along whole rows
-                buffers = [np.empty((n, step)).T for _ in range(3)]
+                buffers = [np.empty((n, step)).T for _ in range(4 if self.std.uses_exp_w else 3)]
                 for lo in range(0, d, step):
                     hi = min(d, lo + step)
                     sub = slice(lo, hi)
-                    w, x, dens = (b[:hi - lo] for b in buffers)
+                    w, x, dens = (b[:hi - lo] for b in buffers[:3])
                     wv = w.reshape(hi - lo, *shape)
                     np.multiply(g.half[sub, :, None], g.xi, out=wv)
                     wv += g.mid[sub, :, None]
                     _doses(x.reshape(hi - lo, *shape), g, sub, self.a[sub], self.b[sub], w)
                     if tilted is not None:
                         w_nodes = w.copy()
-                    log_f = self.std.kernel(w, x, self.params[sub])
+                    exp_w = None
+                    if self.std.uses_exp_w:
+                        exp_w = buffers[3][:hi - lo]
+                        _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[sub], ones[sub], w)
+                    log_f = self.std.kernel(w, x, self.params[sub], exp_w)
                     np.exp(log_f, out=dens)
                     sums = _PanelSums(g, factors[sub])
                     mass[sub] += sums(dens)
