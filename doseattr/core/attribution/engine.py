@@ -32,8 +32,14 @@ and each panel gets a Gauss-Legendre rule (:func:`scipy.special.roots_legendre`)
 16 nodes, or 8 on a panel much narrower than the body's. No node falls where
 the integrand is zero or constant. Every draw's panels depend on that draw
 alone (draws with fewer panels are padded with empty ones), so a draw gives
-the same result in any chunk. Draws are evaluated in chunks of about
-:data:`CHUNK_VALUES` nodes. Two checks guard the rule: the nodes must recover
+the same result in any chunk. Windows and panels are placed for blocks of
+:data:`BLOCK_DRAWS` draws at once; the nodes are evaluated in chunks of about
+:data:`CHUNK_VALUES` values, held node-major so that per-draw coefficients
+broadcast along contiguous rows. The doses at a symmetric pair of nodes,
+:math:`e^{c \pm d\xi}`, come from one exponential (:func:`_doses`), and a
+caller may give :math:`\mathrm{expm1}(L)` in a direct form (``excess``, e.g.
+no logarithm and exponential for a linear excess-risk curve), with ``log_rr``
+kept for large values. Two checks guard the rule: the nodes must recover
 the probability of the window (to :data:`MASS_TOLERANCE`), and for a growing
 integrand the expectation of the growth bound over the window (closed forms
 in :mod:`.standard`'s families, to :data:`TILT_TOLERANCE` relative). Written
