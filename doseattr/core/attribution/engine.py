@@ -86,6 +86,8 @@ MAX_PANELS = 48
 CHUNK_VALUES = 16_384
 #: Draws whose windows and panels are placed at once.
 BLOCK_DRAWS = 16_384
+#: Runs of draws integrated again up to a far flat point when one needs it.
+REDO_DRAWS = 512
 #: Largest expm1(L) taken directly at the nodes (its product with a
 #: weighted density stays finite); larger values go through ``log_rr``.
 _DIRECT_LIMIT = 1e250
@@ -279,6 +281,7 @@ class _Block:
     def __init__(self, std: Standard, params: FloatArray, kinks: FloatArray, top: FloatArray,
                  low: FloatArray, tilt: FloatArray | None, kind: str, rate: FloatArray) -> None:
         self.std, self.params, self.kind, self.rate = std, params, kind, rate
+        self._inputs = (std, params, kinks, top, low, tilt, kind, rate)
         self.a, self.b = std.affine(params)
         self.w_low = (_log_dose(low[:, None]) - self.a) / self.b
         self.w_top = (_log_dose(top[:, None]) - self.a) / self.b
@@ -296,6 +299,24 @@ class _Block:
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return _no_nan(self.std.zeta(w, self.params), w)
 
+    def _beyond_body(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
+                     body: FloatArray, need: BoolArray) -> FloatArray:
+        """The body again, up to the flat point, for the draws that ``need``
+        it (in runs of :data:`REDO_DRAWS` draws holding one)."""
+        body = body.copy()
+        d = body.size
+        for lo in range(0, d, REDO_DRAWS):
+            hi = min(d, lo + REDO_DRAWS)
+            if not need[lo:hi].any():
+                continue
+            std, params, kinks, top, low, tilt, kind, rate = self._inputs
+            part = _Block(std, params[lo:hi], kinks[lo:hi], top[lo:hi], low[lo:hi],
+                          None if tilt is None else tilt[lo:hi], kind, rate[lo:hi])
+            cap = np.where(need[lo:hi, None], np.minimum(part.z_top, Z_MAX), part.cap)
+            rows = slice(f.rows.start + lo, f.rows.start + hi)
+            body[lo:hi] = part._window(_Integrand(f.log_rr, f.excess, rows), rules, cap)[0]
+        return body
+
     def integrate(self, f: _Integrand,
                   rules: tuple[tuple[FloatArray, FloatArray], ...]) -> FloatArray:
         body, top_excess = self._window(f, rules, self.cap)
@@ -310,8 +331,7 @@ class _Block:
             beyond = bound_top * np.exp(self.std.log_sf(self._w_of(self.cap), self.params))
             need = far & (beyond > FAR_TOLERANCE * np.abs(body[:, None]))
             if np.any(need):
-                cap = np.where(need, np.minimum(self.z_top, Z_MAX), self.cap)
-                body = self._window(f, rules, cap)[0]
+                body = self._beyond_body(f, rules, body, need[:, 0])
         total = body + tail
         if not np.all(np.isfinite(total)):
             raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
