@@ -21,7 +21,8 @@ engine evaluates per integral (counted in a separate pass), a bare
 ``np.exp`` over the same number of values (best of the repeats), the
 largest relative difference from ``scipy.integrate.quad`` on a sample of
 integrals, and for ``general`` the process's peak resident memory
-(getrusage, taken right after that case). The analyst's reference loop runs
+(getrusage, taken right after that case), each beside its goal (``GOALS``,
+``MEMORY_GOAL``), and a summary table. The analyst's reference loop runs
 ``scipy.integrate.quad`` per integral on a sample, split at every kink, in
 two styles: "lean" (integrand from the math module) and "scipy.stats" (the
 density from scipy.stats, the way a quick script is usually written); its
@@ -36,14 +37,17 @@ from __future__ import annotations
 
 import argparse
 import math
+import os
 import platform
 import resource
 import time
 from collections.abc import Callable
+from pathlib import Path
 
 import numpy as np
 from scipy import integrate
 
+import doseattr
 from doseattr.core.attribution import fractions
 from doseattr.core.attribution.fractions import excess_draws
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
@@ -51,6 +55,11 @@ from doseattr.core.curves.base import Curve
 from doseattr.core.curves.linear import LinearExcess
 from doseattr.core.curves.loglinear import LogLinear
 from doseattr.core.exposure.registry import FAMILIES
+
+#: The speed goals, CPU microseconds per integral: the general case, and the
+#: others within twice that; peak resident memory in MiB.
+GOALS = {"general": 0.5, "steep-flat": 1.0, "gamma": 1.0, "weibull": 1.0}
+MEMORY_GOAL = 500
 
 MINIMUM_RISK = 2.0
 SCENARIOS = (None, Cap(15.0, name="cap"), Scale(0.7, name="scale"), ReduceBy(3.0, name="reduce"))
@@ -132,25 +141,36 @@ def bare_exp(values: float, repeats: int, chunk: int = 32_768) -> float:
 
 
 def values_per_integral(case: Case, strata: int = 3) -> float:
-    """Values of log RR the engine evaluates per integral (separate pass)."""
+    """Values of the integrand (log RR, or RR - 1 in the engine's direct
+    form) the engine evaluates per integral (separate pass)."""
     count = [0]
-    original = fractions._log_rr_m
+    originals = fractions._log_rr_m, fractions._excess_m
 
-    def counting(*args, **kwargs):
-        inner = original(*args, **kwargs)
+    def counting_log_rr(*args, **kwargs):
+        inner = originals[0](*args, **kwargs)
 
         def log_rr(x, rows):
             count[0] += np.size(x)
             return inner(x, rows)
         return log_rr
 
-    fractions._log_rr_m = counting
+    def counting_excess(*args, **kwargs):
+        inner = originals[1](*args, **kwargs)
+        if inner is None:
+            return None
+
+        def excess(x, rows, out):
+            count[0] += np.size(x)
+            return inner(x, rows, out)
+        return excess
+
+    fractions._log_rr_m, fractions._excess_m = counting_log_rr, counting_excess
     try:
         for p in case.params[:strata]:
             for scn in SCENARIOS:
                 excess_draws(case.curve, case.coef, case.family, p, 0.0, MINIMUM_RISK, scn)
     finally:
-        fractions._log_rr_m = original
+        fractions._log_rr_m, fractions._excess_m = originals
     return count[0] / (case.coef.shape[0] * min(strata, len(case.params)) * len(SCENARIOS))
 
 
@@ -230,7 +250,9 @@ def main() -> None:
     rng = np.random.default_rng(args.seed)
     print(f"machine: {platform.machine()}, {platform.processor() or 'cpu'}, "
           f"python {platform.python_version()}, numpy {np.__version__}; CPU time, best of "
-          f"{args.repeats}")
+          f"{args.repeats}; load average {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    print(f"doseattr from {Path(doseattr.__file__).parent}")
+    rows = []
     for name in args.cases.split(","):
         strata = args.strata if name == "general" else args.other_strata
         case = Case(name, args.draws, strata, rng)
@@ -251,8 +273,21 @@ def main() -> None:
             print(f"  quad loop ({style} integrand): {t * 1e6:,.0f} us per integral; "
                   f"engine {t / per:,.0f} times faster")
         print(f"  largest relative difference from quad: {worst:.1e}")
+        goal = GOALS.get(name)
+        if goal is not None:
+            print(f"  goal: at most {goal:.2f} us per integral: "
+                  f"{'met' if per * 1e6 <= goal else 'not met'}")
         if name == "general":
-            print(f"  peak resident memory of the process: {rss / 1024:.0f} MiB")
+            print(f"  peak resident memory of the process: {rss / 1024:.0f} MiB (goal: at most "
+                  f"{MEMORY_GOAL} MiB: {'met' if rss / 1024 <= MEMORY_GOAL else 'not met'})")
+        rows.append((name, per * 1e6, goal, exp_cpu * 1e6, timings.get("lean")))
+    print("\nsummary, CPU us per integral:")
+    print(f"  {'case':<11} {'engine':>8} {'goal':>6} {'np.exp':>8} {'quad loop':>10}")
+    for name, per_us, goal, exp_us, lean in rows:
+        goal_s = "-" if goal is None else f"{goal:.2f}"
+        lean_s = "-" if lean is None else f"{lean * 1e6:,.0f}"
+        print(f"  {name:<11} {per_us:8.3f} {goal_s:>6} {exp_us:8.3f} {lean_s:>10}")
+    print(f"load average at the end: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
 
 
 if __name__ == "__main__":

@@ -32,8 +32,14 @@ and each panel gets a Gauss-Legendre rule (:func:`scipy.special.roots_legendre`)
 16 nodes, or 8 on a panel much narrower than the body's. No node falls where
 the integrand is zero or constant. Every draw's panels depend on that draw
 alone (draws with fewer panels are padded with empty ones), so a draw gives
-the same result in any chunk. Draws are evaluated in chunks of about
-:data:`CHUNK_VALUES` nodes. Two checks guard the rule: the nodes must recover
+the same result in any chunk. Windows and panels are placed for blocks of
+:data:`BLOCK_DRAWS` draws at once; the nodes are evaluated in chunks of about
+:data:`CHUNK_VALUES` values, held node-major so that per-draw coefficients
+broadcast along contiguous rows. The doses at a symmetric pair of nodes,
+:math:`e^{c \pm d\xi}`, come from one exponential (:func:`_doses`), and a
+caller may give :math:`\mathrm{expm1}(L)` in a direct form (``excess``, e.g.
+no logarithm and exponential for a linear excess-risk curve), with ``log_rr``
+kept for large values. Two checks guard the rule: the nodes must recover
 the probability of the window (to :data:`MASS_TOLERANCE`), and for a growing
 integrand the expectation of the growth bound over the window (closed forms
 in :mod:`.standard`'s families, to :data:`TILT_TOLERANCE` relative). Written
@@ -45,7 +51,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from functools import lru_cache
-from typing import cast
+from typing import NamedTuple, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -62,6 +68,8 @@ BoolArray = NDArray[np.bool_]
 #: A window's ends in the normal score and whether each is exact.
 Window = tuple[FloatArray, FloatArray, BoolArray, BoolArray]
 LogRisk = Callable[[FloatArray, slice], FloatArray]
+#: ``excess(x, rows, out)``: expm1(L(x)) into ``out``, or ``None``.
+Excess = Callable[[FloatArray, slice, FloatArray], FloatArray | None]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 16
@@ -74,8 +82,15 @@ LOG_DOSE_WIDTH = 4.0
 _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
 MAX_PANELS = 48
-#: About this many (draw x node) values are held at once.
-CHUNK_VALUES = 65_536
+#: About this many (draw x node) values are evaluated at once.
+CHUNK_VALUES = 16_384
+#: Draws whose windows and panels are placed at once.
+BLOCK_DRAWS = 16_384
+#: Runs of draws integrated again up to a far flat point when one needs it.
+REDO_DRAWS = 512
+#: Largest expm1(L) taken directly at the nodes (its product with a
+#: weighted density stays finite); larger values go through ``log_rr``.
+_DIRECT_LIMIT = 1e250
 #: Probability mass the panels must recover before a result is trusted.
 MASS_TOLERANCE = 1e-9
 #: Relative accuracy the panels must reach on the growth bound's expectation.
@@ -93,7 +108,8 @@ def _legendre(n: int) -> tuple[FloatArray, FloatArray]:
 def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
                     growth: Growth, kinks: FloatArray, flat_from: float | FloatArray | None = None,
                     nodes: int = NODES,
-                    zero_below: float | FloatArray | None = None) -> FloatArray:
+                    zero_below: float | FloatArray | None = None,
+                    excess: Excess | None = None) -> FloatArray:
     r"""E[expm1(L(X))] = E[RR(X) - 1] for each draw of an exposure family.
 
     Parameters
@@ -118,6 +134,12 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     zero_below
         Dose per draw (or shared) below which ``L`` is 0 (the minimum-risk
         level's pre-image), if known: no nodes are placed there.
+    excess
+        Optionally ``excess(x, rows, out)``: :math:`\mathrm{expm1}(L(x))`
+        written to ``out`` (same shape as ``x``, which it must not change),
+        or ``None`` where it has no direct form for these draws; the engine
+        then (and where the values are too large for the product with the
+        density) takes ``log_rr``.
 
     Returns
     -------
@@ -146,32 +168,129 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
                                (d, breaks.shape[-1]))
     std = standard_for(family)
     rules = (_legendre(nodes), _legendre(min(nodes, NARROW_NODES)))
-    step = max(1, CHUNK_VALUES // (nodes * (3 + kinks.shape[1])))
     out = np.empty(d)
-    for start in range(0, d, step):
-        rows = slice(start, min(d, start + step))
-        chunk = _Chunk(std, params[rows], kinks[rows], top[rows], low[rows],
+    for start in range(0, d, BLOCK_DRAWS):
+        rows = slice(start, min(d, start + BLOCK_DRAWS))
+        block = _Block(std, params[rows], kinks[rows], top[rows], low[rows],
                        None if tilt is None else tilt[rows], growth.kind, rate[rows])
-        out[rows] = chunk.integrate(log_rr, rows, rules)
+        out[rows] = block.integrate(_Integrand(log_rr, excess, rows), rules)
     return out
 
 
-class _Chunk:
-    """The window, panels and checks for a chunk of draws."""
+class _Group(NamedTuple):
+    """Panels sharing a Gauss-Legendre rule: midpoints and half-widths in
+    ``w`` ``(d, P)`` (empty panels have half-width 0), nodes and weights."""
+
+    mid: FloatArray
+    half: FloatArray
+    xi: FloatArray
+    wi: FloatArray
+
+
+def _groups(edges: FloatArray, narrowest: FloatArray | None,
+            rules: tuple[tuple[FloatArray, FloatArray], ...]) -> list[_Group]:
+    """The panels between ``edges``, each given the full rule, or the narrow
+    one where it is much narrower than the body's narrowest panel."""
+    half = 0.5 * np.diff(edges, axis=1)
+    mid = edges[:, :-1] + half
+    if narrowest is None:
+        return [_Group(mid, half, *rules[0])]
+    groups = []
+    kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
+    if bool(np.all(kind == kind[:1])):
+        # the same rules in the same columns for every draw
+        for group, (xi, wi) in enumerate(rules):
+            cols = np.flatnonzero(kind[0] == group)
+            if cols.size:
+                groups.append(_Group(mid[:, cols], half[:, cols], xi, wi))
+        return groups or [_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1])]
+    for group, (xi, wi) in enumerate(rules):
+        mask = kind == group
+        counts = mask.sum(axis=1)
+        n = int(counts.max())
+        if n == 0:
+            continue
+        # each draw's panels of this group, in order, to the left
+        src = np.flatnonzero(mask)
+        row = src // mask.shape[1]
+        dst = row * n + (np.arange(src.size) - (np.cumsum(counts) - counts)[row])
+        h = np.zeros((mask.shape[0], n))
+        m = np.repeat(mid[:, :1], n, axis=1)
+        h.ravel()[dst] = half.ravel()[src]
+        m.ravel()[dst] = mid.ravel()[src]
+        groups.append(_Group(m, h, xi, wi))
+    if not groups:
+        groups.append(_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1]))
+    return groups
+
+
+class _PanelSums:
+    r"""Weighted row sums of a group's node values ``(d, P n)``:
+    :math:`\sum_p h_p \sum_i w_i v_{pi}`, with ``factors`` the panels'
+    :math:`h_p` ``(d, P)``."""
+
+    def __init__(self, group: _Group, factors: FloatArray) -> None:
+        self.wi, self.factors = group.wi, factors
+
+    def __call__(self, v: FloatArray) -> FloatArray:
+        h = self.factors
+        # v is node-major in memory: the rule's weights meet it as a matrix
+        part = self.wi @ v.T.reshape(h.shape[1], self.wi.size, h.shape[0])
+        if h.shape[1] == 1:
+            return cast(FloatArray, part[0] * h[:, 0])
+        part *= h.T
+        return cast(FloatArray, part.sum(axis=0))
+
+    def weights(self) -> FloatArray:
+        """The node weights ``(d, P n)``."""
+        h = self.factors
+        return cast(FloatArray, (h[:, :, None] * self.wi).reshape(h.shape[0], -1))
+
+
+class _Integrand:
+    """``expm1(L)`` at the nodes of a block of draws ``rows``: directly where
+    an ``excess`` function is given, else (and where its values are too
+    large) from ``log_rr``."""
+
+    def __init__(self, log_rr: LogRisk, excess: Excess | None, rows: slice) -> None:
+        self.log_rr, self.excess, self.rows = log_rr, excess, rows
+
+    def direct(self, x: FloatArray, rows: slice) -> FloatArray | None:
+        """expm1(L(x)) from ``excess``, if given and small enough."""
+        if self.excess is None:
+            return None
+        with np.errstate(over="ignore", invalid="ignore"):
+            e = self.excess(x, rows, np.empty_like(x))
+        return e if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT else None
+
+    def weighted(self, x: FloatArray, rows: slice, log_f: FloatArray, dens: FloatArray,
+                 sums: _PanelSums) -> FloatArray:
+        """Weighted row sums of expm1(L(x)) exp(log_f), with dens = exp(log_f)."""
+        e = self.direct(x, rows)
+        if e is not None:
+            e *= dens
+            return sums(e)
+        lr = np.array(self.log_rr(x, rows), dtype=float)
+        weight = sums.weights()
+        return _weighted_excess(lr, log_f, weight, dens * weight)
+
+
+class _Block:
+    """The window, panels and checks for a block of draws."""
 
     def __init__(self, std: Standard, params: FloatArray, kinks: FloatArray, top: FloatArray,
                  low: FloatArray, tilt: FloatArray | None, kind: str, rate: FloatArray) -> None:
         self.std, self.params, self.kind, self.rate = std, params, kind, rate
+        self._inputs = (std, params, kinks, top, low, tilt, kind, rate)
         self.a, self.b = std.affine(params)
-        with np.errstate(divide="ignore"):
-            self.w_low = (np.log(np.maximum(low, 0.0))[:, None] - self.a) / self.b
-            self.w_top = (np.log(np.maximum(top, 0.0))[:, None] - self.a) / self.b
-            self.w_kinks = (np.log(np.maximum(kinks, 0.0)) - self.a) / self.b
+        self.w_low = (_log_dose(low[:, None]) - self.a) / self.b
+        self.w_top = (_log_dose(top[:, None]) - self.a) / self.b
+        self.w_kinks = (_log_dose(kinks) - self.a) / self.b
         self.finite = np.isfinite(top)[:, None]
         self.top = np.where(self.finite, top[:, None], 1.0)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             self.z_low = _no_nan(std.zeta_low(self.w_low, params), self.w_low)
-            z_top, self.log_sf_top = std.zeta_top(self.w_top, params)
+            z_top, self.sf_top = std.zeta_top(self.w_top, params)
         self.z_top = _no_nan(z_top, self.w_top)
         self.cap = np.full_like(self.z_top, ZB)
         self.w_tilt = None if tilt is None else (tilt - self.a) / self.b
@@ -180,9 +299,27 @@ class _Chunk:
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return _no_nan(self.std.zeta(w, self.params), w)
 
-    def integrate(self, log_rr: LogRisk, rows: slice,
+    def _beyond_body(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
+                     body: FloatArray, need: BoolArray) -> FloatArray:
+        """The body again, up to the flat point, for the draws that ``need``
+        it (in runs of :data:`REDO_DRAWS` draws holding one)."""
+        body = body.copy()
+        d = body.size
+        for lo in range(0, d, REDO_DRAWS):
+            hi = min(d, lo + REDO_DRAWS)
+            if not need[lo:hi].any():
+                continue
+            std, params, kinks, top, low, tilt, kind, rate = self._inputs
+            part = _Block(std, params[lo:hi], kinks[lo:hi], top[lo:hi], low[lo:hi],
+                          None if tilt is None else tilt[lo:hi], kind, rate[lo:hi])
+            cap = np.where(need[lo:hi, None], np.minimum(part.z_top, Z_MAX), part.cap)
+            rows = slice(f.rows.start + lo, f.rows.start + hi)
+            body[lo:hi] = part._window(_Integrand(f.log_rr, f.excess, rows), rules, cap)[0]
+        return body
+
+    def integrate(self, f: _Integrand,
                   rules: tuple[tuple[FloatArray, FloatArray], ...]) -> FloatArray:
-        body, top_excess = self._window(log_rr, rows, rules, self.cap)
+        body, top_excess = self._window(f, rules, self.cap)
         sf = self._top_sf()
         with np.errstate(invalid="ignore", over="ignore"):
             tail = np.where(self.finite & (sf > 0), top_excess * sf, 0.0)[:, 0]
@@ -194,8 +331,7 @@ class _Chunk:
             beyond = bound_top * np.exp(self.std.log_sf(self._w_of(self.cap), self.params))
             need = far & (beyond > FAR_TOLERANCE * np.abs(body[:, None]))
             if np.any(need):
-                cap = np.where(need, np.minimum(self.z_top, Z_MAX), self.cap)
-                body = self._window(log_rr, rows, rules, cap)[0]
+                body = self._beyond_body(f, rules, body, need[:, 0])
         total = body + tail
         if not np.all(np.isfinite(total)):
             raise FloatRangeError("the expected RR overflows the float range (about 1.8e308): "
@@ -210,8 +346,7 @@ class _Chunk:
         """S(x*), the probability of the flat part (1 when it starts at 0)."""
         if not np.any(self.finite):
             return np.zeros_like(self.w_top)
-        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            sf = np.exp(np.where(self.finite, self.log_sf_top, -np.inf))
+        sf = np.where(self.finite, self.sf_top, 0.0)
         return cast(FloatArray, np.where(self.w_top == -np.inf, 1.0, sf))
 
     def _zwindow(self, cap: FloatArray) -> tuple[FloatArray, FloatArray, BoolArray, BoolArray]:
@@ -237,15 +372,21 @@ class _Chunk:
                            np.ceil((t_hi - t_lo) / LOG_DOSE_WIDTH - 1e-9))
         count = np.clip(count, 1, MAX_PANELS).astype(int)
         j = np.arange(int(count.max()) + 1)
-        frac = np.minimum(j / count, 1.0)
-        body = self._w_of(z_lo + (z_hi - z_lo) * frac)
-        first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
-                         body[:, :1])
-        last = np.maximum(np.where(hi_exact, self.w_top, body[:, -1:]), first)
-        body = np.clip(np.maximum.accumulate(body, axis=1), first, last)
-        body[:, :1] = first
-        pad = j[None, :] >= count
-        body[pad] = np.broadcast_to(last, body.shape)[pad]
+        if j.size == 2:
+            # one panel per draw: from the window's start to its end
+            ends = self._w_of(np.concatenate([z_lo, z_lo + (z_hi - z_lo)], axis=1))
+            first, last = self._first_last(ends[:, :1], ends[:, 1:], lo_exact, hi_exact)
+            body = np.concatenate([first, last], axis=1)
+        else:
+            frac = np.minimum(j / count, 1.0)
+            body = self._w_of(z_lo + (z_hi - z_lo) * frac)
+            first, last = self._first_last(body[:, :1], body[:, -1:], lo_exact, hi_exact)
+            for col in range(1, body.shape[1]):
+                # a running maximum over the few columns (faster than accumulate)
+                np.maximum(body[:, col], body[:, col - 1], out=body[:, col])
+            np.clip(body, first, last, out=body)
+            body[:, :1] = first
+            np.copyto(body, last, where=j[None, :] >= count)
         z_end = z_hi
         if self.w_tilt is not None:
             # the tilted body beyond the equal-score panels: its own breaks
@@ -259,99 +400,137 @@ class _Chunk:
             z_end = np.where(grow, np.minimum(self._zeta(last), Z_MAX), z_hi)
             # no constant cap beyond the tilted breaks: the integrand grows there
             hi_exact = hi_exact | grow
-        gaps = np.diff(body, axis=1)
-        narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
         cuts = np.concatenate([self.w_kinks, self.std.extra_breaks(self.params)], axis=1)
         inside = (cuts > first) & (cuts < last)
-        cuts = np.clip(cuts[:, inside.any(axis=0)], first, last)
+        cuts = cuts[:, inside.any(axis=0)] if inside.any() else cuts[:, :0]
+        if cuts.shape[1]:
+            cuts = np.clip(cuts, first, last)
         window = (z_lo, z_end, lo_exact, hi_exact)
         if cuts.shape[1] == 0 and self.w_tilt is None:
             return body, None, window
+        gaps = np.diff(body, axis=1)
+        narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
         return np.sort(np.concatenate([body, cuts], axis=1), axis=1), narrowest, window
 
-    def _window(self, log_rr: LogRisk, rows: slice,
-                rules: tuple[tuple[FloatArray, FloatArray], ...],
+    def _first_last(self, start: FloatArray, end: FloatArray, lo_exact: BoolArray,
+                    hi_exact: BoolArray) -> tuple[FloatArray, FloatArray]:
+        """The first and last edges: the window's exact ends where they are."""
+        first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
+                         start)
+        return first, np.maximum(np.where(hi_exact, self.w_top, end), first)
+
+    def _window(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
                 cap: FloatArray) -> tuple[FloatArray, FloatArray]:
         """Body integral over the window up to ``cap`` and expm1(L(x*))."""
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             edges, narrowest, window = self._edges(cap)
-        half = 0.5 * np.diff(edges, axis=1)
-        mid = edges[:, :-1] + half
-        groups: list[tuple[FloatArray, FloatArray, FloatArray, FloatArray]] = []
-        if narrowest is None:
-            groups.append((mid, half, *rules[0]))
-        else:
-            kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
-            for group, (xi, wi) in enumerate(rules):
-                order = np.argsort(kind != group, axis=1, kind="stable")
-                n = int((kind == group).sum(axis=1).max())
-                if n == 0:
-                    continue
-                take = order[:, :n]
-                h = np.take_along_axis(half, take, axis=1)
-                h = np.where(np.take_along_axis(kind, take, axis=1) == group, h, 0.0)
-                groups.append((np.take_along_axis(mid, take, axis=1), h, xi, wi))
-        rows_n = edges.shape[0]
-        nodes = sum(h.shape[1] * xi.size for _, h, xi, _ in groups)
-        w = np.empty((rows_n, nodes + 3))
-        weight = np.empty_like(w)
-        col = 0
-        for m, h, xi, wi in groups:
-            q = h.shape[1] * xi.size
-            shape = (rows_n, h.shape[1], xi.size)
-            w[:, col:col + q] = (m[:, :, None] + h[:, :, None] * xi).reshape(rows_n, q)
-            np.multiply(h[:, :, None], wi, out=weight[:, col:col + q].reshape(shape))
-            col += q
-        # Three more columns, evaluated with the nodes: the window's ends,
-        # carrying the probability beyond them where the window was cut at
-        # the body (the integrand held at its value there, not dropped), and
-        # the flat point x*.
+        groups = _groups(edges, narrowest, rules)
         z_lo, z_hi, lo_exact, hi_exact = window
-        beyond = np.where(self.finite, between(z_hi, np.maximum(self.z_top, z_hi)), ndtr(-z_hi))
-        caps = np.concatenate([np.where(lo_exact, 0.0, ndtr(z_lo)),
-                               np.where(hi_exact, 0.0, beyond), np.zeros_like(z_lo)], axis=1)
-        w[:, nodes:] = np.concatenate([edges[:, :1], edges[:, -1:],
-                                       np.where(self.finite, self.w_top, 0.0)], axis=1)
-        weight[:, nodes:] = 1.0
-        x = w * self.b
-        x += self.a
-        np.exp(x, out=x)
+        body, mass, tilted = self._nodes(f, groups)
+        # the window's ends, carrying the probability beyond them where the
+        # window was cut at the body (the integrand held at its value there,
+        # not dropped), and the flat point x*
+        below = ndtr(z_lo)
+        # Phi(-z*) is the flat part's probability, known: where the window
+        # ends there, and beyond a window cut at the body
+        at_top = self.finite & (z_hi == self.z_top)
+        above = self.sf_top if np.all(at_top) else np.where(at_top, self.sf_top, ndtr(-z_hi))
+        self._check_mass(mass, (1.0 - below[:, 0]) - above[:, 0])
+        if tilted is not None:
+            self._check_tilt(tilted, edges)
+        beyond = np.where(self.finite, np.where(self.z_top > z_hi, above - self.sf_top, 0.0),
+                          above)
+        caps = np.concatenate([np.where(lo_exact, 0.0, below), np.where(hi_exact, 0.0, beyond)],
+                              axis=1)
+        x = np.empty_like(caps, shape=(caps.shape[0], 3))
         x[:, -1:] = np.maximum(self.top, 0.0)
-        tilt_w = w[:, :nodes].copy() if self.kind != "bounded" else None
-        log_f = self.std.log_density(w, self.params)
-        with np.errstate(divide="ignore"):
-            log_f[:, nodes:] = np.log(caps)
-        dens = np.exp(log_f)
-        dens *= weight
-        self._check_mass(dens[:, :nodes], z_lo, z_hi)
-        if tilt_w is not None:
-            self._check_tilt(tilt_w, log_f[:, :nodes], weight[:, :nodes], edges)
-        lr = np.asarray(log_rr(x, rows), dtype=float)
-        if not (lr.flags.writeable and lr.flags.owndata):
-            lr = lr.copy()
-        with np.errstate(over="ignore", invalid="ignore"):
+        if not caps.any():
+            # both ends exact: only the flat point's value is needed
+            e = f.direct(x[:, -1:], f.rows)
+            if e is not None:
+                return body, e
+        with np.errstate(over="ignore"):
+            np.exp(edges[:, ::edges.shape[1] - 1] * self.b + self.a, out=x[:, :2])
+        e = f.direct(x, f.rows)
+        if e is not None:
+            return body + np.einsum("ij,ij->i", e[:, :2], caps), e[:, -1:]
+        lr = np.array(f.log_rr(x, f.rows), dtype=float)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             top_excess = np.expm1(lr[:, -1:])
-            lr[:, -1] = 0.0
-            return _weighted_excess(lr, log_f, weight, dens), top_excess
+            ends = _weighted_excess(lr[:, :2], np.log(caps), np.ones_like(caps), caps)
+        return body + ends, top_excess
 
-    def _check_mass(self, dens: FloatArray, z_lo: FloatArray, z_hi: FloatArray) -> None:
-        want = between(z_lo, z_hi)[:, 0]
-        gap = np.abs(dens.sum(axis=1) - want)
+    def _nodes(self, f: _Integrand, groups: list[_Group]
+               ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
+        """Sums over the nodes per draw: of the integrand times the weighted
+        density, of the weighted density (the mass check) and, for a growing
+        integrand, of the growth bound times it (the tilt check)."""
+        d = self.params.shape[0]
+        body, mass = np.zeros(d), np.zeros(d)
+        tilted = None if self.kind == "bounded" else np.zeros(d)
+        scale = np.exp(self.std.log_norm(self.params))
+        zeros, ones = np.zeros((d, 1)), np.ones((d, 1))
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for g in groups:
+                g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi)
+                # a panel's weights are its half-width (times the density's
+                # normaliser) times the rule's: node sums go panel by panel
+                factors = g.half * scale
+                shape = (g.half.shape[1], g.xi.size)
+                n = shape[0] * shape[1]
+                step = max(1, min(d, CHUNK_VALUES // n))
+                # node-major: each node's values over the draws are contiguous,
+                # so per-draw coefficients broadcast along whole rows
+                buffers = [np.empty((n, step)).T for _ in range(4 if self.std.uses_exp_w else 3)]
+                for lo in range(0, d, step):
+                    hi = min(d, lo + step)
+                    sub = slice(lo, hi)
+                    w, x, dens = (b[:hi - lo] for b in buffers[:3])
+                    wv = w.reshape(hi - lo, *shape)
+                    np.multiply(g.half[sub, :, None], g.xi, out=wv)
+                    wv += g.mid[sub, :, None]
+                    _doses(x.reshape(hi - lo, *shape), g, sub, self.a[sub], self.b[sub], w)
+                    if tilted is not None:
+                        w_nodes = w.copy()
+                    exp_w = None
+                    if self.std.uses_exp_w:
+                        exp_w = buffers[3][:hi - lo]
+                        _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[sub], ones[sub], w)
+                    log_f = self.std.kernel(w, x, self.params[sub], exp_w)
+                    np.exp(log_f, out=dens)
+                    sums = _PanelSums(g, factors[sub])
+                    mass[sub] += sums(dens)
+                    rows = slice(f.rows.start + lo, f.rows.start + hi)
+                    if tilted is not None:
+                        tilted[sub] += self._tilt_sum(w_nodes, log_f, sums, sub)
+                    body[sub] += f.weighted(x, rows, log_f, dens, sums)
+        return body, mass, tilted
+
+    def _tilt_sum(self, w: FloatArray, log_f: FloatArray, sums: _PanelSums,
+                  sub: slice) -> FloatArray:
+        log_g = _tilt_exponent(self.std.family.name, self.kind, self.rate[sub, None],
+                               self.params[sub], self.b[sub])
+        if log_g is None:
+            return np.zeros(w.shape[0])
+        t = log_g(w)
+        t += log_f
+        np.exp(t, out=t)
+        return sums(t)
+
+    def _check_mass(self, got: FloatArray, want: FloatArray) -> None:
+        gap = np.abs(got - want)
         if np.any(gap > MASS_TOLERANCE):
             raise ConvergenceError(
                 f"quadrature recovered the {self.std.family.name} distribution's probability "
                 f"only to {float(gap.max()):.1e}; parameters are too extreme for the fixed rule")
 
-    def _check_tilt(self, w: FloatArray, log_f: FloatArray, weight: FloatArray,
-                    edges: FloatArray) -> None:
+    def _check_tilt(self, got: FloatArray, edges: FloatArray) -> None:
         """The growth bound's expectation over the window, nodes against closed form."""
-        pair = _tilted_mass(self.std.family.name, self.kind, self.rate[:, None], self.params,
-                            self.a, self.b, edges[:, :1], edges[:, -1:])
-        if pair is None:
+        ref = _tilted_mass(self.std.family.name, self.kind, self.rate[:, None], self.params,
+                           self.b, edges[:, :1], edges[:, -1:])
+        if ref is None:
             return
-        log_g, ref = pair
         with np.errstate(over="ignore", invalid="ignore"):
-            got = (np.exp(log_g(w) + log_f) * weight).sum(axis=1)
             rel = np.abs(got / ref[:, 0] - 1.0)
         rel = np.where(ref[:, 0] > 0, rel, 0.0)
         if np.any(rel > TILT_TOLERANCE) or np.any(np.isnan(rel)):
@@ -361,16 +540,72 @@ class _Chunk:
                 f"(relative); parameters are too extreme for the fixed rule")
 
 
+#: Largest |ln x| at a panel's midpoint for which its doses are formed as
+#: products (below the exponential's overflow, with room for the half-width).
+_PRODUCT_LOG_DOSE = 700.0
+
+
+def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
+           w: FloatArray) -> None:
+    r"""The doses :math:`x = e^{a + b w}` at a group's nodes into ``x``
+    ``(d, P, n)``. The rule's nodes are symmetric, :math:`\xi_{n-1-i} =
+    -\xi_i`, so with :math:`c = a + b\,m_p` and :math:`q_i = e^{b h_p \xi_i}`
+    the pair is :math:`e^c q_i` and :math:`e^c / q_i`: half the exponentials.
+    Where a midpoint's dose is near the float range, directly from ``w``."""
+    n = g.xi.size
+    c = g.mid[sub] * b
+    c += a
+    if n % 2 or np.abs(c).max(initial=0.0) > _PRODUCT_LOG_DOSE:
+        np.multiply(w, b, out=x.reshape(w.shape))
+        x += a[:, :, None]
+        np.exp(x, out=x)
+        return
+    half = n // 2
+    q = np.multiply((g.half[sub] * b)[:, :, None], g.xi[half:], out=x[:, :, half:])
+    np.exp(q, out=q)
+    np.exp(c, out=c)
+    np.divide(c[:, :, None], q[:, :, ::-1], out=x[:, :, :half])
+    q *= c[:, :, None]
+
+
+def _log_dose(x: FloatArray) -> FloatArray:
+    """``ln max(x, 0)`` of doses ``(d, K)``, once when all rows are alike
+    (a shared level or kink)."""
+    if x.shape[0] > 1 and (x.strides[0] == 0 or bool(np.all(x == x[:1]))):
+        return np.broadcast_to(_log_dose(x[:1]), x.shape)
+    with np.errstate(divide="ignore"):
+        return cast(FloatArray, np.log(np.maximum(x, 0.0)))
+
+
 def _no_nan(z: FloatArray, w: FloatArray) -> FloatArray:
     """A normal score with NaN (from an infinite ``w``) set to +-inf."""
+    if not np.isnan(z).any():
+        return z
     return cast(FloatArray, np.where(np.isnan(z), np.where(w > 0, np.inf, -np.inf), z))
 
 
-def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: FloatArray,
-                 b: FloatArray, w_lo: FloatArray, w_hi: FloatArray
-                 ) -> tuple[Callable[[FloatArray], FloatArray], FloatArray] | None:
-    r"""The log growth bound ``g`` in ``w`` (up to a constant) and
-    :math:`\int_{w_{lo}}^{w_{hi}} g\, f_W` in closed form, by completing the
+def _tilt_exponent(name: str, kind: str, r: FloatArray, params: FloatArray,
+                   b: FloatArray) -> Callable[[FloatArray], FloatArray] | None:
+    """The log growth bound ``g`` in ``w`` (up to a constant) of
+    :func:`_tilted_mass`; ``None`` where that has no closed form."""
+    if name == "lognormal" and kind == "power":
+        rs = r * b
+        return lambda w: rs * w
+    if name == "gamma":
+        if kind == "power":
+            return lambda w: r * w
+        ct = r * params[:, 1:2]
+        return lambda w: ct * np.exp(w)
+    if name == "weibull" and kind == "power":
+        q = r * b
+        return lambda w: q * w
+    return None
+
+
+def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, b: FloatArray,
+                 w_lo: FloatArray, w_hi: FloatArray) -> FloatArray | None:
+    r""":math:`\int_{w_{lo}}^{w_{hi}} g\, f_W` in closed form, with ``g`` the
+    growth bound of :func:`_tilt_exponent`, by completing the
     square (lognormal, power growth :math:`x^r`: :math:`e^{r^2 s^2/2}
     [\Phi(z_{hi} - rs) - \Phi(z_{lo} - rs)]`), or from the gamma integral
     (gamma, :math:`y^r`: :math:`\Gamma(k+r)/\Gamma(k)\,[P(k+r, y_{hi}) -
@@ -383,19 +618,17 @@ def _tilted_mass(name: str, kind: str, r: FloatArray, params: FloatArray, a: Flo
         y_lo, y_hi = np.exp(w_lo), np.exp(w_hi)
     if name == "lognormal" and kind == "power":
         rs = r * b
-        return (lambda w: rs * w), np.exp(0.5 * rs * rs) * between(w_lo - rs, w_hi - rs)
+        return cast(FloatArray, np.exp(0.5 * rs * rs) * between(w_lo - rs, w_hi - rs))
     if name == "gamma":
         k = params[:, :1]
         if kind == "power":
-            ref = poch(k, r) * gamma_between(k + r, y_lo, y_hi)
-            return (lambda w: r * w), ref
+            return cast(FloatArray, poch(k, r) * gamma_between(k + r, y_lo, y_hi))
         ct = r * params[:, 1:2]
-        ref = np.exp(-k * np.log1p(-ct)) * gamma_between(k, y_lo * (1 - ct), y_hi * (1 - ct))
-        return (lambda w: ct * np.exp(w)), ref
+        return cast(FloatArray, np.exp(-k * np.log1p(-ct))
+                    * gamma_between(k, y_lo * (1 - ct), y_hi * (1 - ct)))
     if name == "weibull" and kind == "power":
         q = r * b
-        ref = np.exp(gammaln(1 + q)) * gamma_between(1 + q, y_lo, y_hi)
-        return (lambda w: q * w), ref
+        return cast(FloatArray, np.exp(gammaln(1 + q)) * gamma_between(1 + q, y_lo, y_hi))
     return None
 
 

@@ -26,9 +26,11 @@ from typing import cast
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.attribution.engine import LogRisk, expected_excess
-from doseattr.core.attribution.scenarios import Cap, Scenario
+from doseattr.core.attribution.engine import Excess, LogRisk, expected_excess
+from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale, Scenario
 from doseattr.core.curves.base import Curve, Growth, as_coef_draws
+from doseattr.core.curves.linear import RR_FLOOR, LinearExcess
+from doseattr.core.curves.loglinear import LogLinear
 from doseattr.core.exposure.base import Exposure, Family
 from doseattr.core.exposure.empirical import EmpiricalExposure
 from doseattr.errors import FloatRangeError
@@ -60,7 +62,8 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
                            growth=_growth(curve, coef, scenario),
                            kinks=_kinks(curve, coef, m, scenario),
                            flat_from=_flat_from(curve, scenario),
-                           zero_below=m if scenario is None else scenario.preimage(m))
+                           zero_below=m if scenario is None else scenario.preimage(m),
+                           excess=_excess_m(curve, coef, m, scenario))
     return (1.0 - u) * body
 
 
@@ -152,6 +155,62 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
         return out - base if np.any(base) else out  # ln RR(m) = 0 (m at the reference)
 
     return log_rr
+
+
+def _excess_m(curve: Curve, coef: FloatArray, m: FloatArray,
+              scenario: Scenario | None) -> Excess | None:
+    r"""The function ``(x, rows, out) -> expm1(ln RR_m(g(x)))`` for draws
+    ``rows``, in a direct form for the models that have one (``None`` for
+    the others), for the engine's nodes:
+
+    * linear excess, :math:`RR = 1 + b(x - x_{ref})`:
+      :math:`RR_m(y) - 1 = b\,(y - m)/(1 + b(m - x_{ref}))` (no logarithm
+      and no exponential; only where RR stays above ``RR_FLOOR`` over
+      :math:`[m, x^*]`, so that the model's floor never applies);
+    * log-linear, :math:`\ln RR = b(x - x_{ref})`: :math:`\mathrm{expm1}(b(y - m))`;
+
+    with :math:`y = \min(\max(g(x), m), x^*)`, ``x*`` the ``max_dose``."""
+    model = curve.model
+    top = np.inf if curve.max_dose is None else float(curve.max_dose)
+    mm = np.minimum(m, top)
+    if type(model) is LinearExcess:
+        b = coef[:, 0]
+        rr_m = 1.0 + b * (mm - model.reference_dose)
+        with np.errstate(over="ignore", invalid="ignore"):
+            rr_top = np.where(b == 0, 1.0, 1.0 + b * (top - model.reference_dose))
+        if not (np.all(rr_m > RR_FLOOR) and np.all(rr_top > RR_FLOOR)):
+            return None
+        factor = b / rr_m
+    elif type(model) is LogLinear:
+        factor = coef[:, 0]
+    else:
+        return None
+    exponential = type(model) is LogLinear
+
+    high = min(top, scenario.value) if type(scenario) is Cap else top
+    scaled = isinstance(scenario, Scale) and type(scenario).apply is Scale.apply
+
+    def excess(x: FloatArray, rows: slice, out: FloatArray) -> FloatArray:
+        # y - m, y = min(max(g(x), m), x*), as max(g(x) - m, 0) capped at x* - m
+        low = mm[rows, None]
+        if scenario is None or type(scenario) is Cap:
+            np.subtract(x, low, out=out)
+        elif scaled:
+            np.multiply(x, scenario.value, out=out)
+            out -= low
+        elif type(scenario) is ReduceBy:
+            np.subtract(x, low + scenario.value, out=out)
+        else:
+            np.subtract(scenario.apply(x, low), low, out=out)
+        np.maximum(out, 0.0, out=out)
+        if high < np.inf:
+            np.minimum(out, np.maximum(high - low, 0.0), out=out)
+        out *= factor[rows, None]
+        if exponential:
+            np.expm1(out, out=out)
+        return out
+
+    return excess
 
 
 def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None) -> Growth:

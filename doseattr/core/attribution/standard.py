@@ -32,6 +32,7 @@ from numpy.typing import NDArray
 from scipy.special import gammainc, gammaincc, log_ndtr, ndtr, ndtri
 
 from doseattr.core.exposure.base import Family
+from doseattr.core.exposure.gamma import stirling_correction
 from doseattr.core.exposure.incomplete_gamma import _log_lower_quantile, _log_upper_quantile
 
 FloatArray = NDArray[np.float64]
@@ -46,8 +47,10 @@ _LOG_SQRT_2PI = 0.5 * np.log(2 * np.pi)
 
 
 def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
-    """Phi(hi) - Phi(lo) on the side of zero that keeps precision."""
-    return cast(FloatArray, np.where(lo > 0, ndtr(-lo) - ndtr(-hi), ndtr(hi) - ndtr(lo)))
+    """Phi(hi) - Phi(lo) on the side of zero that keeps precision (for
+    ``lo > 0`` as ``Phi(-lo) - Phi(-hi)``)."""
+    sign = np.where(lo > 0, -1.0, 1.0)
+    return cast(FloatArray, sign * (ndtr(sign * hi) - ndtr(sign * lo)))
 
 
 class Standard(ABC):
@@ -64,9 +67,28 @@ class Standard(ABC):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         """``(a, b)``, each ``(d, 1)``, with ``ln x = a + b w``."""
 
+    #: Whether :meth:`kernel` takes ``exp(w)`` (which the engine then forms
+    #: at the nodes the way it forms the doses).
+    uses_exp_w: bool = False
+
     @abstractmethod
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
+               exp_w: FloatArray | None = None) -> FloatArray:
+        """Log density of ``W`` at ``w`` ``(d, n)`` less :meth:`log_norm`,
+        given the doses ``x = exp(a + b w)`` too and, for :attr:`uses_exp_w`,
+        ``exp(w)`` (may overwrite ``w``, not ``x``)."""
+
+    @abstractmethod
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        """The log density's part that depends on the draw alone ``(d, 1)``."""
+
     def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        """Log density of ``W`` at ``w`` ``(d, n)`` (may overwrite ``w``)."""
+        """Log density of ``W`` at ``w`` ``(d, n)``."""
+        a, b = self.affine(params)
+        with np.errstate(over="ignore"):
+            x = np.exp(a + b * w)
+        return cast(FloatArray, self.kernel(np.array(w, dtype=float), x, params)
+                    + self.log_norm(params))
 
     @abstractmethod
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
@@ -85,8 +107,10 @@ class Standard(ABC):
         return self.zeta(w, params)
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        """:meth:`zeta` (its upper tail in full precision) and :meth:`log_sf`."""
-        return self.zeta(w, params), self.log_sf(w, params)
+        """:meth:`zeta` (its upper tail in full precision) and the survival
+        probability beyond ``w``."""
+        with np.errstate(over="ignore"):
+            return self.zeta(w, params), np.exp(self.log_sf(w, params))
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Panel width in the normal score per draw ``(d, 1)``."""
@@ -103,11 +127,14 @@ class LogNormalStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, :1]), np.log(params[:, 1:2])
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
+               exp_w: FloatArray | None = None) -> FloatArray:
         w *= w
         w *= -0.5
-        w -= _LOG_SQRT_2PI
         return w
+
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        return np.full((params.shape[0], 1), -_LOG_SQRT_2PI)
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return w
@@ -118,29 +145,52 @@ class LogNormalStandard(Standard):
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return cast(FloatArray, log_ndtr(-w))
 
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        return w, cast(FloatArray, ndtr(-w))
+
 
 class WeibullStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), 1.0 / params[:, :1]
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        with np.errstate(over="ignore"):
-            e = np.exp(w)
-        w -= e
+    uses_exp_w = True
+
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
+               exp_w: FloatArray | None = None) -> FloatArray:
+        if exp_w is None:
+            with np.errstate(over="ignore"):
+                exp_w = np.exp(w)
+        w -= exp_w
         return w
 
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        return np.zeros((params.shape[0], 1))
+
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
+        """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
+        ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
+        where it is taken."""
         with np.errstate(over="ignore"):
             e = np.exp(w)
-            low = ndtri(-np.expm1(-e))
-            high = -ndtri(np.exp(-e))
-        return cast(FloatArray, np.where(e < np.log(2.0), low, high))
+            low = e < np.log(2.0)
+            p = np.expm1(-e, where=low, out=np.empty_like(e))
+            np.negative(p, out=p, where=low)
+            np.exp(-e, out=p, where=~low)
+        z = ndtri(p)
+        return cast(FloatArray, np.negative(z, out=z, where=~low))
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
+        """``ln(-log1p(-Phi(zeta)))`` below the median, ``ln(-ln Phi(-zeta))``
+        above (``zeta`` at most :data:`Z_MAX`, where ``Phi(-zeta)`` is a normal
+        float), each side computed only where it is taken."""
+        low = zeta <= 0
+        p = ndtr(-np.abs(zeta))
         with np.errstate(divide="ignore"):
-            low = np.log(-np.log1p(-ndtr(np.minimum(zeta, 0.0))))
-            high = np.log(-log_ndtr(-np.maximum(zeta, 0.0)))
-        return cast(FloatArray, np.where(zeta <= 0, low, high))
+            e = np.negative(p, where=low, out=np.empty_like(p))
+            np.log1p(e, out=e, where=low)
+            np.log(p, out=e, where=~low)
+            np.negative(e, out=e)
+            return cast(FloatArray, np.log(e, out=e))
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(over="ignore"):
@@ -177,6 +227,10 @@ def _scale(k: FloatArray) -> FloatArray:
     return cast(FloatArray, np.minimum(k, np.sqrt(k)))
 
 
+#: Largest gamma shape for which the density at the nodes is formed from the
+#: doses (``expm1(v)`` as ``x/(theta k) - 1``); the log density's error is
+#: then below ``DOSE_SHAPE`` times the rounding of ``x``, about 1e-12.
+DOSE_SHAPE = 1000.0
 #: Shapes below which the gamma panels get breaks near ``w = 0``.
 SMALL_SHAPE = 0.3
 
@@ -188,9 +242,28 @@ class GammaStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
 
-    def log_density(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        unit = np.column_stack([params[:, 0], np.ones(params.shape[0])])
-        return self.family.log_density_log(w, unit)
+    def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
+               exp_w: FloatArray | None = None) -> FloatArray:
+        r""":math:`-k\,(\mathrm{expm1}(v) - v)`, :math:`v = w - \ln k`: the
+        gamma log density written about its mode (see
+        :meth:`doseattr.core.exposure.gamma.Gamma.log_density_log`)."""
+        k = params[:, :1]
+        w -= np.log(k)
+        with np.errstate(over="ignore", invalid="ignore"):
+            if k.max(initial=0.0) <= DOSE_SHAPE:
+                # e^v = x / (theta k): the doses' exponential serves; its
+                # rounding (a few units in the last place of 1) counts k-fold
+                e = np.multiply(x, 1.0 / (params[:, 1:2] * k))
+                e -= 1.0
+            else:
+                e = np.expm1(w)
+        e -= w
+        e *= -k
+        return cast(FloatArray, e)
+
+    def log_norm(self, params: FloatArray) -> FloatArray:
+        k = params[:, :1]
+        return cast(FloatArray, 0.5 * np.log(k) - _LOG_SQRT_2PI - stirling_correction(k))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         k = params[:, :1]
@@ -228,7 +301,7 @@ class GammaStandard(Standard):
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         with np.errstate(over="ignore", divide="ignore"):
             q = gammaincc(params[:, :1], np.exp(w))
-            return cast(FloatArray, -ndtri(q)), cast(FloatArray, np.log(q))
+            return cast(FloatArray, -ndtri(q)), cast(FloatArray, q)
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Narrower panels for a small shape, whose density in ``w`` has a
