@@ -378,10 +378,11 @@ def test_zones_with_fewer_points_keep_the_exact_fractions(tmp_path):
     zone's PAF and the scaled PIF within 1e-6 relative, as for every bin
     (the groups split at the minimum-risk level and the scenarios' cuts);
     the population's exposure keeps every bin; unchanged (the same object)
-    with a minimum-risk level drawn over a range."""
+    with a minimum-risk level drawn over a range. The cap's PIF: 1e-6 as
+    well, the cap being a cut of the reduction."""
     from doseattr.analysis.grid_exposure import build_grid
     from doseattr.core.attribution.fractions import paf, pif
-    from doseattr.core.attribution.scenarios import Scale
+    from doseattr.core.attribution.scenarios import Cap, Scale
     from doseattr.core.curves.base import Curve
     from doseattr.core.curves.loglinear import LogLinear
 
@@ -389,7 +390,7 @@ def test_zones_with_fewer_points_keep_the_exact_fractions(tmp_path):
     analysis = load_analysis(path)
     grid = build_grid(analysis.exposure, str(path))
     curve = Curve(LogLinear(), np.array([BETA]), np.eye(1) * 1e-6)
-    few = grid.with_quadrature(curve, minimum_risk=(M, M))
+    few = grid.with_quadrature(curve, minimum_risk=(M, M), scenarios=(Scale(0.9), Cap(8.0)))
     assert few.population is grid.population
     cells = _cells()
     for z, (name, _, _) in ZONES.items():
@@ -400,4 +401,7 @@ def test_zones_with_fewer_points_keep_the_exact_fractions(tmp_path):
         scaled = _exact(*cells, z, transform=lambda x: 0.9 * x)
         assert pif(curve, exposure, Scale(0.9), minimum_risk=M) == pytest.approx(
             1.0 - scaled / e0, rel=1e-6)
+        capped = _exact(*cells, z, transform=lambda x: np.minimum(x, 8.0))
+        assert pif(curve, exposure, Cap(8.0), minimum_risk=M) == pytest.approx(
+            1.0 - capped / e0, rel=1e-6)
     assert grid.with_quadrature(curve, minimum_risk=(1.0, 4.0)) is grid

@@ -15,8 +15,9 @@ uncertainty, so it is never bootstrapped; a stated exposure-model error
 from __future__ import annotations
 
 import dataclasses
+import math
 import re
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -53,7 +54,7 @@ class BuiltGrid:
     error: Mapping[str, Any] = field(default_factory=dict)
 
     def with_quadrature(self, curve: Any, *, minimum_risk: tuple[float, float] = (0.0, 0.0),
-                        width: float | None = None) -> BuiltGrid:
+                        scenarios: Sequence[Any] = (), width: float | None = None) -> BuiltGrid:
         """The grid with each zone's census given as a two-point Gauss rule
         per group of bins of log ``width`` (default the core's
         ``QUADRATURE_WIDTH``, 0.05: about a tenth of the points), for the
@@ -61,7 +62,9 @@ class BuiltGrid:
         (percentiles, cut points, figures) keeps every bin.
 
         The groups are split at the reduction's cuts, at the curve's kinks
-        (``curve.kinks()``) and at the minimum-risk level, so that each
+        (``curve.kinks()``) and the minimum-risk level, and where each of
+        the core ``scenarios`` moves them (``preimage``) or has its own
+        (``own_kinks``), so that each
         group is smooth for the curve and each zone's fractions differ from
         those of every bin by the fourth-order term of the core's module
         docstring (doseattr.core.exposure.grid: relative 4.5e-9 of
@@ -82,12 +85,22 @@ class BuiltGrid:
         from doseattr.core.exposure.grid import QUADRATURE_WIDTH
 
         step = QUADRATURE_WIDTH if width is None else float(width)
-        splits = np.append(kinks, float(minimum_risk[0]))
+        levels = np.append(kinks, float(minimum_risk[0]))
+        splits = np.concatenate([levels, *(np.ravel(sc.preimage(levels)) for sc in scenarios),
+                                 *(np.ravel(sc.own_kinks()) for sc in scenarios)])
         merged = {id(self.by_stratum[s]): self.summary.zone_exposure(k, quadrature=step,
                                                                      splits=splits)
                   for k, s in enumerate(self.section.zone_strata)}
         by_stratum = {s: merged[id(e)] for s, e in self.by_stratum.items()}
-        return dataclasses.replace(self, by_stratum=by_stratum)
+        bins = sum(e.values.size for e in {id(e): e for e in self.by_stratum.values()}.values())
+        points = sum(e.values.size for e in merged.values())
+        note = (f"grid: each zone's census is integrated as a two-point Gauss rule per "
+                f"{step:g} of ln x ({points} points for {bins} bins), its groups split at "
+                "the curve's kinks, the minimum-risk level, the cuts and where the scenarios "
+                "move them; it keeps each group's population and first three moments and "
+                "differs from every bin's by a fourth-order term, about "
+                f"{math.expm1(step) ** 4 / 1536:.1e} of x^4|h''''|/h")
+        return dataclasses.replace(self, by_stratum=by_stratum, notes=(*self.notes, note))
 
 
 def build_grid(spec: GridExposure, source: str | None) -> BuiltGrid:
