@@ -7,10 +7,8 @@ GeoTIFF or NetCDF, ``population``, optional ``zones``) or a table of cells
 (``cells``, Parquet or CSV with columns ``value``, ``population``,
 optional ``zone``). Rasters are opened with xarray (rioxarray for GeoTIFF)
 as dask arrays of ``chunk`` x ``chunk`` cells, so nothing is read until the
-reduction (:mod:`doseattr.analysis.grid_reduce`) asks for a block (a
-GeoTIFF without a mask band is read block by block as rasterio windows, a
-handle per thread: :class:`WindowReader`); tables are read
-``chunk * chunk`` rows at a time.
+reduction (:mod:`doseattr.analysis.grid_reduce`) asks for a block; tables
+are read ``chunk * chunk`` rows at a time.
 
 Nodata (a raster's nodata value or ``_FillValue``, NaN, an empty cell of a
 table) is left for the reducer to skip and count: NaN for concentration and
