@@ -199,36 +199,3 @@ def test_map_sample_taken_from_the_blocks_equals_the_strided_rasters(tmp_path, m
     lookup = {10: 0, 20: 1, 30: 2, 0: NODATA_ZONE}
     np.testing.assert_array_equal(sample.zone_index,
                                   np.vectorize(lookup.get)(zone).astype(np.int64))
-
-
-def test_window_reads_equal_the_whole_band_and_survive_pickling(tmp_path):
-    """Source: rasterio's read of the whole band (numpy comparison). The
-    blocks read as windows by WindowReader (uneven 32-cell chunks of a
-    70 x 90 grid, two threads) assemble to the same array; a pickled reader
-    (as dask.distributed sends it) reads the same values with its own
-    handle; after close() the handles are gone and a new read reopens."""
-    import pickle
-
-    rasterio = pytest.importorskip("rasterio")
-    from rasterio.transform import from_origin
-
-    from doseattr.analysis.grid_inputs import WindowReader, window_array
-
-    rng = np.random.default_rng(8)
-    values = rng.uniform(0, 50, (70, 90)).astype("float32")
-    path = tmp_path / "c.tif"
-    with rasterio.open(path, "w", driver="GTiff", width=90, height=70, count=1,
-                       dtype="float32", crs="EPSG:3035",
-                       transform=from_origin(0, 7000, 100, 100)) as dst:
-        dst.write(values, 1)
-    reader = WindowReader(str(path), (70, 90), np.dtype("float32"))
-    got = window_array(reader, 32).compute(scheduler="threads", num_workers=2)
-    np.testing.assert_array_equal(got, values)
-    assert reader._open  # handles kept for the next blocks
-    copy = pickle.loads(pickle.dumps(reader))
-    np.testing.assert_array_equal(copy[slice(5, 40), slice(60, 90)], values[5:40, 60:90])
-    reader.close()
-    copy.close()
-    assert not reader._open
-    np.testing.assert_array_equal(reader[slice(0, 3), slice(0, 2)], values[:3, :2])
-    reader.close()

@@ -340,8 +340,6 @@ class Layer:
     transform: tuple[float, ...] | None
     coords: tuple[FloatArray | None, FloatArray | None]
     crs: str | None
-    #: What reads the blocks of a GeoTIFF read raw (``None``: xarray does).
-    reader: WindowReader | None = None
 
 
 @dataclass(frozen=True)
@@ -349,12 +347,6 @@ class Rasters:
     concentration: Layer
     population: Layer
     zones: Layer | None
-
-    def close(self) -> None:
-        """Close the file handles the layers' readers opened (after a pass)."""
-        for layer in (self.concentration, self.population, self.zones):
-            if layer is not None and layer.reader is not None:
-                layer.reader.close()
 
 
 def open_rasters(spec: GridSpec) -> Rasters:
@@ -399,9 +391,8 @@ def open_layer(path: str, variable: str | None, chunk: int, *, decode: bool) -> 
         raise InputError(f"cannot be read as a raster: {_one_line(exc)}", source=path) from None
     ydim, xdim = array.dims
     shape = (int(array.shape[0]), int(array.shape[1]))
-    reader = WindowReader(path, shape, np.dtype(array.dtype)) if windowed else None
-    if reader is not None:
-        data = window_array(reader, chunk)
+    if windowed:
+        data = window_array(path, shape, np.dtype(array.dtype), chunk)
     else:
         data = array.chunk({ydim: chunk, xdim: chunk}).data
     if decode and nodata is not None:  # a GeoTIFF read raw: its nodata value to NaN, per block
@@ -409,7 +400,7 @@ def open_layer(path: str, variable: str | None, chunk: int, *, decode: bool) -> 
         data = data.map_blocks(nodata_to_nan, nodata, dtype, dtype=dtype)
         nodata = None
     return Layer(path, data, nodata, shape, _transform(array, path), _coords(array),
-                 _crs(array), reader)
+                 _crs(array))
 
 
 class WindowReader:
@@ -466,20 +457,31 @@ class WindowReader:
         self._local = threading.local()
 
 
-def window_array(reader: WindowReader, chunk: int) -> Any:
-    """A lazy ``chunk`` x ``chunk`` dask array of what ``reader`` reads
-    (its name from the path, the file's size and modification time, and
-    the chunk)."""
+#: The readers of the open layers, closed after a pass (:func:`close_readers`).
+_READERS: list[WindowReader] = []
+
+
+def window_array(path: str, shape: tuple[int, int], dtype: np.dtype[Any], chunk: int) -> Any:
+    """A lazy ``chunk`` x ``chunk`` dask array of band 1 of the GeoTIFF
+    ``path`` read by :class:`WindowReader` (its name from the path, the
+    file's size and modification time, and the chunk)."""
     import os
 
     import dask.array as da
     from dask.base import tokenize
 
-    st = os.stat(reader.path)
-    name = "grid-read-" + tokenize(os.path.realpath(reader.path), st.st_size, st.st_mtime_ns,
-                                   chunk)
+    reader = WindowReader(path, shape, dtype)
+    _READERS.append(reader)
+    st = os.stat(path)
+    name = "grid-read-" + tokenize(os.path.realpath(path), st.st_size, st.st_mtime_ns, chunk)
     return da.from_array(reader, chunks=(chunk, chunk), lock=False, asarray=True, name=name,
-                         meta=np.empty((0, 0), dtype=reader.dtype))
+                         meta=np.empty((0, 0), dtype=dtype))
+
+
+def close_readers() -> None:
+    """Close the file handles of every :func:`window_array` opened so far."""
+    while _READERS:
+        _READERS.pop().close()
 
 
 def nodata_to_nan(block: NDArray[Any], nodata: float, dtype: np.dtype[Any]) -> NDArray[Any]:
