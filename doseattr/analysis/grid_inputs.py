@@ -370,118 +370,26 @@ def open_layer(path: str, variable: str | None, chunk: int, *, decode: bool) -> 
     ``decode=True`` turns nodata into NaN (values become floats);
     ``decode=False`` keeps the stored values and type (zone ids stay exact
     integers) and returns the nodata value to compare with.
-
-    xarray (rioxarray) gives the grid's metadata. A GeoTIFF read raw (no
-    mask band: see :func:`_geotiff`) is read block by block as rasterio
-    windows (:class:`WindowReader`, a dask array of its own: still lazy,
-    one task per block), which gives the same values as rioxarray's
-    reads without their global lock, so that dask's threads read in
-    parallel; a masked GeoTIFF and NetCDF are read through xarray.
     """
-    windowed = False
     try:
         if path.lower().endswith(".nc"):
             array, nodata = _netcdf(path, variable, decode)
         else:
-            array, nodata, masked = _geotiff(path, decode)
-            windowed = not masked
+            array, nodata = _geotiff(path, decode)
     except InputError:
         raise
     except (OSError, ValueError, RuntimeError, KeyError) as exc:
         raise InputError(f"cannot be read as a raster: {_one_line(exc)}", source=path) from None
     ydim, xdim = array.dims
+    array = array.chunk({ydim: chunk, xdim: chunk})
     shape = (int(array.shape[0]), int(array.shape[1]))
-    if windowed:
-        data = window_array(path, shape, np.dtype(array.dtype), chunk)
-    else:
-        data = array.chunk({ydim: chunk, xdim: chunk}).data
+    data = array.data
     if decode and nodata is not None:  # a GeoTIFF read raw: its nodata value to NaN, per block
         dtype = data.dtype if data.dtype.kind == "f" else np.dtype(np.float64)
         data = data.map_blocks(nodata_to_nan, nodata, dtype, dtype=dtype)
         nodata = None
     return Layer(path, data, nodata, shape, _transform(array, path), _coords(array),
                  _crs(array))
-
-
-class WindowReader:
-    """Band 1 of a GeoTIFF as an array-like for :func:`dask.array.from_array`:
-    ``reader[rows, cols]`` (two slices, step 1) reads that window with
-    rasterio. Each thread opens the file once and keeps its handle until
-    :meth:`close` (rasterio datasets are not safe to share between threads);
-    a pickled reader (dask.distributed) opens its own handles."""
-
-    def __init__(self, path: str, shape: tuple[int, int], dtype: np.dtype[Any]) -> None:
-        import threading
-
-        self.path, self.shape, self.dtype, self.ndim = path, shape, np.dtype(dtype), 2
-        self._local = threading.local()
-        self._lock = threading.Lock()
-        self._open: list[Any] = []
-
-    def __getstate__(self) -> tuple[str, tuple[int, int], str]:
-        return self.path, self.shape, self.dtype.str
-
-    def __setstate__(self, state: tuple[str, tuple[int, int], str]) -> None:
-        path, shape, dtype = state
-        self.__init__(path, tuple(shape), np.dtype(dtype))  # type: ignore[misc, arg-type]
-
-    def __getitem__(self, key: tuple[slice, slice]) -> NDArray[Any]:
-        from rasterio.windows import Window
-
-        rows, cols = key
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
-        if r1 <= r0 or c1 <= c0:
-            return np.empty((max(r1 - r0, 0), max(c1 - c0, 0)), dtype=self.dtype)
-        out: NDArray[Any] = self._dataset().read(1, window=Window(c0, r0, c1 - c0, r1 - r0))
-        return out
-
-    def _dataset(self) -> Any:
-        ds = getattr(self._local, "dataset", None)
-        if ds is None:
-            import rasterio
-
-            ds = self._local.dataset = rasterio.open(self.path, sharing=False)
-            with self._lock:
-                self._open.append(ds)
-        return ds
-
-    def close(self) -> None:
-        """Close every thread's handle (a later read opens a new one)."""
-        with self._lock:
-            handles, self._open = self._open, []
-        for ds in handles:
-            ds.close()
-        import threading
-
-        self._local = threading.local()
-
-
-#: The readers of the open layers, closed after a pass (:func:`close_readers`).
-_READERS: list[WindowReader] = []
-
-
-def window_array(path: str, shape: tuple[int, int], dtype: np.dtype[Any], chunk: int) -> Any:
-    """A lazy ``chunk`` x ``chunk`` dask array of band 1 of the GeoTIFF
-    ``path`` read by :class:`WindowReader` (its name from the path, the
-    file's size and modification time, and the chunk)."""
-    import os
-
-    import dask.array as da
-    from dask.base import tokenize
-
-    reader = WindowReader(path, shape, dtype)
-    _READERS.append(reader)
-    st = os.stat(path)
-    name = "grid-read-" + tokenize(os.path.realpath(path), st.st_size, st.st_mtime_ns, chunk)
-    return da.from_array(reader, chunks=(chunk, chunk), lock=False, asarray=True, name=name,
-                         meta=np.empty((0, 0), dtype=dtype))
-
-
-def close_readers() -> None:
-    """Close the file handles of every :func:`window_array` opened so far."""
-    while _READERS:
-        _READERS.pop().close()
 
 
 def nodata_to_nan(block: NDArray[Any], nodata: float, dtype: np.dtype[Any]) -> NDArray[Any]:
@@ -493,9 +401,8 @@ def nodata_to_nan(block: NDArray[Any], nodata: float, dtype: np.dtype[Any]) -> N
     return out
 
 
-def _geotiff(path: str, decode: bool) -> tuple[Any, float | None, bool]:
-    """The band, its nodata value and whether rioxarray decodes its mask
-    (``masked``: a mask band or alpha). Decoding with rioxarray's ``masked``
+def _geotiff(path: str, decode: bool) -> tuple[Any, float | None]:
+    """The band and its nodata value. Decoding with rioxarray's ``masked``
     reads through numpy masked arrays, several times the cost of the read
     itself; when the file's mask is only its nodata value (no mask band,
     no alpha), the band is read raw and :func:`open_layer` turns that value
@@ -510,7 +417,7 @@ def _geotiff(path: str, decode: bool) -> tuple[Any, float | None, bool]:
                              source=path)
         array = array.isel(band=0, drop=True)
     nodata = None if masked else array.rio.nodata
-    return array, None if nodata is None else float(nodata), masked
+    return array, None if nodata is None else float(nodata)
 
 
 def _nodata_mask_only(path: str) -> bool:

@@ -29,7 +29,6 @@ from doseattr.analysis.grid_inputs import (
     UNKNOWN_ZONE,
     GridSpec,
     ZoneMap,
-    close_readers,
     iter_cells,
     open_rasters,
     require_grid_extra,
@@ -209,7 +208,6 @@ def _rasters(spec: GridSpec, zone_ids: Sequence[int], reduce_block: Reducer,
         (total,) = _compute(root, scheduler=scheduler)
     finally:
         _release_scratch()
-        close_readers()
     conc_s, pop_s, zone_s = _assemble(total.pieces, layers.concentration.shape, step)
     if zones is None or zone_s is None:
         index = np.zeros(np.shape(conc_s), dtype=np.int64)
