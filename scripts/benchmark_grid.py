@@ -50,7 +50,10 @@ inherited) is printed beside it. Measured:
 
 Times exclude the children's start-up and imports (matplotlib's pyplot,
 which the figures import on first use, included). Printed: the machine,
-cells, the times, ns per cell, the ratio analysis / bare pass and each peak.
+cells, the wall and CPU times (``time.process_time``: every thread of the
+child, so the analysis's can exceed its wall time on two cores), ns per
+cell, the ratio analysis / bare pass (wall, and CPU as the steadier figure
+on a shared machine), the load average and each peak.
 
 Usage:  python scripts/benchmark_grid.py [--side 10000] [--zones 100]
         [--draws 1000] [--chunk 2048] [--folder DIR] [--keep] [--reuse DIR] [--smoke]
@@ -316,18 +319,28 @@ def timing(spent: dict[str, float]) -> Iterator[None]:
 
 
 def _timed(fn: Any, label: str, spent: dict[str, float]) -> Any:
+    """``fn`` adding its wall time to ``spent[label]`` and its CPU time
+    (every thread of the process, ``time.process_time``) to
+    ``spent[CPU + label]``."""
     def wrapper(*args: Any, **kwargs: Any) -> Any:
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         try:
             return fn(*args, **kwargs)
         finally:
             spent[label] = spent.get(label, 0.0) + time.perf_counter() - t0
+            spent[CPU + label] = spent.get(CPU + label, 0.0) + time.process_time() - c0
     return wrapper
 
 
-def analysis_parts(spent: dict[str, float], total: float) -> dict[str, float]:
-    """Exclusive times: each timed function without the ones inside it."""
-    get = spent.get
+#: Prefix of the CPU times in ``spent``.
+CPU = "cpu: "
+
+
+def analysis_parts(spent: dict[str, float], total: float, prefix: str = "") -> dict[str, float]:
+    """Exclusive times: each timed function without the ones inside it
+    (``prefix`` :data:`CPU`: the CPU times)."""
+    def get(label: str, default: float) -> float:
+        return spent.get(prefix + label, default)
     parts = {"load_analysis (read, check)": get("load_analysis (read, check)", 0.0),
              "reduce_grid (dask pass)": get("reduce_grid (dask pass)", 0.0),
              "build_grid without its pass (census exposures)":
@@ -345,17 +358,18 @@ def full_analysis(toml: Path, out: Path) -> dict[str, Any] | None:
 
     err = io.StringIO()
     spent: dict[str, float] = {}
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     with contextlib.redirect_stderr(err), timing(spent):
         status = main(["run", str(toml), "--out", str(out), "--quiet"])
-    seconds = time.perf_counter() - t0
+    seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     if status == 2 and REFUSED in err.getvalue():
         return None
     if status != 0:
         raise RuntimeError(f"doseattr run failed ({status}): {err.getvalue().strip()}")
     results = json.loads((out / "results.json").read_text(encoding="utf-8"))
-    return {"mode": "full analysis (doseattr run)", "seconds": seconds,
-            "parts": analysis_parts(spent, seconds), "notes": err.getvalue().splitlines(),
+    return {"mode": "full analysis (doseattr run)", "seconds": seconds, "cpu_seconds": cpu,
+            "parts": analysis_parts(spent, seconds),
+            "cpu_parts": analysis_parts(spent, cpu, CPU), "notes": err.getvalue().splitlines(),
             "check": _paf_of(results)}
 
 
@@ -462,7 +476,7 @@ def child(args: argparse.Namespace) -> None:
     folder = Path(args.folder)
     warm_imports()
     before = peak_mb()
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     if args.child == "generate":
         layout = Layout(args.side, args.side, args.zones)
         write_rasters(layout, folder, None if args.compress == "none" else args.compress)
@@ -471,7 +485,8 @@ def child(args: argparse.Namespace) -> None:
         report: dict[str, Any] = {"mode": "generation", "seconds": time.perf_counter() - t0}
     elif args.child == "bare":
         dose, people, cells = bare_pass(folder, args.chunk, args.zones)
-        report = {"mode": "bare pass", "seconds": time.perf_counter() - t0, "cells": cells,
+        report = {"mode": "bare pass", "seconds": time.perf_counter() - t0,
+                  "cpu_seconds": time.process_time() - c0, "cells": cells,
                   "mean": float(dose.sum() / people.sum())}
     else:
         toml = folder / "analysis.toml"
@@ -531,7 +546,8 @@ def machine() -> list[str]:
 def step(name: str, r: dict[str, Any], ns: float) -> str:
     """One measured child: time, ns per cell and its peaks."""
     hwm = "" if r.get("vm_hwm_mb") is None else f", VmHWM {r['vm_hwm_mb']:.0f} MB"
-    return (f"{name}: {r['seconds']:.2f} s ({r['seconds'] * ns:.1f} ns/cell); peak "
+    cpu = "" if r.get("cpu_seconds") is None else f", CPU {r['cpu_seconds']:.2f} s"
+    return (f"{name}: {r['seconds']:.2f} s{cpu} ({r['seconds'] * ns:.1f} ns/cell); peak "
             f"ru_maxrss {r['peak_mb']:.0f} MB{hwm} (after its imports "
             f"{r['peak_mb_before']:.0f} MB; inherited floor {r['floor_mb']:.0f} MB)")
 
@@ -549,12 +565,20 @@ def report(layout: Layout, args: argparse.Namespace, generation: dict[str, Any],
              step("bare pass (read + multiply-add, one thread)", bare, ns),
              f"analysis measured: {analysis['mode']}",
              step("analysis", analysis, ns)]
+    cpu_parts = analysis.get("cpu_parts", {})
     lines += [f"  {name}: {s:.2f} s ({s * ns:.1f} ns/cell)"
+              + (f", CPU {cpu_parts[name]:.2f} s" if name in cpu_parts else "")
               for name, s in analysis["parts"].items()]
     lines += [f"  {line}" for line in analysis.get("notes", [])]
     if "check" in analysis:
         lines.append(f"  check: {analysis['check']}")
     ratio = analysis["seconds"] / bare["seconds"]
+    if bare.get("cpu_seconds") and analysis.get("cpu_seconds"):
+        lines.append(f"CPU ratio analysis / bare pass: "
+                     f"{analysis['cpu_seconds'] / bare['cpu_seconds']:.2f} (the analysis uses "
+                     "every core, the bare pass one; on a loaded machine the CPU times are the "
+                     "steadier figures)")
+    lines.append(f"load average (1, 5, 15 min): {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
     lines.append(f"ratio analysis / bare pass: {ratio:.2f} (goal <= 3); peak ru_maxrss bare "
                  f"{bare['peak_mb']:.0f} MB, analysis {analysis['peak_mb']:.0f} MB (goal < 2048)")
     return "\n".join(lines)

@@ -187,3 +187,28 @@ def test_dictionary_analysis(tmp_path):
     results.write(out, figures=False)
     assert (out / "analysis.json").read_bytes() == canonical
     assert not (out / "analysis.toml").exists()
+
+
+def test_large_files_hashed_side_by_side_give_the_same_digests(tmp_path, monkeypatch):
+    """Source: hashlib.sha256 of each file's whole bytes. Files above the
+    hash-once size are hashed in threads at once (hash_large_files), in
+    reused 4 MiB buffers: the digests are those of the bytes, an uneven
+    length included, and a changed file (new stat signature) is hashed
+    again."""
+    from doseattr.analysis import provenance as prov
+
+    monkeypatch.setattr(prov, "HASH_ONCE_BYTES", 1 << 10)
+    monkeypatch.setattr(prov, "_HASHED", {})
+    rng = numpy.random.default_rng(12)
+    paths = []
+    for k, size in enumerate((5 << 20, (4 << 20) + 3, 2000, 100)):
+        path = tmp_path / f"f{k}.bin"
+        path.write_bytes(rng.integers(0, 256, size, dtype=numpy.uint8).tobytes())
+        paths.append(str(path))
+    prov.hash_large_files(paths)
+    assert len(prov._HASHED) == 3  # the three files above the (patched) size
+    for path in paths:
+        assert prov.sha256_file(path) == hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    Path(paths[0]).write_bytes(b"changed" * 300)
+    prov.hash_large_files(paths)
+    assert prov.sha256_file(paths[0]) == hashlib.sha256(b"changed" * 300).hexdigest()

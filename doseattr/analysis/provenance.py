@@ -52,7 +52,7 @@ _HASHED: dict[tuple[str, int, int, int, int], str] = {}
 
 
 def sha256_file(path: str | os.PathLike[str]) -> str:
-    """Hex SHA-256 of a file's bytes, read in 1 MiB blocks (large files:
+    """Hex SHA-256 of a file's bytes, read in :data:`HASH_BLOCK` blocks (large files:
     see :data:`HASH_ONCE_BYTES`)."""
     st = os.stat(path)
     if st.st_size < HASH_ONCE_BYTES:
@@ -65,10 +65,39 @@ def sha256_file(path: str | os.PathLike[str]) -> str:
 
 def _sha256(path: str | os.PathLike[str]) -> str:
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
+    buffer = bytearray(HASH_BLOCK)
+    view = memoryview(buffer)
+    with open(path, "rb", buffering=0) as fh:
+        while n := fh.readinto(buffer):
+            h.update(view[:n])
     return h.hexdigest()
+
+
+#: Bytes read at a time when hashing, into one reused buffer.
+HASH_BLOCK = 4 << 20
+#: Threads that hash large files at once (hashlib releases the GIL while
+#: it digests, so the files of a grid are hashed on every core).
+HASH_THREADS = 4
+
+
+def hash_large_files(paths: list[str]) -> None:
+    """Hash at once, in threads, every file of ``paths`` that
+    :func:`sha256_file` would hash once and has not yet (the same digests,
+    computed side by side on every core)."""
+    todo = []
+    for path in dict.fromkeys(paths):
+        try:
+            if os.stat(path).st_size >= HASH_ONCE_BYTES:
+                todo.append(path)
+        except OSError:
+            continue  # sha256_file raises it where the path is used
+    if len(todo) < 2:
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    workers = min(len(todo), HASH_THREADS, os.cpu_count() or 1)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        list(pool.map(sha256_file, todo))
 
 
 def canonical_json(settings: Mapping[str, Any]) -> bytes:
@@ -109,6 +138,9 @@ def input_tables(analysis: Any) -> list[InputTable]:
     """Every table named in the analysis, in file order, with its hash."""
     base = getattr(analysis, "base_dir", None) or "."
     tables = []
+    hash_large_files([value if os.path.isabs(value) else os.path.join(base, value)
+                      for _, value in _path_keys(getattr(analysis, "settings", None) or {})
+                      if not is_in_memory(value)])
     for key, value in _path_keys(getattr(analysis, "settings", None) or {}):
         if is_in_memory(value):
             name = in_memory_name(key, value)
