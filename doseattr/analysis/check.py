@@ -27,7 +27,7 @@ from doseattr.analysis.build import (
 from doseattr.analysis.burden_run import burden_strata
 from doseattr.analysis.burden_table import BurdenTable
 from doseattr.analysis.config import Analysis
-from doseattr.analysis.intervals import finite
+from doseattr.analysis.intervals import finite, minimum_risk_range
 from doseattr.analysis.schema import key_location
 from doseattr.analysis.specs import (
     BinnedExposure,
@@ -165,10 +165,27 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
                      for spec, sc in scenarios)
     strata = None
     if analysis.burden is not None:
+        built_exposure = _grid_quadrature(analysis, built_exposure, curve, scenarios)
         strata = burden_strata(analysis, exposure, built_exposure.grid)
         _check_strata(analysis.burden.table, m, curve, exposure, strata)
     return Prepared(analysis, built_exposure, built, scenarios, strata, paf_value, pifs,
                     tuple(warnings))
+
+
+def _grid_quadrature(analysis: Analysis, built_exposure: BuiltExposure, curve: Curve,
+                     scenarios: list) -> BuiltExposure:
+    """The grid's zones as a Gauss rule per group of bins for the Monte
+    Carlo (:meth:`~doseattr.analysis.grid_exposure.BuiltGrid.with_quadrature`),
+    with its note; unchanged without a grid or where the rule does not apply."""
+    grid = built_exposure.grid
+    if grid is None:
+        return built_exposure
+    fewer = grid.with_quadrature(curve, minimum_risk=minimum_risk_range(analysis),
+                                 scenarios=[sc for _, sc in scenarios])
+    if fewer is grid:
+        return built_exposure
+    return dataclasses.replace(built_exposure, grid=fewer,
+                               notes=(*built_exposure.notes, fewer.notes[-1]))
 
 
 def _check_strata(table: BurdenTable, m: float, curve: Curve, shared: object,
