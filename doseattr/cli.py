@@ -206,7 +206,7 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
     clock.enter("start-up (imports)")
     from doseattr.analysis.pipeline import run_analysis
     from doseattr.analysis.progress import show_stage, stage_listener
-    from doseattr.analysis.provenance import protected_paths, provenance
+    from doseattr.analysis.provenance import input_signatures, protected_paths
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
     def stage(name: str) -> None:
@@ -216,7 +216,7 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
     clock.enter(PROFILE_READING)
     analysis = _load(path, scheduler)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
-    read = provenance(analysis)
+    read = provenance_now(analysis, input_signatures(analysis))  # large files hash meanwhile
     with warnings.catch_warnings(record=True) as caught, stage_listener(clock.callback):
         # our own lines rather than Python's: as they arise, and again at the
         # end with --quiet (they may change a decision)
@@ -226,8 +226,8 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
         stage("fitting")
         results = run_analysis(analysis, progress=not quiet)
     clock.enter(PROFILE_FILES)
-    _same_inputs(read, results.provenance, path)  # as the run finished
-    _same_inputs(read, provenance(analysis), path)  # and now, before writing
+    _same_inputs(read, provenance_now(analysis, input_signatures(analysis)), path)
+    _same_inputs(read, (results.provenance.get("analysis_sha256", read[0]), {}), path)
     try:
         written = write_outputs(results, out, command=command, inputs=inputs, stage=stage)
     except OSError as exc:
@@ -258,15 +258,26 @@ def _show_now(message, category, filename, lineno, file=None, line=None) -> None
         _PYTHON_SHOWWARNING(message, category, filename, lineno, file, line)
 
 
-def _same_inputs(read: dict, now: dict, path: str) -> None:
+def provenance_now(analysis, signatures: dict) -> tuple[str, dict]:
+    """The analysis file's SHA-256 and the inputs' stat signatures
+    (:func:`~doseattr.analysis.provenance.input_signatures`)."""
+    from doseattr.analysis.provenance import analysis_bytes, sha256_bytes
+
+    return sha256_bytes(analysis_bytes(analysis)[1]), signatures
+
+
+def _same_inputs(read: tuple[str, dict], now: tuple[str, dict], path: str) -> None:
     """Refuse to write when the analysis file or a table changed while the
-    run was computing (the hashes would not describe the data used)."""
-    if read["analysis_sha256"] != now["analysis_sha256"]:
+    run was computing (the hashes would not describe the data used): the
+    analysis file's SHA-256, and every file's stat signature."""
+    if read[0] != now[0]:
         raise InputError("changed while the run was computing; run again", source=path)
-    for before, after in zip(read["input_tables"], now["input_tables"]):
-        if before["sha256"] != after["sha256"]:
-            raise InputError(f"{before['path']} changed while the run was computing; run again",
-                             source=path, location=before["key"])
+    for (key, file), signature in read[1].items():
+        if now[1] and now[1].get((key, file)) != signature:
+            if not key:
+                raise InputError("changed while the run was computing; run again", source=path)
+            raise InputError(f"{file} changed while the run was computing; run again",
+                             source=path, location=key)
 
 
 def _init(kind: str, folder: str) -> int:

@@ -176,3 +176,29 @@ def test_many_draws_accepted_with_the_override():
                             "exposure": {"gm": 5.0, "gsd": 2.0},
                             "uncertainty": {"draws": 200_000, "allow_many_draws": True}})
     assert a.uncertainty.draws == 200_000
+
+
+@pytest.mark.parametrize("changed", ["measurements.csv", "analysis.toml"])
+def test_input_changed_during_the_run_is_refused(tmp_path, capsys, monkeypatch, changed):
+    """A table or the analysis file rewritten while the run computes (its
+    stat signature changes; git's quick check, common practice) stops the
+    run before writing: exit 2, one line naming the file, no folder."""
+    from doseattr.analysis import pipeline
+
+    path = write_case(tmp_path / "case")
+    real = pipeline.run_analysis
+
+    def run_and_edit(analysis, **kw):
+        results = real(analysis, **kw)
+        target = path.parent / changed
+        target.write_text(target.read_text() + "\n# edited\n")
+        return results
+
+    monkeypatch.setattr(pipeline, "run_analysis", run_and_edit)
+    out_dir = tmp_path / "out"
+    code, _, err = _run(["run", path, "--out", out_dir, "--quiet"], capsys)
+    assert code == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "changed while the run was computing" in lines[0]
+    assert (changed in lines[0]) or changed == "analysis.toml"
+    assert not out_dir.exists()

@@ -11,7 +11,7 @@ section what a run would compute. Nothing here draws or writes.
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any, Literal
 
 import numpy as np
@@ -173,7 +173,7 @@ def prepare(analysis: Analysis, *, built_exposure: BuiltExposure | None = None) 
 
 
 def _grid_quadrature(analysis: Analysis, built_exposure: BuiltExposure, curve: Curve,
-                     scenarios: list) -> BuiltExposure:
+                     scenarios: Sequence) -> BuiltExposure:
     """The grid's zones as a Gauss rule per group of bins for the Monte
     Carlo (:meth:`~doseattr.analysis.grid_exposure.BuiltGrid.with_quadrature`),
     with its note; unchanged without a grid or where the rule does not apply."""

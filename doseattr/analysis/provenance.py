@@ -13,7 +13,9 @@ import hashlib
 import json
 import os
 import platform
+import threading
 from collections.abc import Iterator, Mapping
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
@@ -48,19 +50,37 @@ def sha256_bytes(data: bytes) -> str:
 #: rsync's quick check use the same stat signature; common practice): a run
 #: checks its inputs three times, and a 1e8-cell grid is gigabytes.
 HASH_ONCE_BYTES = 64 << 20
-_HASHED: dict[tuple[str, int, int, int, int], str] = {}
+#: stat signature -> the digest being computed (or done) in the hashing threads
+_HASHED: dict[tuple[str, int, int, int, int], Future[str]] = {}
+_LOCK = threading.Lock()
+_POOL: list[ThreadPoolExecutor] = []
 
 
 def sha256_file(path: str | os.PathLike[str]) -> str:
     """Hex SHA-256 of a file's bytes, read in :data:`HASH_BLOCK` blocks (large files:
     see :data:`HASH_ONCE_BYTES`)."""
-    st = os.stat(path)
-    if st.st_size < HASH_ONCE_BYTES:
+    if os.stat(path).st_size < HASH_ONCE_BYTES:
         return _sha256(path)
-    key = (os.path.realpath(path), st.st_size, st.st_mtime_ns, st.st_ctime_ns, st.st_ino)
-    if key not in _HASHED:
-        _HASHED[key] = _sha256(path)
-    return _HASHED[key]
+    return _digest(path).result()
+
+
+def stat_signature(path: str | os.PathLike[str]) -> tuple[str, int, int, int, int]:
+    """Real path, size, modification and change times (ns) and inode."""
+    st = os.stat(path)
+    return (os.path.realpath(path), st.st_size, st.st_mtime_ns, st.st_ctime_ns, st.st_ino)
+
+
+def _digest(path: str | os.PathLike[str]) -> Future[str]:
+    """The hashing threads' digest of a large file under its current stat
+    signature, started now if no thread has it yet."""
+    key = stat_signature(path)
+    with _LOCK:
+        if key not in _HASHED:
+            if not _POOL:
+                _POOL.append(ThreadPoolExecutor(max_workers=min(HASH_THREADS, os.cpu_count() or 1),
+                                                thread_name_prefix="doseattr-hash"))
+            _HASHED[key] = _POOL[0].submit(_sha256, path)
+        return _HASHED[key]
 
 
 def _sha256(path: str | os.PathLike[str]) -> str:
@@ -80,24 +100,57 @@ HASH_BLOCK = 4 << 20
 HASH_THREADS = 4
 
 
-def hash_large_files(paths: list[str]) -> None:
-    """Hash at once, in threads, every file of ``paths`` that
-    :func:`sha256_file` would hash once and has not yet (the same digests,
-    computed side by side on every core)."""
-    todo = []
+def start_hashing(paths: list[str]) -> list[str]:
+    """Start hashing, in background threads, every file of ``paths`` that
+    :func:`sha256_file` would hash once and has not yet; returns those
+    files (their digests are then ready, or awaited, when asked for)."""
+    large = []
     for path in dict.fromkeys(paths):
         try:
             if os.stat(path).st_size >= HASH_ONCE_BYTES:
-                todo.append(path)
+                _digest(path)
+                large.append(path)
         except OSError:
             continue  # sha256_file raises it where the path is used
-    if len(todo) < 2:
-        return
-    from concurrent.futures import ThreadPoolExecutor
+    return large
 
-    workers = min(len(todo), HASH_THREADS, os.cpu_count() or 1)
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        list(pool.map(sha256_file, todo))
+
+def hash_large_files(paths: list[str]) -> None:
+    """Hash at once, in threads, every large file of ``paths`` (the same
+    digests, computed side by side on every core), and wait for them."""
+    for path in start_hashing(paths):
+        _digest(path).result()
+
+
+def input_signatures(analysis: Any) -> dict[tuple[str, str], tuple | None]:
+    """``{(key, path): stat signature}`` of the analysis file (key ``""``)
+    and of every table it names (``None`` where the file cannot be read),
+    and the large tables' hashing started in the background: what the
+    command line compares after the run to refuse outputs whose inputs
+    changed while it computed (the stat signature is git's and rsync's
+    quick check; common practice)."""
+    source = getattr(analysis, "source", None)
+    base = getattr(analysis, "base_dir", None) or "."
+    named = [("", source)] if source else []
+    named += [(key, value if os.path.isabs(value) else os.path.join(base, value))
+              for key, value in _path_keys(getattr(analysis, "settings", None) or {})
+              if not is_in_memory(value)]
+    start_hashing([path for _, path in named])
+    out: dict[tuple[str, str], tuple | None] = {}
+    for key, path in named:
+        try:
+            out[key, path] = stat_signature(path)
+        except OSError:
+            out[key, path] = None
+    return out
+
+
+def input_paths(analysis: Any) -> list[str]:
+    """The paths of the tables named in the analysis (not in-memory ones)."""
+    base = getattr(analysis, "base_dir", None) or "."
+    return [value if os.path.isabs(value) else os.path.join(base, value)
+            for _, value in _path_keys(getattr(analysis, "settings", None) or {})
+            if not is_in_memory(value)]
 
 
 def canonical_json(settings: Mapping[str, Any]) -> bytes:
@@ -138,9 +191,7 @@ def input_tables(analysis: Any) -> list[InputTable]:
     """Every table named in the analysis, in file order, with its hash."""
     base = getattr(analysis, "base_dir", None) or "."
     tables = []
-    hash_large_files([value if os.path.isabs(value) else os.path.join(base, value)
-                      for _, value in _path_keys(getattr(analysis, "settings", None) or {})
-                      if not is_in_memory(value)])
+    hash_large_files(input_paths(analysis))
     for key, value in _path_keys(getattr(analysis, "settings", None) or {}):
         if is_in_memory(value):
             name = in_memory_name(key, value)
