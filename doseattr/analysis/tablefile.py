@@ -17,6 +17,13 @@ is row 2, as in the CSV file ``DataFrame.to_csv(index=False)`` writes).
 
 Cells that hold numbers are written as ``repr`` of the float (which reads
 back exactly), dates as ISO dates, missing values as empty cells.
+
+A large plain text table (at least :data:`COLUMNAR_MIN_BYTES`, with ASCII
+data rows, no quotes, no comment or blank lines between data rows and
+every row as wide as the header) is read column by column with pandas' C
+tokenizer (:func:`columnar_grid`); any other text table, and any table
+whose columnar reading finds something unusual, is read line by line with
+:mod:`csv`. Both give the same cells, row numbers and messages.
 """
 
 from __future__ import annotations
@@ -26,9 +33,14 @@ import datetime as dt
 import hashlib
 import importlib
 import math
-from dataclasses import dataclass
+import re
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
 
 from doseattr.errors import InputError
 
@@ -42,6 +54,20 @@ PARQUET_SUFFIXES = (".parquet", ".pq")
 REFUSED_SUFFIXES = {".xls": "an Excel 97-2003 workbook", ".ods": "an OpenDocument spreadsheet",
                     ".numbers": "a Numbers spreadsheet"}
 DECIMAL_MARKS = (".", ",")
+#: Text tables of at least this many bytes are read column by column (see
+#: :func:`columnar_grid`); smaller ones line by line, which is as fast for
+#: them and does not import pandas.
+COLUMNAR_MIN_BYTES = 256 * 1024
+COLUMNAR_DELIMITERS = (",", ";", "\t", "|")
+#: Lines searched for the header before a table is read line by line.
+HEADER_SEARCH_LINES = 64
+#: Bytes that keep data rows from the columnar reading: control characters
+#: other than tab, line feed and carriage return (some break lines for
+#: :meth:`str.splitlines`), and quotes.
+_NOT_PLAIN = re.compile(rb'[\x00-\x08\x0b-\x1f\x7f"]')
+_COMMENT_LINE = re.compile(rb"(?:^|\n)[ \t]*#")
+#: A space or tab at the edge of a cell (then text cells are stripped).
+_EDGE_SPACE = re.compile(rb"[ \t](?:[,;|\r\n]|$)|(?:^|[,;|\n])[ \t]")
 
 
 @dataclass(frozen=True)
@@ -99,6 +125,35 @@ class Grid:
     rows: list[tuple[int, list[str]]]
     kind: str
     decimal: str = "."
+    #: The data rows column by column when the table was read so (then
+    #: ``rows`` is empty).
+    columns: Columns | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class Columns:
+    """A text table's data rows column by column (from
+    :func:`columnar_grid`).
+
+    ``lines`` holds each row's line number; ``cells`` each header
+    position's cells: float64 where pandas read every cell as a number
+    (integers included), bool where it read every cell as true/false
+    (``true``, ``True``, ``TRUE``, ``false``...), otherwise an object array
+    of the cells' text, stripped. :meth:`text` gives any column's text as
+    written (stripped), reading the file again for number and bool columns.
+    """
+
+    lines: NDArray[np.int64]
+    cells: list[NDArray[Any]]
+    reread: Callable[[int], NDArray[np.object_]]
+    _texts: dict[int, NDArray[np.object_]] = field(default_factory=dict)
+
+    def text(self, j: int) -> NDArray[np.object_]:
+        if self.cells[j].dtype == object:
+            return self.cells[j]
+        if j not in self._texts:
+            self._texts[j] = self.reread(j)
+        return self._texts[j]
 
 
 def is_in_memory(value: Any) -> bool:
@@ -162,10 +217,19 @@ def _read_bytes(path: str, source: str) -> bytes:
 
 
 def _text_grid(path: str, source: str, options: TableOptions) -> Grid:
-    import csv
-
     data = _read_bytes(path, source)
     _refuse_binary(data, source)
+    delimiter = options.delimiter or ("\t" if suffix(path) in TAB_SUFFIXES else ",")
+    columnar = columnar_grid(data, source, options, delimiter)
+    if columnar is not None:
+        return columnar
+    return _line_grid(data, source, options, delimiter)
+
+
+def _line_grid(data: bytes, source: str, options: TableOptions, delimiter: str) -> Grid:
+    """Read a text table line by line with :mod:`csv`."""
+    import csv
+
     try:
         text = data.decode(options.encoding)
     except UnicodeDecodeError as exc:
@@ -175,30 +239,198 @@ def _text_grid(path: str, source: str, options: TableOptions) -> Grid:
                 else "check the encoding option")
         raise InputError(f"cannot be read as {_codec_name(options.encoding)} text; {hint}",
                          source=source, location=f"row {bad_line}") from None
-    delimiter = options.delimiter or ("\t" if suffix(path) in TAB_SUFFIXES else ",")
     header: tuple[int, list[str]] | None = None
     rows: list[tuple[int, list[str]]] = []
     lines = text.splitlines()
-    for line_no, line in enumerate(lines, start=1):
-        if not line.strip() or line.lstrip().startswith("#"):
-            continue
-        previous = csv.field_size_limit()
-        csv.field_size_limit(max(previous, len(line) + 1))
-        try:
-            cells = [c.strip() for c in next(csv.reader([line], delimiter=delimiter), [])]
-        except csv.Error as exc:
-            raise InputError(f"cannot be read as CSV: {exc}", source=source,
-                             location=f"row {line_no}") from None
-        finally:
-            csv.field_size_limit(previous)
-        if header is None:
-            _check_delimiter(cells, line, delimiter, source, line_no)
-            header = (line_no, cells)
-        else:
-            rows.append((line_no, cells))
+    previous = csv.field_size_limit()
+    csv.field_size_limit(max(previous, max(map(len, lines), default=0) + 1))
+    try:
+        for line_no, line in enumerate(lines, start=1):
+            if _skipped(line):
+                continue
+            cells = _line_cells(line, delimiter, source, line_no)
+            if header is None:
+                _check_delimiter(cells, line, delimiter, source, line_no)
+                header = (line_no, cells)
+            else:
+                rows.append((line_no, cells))
+    finally:
+        csv.field_size_limit(previous)
     if header is None:
         raise InputError("the file is empty (no header row)", source=source, location="row 1")
     return Grid(source, header[0], header[1], rows, "text", options.decimal)
+
+
+def _skipped(line: str) -> bool:
+    """Blank lines and comment lines (``#`` first) are not rows."""
+    return not line.strip() or line.lstrip().startswith("#")
+
+
+def _line_cells(line: str, delimiter: str, source: str, line_no: int) -> list[str]:
+    """One line's cells, stripped (the caller has raised the field size limit)."""
+    import csv
+
+    if '"' not in line:
+        return [c.strip() for c in line.split(delimiter)]
+    try:
+        return [c.strip() for c in next(csv.reader([line], delimiter=delimiter), [])]
+    except csv.Error as exc:
+        raise InputError(f"cannot be read as CSV: {exc}", source=source,
+                         location=f"row {line_no}") from None
+
+
+# -- reading a large text table column by column ------------------------------------
+def columnar_grid(data: bytes, source: str, options: TableOptions,
+                  delimiter: str) -> Grid | None:
+    """The table read column by column with pandas' C tokenizer, or
+    ``None`` where it would not give what :func:`_line_grid` gives (then
+    the caller reads it line by line, which also words any message).
+
+    The header and the comment lines above it are read as text in the
+    table's encoding; the data rows after it must be ASCII (the same text
+    in every ASCII-compatible encoding) without quotes, control
+    characters, lone carriage returns or comment lines, with as many
+    delimiters on each line as the header has, so that each line is one
+    row and each delimiter ends one cell, as :mod:`csv` splits them. Rows
+    whose every cell is empty are left out as blank lines are."""
+    if (len(data) < COLUMNAR_MIN_BYTES or delimiter not in COLUMNAR_DELIMITERS
+            or options.decimal not in DECIMAL_MARKS or not _ascii_codec(options.encoding)):
+        return None
+    found = _header_line(data, options.encoding, delimiter, source)
+    if found is None:
+        return None
+    header_line, header, end = found
+    body = data[end:].rstrip(b" \t\r\n")
+    width = len(header)
+    if not body or not _plain(body):
+        return None
+    n = body.count(b"\n") + 1
+    if body.count(delimiter.encode()) != n * (width - 1):
+        return None
+    read = _frame_reader(body, delimiter, options.decimal)
+    try:
+        frame = read(None)
+    except Exception:  # pandas' parser errors: the line-by-line reading words them
+        return None
+    if frame.shape != (n, width):
+        return None
+    strip = _EDGE_SPACE.search(body) is not None
+    cells = [_column(frame[j], strip) for j in range(width)]
+    lines = np.arange(header_line + 1, header_line + 1 + n, dtype=np.int64)
+    empty = _empty_rows(cells, n)
+    if empty is not None:
+        keep = ~empty
+        if not keep.any():
+            return None
+        cells = [c[keep] for c in cells]
+        lines = lines[keep]
+
+    def reread(j: int) -> NDArray[np.object_]:
+        text = _column(read(j)[j], strip)
+        return text if empty is None else text[~empty]
+
+    return Grid(source, header_line, header, [], "text", options.decimal,
+                Columns(lines, cells, reread))
+
+
+def _ascii_codec(encoding: str) -> bool:
+    """Whether the codec reads ASCII bytes as ASCII text."""
+    ascii_bytes = bytes(range(128))
+    try:
+        return ascii_bytes.decode(encoding) == ascii_bytes.decode("ascii")
+    except (LookupError, UnicodeDecodeError):
+        return False
+
+
+def _header_line(data: bytes, encoding: str, delimiter: str,
+                 source: str) -> tuple[int, list[str], int] | None:
+    """The header's line number and cells and the offset of the byte after
+    its line, read as :func:`_line_grid` reads them; ``None`` when the
+    header is not among the first lines or those lines break other than at
+    line feeds."""
+    end = 0
+    for line_no in range(1, HEADER_SEARCH_LINES + 1):
+        stop = data.find(b"\n", end)
+        if stop < 0:
+            return None
+        end = stop + 1
+        try:
+            text = data[:end].decode(encoding)
+        except UnicodeDecodeError:
+            return None
+        lines = text.splitlines()
+        if len(lines) != line_no:
+            return None
+        line = lines[-1]
+        if _skipped(line):
+            continue
+        import csv
+
+        previous = csv.field_size_limit()
+        csv.field_size_limit(max(previous, len(line) + 1))
+        try:
+            cells = _line_cells(line, delimiter, source, line_no)
+        finally:
+            csv.field_size_limit(previous)
+        _check_delimiter(cells, line, delimiter, source, line_no)
+        return line_no, cells, end
+    return None
+
+
+def _plain(body: bytes) -> bool:
+    if not body.isascii() or _NOT_PLAIN.search(body):
+        return False
+    if b"\r" in body and body.count(b"\r") != body.count(b"\r\n"):
+        return False
+    return not (b"#" in body and _COMMENT_LINE.search(body))
+
+
+def _frame_reader(body: bytes, delimiter: str, decimal: str) -> Callable[[int | None], Any]:
+    """Read ``body`` with pandas: every column (numbers where pandas reads
+    every cell of a column as one), or column ``j`` as text."""
+    import csv
+    import io
+
+    import pandas as pd
+
+    # pandas before 3.0: "round_trip" parses numbers as Python's float() does
+    exact = {} if int(pd.__version__.split(".")[0]) >= 3 else {"float_precision": "round_trip"}
+
+    def read(j: int | None) -> Any:
+        # with a decimal comma every cell is read as text and parsed as the
+        # line-by-line reading parses it
+        as_text = j is not None or decimal != "."
+        return pd.read_csv(io.BytesIO(body), sep=delimiter, header=None, engine="c",
+                           dtype=object if as_text else None,
+                           usecols=None if j is None else [j], na_filter=False,
+                           keep_default_na=False, skip_blank_lines=False,
+                           quoting=csv.QUOTE_NONE, low_memory=False, encoding="ascii",
+                           **({} if as_text else exact))
+
+    return read
+
+
+def _column(series: Any, strip: bool) -> NDArray[Any]:
+    """A column as float64 (numbers), bool or object (stripped text)."""
+    kind = series.dtype.kind if isinstance(series.dtype, np.dtype) else "O"
+    if kind in "iuf":
+        return series.to_numpy(dtype=np.float64)
+    if kind == "b":
+        return series.to_numpy(dtype=bool)
+    text = series.to_numpy(dtype=object)
+    if strip:
+        text = np.array([c.strip() for c in text], dtype=object)
+    return text
+
+
+def _empty_rows(cells: list[NDArray[Any]], n: int) -> NDArray[np.bool_] | None:
+    """Rows whose every cell is empty, or ``None`` when there are none."""
+    if any(c.dtype != object for c in cells):
+        return None
+    empty = np.ones(n, dtype=bool)
+    for c in cells:
+        empty &= c == ""
+    return empty if empty.any() else None
 
 
 def _codec_name(encoding: str) -> str:
