@@ -114,19 +114,35 @@ class RawTable:
             self._texts[column] = found
         return found
 
+    def strings(self, column: str) -> NDArray[np.str_]:
+        """The column's cells as a numpy string array."""
+        if self.cells is not None:
+            return self.cells.strings(self.positions[column])
+        return self.texts(column).astype(str)
+
     def column(self, column: str) -> NDArray[Any]:
         """The column as read: float64 or bool where a table read column by
         column holds only numbers or only true/false, else its texts."""
         if self.cells is not None:
-            return self.cells.cells[self.positions[column]]
+            return self.cells.cells(self.positions[column])
         return self.texts(column)
+
+    def below(self, column: str) -> NDArray[np.bool_] | None:
+        """Where a number column of a table read column by column holds
+        ``<L`` (:meth:`column` holds ``L``), or ``None``."""
+        if self.cells is None:
+            return None
+        return self.cells.below(self.positions[column])
 
     def numbers(self, column: str) -> tuple[FloatArray, NDArray[np.bool_]]:
         """The column's finite numbers and where the cells hold one: where
         :func:`number` would return the value (NaN elsewhere)."""
         cells = self.column(column)
         if cells.dtype == np.float64:
-            return cells, np.isfinite(cells)
+            below = self.below(column)
+            ok = np.isfinite(cells)
+            return (cells, ok) if below is None else (np.where(below, math.nan, cells),
+                                                      ok & ~below)
         if cells.dtype == bool:
             return np.full(len(cells), math.nan), np.zeros(len(cells), dtype=bool)
         return parse_numbers(cells, self.decimal)
@@ -216,8 +232,8 @@ def _header(grid: Grid) -> tuple[list[str], dict[str, str], list[int]]:
     cells, source, line = grid.header, grid.source, grid.header_line
     used: set[int] = set()
     if grid.columns is not None:
-        used.update(i for i, c in enumerate(grid.columns.cells)
-                    if c.dtype != object or bool(np.any(c != "")))
+        used.update(i for i, c in enumerate(cells) if not c and (
+            grid.columns.cells(i).dtype != object or bool(np.any(grid.columns.cells(i) != ""))))
     for _, row in grid.rows:
         used.update(i for i, c in enumerate(row) if c)
     keep = [i for i, c in enumerate(cells) if c or i in used]

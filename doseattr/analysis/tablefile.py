@@ -35,7 +35,7 @@ import importlib
 import math
 import re
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -61,13 +61,11 @@ COLUMNAR_MIN_BYTES = 256 * 1024
 COLUMNAR_DELIMITERS = (",", ";", "\t", "|")
 #: Lines searched for the header before a table is read line by line.
 HEADER_SEARCH_LINES = 64
-#: Bytes that keep data rows from the columnar reading: control characters
-#: other than tab, line feed and carriage return (some break lines for
-#: :meth:`str.splitlines`), and quotes.
-_NOT_PLAIN = re.compile(rb'[\x00-\x08\x0b-\x1f\x7f"]')
+#: The bytes data rows read column by column may hold: printable ASCII
+#: but quotes, tab, line feed and carriage return (other control
+#: characters break lines for :meth:`str.splitlines` or are stripped).
+_PLAIN = bytes([9, 10, 13, *range(0x20, 0x7f)]).replace(b'"', b"")
 _COMMENT_LINE = re.compile(rb"(?:^|\n)[ \t]*#")
-#: A space or tab at the edge of a cell (then text cells are stripped).
-_EDGE_SPACE = re.compile(rb"[ \t](?:[,;|\r\n]|$)|(?:^|[,;|\n])[ \t]")
 
 
 @dataclass(frozen=True)
@@ -130,30 +128,91 @@ class Grid:
     columns: Columns | None = None
 
 
-@dataclass(frozen=True, eq=False)
 class Columns:
     """A text table's data rows column by column (from
-    :func:`columnar_grid`).
+    :func:`columnar_grid`), each column converted when first asked for.
 
-    ``lines`` holds each row's line number; ``cells`` each header
+    ``lines`` holds each row's line number. :meth:`cells` gives a header
     position's cells: float64 where pandas read every cell as a number
     (integers included), bool where it read every cell as true/false
     (``true``, ``True``, ``TRUE``, ``false``...), otherwise an object array
-    of the cells' text, stripped. :meth:`text` gives any column's text as
-    written (stripped), reading the file again for number and bool columns.
+    of the cells' text, stripped. :meth:`below` marks the cells of a number
+    column written ``<L`` (``cells`` holds ``L``). :meth:`text` gives any
+    column's text as written (stripped), reading the file again for number
+    and bool columns.
     """
 
-    lines: NDArray[np.int64]
-    cells: list[NDArray[Any]]
-    reread: Callable[[int], NDArray[np.object_]]
-    _texts: dict[int, NDArray[np.object_]] = field(default_factory=dict)
+    def __init__(self, lines: NDArray[np.int64], frame: Any,
+                 reread: Callable[[int], Any], *, strip: bool, minus: bool,
+                 keep: NDArray[np.bool_] | None = None) -> None:
+        self.lines = lines
+        self.width = int(frame.shape[1])
+        self._frame, self._reread, self._strip, self._minus = frame, reread, strip, minus
+        self._keep = keep
+        self._cells: dict[int, NDArray[Any]] = {}
+        self._below: dict[int, NDArray[np.bool_] | None] = {}
+        self._texts: dict[int, NDArray[np.object_]] = {}
+
+    def cells(self, j: int) -> NDArray[Any]:
+        if j not in self._cells:
+            self._cells[j], self._below[j] = self._convert(j)
+        return self._cells[j]
+
+    def below(self, j: int) -> NDArray[np.bool_] | None:
+        self.cells(j)
+        return self._below[j]
 
     def text(self, j: int) -> NDArray[np.object_]:
-        if self.cells[j].dtype == object:
-            return self.cells[j]
+        cells = self.cells(j)
+        if cells.dtype == object:
+            return cells
         if j not in self._texts:
-            self._texts[j] = self.reread(j)
+            self._texts[j] = self._kept(_text_column(self._reread(j)[j], self._strip))
         return self._texts[j]
+
+    def strings(self, j: int) -> NDArray[np.str_]:
+        """The column's text (stripped) as a numpy string array."""
+        series = self._frame[j]
+        if j in self._cells or isinstance(series.dtype, np.dtype):
+            return self.text(j).astype(str)
+        import pandas as pd
+
+        # each distinct text converted once: ids repeat over many rows
+        codes, uniques = pd.factorize(series)
+        texts = [str(u) for u in uniques]
+        if self._minus:
+            texts = [t.replace("-", "<") for t in texts]
+        if self._strip:
+            texts = [t.strip() for t in texts]
+        return self._kept(np.array(texts, dtype=str)[codes])
+
+    def with_rows(self, keep: NDArray[np.bool_]) -> Columns:
+        """The columns without the rows where ``keep`` is false."""
+        return Columns(self.lines[keep], self._frame, self._reread, strip=self._strip,
+                       minus=self._minus, keep=keep)
+
+    def _kept(self, values: NDArray[Any]) -> NDArray[Any]:
+        return values if self._keep is None else values[self._keep]
+
+    def _convert(self, j: int) -> tuple[NDArray[Any], NDArray[np.bool_] | None]:
+        series = self._frame[j]
+        kind = series.dtype.kind if isinstance(series.dtype, np.dtype) else "O"
+        if kind == "b":
+            return self._kept(series.to_numpy(dtype=bool)), None
+        if kind not in "iuf":
+            if self._minus:  # '<' was read as '-', which the data rows do not hold
+                series = series.str.replace("-", "<", regex=False)
+            return self._kept(_text_column(series, self._strip)), None
+        values = self._kept(series.to_numpy(dtype=np.float64))
+        if not self._minus:
+            return values, None
+        if kind != "f" and np.any(values <= 0):  # '<0' read as the integer 0
+            return self.text_cells(j), None
+        below = np.signbit(values)
+        return np.abs(values), below if below.any() else None
+
+    def text_cells(self, j: int) -> NDArray[np.object_]:
+        return self._kept(_text_column(self._reread(j)[j], self._strip))
 
 
 def is_in_memory(value: Any) -> bool:
@@ -292,7 +351,11 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     characters, lone carriage returns or comment lines, with as many
     delimiters on each line as the header has, so that each line is one
     row and each delimiter ends one cell, as :mod:`csv` splits them. Rows
-    whose every cell is empty are left out as blank lines are."""
+    whose every cell is empty are left out as blank lines are.
+
+    When the data rows hold ``<`` but no ``-``, pandas reads them with
+    ``-`` for ``<``, so that ``<0.05`` reads as a number (its sign bit
+    marks it); text cells get their ``<`` back."""
     if (len(data) < COLUMNAR_MIN_BYTES or delimiter not in COLUMNAR_DELIMITERS
             or options.decimal not in DECIMAL_MARKS or not _ascii_codec(options.encoding)):
         return None
@@ -300,37 +363,38 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     if found is None:
         return None
     header_line, header, end = found
-    body = data[end:].rstrip(b" \t\r\n")
+    stop = len(data)
+    while stop > end and data[stop - 1] in b" \t\r\n":
+        stop -= 1
+    body = data[end:stop]
     width = len(header)
     if not body or not _plain(body):
         return None
     n = body.count(b"\n") + 1
     if body.count(delimiter.encode()) != n * (width - 1):
         return None
-    read = _frame_reader(body, delimiter, options.decimal)
+    read = _frame_reader(delimiter, options.decimal)
+    minus = options.decimal == "." and b"<" in body and b"-" not in body
     try:
-        frame = read(None)
+        frame = read(body.replace(b"<", b"-") if minus else body, None)
     except Exception:  # pandas' parser errors: the line-by-line reading words them
         return None
     if frame.shape != (n, width):
         return None
-    strip = _EDGE_SPACE.search(body) is not None
-    cells = [_column(frame[j], strip) for j in range(width)]
-    lines = np.arange(header_line + 1, header_line + 1 + n, dtype=np.int64)
-    empty = _empty_rows(cells, n)
-    if empty is not None:
-        keep = ~empty
-        if not keep.any():
+    columns = Columns(np.arange(header_line + 1, header_line + 1 + n, dtype=np.int64), frame,
+                      lambda j: read(body, j), strip=_edge_space(body, delimiter), minus=minus)
+    cells = [columns.cells(j) for j in range(width)] if all(
+        not isinstance(frame[j].dtype, np.dtype) or frame[j].dtype == object
+        for j in range(width)) else []
+    if cells:
+        empty = np.ones(n, dtype=bool)
+        for c in cells:
+            empty &= c == ""
+        if empty.all():
             return None
-        cells = [c[keep] for c in cells]
-        lines = lines[keep]
-
-    def reread(j: int) -> NDArray[np.object_]:
-        text = _column(read(j)[j], strip)
-        return text if empty is None else text[~empty]
-
-    return Grid(source, header_line, header, [], "text", options.decimal,
-                Columns(lines, cells, reread))
+        if empty.any():
+            columns = columns.with_rows(~empty)
+    return Grid(source, header_line, header, [], "text", options.decimal, columns)
 
 
 def _ascii_codec(encoding: str) -> bool:
@@ -378,15 +442,21 @@ def _header_line(data: bytes, encoding: str, delimiter: str,
 
 
 def _plain(body: bytes) -> bool:
-    if not body.isascii() or _NOT_PLAIN.search(body):
+    if body.translate(None, _PLAIN):
         return False
     if b"\r" in body and body.count(b"\r") != body.count(b"\r\n"):
         return False
     return not (b"#" in body and _COMMENT_LINE.search(body))
 
 
-def _frame_reader(body: bytes, delimiter: str, decimal: str) -> Callable[[int | None], Any]:
-    """Read ``body`` with pandas: every column (numbers where pandas reads
+def _edge_space(body: bytes, delimiter: str) -> bool:
+    """Whether a cell may start or end with a space or tab (then text
+    cells are stripped)."""
+    return b" " in body or (delimiter != "\t" and b"\t" in body)
+
+
+def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None], Any]:
+    """Read data rows with pandas: every column (numbers where pandas reads
     every cell of a column as one), or column ``j`` as text."""
     import csv
     import io
@@ -396,7 +466,7 @@ def _frame_reader(body: bytes, delimiter: str, decimal: str) -> Callable[[int | 
     # pandas before 3.0: "round_trip" parses numbers as Python's float() does
     exact = {} if int(pd.__version__.split(".")[0]) >= 3 else {"float_precision": "round_trip"}
 
-    def read(j: int | None) -> Any:
+    def read(body: bytes, j: int | None) -> Any:
         # with a decimal comma every cell is read as text and parsed as the
         # line-by-line reading parses it
         as_text = j is not None or decimal != "."
@@ -410,27 +480,12 @@ def _frame_reader(body: bytes, delimiter: str, decimal: str) -> Callable[[int | 
     return read
 
 
-def _column(series: Any, strip: bool) -> NDArray[Any]:
-    """A column as float64 (numbers), bool or object (stripped text)."""
-    kind = series.dtype.kind if isinstance(series.dtype, np.dtype) else "O"
-    if kind in "iuf":
-        return series.to_numpy(dtype=np.float64)
-    if kind == "b":
-        return series.to_numpy(dtype=bool)
+def _text_column(series: Any, strip: bool) -> NDArray[np.object_]:
+    """A column's cells as an object array of text, stripped."""
     text = series.to_numpy(dtype=object)
     if strip:
         text = np.array([c.strip() for c in text], dtype=object)
     return text
-
-
-def _empty_rows(cells: list[NDArray[Any]], n: int) -> NDArray[np.bool_] | None:
-    """Rows whose every cell is empty, or ``None`` when there are none."""
-    if any(c.dtype != object for c in cells):
-        return None
-    empty = np.ones(n, dtype=bool)
-    for c in cells:
-        empty &= c == ""
-    return empty if empty.any() else None
 
 
 def _codec_name(encoding: str) -> str:

@@ -300,12 +300,12 @@ def read_measurements(path: str | Path, source: str | None = None, *,
         notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
                      "with no exposure; their weighted share is the unexposed share")
     return Measurements(raw.source, vals, det, w_arr, tuple(lines.tolist()), tuple(notes),
-                        None if worker is None else worker.astype(str))
+                        worker)
 
 
 def _measurement_columns(raw: RawTable, det_column: str | None, weight_column: str | None
                          ) -> tuple[FloatArray, NDArray[np.bool_], FloatArray | None,
-                                    NDArray[np.object_] | None]:
+                                    NDArray[np.str_] | None]:
     """Values, detected flags, weights and worker ids of every row, checked.
 
     The columns are checked at once; rows that are not plain (a cell that
@@ -325,7 +325,7 @@ def _measurement_columns(raw: RawTable, det_column: str | None, weight_column: s
         ok &= w_ok & (weights >= 0) & (np.abs(weights) < SQRT_MAX)
     workers = None
     if "worker" in raw.columns:
-        workers = raw.texts("worker").copy()
+        workers = raw.strings("worker").copy()
         ok &= workers != ""
     bad = np.flatnonzero(~ok)
     if len(bad):
@@ -344,9 +344,13 @@ def _value_column(raw: RawTable) -> tuple[FloatArray, NDArray[np.bool_], NDArray
     """The ``value`` column: numbers, whether written ``<L``, and where both
     are plain (a number, 0 or more; above 0 after ``<``)."""
     cells = raw.column("value")
+    if cells.dtype == np.float64:
+        given = raw.below("value")
+        below = np.zeros(len(cells), dtype=bool) if given is None else given
+        return cells, below, np.isfinite(cells) & (cells >= 0) & ~(below & (cells == 0))
     if cells.dtype != object:
         values, ok = raw.numbers("value")
-        return values, np.zeros(len(values), dtype=bool), ok & (values >= 0)
+        return values, np.zeros(len(values), dtype=bool), ok
     texts = cells.tolist()
     below = np.array([t[:1] == "<" for t in texts], dtype=bool)
     rest = cells
@@ -354,7 +358,7 @@ def _value_column(raw: RawTable) -> tuple[FloatArray, NDArray[np.bool_], NDArray
         rest = cells.copy()
         rest[below] = [t[1:].strip() for t in cells[below].tolist()]
     values, ok = parse_numbers(rest, raw.decimal)
-    return values, below, ok & (values >= 0)
+    return values, below, ok & (values >= 0) & ~(below & (values == 0))
 
 
 def _flag_column(raw: RawTable, column: str) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
