@@ -13,8 +13,11 @@ shapes of CSV file, ``--rows`` data rows each, after two comment lines:
 Each reader runs in its own Python process (so that each peak is its own):
 CPU time (``time.process_time``) of one call, the best of ``--repeats``;
 then the peak of memory traced by :mod:`tracemalloc` during one more call
-(numpy's and Python's allocations), and the process's peak resident memory
-(``ru_maxrss``) above what it held before the first call. doseattr's reader
+(numpy's and Python's allocations; pandas' parser and pyarrow's string
+buffers are not traced), and the process's peak resident memory during the
+timed calls above what it held before them (Linux ``VmHWM`` after resetting
+it through ``/proc/self/clear_refs``; elsewhere ``ru_maxrss``, which may
+keep an earlier peak). doseattr's reader
 is timed twice: ``read_measurements`` (the checked read an analysis makes)
 and ``read_raw`` (the table's text cells and row numbers only);
 ``pandas.read_csv`` is called with ``comment="#"`` (the comment lines) and
@@ -96,18 +99,36 @@ def measure(name: str, path: str, repeats: int) -> dict[str, float]:
     import doseattr
 
     assert Path(doseattr.__file__).resolve().parents[1] == Path(ROOT), doseattr.__file__
-    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    before = _rss_kb("VmRSS", reset=True)
+    if before is None:
+        before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     times = []
     for _ in range(repeats):
         start = time.process_time()
         read(path)
         times.append(time.process_time() - start)
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    rss = _rss_kb("VmHWM")
+    if rss is None:
+        rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     tracemalloc.start()
     read(path)
     traced = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     return {"cpu": min(times), "traced_mb": traced / 2**20, "rss_mb": (rss - before) / 1024}
+
+
+def _rss_kb(field: str, reset: bool = False) -> int | None:
+    """``VmRSS`` or ``VmHWM`` of this process in kB (Linux), after resetting
+    the peak to the current size when ``reset``; ``None`` elsewhere."""
+    try:
+        if reset:
+            Path("/proc/self/clear_refs").write_text("5")
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith(field + ":"):
+                return int(line.split()[1])
+    except OSError:
+        return None
+    return None
 
 
 def run_child(name: str, path: Path, repeats: int) -> dict[str, float]:

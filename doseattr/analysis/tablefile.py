@@ -460,6 +460,7 @@ def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None],
     every cell of a column as one), or column ``j`` as text."""
     import csv
     import io
+    import warnings
 
     import pandas as pd
 
@@ -470,12 +471,19 @@ def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None],
         # with a decimal comma every cell is read as text and parsed as the
         # line-by-line reading parses it
         as_text = j is not None or decimal != "."
-        return pd.read_csv(io.BytesIO(body), sep=delimiter, header=None, engine="c",
-                           dtype=object if as_text else None,
-                           usecols=None if j is None else [j], na_filter=False,
-                           keep_default_na=False, skip_blank_lines=False,
-                           quoting=csv.QUOTE_NONE, low_memory=False, encoding="ascii",
-                           **({} if as_text else exact))
+        options = dict(sep=delimiter, header=None, engine="c",
+                       dtype=object if as_text else None,
+                       usecols=None if j is None else [j], na_filter=False,
+                       keep_default_na=False, skip_blank_lines=False, quoting=csv.QUOTE_NONE,
+                       encoding="ascii", **({} if as_text else exact))
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", pd.errors.DtypeWarning)
+            frame = pd.read_csv(io.BytesIO(body), **options)
+        if any(issubclass(w.category, pd.errors.DtypeWarning) for w in caught):
+            # pandas read the rows in chunks and mixed numbers and text in a
+            # column: read it again in one piece
+            frame = pd.read_csv(io.BytesIO(body), low_memory=False, **options)
+        return frame
 
     return read
 

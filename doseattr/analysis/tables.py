@@ -299,8 +299,13 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     if np.any(vals == 0):
         notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
                      "with no exposure; their weighted share is the unexposed share")
-    return Measurements(raw.source, vals, det, w_arr, tuple(lines.tolist()), tuple(notes),
-                        worker)
+    return Measurements(raw.source, vals, det, w_arr, _line_tuple(lines), tuple(notes), worker)
+
+
+def _line_tuple(lines: NDArray[np.int64]) -> tuple[int, ...]:
+    if len(lines) and lines[-1] - lines[0] == len(lines) - 1:  # one line after another
+        return tuple(range(int(lines[0]), int(lines[-1]) + 1))
+    return tuple(lines.tolist())
 
 
 def _measurement_columns(raw: RawTable, det_column: str | None, weight_column: str | None
