@@ -243,3 +243,21 @@ def test_small_tables_are_read_line_by_line(tmp_path):
     while big.tell() < tablefile.COLUMNAR_MIN_BYTES:
         big.write("12.5\n")
     assert read_raw(_write(tmp_path, big.getvalue(), "big.csv")).cells is not None
+
+
+def test_problems_keep_their_order(tmp_path, monkeypatch):
+    """A header separated by ';' and a later line that is not UTF-8: the
+    line-by-line reading reports the encoding first, and so does this one."""
+    path = tmp_path / "m.csv"
+    path.write_bytes(MEASURED.replace(",", ";").encode() + "S4;Wé;1;true;1\n".encode("cp1252"))
+    columns, lines, _ = _both(monkeypatch, path)
+    assert columns == lines and "UTF-8" in columns
+
+
+def test_worker_ids_as_wide_as_those_kept(tmp_path, monkeypatch):
+    path = _write(tmp_path, MEASURED.replace("S2,W3", "S2,W3-long-id"))
+    columns, lines, by_columns = _both(monkeypatch, path)
+    assert by_columns
+    _same_measurements(columns, lines)
+    # the only long id is on the weight-0 row, which is left out (np.array of the ids kept)
+    assert columns.worker.dtype == np.array(["W1", "W2"]).dtype

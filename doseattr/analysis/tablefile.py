@@ -410,8 +410,9 @@ def _header_line(data: bytes, encoding: str, delimiter: str,
                  source: str) -> tuple[int, list[str], int] | None:
     """The header's line number and cells and the offset of the byte after
     its line, read as :func:`_line_grid` reads them; ``None`` when the
-    header is not among the first lines or those lines break other than at
-    line feeds."""
+    header is not among the first lines, those lines break other than at
+    line feeds or the header has a problem (which the line-by-line reading
+    reports)."""
     end = 0
     for line_no in range(1, HEADER_SEARCH_LINES + 1):
         stop = data.find(b"\n", end)
@@ -434,9 +435,11 @@ def _header_line(data: bytes, encoding: str, delimiter: str,
         csv.field_size_limit(max(previous, len(line) + 1))
         try:
             cells = _line_cells(line, delimiter, source, line_no)
+            _check_delimiter(cells, line, delimiter, source, line_no)
+        except InputError:  # raised by the line-by-line reading, after any other problem
+            return None
         finally:
             csv.field_size_limit(previous)
-        _check_delimiter(cells, line, delimiter, source, line_no)
         return line_no, cells, end
     return None
 

@@ -299,6 +299,8 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     if np.any(vals == 0):
         notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
                      "with no exposure; their weighted share is the unexposed share")
+    if worker is not None and len(worker):  # as wide as the longest id kept
+        worker = worker.astype(f"<U{max(1, int(np.char.str_len(worker).max()))}")
     return Measurements(raw.source, vals, det, w_arr, _line_tuple(lines), tuple(notes), worker)
 
 
