@@ -261,3 +261,24 @@ def test_worker_ids_as_wide_as_those_kept(tmp_path, monkeypatch):
     _same_measurements(columns, lines)
     # the only long id is on the weight-0 row, which is left out (np.array of the ids kept)
     assert columns.worker.dtype == np.array(["W1", "W2"]).dtype
+
+
+@pytest.mark.parametrize("late", ["x", "<2.5", "maybe"])
+def test_text_after_many_numbers(tmp_path, late):
+    """A column of numbers (or flags) that turns to text far down the file,
+    beyond the first chunk of rows pandas reads (2**17 rows of a table
+    five columns wide): the row numbers are the lines' (header on line 1,
+    so data row i is line i + 2)."""
+    n = 200_000
+    rows = ["1.50,true,1,2,3"] * n
+    rows[n - 3] = (f"{late},true" if late != "maybe" else "1.5,maybe") + ",1,2,3"
+    path = _write(tmp_path, "value,detected,a,b,c\n" + "\n".join(rows) + "\n")
+    assert read_raw(path).cells is not None
+    if late == "<2.5":
+        with pytest.raises(InputError, match=rf"row {n - 1}, column 'detected'"):
+            read_measurements(path)  # '<' but marked detected
+        return
+    with pytest.raises(InputError) as info:
+        read_measurements(path)
+    column = "value" if late == "x" else "detected"
+    assert info.value.location == f"row {n - 1}, column '{column}'"
