@@ -100,7 +100,8 @@ def test_measurements_with_non_detects(tmp_path, monkeypatch):
 
 @pytest.mark.parametrize("variant", ["crlf", "bom-and-unit", "trailing-blank", "spaces",
                                      "tabs", "empty-rows", "unnamed-column", "minus",
-                                     "numeric-ids", "nd-with-lod", "plain-numbers"])
+                                     "numeric-ids", "nd-with-lod", "plain-numbers",
+                                     "lt-inside-id", "lt-starting-id"])
 def test_variants_read_as_line_by_line(tmp_path, monkeypatch, variant):
     text, name, options = MEASURED, "m.csv", TableOptions()
     if variant == "crlf":
@@ -127,6 +128,10 @@ def test_variants_read_as_line_by_line(tmp_path, monkeypatch, variant):
         text = text.replace("weight\n", "weight,lod\n").replace("<0.5,false,1", "ND,false,1,0.5")
         text = "\n".join(line if line.startswith("#") or line.count(",") == 5 else line + ","
                          for line in text.splitlines()) + "\n"
+    elif variant == "lt-inside-id":
+        text = text.replace(",W2,", ",W<2,")
+    elif variant == "lt-starting-id":
+        text = text.replace(",W2,", ",<W2,")
     elif variant == "plain-numbers":
         text = "value,weight\n" + "".join(f"{1 + i / 7!r},{i % 5 + 1}\n" for i in range(50))
     path = _write(tmp_path, text, name)
@@ -137,6 +142,8 @@ def test_variants_read_as_line_by_line(tmp_path, monkeypatch, variant):
     _same_measurements(columns, lines)
     if variant == "numeric-ids":
         assert columns.worker[0] == "001"  # the text as written, leading zeros kept
+    if variant.startswith("lt-"):
+        assert {"W<2", "<W2"} & set(columns.worker.tolist())  # the text as written
 
 
 def test_numbers_round_as_python_float(tmp_path, monkeypatch):

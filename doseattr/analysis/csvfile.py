@@ -232,8 +232,7 @@ def _header(grid: Grid) -> tuple[list[str], dict[str, str], list[int]]:
     cells, source, line = grid.header, grid.source, grid.header_line
     used: set[int] = set()
     if grid.columns is not None:
-        used.update(i for i, c in enumerate(cells) if not c and (
-            grid.columns.cells(i).dtype != object or bool(np.any(grid.columns.cells(i) != ""))))
+        used.update(i for i, c in enumerate(cells) if not c and grid.columns.used(i))
     for _, row in grid.rows:
         used.update(i for i, c in enumerate(row) if c)
     keep = [i for i, c in enumerate(cells) if c or i in used]

@@ -139,15 +139,16 @@ class Columns:
     of the cells' text, stripped. :meth:`below` marks the cells of a number
     column written ``<L`` (``cells`` holds ``L``). :meth:`text` gives any
     column's text as written (stripped), reading the file again for number
-    and bool columns.
+    and bool columns. ``marks`` holds, for columns with cells starting with
+    ``<`` (which pandas read without it), where those cells are.
     """
 
-    def __init__(self, lines: NDArray[np.int64], frame: Any,
-                 reread: Callable[[int], Any], *, strip: bool, minus: bool,
+    def __init__(self, lines: NDArray[np.int64], frame: Any, reread: Callable[[int], Any],
+                 marks: dict[int, NDArray[np.bool_]], *, strip: bool,
                  keep: NDArray[np.bool_] | None = None) -> None:
         self.lines = lines
         self.width = int(frame.shape[1])
-        self._frame, self._reread, self._strip, self._minus = frame, reread, strip, minus
+        self._frame, self._reread, self._marks, self._strip = frame, reread, marks, strip
         self._keep = keep
         self._cells: dict[int, NDArray[Any]] = {}
         self._below: dict[int, NDArray[np.bool_] | None] = {}
@@ -162,57 +163,56 @@ class Columns:
         self.cells(j)
         return self._below[j]
 
+    def used(self, j: int) -> bool:
+        """Whether any cell of the column holds something."""
+        cells = self.cells(j)
+        return j in self._marks or cells.dtype != object or bool(np.any(cells != ""))
+
     def text(self, j: int) -> NDArray[np.object_]:
         cells = self.cells(j)
         if cells.dtype == object:
             return cells
         if j not in self._texts:
-            self._texts[j] = self._kept(_text_column(self._reread(j)[j], self._strip))
+            self._texts[j] = self._text_as_written(j)
         return self._texts[j]
 
     def strings(self, j: int) -> NDArray[np.str_]:
         """The column's text (stripped) as a numpy string array."""
         series = self._frame[j]
-        if j in self._cells or isinstance(series.dtype, np.dtype):
+        if j in self._cells or j in self._marks or isinstance(series.dtype, np.dtype):
             return self.text(j).astype(str)
         import pandas as pd
 
         # each distinct text converted once: ids repeat over many rows
         codes, uniques = pd.factorize(series)
         texts = [str(u) for u in uniques]
-        if self._minus:
-            texts = [t.replace("-", "<") for t in texts]
         if self._strip:
             texts = [t.strip() for t in texts]
         return self._kept(np.array(texts, dtype=str)[codes])
 
     def with_rows(self, keep: NDArray[np.bool_]) -> Columns:
         """The columns without the rows where ``keep`` is false."""
-        return Columns(self.lines[keep], self._frame, self._reread, strip=self._strip,
-                       minus=self._minus, keep=keep)
+        return Columns(self.lines[keep], self._frame, self._reread, self._marks,
+                       strip=self._strip, keep=keep)
 
     def _kept(self, values: NDArray[Any]) -> NDArray[Any]:
         return values if self._keep is None else values[self._keep]
 
+    def _text_as_written(self, j: int) -> NDArray[np.object_]:
+        return self._kept(_text_column(self._reread(j)[j], self._strip))
+
     def _convert(self, j: int) -> tuple[NDArray[Any], NDArray[np.bool_] | None]:
         series = self._frame[j]
         kind = series.dtype.kind if isinstance(series.dtype, np.dtype) else "O"
+        marks = self._marks.get(j)
+        if kind in "iuf":
+            values = self._kept(series.to_numpy(dtype=np.float64))
+            return values, None if marks is None else self._kept(marks)
+        if marks is not None:  # text with its '<' taken off: read it as written
+            return self._text_as_written(j), None
         if kind == "b":
             return self._kept(series.to_numpy(dtype=bool)), None
-        if kind not in "iuf":
-            if self._minus:  # '<' was read as '-', which the data rows do not hold
-                series = series.str.replace("-", "<", regex=False)
-            return self._kept(_text_column(series, self._strip)), None
-        values = self._kept(series.to_numpy(dtype=np.float64))
-        if not self._minus:
-            return values, None
-        if kind != "f" and np.any(values <= 0):  # '<0' read as the integer 0
-            return self.text_cells(j), None
-        below = np.signbit(values)
-        return np.abs(values), below if below.any() else None
-
-    def text_cells(self, j: int) -> NDArray[np.object_]:
-        return self._kept(_text_column(self._reread(j)[j], self._strip))
+        return self._kept(_text_column(series, self._strip)), None
 
 
 def is_in_memory(value: Any) -> bool:
@@ -353,9 +353,9 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     row and each delimiter ends one cell, as :mod:`csv` splits them. Rows
     whose every cell is empty are left out as blank lines are.
 
-    When the data rows hold ``<`` but no ``-``, pandas reads them with
-    ``-`` for ``<``, so that ``<0.05`` reads as a number (its sign bit
-    marks it); text cells get their ``<`` back."""
+    When every ``<`` in the data rows starts a cell, pandas reads them
+    without it, so that ``<0.05`` reads as a number, and :class:`Columns`
+    marks where each ``<`` was (:func:`_below_marks`)."""
     if (len(data) < COLUMNAR_MIN_BYTES or delimiter not in COLUMNAR_DELIMITERS
             or options.decimal not in DECIMAL_MARKS or not _ascii_codec(options.encoding)):
         return None
@@ -370,19 +370,27 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     width = len(header)
     if not body or not _plain(body):
         return None
-    n = body.count(b"\n") + 1
-    if body.count(delimiter.encode()) != n * (width - 1):
+    marks: dict[int, NDArray[np.bool_]] | None = None
+    if options.decimal == "." and b"<" in body:
+        codes = np.frombuffer(body, dtype=np.uint8)
+        breaks = np.flatnonzero(codes == ord("\n"))
+        delimiters = np.flatnonzero(codes == ord(delimiter))
+        n, count = len(breaks) + 1, len(delimiters)
+        if count == n * (width - 1):
+            marks = _below_marks(codes, breaks, delimiters, delimiter, n)
+    else:
+        n, count = body.count(b"\n") + 1, body.count(delimiter.encode())
+    if count != n * (width - 1):
         return None
     read = _frame_reader(delimiter, options.decimal)
-    minus = options.decimal == "." and b"<" in body and b"-" not in body
     try:
-        frame = read(body.replace(b"<", b"-") if minus else body, None)
+        frame = read(body if not marks else body.replace(b"<", b""), None)
     except Exception:  # pandas' parser errors: the line-by-line reading words them
         return None
     if frame.shape != (n, width):
         return None
     columns = Columns(np.arange(header_line + 1, header_line + 1 + n, dtype=np.int64), frame,
-                      lambda j: read(body, j), strip=_edge_space(body, delimiter), minus=minus)
+                      lambda j: read(body, j), marks or {}, strip=_edge_space(body, delimiter))
     cells = [columns.cells(j) for j in range(width)] if all(
         not isinstance(frame[j].dtype, np.dtype) or frame[j].dtype == object
         for j in range(width)) else []
@@ -395,6 +403,28 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
         if empty.any():
             columns = columns.with_rows(~empty)
     return Grid(source, header_line, header, [], "text", options.decimal, columns)
+
+
+def _below_marks(codes: NDArray[np.uint8], breaks: NDArray[np.intp],
+                 delimiters: NDArray[np.intp], delimiter: str,
+                 n: int) -> dict[int, NDArray[np.bool_]] | None:
+    """For each column with cells starting with ``<``, the rows of those
+    cells (from the data rows' bytes and the offsets of their line breaks
+    and delimiters); ``None`` when some ``<`` does not start a cell (then
+    the data rows are read as they are)."""
+    where = np.flatnonzero(codes == ord("<"))
+    before = codes[np.maximum(where - 1, 0)]
+    if not np.all((where == 0) | (before == ord(delimiter)) | (before == ord("\n"))):
+        return None
+    row = np.searchsorted(breaks, where)
+    starts = np.where(row > 0, breaks[np.maximum(row - 1, 0)] + 1, 0)
+    column = np.searchsorted(delimiters, where) - np.searchsorted(delimiters, starts)
+    marks: dict[int, NDArray[np.bool_]] = {}
+    for j in np.unique(column).tolist():
+        mask = np.zeros(n, dtype=bool)
+        mask[row[column == j]] = True
+        marks[int(j)] = mask
+    return marks
 
 
 def _ascii_codec(encoding: str) -> bool:
