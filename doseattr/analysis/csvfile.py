@@ -14,6 +14,10 @@ is the column ``value``); columns a reader does not know are ignored (a
 
 Every problem raises :class:`~doseattr.errors.InputError` with the file as
 ``source`` and ``"row N, column 'x'"`` as ``location``.
+
+A :class:`RawTable` gives its cells row by row (:attr:`RawTable.rows`) and
+column by column (:meth:`RawTable.texts`, :meth:`RawTable.numbers`); a
+large text table read column by column builds its rows only when asked.
 """
 
 from __future__ import annotations
@@ -24,13 +28,14 @@ import re
 import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
-from typing import Literal, overload
+from typing import Any, Literal, overload
 
 import numpy as np
 from numpy.typing import NDArray
 
-from doseattr.analysis.tablefile import Grid, read_grid
+from doseattr.analysis.tablefile import Columns, Grid, read_grid
 from doseattr.errors import InputError, ModelError
 
 FloatArray = NDArray[np.float64]
@@ -48,23 +53,103 @@ class Row:
     cells: dict[str, str]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class RawTable:
-    """A table's text cells by row. ``units`` holds the unit written after a
+    """A table's text cells by row (:attr:`rows`) and by column
+    (:meth:`texts`, :meth:`numbers`). ``units`` holds the unit written after a
     column's name in the header (``value (ug/m3)``); ``decimal`` is the
     decimal mark of a text table; ``kind`` its format (``"text"``,
     ``"xlsx"``, ``"parquet"`` or ``"frame"``); ``unit`` and ``unit_origin``
-    the unit expected in the header and where it was said."""
+    the unit expected in the header and where it was said. ``given_rows``
+    holds the rows of a table read row by row, ``cells`` (with the header
+    position of each column in ``positions``) those of a table read column
+    by column."""
 
     source: str
     columns: tuple[str, ...]
-    rows: tuple[Row, ...]
+    given_rows: tuple[Row, ...] | None = None
     units: Mapping[str, str] = field(default_factory=dict)
     header_line: int = 1
     decimal: str = "."
     kind: str = "text"
     unit: str | None = None
     unit_origin: str = "the file's unit"
+    cells: Columns | None = None
+    positions: Mapping[str, int] = field(default_factory=dict)
+
+    @cached_property
+    def rows(self) -> tuple[Row, ...]:
+        if self.given_rows is not None:
+            return self.given_rows
+        texts = [self.texts(c).tolist() for c in self.columns]
+        return tuple(Row(line, dict(zip(self.columns, cells)))
+                     for line, cells in zip(self.lines.tolist(), zip(*texts)))
+
+    @property
+    def n(self) -> int:
+        """The number of data rows."""
+        return len(self.lines)
+
+    @cached_property
+    def lines(self) -> NDArray[np.int64]:
+        """Each data row's row number."""
+        if self.cells is not None:
+            return self.cells.lines
+        return np.array([r.line for r in self.rows], dtype=np.int64)
+
+    def row(self, i: int) -> Row:
+        """Data row ``i`` (from 0)."""
+        if self.given_rows is not None or "rows" in self.__dict__:
+            return self.rows[i]
+        return Row(int(self.lines[i]), {c: self.texts(c)[i] for c in self.columns})
+
+    def texts(self, column: str) -> NDArray[np.object_]:
+        """The column's cells as text (``""`` for an empty cell)."""
+        found = self._texts.get(column)
+        if found is None:
+            if self.cells is not None:
+                found = self.cells.text(self.positions[column])
+            else:
+                found = np.array([r.cells[column] for r in self.rows], dtype=object)
+            self._texts[column] = found
+        return found
+
+    def strings(self, column: str) -> NDArray[np.str_]:
+        """The column's cells as a numpy string array."""
+        if self.cells is not None:
+            return self.cells.strings(self.positions[column])
+        return self.texts(column).astype(str)
+
+    def column(self, column: str) -> NDArray[Any]:
+        """The column as read: float64 or bool where a table read column by
+        column holds only numbers or only true/false, else its texts."""
+        if self.cells is not None:
+            return self.cells.cells(self.positions[column])
+        return self.texts(column)
+
+    def below(self, column: str) -> NDArray[np.bool_] | None:
+        """Where a number column of a table read column by column holds
+        ``<L`` (:meth:`column` holds ``L``), or ``None``."""
+        if self.cells is None:
+            return None
+        return self.cells.below(self.positions[column])
+
+    def numbers(self, column: str) -> tuple[FloatArray, NDArray[np.bool_]]:
+        """The column's finite numbers and where the cells hold one: where
+        :func:`number` would return the value (NaN elsewhere)."""
+        cells = self.column(column)
+        if cells.dtype == np.float64:
+            below = self.below(column)
+            ok = np.isfinite(cells)
+            return (cells, ok) if below is None else (np.where(below, math.nan, cells),
+                                                      ok & ~below)
+        if cells.dtype == bool:
+            return np.full(len(cells), math.nan), np.zeros(len(cells), dtype=bool)
+        return parse_numbers(cells, self.decimal)
+
+    @cached_property
+    def _texts(self) -> dict[str, NDArray[np.object_]]:
+        return {}
 
 
 # -- reading ----------------------------------------------------------------
@@ -80,6 +165,12 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
     grid = read_grid(path, source)
     source = grid.source
     header, units, keep = _header(grid)
+    options = getattr(path, "options", None)
+    unit, origin = getattr(options, "unit", None), getattr(options, "unit_origin",
+                                                            "the file's unit")
+    if grid.columns is not None:
+        return RawTable(source, tuple(header), None, units, grid.header_line, grid.decimal,
+                        grid.kind, unit, origin, grid.columns, dict(zip(header, keep)))
     rows: list[Row] = []
     for line_no, cells in grid.rows:
         if not any(cells):
@@ -95,10 +186,8 @@ def read_raw(path: str | Path, source: str | None = None) -> RawTable:
         last = grid.rows[-1][0] + 1 if grid.rows else grid.header_line + 1
         raise InputError("the file has a header but no data rows", source=source,
                          location=f"row {last}")
-    options = getattr(path, "options", None)
     return RawTable(source, tuple(header), tuple(rows), units, grid.header_line,
-                    grid.decimal, grid.kind, getattr(options, "unit", None),
-                    getattr(options, "unit_origin", "the file's unit"))
+                    grid.decimal, grid.kind, unit, origin)
 
 
 def _split_hint(grid: Grid, cells: list[str]) -> str:
@@ -142,6 +231,8 @@ def _header(grid: Grid) -> tuple[list[str], dict[str, str], list[int]]:
     positions kept (columns with neither a name nor a value are dropped)."""
     cells, source, line = grid.header, grid.source, grid.header_line
     used: set[int] = set()
+    if grid.columns is not None:
+        used.update(i for i, c in enumerate(cells) if not c and grid.columns.used(i))
     for _, row in grid.rows:
         used.update(i for i, c in enumerate(row) if c)
     keep = [i for i, c in enumerate(cells) if c or i in used]
@@ -258,6 +349,28 @@ def _parse(raw: RawTable, text: str) -> float | None:
         return float(text)
     except ValueError:
         return None
+
+
+def parse_numbers(texts: NDArray[np.object_],
+                  decimal: str = ".") -> tuple[FloatArray, NDArray[np.bool_]]:
+    """Each text's finite number as :func:`number` reads it, and where
+    there is one (NaN elsewhere)."""
+    if decimal == ",":
+        texts = np.array([t.replace(",", ".") if "." not in t else "" for t in texts],
+                         dtype=object)
+    try:
+        # numpy converts text to float as Python's float() does
+        values = np.asarray(texts, dtype=object).astype(np.float64)
+    except ValueError:
+        values = np.array([_float_or_nan(t) for t in texts], dtype=np.float64)
+    return values, np.isfinite(values)
+
+
+def _float_or_nan(text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        return math.nan
 
 
 def _number_hint(raw: RawTable, text: str) -> str:

@@ -17,6 +17,13 @@ is row 2, as in the CSV file ``DataFrame.to_csv(index=False)`` writes).
 
 Cells that hold numbers are written as ``repr`` of the float (which reads
 back exactly), dates as ISO dates, missing values as empty cells.
+
+A large plain text table (at least :data:`COLUMNAR_MIN_BYTES`, with ASCII
+data rows, no quotes, no comment or blank lines between data rows and
+every row as wide as the header) is read column by column with pandas' C
+tokenizer (:func:`columnar_grid`); any other text table, and any table
+whose columnar reading finds something unusual, is read line by line with
+:mod:`csv`. Both give the same cells, row numbers and messages.
 """
 
 from __future__ import annotations
@@ -26,9 +33,14 @@ import datetime as dt
 import hashlib
 import importlib
 import math
+import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
 
 from doseattr.errors import InputError
 
@@ -42,6 +54,18 @@ PARQUET_SUFFIXES = (".parquet", ".pq")
 REFUSED_SUFFIXES = {".xls": "an Excel 97-2003 workbook", ".ods": "an OpenDocument spreadsheet",
                     ".numbers": "a Numbers spreadsheet"}
 DECIMAL_MARKS = (".", ",")
+#: Text tables of at least this many bytes are read column by column (see
+#: :func:`columnar_grid`); smaller ones line by line, which is as fast for
+#: them and does not import pandas.
+COLUMNAR_MIN_BYTES = 256 * 1024
+COLUMNAR_DELIMITERS = (",", ";", "\t", "|")
+#: Lines searched for the header before a table is read line by line.
+HEADER_SEARCH_LINES = 64
+#: The bytes data rows read column by column may hold: printable ASCII
+#: but quotes, tab, line feed and carriage return (other control
+#: characters break lines for :meth:`str.splitlines` or are stripped).
+_PLAIN = bytes([9, 10, 13, *range(0x20, 0x7f)]).replace(b'"', b"")
+_COMMENT_LINE = re.compile(rb"(?:^|\n)[ \t]*#")
 
 
 @dataclass(frozen=True)
@@ -99,6 +123,96 @@ class Grid:
     rows: list[tuple[int, list[str]]]
     kind: str
     decimal: str = "."
+    #: The data rows column by column when the table was read so (then
+    #: ``rows`` is empty).
+    columns: Columns | None = None
+
+
+class Columns:
+    """A text table's data rows column by column (from
+    :func:`columnar_grid`), each column converted when first asked for.
+
+    ``lines`` holds each row's line number. :meth:`cells` gives a header
+    position's cells: float64 where pandas read every cell as a number
+    (integers included), bool where it read every cell as true/false
+    (``true``, ``True``, ``TRUE``, ``false``...), otherwise an object array
+    of the cells' text, stripped. :meth:`below` marks the cells of a number
+    column written ``<L`` (``cells`` holds ``L``). :meth:`text` gives any
+    column's text as written (stripped), reading the file again for number
+    and bool columns. ``marks`` holds, for columns with cells starting with
+    ``<`` (which pandas read without it), where those cells are.
+    """
+
+    def __init__(self, lines: NDArray[np.int64], frame: Any, reread: Callable[[int], Any],
+                 marks: dict[int, NDArray[np.bool_]], *, strip: bool,
+                 keep: NDArray[np.bool_] | None = None) -> None:
+        self.lines = lines
+        self.width = int(frame.shape[1])
+        self._frame, self._reread, self._marks, self._strip = frame, reread, marks, strip
+        self._keep = keep
+        self._cells: dict[int, NDArray[Any]] = {}
+        self._below: dict[int, NDArray[np.bool_] | None] = {}
+        self._texts: dict[int, NDArray[np.object_]] = {}
+
+    def cells(self, j: int) -> NDArray[Any]:
+        if j not in self._cells:
+            self._cells[j], self._below[j] = self._convert(j)
+        return self._cells[j]
+
+    def below(self, j: int) -> NDArray[np.bool_] | None:
+        self.cells(j)
+        return self._below[j]
+
+    def used(self, j: int) -> bool:
+        """Whether any cell of the column holds something."""
+        cells = self.cells(j)
+        return j in self._marks or cells.dtype != object or bool(np.any(cells != ""))
+
+    def text(self, j: int) -> NDArray[np.object_]:
+        cells = self.cells(j)
+        if cells.dtype == object:
+            return cells
+        if j not in self._texts:
+            self._texts[j] = self._text_as_written(j)
+        return self._texts[j]
+
+    def strings(self, j: int) -> NDArray[np.str_]:
+        """The column's text (stripped) as a numpy string array."""
+        series = self._frame[j]
+        if j in self._cells or j in self._marks or isinstance(series.dtype, np.dtype):
+            return self.text(j).astype(str)
+        import pandas as pd
+
+        # each distinct text converted once: ids repeat over many rows
+        codes, uniques = pd.factorize(series)
+        texts = [str(u) for u in uniques]
+        if self._strip:
+            texts = [t.strip() for t in texts]
+        return self._kept(np.array(texts, dtype=str)[codes])
+
+    def with_rows(self, keep: NDArray[np.bool_]) -> Columns:
+        """The columns without the rows where ``keep`` is false."""
+        return Columns(self.lines[keep], self._frame, self._reread, self._marks,
+                       strip=self._strip, keep=keep)
+
+    def _kept(self, values: NDArray[Any]) -> NDArray[Any]:
+        return values if self._keep is None else values[self._keep]
+
+    def _text_as_written(self, j: int) -> NDArray[np.object_]:
+        return self._kept(_text_column(self._reread(j)[j], self._strip))
+
+    def _convert(self, j: int) -> tuple[NDArray[Any], NDArray[np.bool_] | None]:
+        series = self._frame[j]
+        kind = series.dtype.kind if isinstance(series.dtype, np.dtype) else "O"
+        marks = self._marks.get(j)
+        if kind in "iuf":
+            values = self._kept(series.to_numpy(dtype=np.float64))
+            return values, None if marks is None else self._kept(marks)
+        if marks is not None:  # text with its '<' taken off: read it as written
+            return self._text_as_written(j), None
+        if kind == "b":
+            return self._kept(series.to_numpy(dtype=bool)), None
+        return self._kept(_text_column(series, self._strip)), None
 
 
 def is_in_memory(value: Any) -> bool:
@@ -162,10 +276,19 @@ def _read_bytes(path: str, source: str) -> bytes:
 
 
 def _text_grid(path: str, source: str, options: TableOptions) -> Grid:
-    import csv
-
     data = _read_bytes(path, source)
     _refuse_binary(data, source)
+    delimiter = options.delimiter or ("\t" if suffix(path) in TAB_SUFFIXES else ",")
+    columnar = columnar_grid(data, source, options, delimiter)
+    if columnar is not None:
+        return columnar
+    return _line_grid(data, source, options, delimiter)
+
+
+def _line_grid(data: bytes, source: str, options: TableOptions, delimiter: str) -> Grid:
+    """Read a text table line by line with :mod:`csv`."""
+    import csv
+
     try:
         text = data.decode(options.encoding)
     except UnicodeDecodeError as exc:
@@ -175,30 +298,235 @@ def _text_grid(path: str, source: str, options: TableOptions) -> Grid:
                 else "check the encoding option")
         raise InputError(f"cannot be read as {_codec_name(options.encoding)} text; {hint}",
                          source=source, location=f"row {bad_line}") from None
-    delimiter = options.delimiter or ("\t" if suffix(path) in TAB_SUFFIXES else ",")
     header: tuple[int, list[str]] | None = None
     rows: list[tuple[int, list[str]]] = []
     lines = text.splitlines()
-    for line_no, line in enumerate(lines, start=1):
-        if not line.strip() or line.lstrip().startswith("#"):
-            continue
-        previous = csv.field_size_limit()
-        csv.field_size_limit(max(previous, len(line) + 1))
-        try:
-            cells = [c.strip() for c in next(csv.reader([line], delimiter=delimiter), [])]
-        except csv.Error as exc:
-            raise InputError(f"cannot be read as CSV: {exc}", source=source,
-                             location=f"row {line_no}") from None
-        finally:
-            csv.field_size_limit(previous)
-        if header is None:
-            _check_delimiter(cells, line, delimiter, source, line_no)
-            header = (line_no, cells)
-        else:
-            rows.append((line_no, cells))
+    previous = csv.field_size_limit()
+    csv.field_size_limit(max(previous, max(map(len, lines), default=0) + 1))
+    try:
+        for line_no, line in enumerate(lines, start=1):
+            if _skipped(line):
+                continue
+            cells = _line_cells(line, delimiter, source, line_no)
+            if header is None:
+                _check_delimiter(cells, line, delimiter, source, line_no)
+                header = (line_no, cells)
+            else:
+                rows.append((line_no, cells))
+    finally:
+        csv.field_size_limit(previous)
     if header is None:
         raise InputError("the file is empty (no header row)", source=source, location="row 1")
     return Grid(source, header[0], header[1], rows, "text", options.decimal)
+
+
+def _skipped(line: str) -> bool:
+    """Blank lines and comment lines (``#`` first) are not rows."""
+    return not line.strip() or line.lstrip().startswith("#")
+
+
+def _line_cells(line: str, delimiter: str, source: str, line_no: int) -> list[str]:
+    """One line's cells, stripped (the caller has raised the field size limit)."""
+    import csv
+
+    if '"' not in line:
+        return [c.strip() for c in line.split(delimiter)]
+    try:
+        return [c.strip() for c in next(csv.reader([line], delimiter=delimiter), [])]
+    except csv.Error as exc:
+        raise InputError(f"cannot be read as CSV: {exc}", source=source,
+                         location=f"row {line_no}") from None
+
+
+# -- reading a large text table column by column ------------------------------------
+def columnar_grid(data: bytes, source: str, options: TableOptions,
+                  delimiter: str) -> Grid | None:
+    """The table read column by column with pandas' C tokenizer, or
+    ``None`` where it would not give what :func:`_line_grid` gives (then
+    the caller reads it line by line, which also words any message).
+
+    The header and the comment lines above it are read as text in the
+    table's encoding; the data rows after it must be ASCII (the same text
+    in every ASCII-compatible encoding) without quotes, control
+    characters, lone carriage returns or comment lines, with as many
+    delimiters on each line as the header has, so that each line is one
+    row and each delimiter ends one cell, as :mod:`csv` splits them. Rows
+    whose every cell is empty are left out as blank lines are.
+
+    When every ``<`` in the data rows starts a cell, pandas reads them
+    without it, so that ``<0.05`` reads as a number, and :class:`Columns`
+    marks where each ``<`` was (:func:`_below_marks`)."""
+    if (len(data) < COLUMNAR_MIN_BYTES or delimiter not in COLUMNAR_DELIMITERS
+            or options.decimal not in DECIMAL_MARKS or not _ascii_codec(options.encoding)):
+        return None
+    found = _header_line(data, options.encoding, delimiter, source)
+    if found is None:
+        return None
+    header_line, header, end = found
+    stop = len(data)
+    while stop > end and data[stop - 1] in b" \t\r\n":
+        stop -= 1
+    body = data[end:stop]
+    width = len(header)
+    if not body or not _plain(body):
+        return None
+    marks: dict[int, NDArray[np.bool_]] | None = None
+    if options.decimal == "." and b"<" in body:
+        codes = np.frombuffer(body, dtype=np.uint8)
+        breaks = np.flatnonzero(codes == ord("\n"))
+        delimiters = np.flatnonzero(codes == ord(delimiter))
+        n, count = len(breaks) + 1, len(delimiters)
+        if count == n * (width - 1):
+            marks = _below_marks(codes, breaks, delimiters, delimiter, n)
+    else:
+        n, count = body.count(b"\n") + 1, body.count(delimiter.encode())
+    if count != n * (width - 1):
+        return None
+    read = _frame_reader(delimiter, options.decimal)
+    try:
+        frame = read(body if not marks else body.replace(b"<", b""), None)
+    except Exception:  # pandas' parser errors: the line-by-line reading words them
+        return None
+    if frame.shape != (n, width):
+        return None
+    columns = Columns(np.arange(header_line + 1, header_line + 1 + n, dtype=np.int64), frame,
+                      lambda j: read(body, j), marks or {}, strip=_edge_space(body, delimiter))
+    cells = [columns.cells(j) for j in range(width)] if all(
+        not isinstance(frame[j].dtype, np.dtype) or frame[j].dtype == object
+        for j in range(width)) else []
+    if cells:
+        empty = np.ones(n, dtype=bool)
+        for c in cells:
+            empty &= c == ""
+        if empty.all():
+            return None
+        if empty.any():
+            columns = columns.with_rows(~empty)
+    return Grid(source, header_line, header, [], "text", options.decimal, columns)
+
+
+def _below_marks(codes: NDArray[np.uint8], breaks: NDArray[np.intp],
+                 delimiters: NDArray[np.intp], delimiter: str,
+                 n: int) -> dict[int, NDArray[np.bool_]] | None:
+    """For each column with cells starting with ``<``, the rows of those
+    cells (from the data rows' bytes and the offsets of their line breaks
+    and delimiters); ``None`` when some ``<`` does not start a cell (then
+    the data rows are read as they are)."""
+    where = np.flatnonzero(codes == ord("<"))
+    before = codes[np.maximum(where - 1, 0)]
+    if not np.all((where == 0) | (before == ord(delimiter)) | (before == ord("\n"))):
+        return None
+    row = np.searchsorted(breaks, where)
+    starts = np.where(row > 0, breaks[np.maximum(row - 1, 0)] + 1, 0)
+    column = np.searchsorted(delimiters, where) - np.searchsorted(delimiters, starts)
+    marks: dict[int, NDArray[np.bool_]] = {}
+    for j in np.unique(column).tolist():
+        mask = np.zeros(n, dtype=bool)
+        mask[row[column == j]] = True
+        marks[int(j)] = mask
+    return marks
+
+
+def _ascii_codec(encoding: str) -> bool:
+    """Whether the codec reads ASCII bytes as ASCII text."""
+    ascii_bytes = bytes(range(128))
+    try:
+        return ascii_bytes.decode(encoding) == ascii_bytes.decode("ascii")
+    except (LookupError, UnicodeDecodeError):
+        return False
+
+
+def _header_line(data: bytes, encoding: str, delimiter: str,
+                 source: str) -> tuple[int, list[str], int] | None:
+    """The header's line number and cells and the offset of the byte after
+    its line, read as :func:`_line_grid` reads them; ``None`` when the
+    header is not among the first lines, those lines break other than at
+    line feeds or the header has a problem (which the line-by-line reading
+    reports)."""
+    end = 0
+    for line_no in range(1, HEADER_SEARCH_LINES + 1):
+        stop = data.find(b"\n", end)
+        if stop < 0:
+            return None
+        end = stop + 1
+        try:
+            text = data[:end].decode(encoding)
+        except UnicodeDecodeError:
+            return None
+        lines = text.splitlines()
+        if len(lines) != line_no:
+            return None
+        line = lines[-1]
+        if _skipped(line):
+            continue
+        import csv
+
+        previous = csv.field_size_limit()
+        csv.field_size_limit(max(previous, len(line) + 1))
+        try:
+            cells = _line_cells(line, delimiter, source, line_no)
+            _check_delimiter(cells, line, delimiter, source, line_no)
+        except InputError:  # raised by the line-by-line reading, after any other problem
+            return None
+        finally:
+            csv.field_size_limit(previous)
+        return line_no, cells, end
+    return None
+
+
+def _plain(body: bytes) -> bool:
+    if body.translate(None, _PLAIN):
+        return False
+    if b"\r" in body and body.count(b"\r") != body.count(b"\r\n"):
+        return False
+    return not (b"#" in body and _COMMENT_LINE.search(body))
+
+
+def _edge_space(body: bytes, delimiter: str) -> bool:
+    """Whether a cell may start or end with a space or tab (then text
+    cells are stripped)."""
+    return b" " in body or (delimiter != "\t" and b"\t" in body)
+
+
+def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None], Any]:
+    """Read data rows with pandas: every column (numbers where pandas reads
+    every cell of a column as one), or column ``j`` as text."""
+    import csv
+    import io
+    import warnings
+
+    import pandas as pd
+
+    # pandas before 3.0: "round_trip" parses numbers as Python's float() does
+    exact = {} if int(pd.__version__.split(".")[0]) >= 3 else {"float_precision": "round_trip"}
+
+    def read(body: bytes, j: int | None) -> Any:
+        # with a decimal comma every cell is read as text and parsed as the
+        # line-by-line reading parses it
+        as_text = j is not None or decimal != "."
+        options = dict(sep=delimiter, header=None, engine="c",
+                       dtype=object if as_text else None,
+                       usecols=None if j is None else [j], na_filter=False,
+                       keep_default_na=False, skip_blank_lines=False, quoting=csv.QUOTE_NONE,
+                       encoding="ascii", **({} if as_text else exact))
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", pd.errors.DtypeWarning)
+            frame = pd.read_csv(io.BytesIO(body), **options)
+        if any(issubclass(w.category, pd.errors.DtypeWarning) for w in caught):
+            # pandas read the rows in chunks and mixed numbers and text in a
+            # column: read it again in one piece
+            frame = pd.read_csv(io.BytesIO(body), low_memory=False, **options)
+        return frame
+
+    return read
+
+
+def _text_column(series: Any, strip: bool) -> NDArray[np.object_]:
+    """A column's cells as an object array of text, stripped."""
+    text = series.to_numpy(dtype=object)
+    if strip:
+        text = np.array([c.strip() for c in text], dtype=object)
+    return text
 
 
 def _codec_name(encoding: str) -> str:

@@ -20,6 +20,7 @@ from numpy.typing import NDArray
 from doseattr.analysis.burden_table import BurdenTable, read_burden
 from doseattr.analysis.csvfile import (
     NON_DETECT_TEXT,
+    SQRT_MAX,
     FloatArray,
     RawTable,
     Row,
@@ -29,6 +30,7 @@ from doseattr.analysis.csvfile import (
     check_units,
     near_column,
     number,
+    parse_numbers,
     read_raw,
     require_columns,
     shown,
@@ -270,49 +272,21 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     require_columns(raw, ("value",), "a measurement table")
     check_units(raw, ("value", LOD_COLUMN))
     detected_column, weight_column = detected_column.lower(), weight_column.lower()
-    has_det = detected_column in raw.columns
     has_w = weight_column in raw.columns
-    has_worker = "worker" in raw.columns
-    values, detected, weights, workers = [], [], [], []
-    for row in raw.rows:
-        if has_worker:
-            workers.append(_worker(raw, row))
-        v, below = _measurement(raw, row)
-        if has_det:
-            flag = _flag(raw, row, detected_column)
-            if below and flag:
-                raise cell_error(raw, row, detected_column, "the value is written as below a "
-                            "detection limit ('<') but marked detected")
-            below = below or not flag
-            if below and v == 0:
-                raise cell_error(raw, row, "value", "a detection limit must be above 0, but this "
-                                 f"non-detect ({detected_column} = false) has the value 0")
-        below_sqrt_max(raw, row, "value", v, "give a value below that (check the unit)")
-        values.append(v)
-        detected.append(not below)
-        if has_w:
-            w = number(raw, row, weight_column)
-            if w < 0:
-                raise cell_error(raw, row, weight_column, f"weight must be 0 or more, got {w:g}")
-            below_sqrt_max(raw, row, weight_column, w, "only the weights' ratios matter, so "
-                           "divide them all by one factor")
-            weights.append(w)
-    det = np.array(detected, dtype=bool)
-    vals = np.array(values, dtype=float)
-    lines = tuple(r.line for r in raw.rows)
-    w_arr = None
+    det_column = detected_column if detected_column in raw.columns else None
+    vals, det, w_arr, worker = _measurement_columns(raw, det_column,
+                                                    weight_column if has_w else None)
+    lines = raw.lines
     notes = []
-    if has_w:
-        w_arr = np.array(weights, dtype=float)
+    if w_arr is not None:
         if not np.any(w_arr > 0):
             raise InputError("all weights are 0", source=raw.source,
                              location=f"column '{weight_column}'")
         keep = w_arr > 0
         if not keep.all():
             notes.append(f"{raw.source}: {int((~keep).sum())} rows with weight 0 were left out")
-            vals, det, w_arr = vals[keep], det[keep], w_arr[keep]
-            lines = tuple(np.asarray(lines)[keep].tolist())
-            workers = [w for w, k in zip(workers, keep) if k]
+            vals, det, w_arr, lines = vals[keep], det[keep], w_arr[keep], lines[keep]
+            worker = None if worker is None else worker[keep]
     positive = det & (vals > 0)
     if positive.sum() < min_positive:
         why = "to fit a distribution" if min_positive > 1 else "for the empirical distribution"
@@ -325,8 +299,111 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     if np.any(vals == 0):
         notes.append(f"{raw.source}: {int(np.sum(vals == 0))} values of 0 are taken as people "
                      "with no exposure; their weighted share is the unexposed share")
-    worker = np.array(workers, dtype=str) if has_worker else None
-    return Measurements(raw.source, vals, det, w_arr, lines, tuple(notes), worker)
+    if worker is not None and len(worker):  # as wide as the longest id kept
+        worker = worker.astype(f"<U{max(1, int(np.char.str_len(worker).max()))}")
+    return Measurements(raw.source, vals, det, w_arr, _line_tuple(lines), tuple(notes), worker)
+
+
+def _line_tuple(lines: NDArray[np.int64]) -> tuple[int, ...]:
+    if len(lines) and lines[-1] - lines[0] == len(lines) - 1:  # one line after another
+        return tuple(range(int(lines[0]), int(lines[-1]) + 1))
+    return tuple(lines.tolist())
+
+
+def _measurement_columns(raw: RawTable, det_column: str | None, weight_column: str | None
+                         ) -> tuple[FloatArray, NDArray[np.bool_], FloatArray | None,
+                                    NDArray[np.str_] | None]:
+    """Values, detected flags, weights and worker ids of every row, checked.
+
+    The columns are checked at once; rows that are not plain (a cell that
+    is no number, a non-detect written as text, any check failing) are then
+    read and checked one by one in order by :func:`_measurement_row`, which
+    raises the message for the first problem or gives the row's values."""
+    values, below, ok = _value_column(raw)
+    if det_column is not None:
+        flag, flag_ok = _flag_column(raw, det_column)
+        ok &= flag_ok & ~(below & flag)
+        below = below | ~flag
+    ok &= ~(below & (values == 0)) & (np.abs(values) < SQRT_MAX)
+    weights = None
+    if weight_column is not None:
+        weights, w_ok = raw.numbers(weight_column)
+        weights = weights.copy()
+        ok &= w_ok & (weights >= 0) & (np.abs(weights) < SQRT_MAX)
+    workers = None
+    if "worker" in raw.columns:
+        workers = raw.strings("worker").copy()
+        ok &= workers != ""
+    bad = np.flatnonzero(~ok)
+    if len(bad):
+        values, below = values.copy(), below.copy()
+    for i in bad.tolist():
+        worker, v, is_below, w = _measurement_row(raw, raw.row(i), det_column, weight_column)
+        values[i], below[i] = v, is_below
+        if weights is not None and w is not None:
+            weights[i] = w
+        if workers is not None and worker is not None:
+            workers[i] = worker
+    return values, ~below, weights, workers
+
+
+def _value_column(raw: RawTable) -> tuple[FloatArray, NDArray[np.bool_], NDArray[np.bool_]]:
+    """The ``value`` column: numbers, whether written ``<L``, and where both
+    are plain (a number, 0 or more; above 0 after ``<``)."""
+    cells = raw.column("value")
+    if cells.dtype == np.float64:
+        given = raw.below("value")
+        below = np.zeros(len(cells), dtype=bool) if given is None else given
+        return cells, below, np.isfinite(cells) & (cells >= 0) & ~(below & (cells == 0))
+    if cells.dtype != object:
+        values, ok = raw.numbers("value")
+        return values, np.zeros(len(values), dtype=bool), ok
+    texts = cells.tolist()
+    below = np.array([t[:1] == "<" for t in texts], dtype=bool)
+    rest = cells
+    if below.any():
+        rest = cells.copy()
+        rest[below] = [t[1:].strip() for t in cells[below].tolist()]
+    values, ok = parse_numbers(rest, raw.decimal)
+    return values, below, ok & (values >= 0) & ~(below & (values == 0))
+
+
+def _flag_column(raw: RawTable, column: str) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+    """The detected column's flags and where they are true or false."""
+    cells = raw.column(column)
+    if cells.dtype == bool:
+        return cells, np.ones(len(cells), dtype=bool)
+    known = {t: t.lower() in TRUE_TEXT for t in set(raw.texts(column).tolist())
+             if t.lower() in TRUE_TEXT or t.lower() in FALSE_TEXT}
+    texts = raw.texts(column).tolist()
+    return (np.array([known.get(t, False) for t in texts], dtype=bool),
+            np.array([t in known for t in texts], dtype=bool))
+
+
+def _measurement_row(raw: RawTable, row: Row, det_column: str | None,
+                     weight_column: str | None) -> tuple[str | None, float, bool, float | None]:
+    """One row's worker, value, whether below a limit and weight, checked
+    (the row-by-row reading, whose messages the column checks keep)."""
+    worker = _worker(raw, row) if "worker" in raw.columns else None
+    v, below = _measurement(raw, row)
+    if det_column is not None:
+        flag = _flag(raw, row, det_column)
+        if below and flag:
+            raise cell_error(raw, row, det_column, "the value is written as below a "
+                             "detection limit ('<') but marked detected")
+        below = below or not flag
+        if below and v == 0:
+            raise cell_error(raw, row, "value", "a detection limit must be above 0, but this "
+                             f"non-detect ({det_column} = false) has the value 0")
+    below_sqrt_max(raw, row, "value", v, "give a value below that (check the unit)")
+    w = None
+    if weight_column is not None:
+        w = number(raw, row, weight_column)
+        if w < 0:
+            raise cell_error(raw, row, weight_column, f"weight must be 0 or more, got {w:g}")
+        below_sqrt_max(raw, row, weight_column, w, "only the weights' ratios matter, so "
+                       "divide them all by one factor")
+    return worker, v, below, w
 
 
 def _worker(raw: RawTable, row: Row) -> str:
