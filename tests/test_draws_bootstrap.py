@@ -75,15 +75,21 @@ def test_chunks_are_the_row_bootstrap_on_distinct_values(meaning, rounding, monk
     assert skipped.random() == again.random()
 
 
-def test_exposure_draws_replay_and_leave_the_stream_as_before():
-    """A Resample gives the same resamples on every replay, and the draws
+@pytest.mark.parametrize("keep", [True, False])
+def test_exposure_draws_replay_and_leave_the_stream_as_before(keep, monkeypatch):
+    """A Resample gives the same resamples on every replay, kept (small
+    bootstraps, computed once) or replayed from its generator, and the draws
     after it are those after numpy's bootstrap calls (so cases drawn next
     from the same generator are unchanged)."""
+    from doseattr.core.uncertainty import sampling
+
+    monkeypatch.setattr(sampling, "KEEP_ELEMENTS", 1 << 23 if keep else 0)
     x, w = _values(300, rounding=None)
     e = empirical(x, w)
     rng = np.random.default_rng(4)
     ex = exposure_draws(e, 40, rng)
     assert ex.resample is not None and ex.varies
+    assert (ex.resample.kept is not None) == keep
     first = np.concatenate([c for _, c in ex.resample.chunks()])
     second = np.concatenate([c for _, c in ex.resample.chunks()])
     np.testing.assert_array_equal(first, second)

@@ -43,16 +43,27 @@ class Resample:
     """A weighted bootstrap of an empirical exposure that can be replayed:
     the generator as it stood before the resamples were drawn, so every
     :meth:`chunks` gives the same ``draws`` resamples
-    (:meth:`~doseattr.core.exposure.empirical.EmpiricalExposure.bootstrap_chunks`)."""
+    (:meth:`~doseattr.core.exposure.empirical.EmpiricalExposure.bootstrap_chunks`).
+    ``kept``, when set, holds those chunks already computed (small
+    bootstraps: see :data:`KEEP_ELEMENTS`)."""
 
     exposure: EmpiricalExposure
     draws: int
     start: np.random.Generator
+    kept: tuple[tuple[slice, FloatArray], ...] | None = None
 
     def chunks(self) -> Iterator[tuple[slice, FloatArray]]:
         """``(rows, W)``: the weights ``W (k, U)`` on the distinct values of
         the draws ``rows``, from a copy of the starting generator."""
+        if self.kept is not None:
+            return iter(self.kept)
         return self.exposure.bootstrap_chunks(copy.deepcopy(self.start), self.draws)
+
+
+#: A bootstrap whose weights on the distinct values (draws x U) fit in this
+#: many numbers (64 MiB) is resampled once and kept, not replayed for every
+#: quantity that uses it.
+KEEP_ELEMENTS = 1 << 23
 
 
 @dataclass(frozen=True)
@@ -125,11 +136,15 @@ def bootstrap_draws(exposure: EmpiricalExposure, n: int,
     the resamples take, so the draws after it are those after
     ``exposure.bootstrap(rng, n)``."""
     start = copy.deepcopy(rng)
-    exposure.skip_bootstrap(rng, n)
     values, weights, _ = exposure.points
+    kept = None
+    if int(n) * values.size <= KEEP_ELEMENTS:
+        kept = tuple(exposure.bootstrap_chunks(rng, n))  # advances rng as skip_bootstrap does
+    else:
+        exposure.skip_bootstrap(rng, n)
     return ExposureDraws(values=values[None, :], weights=weights[None, :],
                          varies=exposure.values.size > 1,
-                         resample=Resample(exposure, int(n), start))
+                         resample=Resample(exposure, int(n), start, kept))
 
 
 def model_error_factors(gsd: float, seed: int, n: int) -> FloatArray:
