@@ -16,9 +16,9 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import expit
 
 from doseattr.core.curves.base import FloatArray
+from doseattr.core.curves.logistic import expit
 from doseattr.errors import ModelError
 
 Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]
@@ -70,7 +70,7 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
     (common practice; the interval is assumed symmetric on the log scale).
     Raises :class:`ModelError` unless ``0 < lo < hi`` and ``lo <= rr <= hi``.
     """
-    from scipy.stats import norm
+    from scipy.special import ndtri  # scipy.stats.norm.ppf without scipy.stats
 
     rr, lo, hi = (np.asarray(v, dtype=float) for v in (rr, lo, hi))
     ok = np.isfinite(lo) & np.isfinite(hi) & (lo > 0) & (lo < hi) & (lo <= rr) & (rr <= hi)
@@ -80,7 +80,7 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
             f"confidence interval number {bad + 1} ({np.ravel(lo)[bad]:g} to "
             f"{np.ravel(hi)[bad]:g}, RR {np.ravel(rr)[bad]:g}) must satisfy 0 < lower < upper "
             f"with the RR inside it")
-    z = norm.ppf(0.5 + level / 2.0)
+    z = ndtri(0.5 + level / 2.0)
     return cast(FloatArray, ((np.log(hi) - np.log(lo)) / (2.0 * z)) ** 2)
 
 

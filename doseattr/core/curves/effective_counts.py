@@ -19,9 +19,9 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import expit
 
 from doseattr.core.curves.base import FloatArray
+from doseattr.core.curves.logistic import expit
 from doseattr.core.curves.covariance import LogRRCovariance, independent_covariance
 from doseattr.errors import ModelError
 
