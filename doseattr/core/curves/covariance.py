@@ -19,6 +19,7 @@ from numpy.typing import ArrayLike
 
 from doseattr.core.curves.base import FloatArray
 from doseattr.core.curves.logistic import expit
+from doseattr.core.curves.roots import bisect_root
 from doseattr.errors import ModelError
 
 Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]
@@ -176,8 +177,6 @@ def _case_control_counts(rr: FloatArray, cases: FloatArray, controls: FloatArray
     :math:`u \ge \log(M_1 / \sum N_i RR_i)`; :math:`1 - \operatorname{expit}(s) < e^{-s}`
     gives :math:`u \le \log(\sum (N_i/RR_i) / M_0)`.
     """
-    from scipy.optimize import brentq
-
     n = cases + controls
     m1, m0 = cases.sum(), controls.sum()
     if m1 <= 0 or m0 <= 0 or n[ref] <= 0:
@@ -190,7 +189,7 @@ def _case_control_counts(rr: FloatArray, cases: FloatArray, controls: FloatArray
         return float(np.sum(n * expit(lrr + u)) - m1)
 
     lo, hi = np.log(m1 / np.sum(n * rr)), np.log(np.sum(n / rr) / m0)
-    u = brentq(excess_cases, lo, hi, xtol=1e-14, rtol=4 * np.finfo(float).eps, maxiter=500)
+    u = bisect_root(excess_cases, lo, hi, xtol=1e-14, rtol=4 * np.finfo(float).eps)
     return n * expit(lrr + u), n * expit(-(lrr + u))
 
 

@@ -7,8 +7,10 @@ Nelder-Mead restart if BFGS stops away from a stationary point);
 is the asymptotic covariance of the internal parameters.
 
 A log-likelihood that returns its exact gradient (measurement fits,
-:mod:`.likelihood`) goes to :func:`search_with_gradient` instead: BFGS on
-that gradient, no finite differences.
+:mod:`.likelihood`) goes to :func:`search_with_gradient` instead: Newton
+steps on the observed information when the caller gives it
+(:func:`newton_search`, no scipy), else or if they fail BFGS on that
+gradient, no finite differences.
 """
 
 from __future__ import annotations
@@ -181,8 +183,71 @@ def _inverse_hessian_seed(info: FloatArray | None, scale: float) -> FloatArray |
     return cast(FloatArray, seed)
 
 
+#: Newton steps :func:`newton_search` takes before it gives up.
+NEWTON_STEPS = 50
+
+
+def newton_search(value_grad: ValueGrad, info: Callable[[FloatArray], FloatArray],
+                  theta0: FloatArray, *, scale: float) -> FloatArray | None:
+    r"""Newton's method on the log-likelihood with step halving:
+    :math:`\theta \leftarrow \theta + t\,I(\theta)^{-1}\nabla\ell(\theta)`, ``info``
+    giving the observed information :math:`I`, and :math:`t = 1, 1/2, \ldots`
+    the first that does not lower :math:`\ell` (beyond rounding); Nocedal &
+    Wright 2006, Numerical Optimization, ch. 3 (from memory).
+
+    Returns the first point whose largest gradient component is within
+    :data:`GTOL` ``x scale`` (the stopping rule of :func:`search_with_gradient`),
+    or ``None`` when the information is not positive definite, a step finds
+    no increase, or :data:`NEWTON_STEPS` steps do not get there: the caller
+    then searches by BFGS. Needs no ``scipy.optimize`` (start-up time)."""
+    theta = np.array(theta0, dtype=float)
+    with np.errstate(all="ignore"):
+        value, grad = value_grad(theta)
+        for _ in range(NEWTON_STEPS):
+            if not (np.isfinite(value) and np.all(np.isfinite(grad))):
+                return None
+            if np.max(np.abs(grad)) <= GTOL * scale:
+                return theta
+            step = _newton_step(info(theta), np.asarray(grad, dtype=float))
+            if step is None:
+                return None
+            moved = _halve_until_no_loss(value_grad, theta, step, value)
+            if moved is None:
+                return None
+            theta, value, grad = moved
+    return None
+
+
+def _newton_step(info: FloatArray, grad: FloatArray) -> FloatArray | None:
+    """``info^{-1} grad`` when ``info`` is finite and positive definite."""
+    info = 0.5 * (info + info.T)
+    if not np.all(np.isfinite(info)):
+        return None
+    try:
+        np.linalg.cholesky(info)
+    except np.linalg.LinAlgError:
+        return None
+    return cast(FloatArray, np.linalg.solve(info, grad))
+
+
+def _halve_until_no_loss(value_grad: ValueGrad, theta: FloatArray, step: FloatArray,
+                         value: float) -> tuple[FloatArray, float, FloatArray] | None:
+    """``theta + t step`` for the first ``t = 1, 1/2, ...`` (30 tries) whose
+    log-likelihood is finite and not below ``value`` beyond rounding."""
+    floor = value - 1e-12 * max(1.0, abs(value))
+    t = 1.0
+    for _ in range(30):
+        new = theta + t * step
+        new_value, new_grad = value_grad(new)
+        if np.isfinite(new_value) and new_value >= floor:
+            return new, float(new_value), np.asarray(new_grad, dtype=float)
+        t /= 2.0
+    return None
+
+
 def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: float,
-                         what: str, info0: FloatArray | None = None) -> FloatArray:
+                         what: str, info0: FloatArray | None = None,
+                         info: Callable[[FloatArray], FloatArray] | None = None) -> FloatArray:
     """Where ``value_grad`` peaks, by BFGS on the exact gradient of
     ``loglik / scale`` (``scale`` the total weight, so that the tolerance
     :data:`GTOL` is relative to the per-value log-likelihood; the search
@@ -192,9 +257,15 @@ def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: fl
 
     ``info0``, the observed information at ``theta0`` when known, seeds the
     BFGS inverse Hessian (when positive definite), so the first steps are
-    Newton steps rather than steepest descent."""
-    neg = _negative_scaled(value_grad, scale)
+    Newton steps rather than steepest descent. ``info``, a function giving
+    the observed information, lets :func:`newton_search` try first (BFGS
+    only if it fails)."""
     theta0 = np.asarray(theta0, dtype=float)
+    if info is not None:
+        found = newton_search(value_grad, info, theta0, scale=scale)
+        if found is not None and stationary_with_gradient(value_grad, found):
+            return found
+    neg = _negative_scaled(value_grad, scale)
     options: dict[str, object] = {"gtol": GTOL}
     seed = _inverse_hessian_seed(info0, scale)
     if seed is not None:
