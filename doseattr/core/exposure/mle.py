@@ -3,8 +3,9 @@
 Shared by measurement fits (:mod:`.fit`) and grouped-data fits
 (:mod:`.summary`). ``scipy.optimize.minimize`` does the search (BFGS, with a
 Nelder-Mead restart if BFGS stops away from a stationary point);
-``statsmodels.tools.numdiff`` gives the observed information, whose inverse
-is the asymptotic covariance of the internal parameters.
+central differences (:func:`central_hessian`) give the observed
+information, whose inverse is the asymptotic covariance of the internal
+parameters.
 
 A log-likelihood that returns its exact gradient (measurement fits,
 :mod:`.likelihood`) goes to :func:`search_with_gradient` instead: Newton
@@ -45,13 +46,51 @@ def _negative(loglik: LogLik) -> LogLik:
     return neg
 
 
-def _stationary(neg: LogLik, theta: FloatArray) -> bool:
-    from statsmodels.tools.numdiff import approx_fprime
+_EPS = float(np.finfo(float).eps)
 
+
+def central_gradient(f: LogLik, theta: FloatArray) -> FloatArray:
+    r"""Gradient of ``f`` by central differences,
+    :math:`(f(\theta + h_k e_k) - f(\theta - h_k e_k)) / (2 h_k)` with
+    :math:`h_k = \epsilon^{1/3} \max(|\theta_k|, 0.1) / 2` (error
+    :math:`O(h^2)`; Nocedal & Wright 2006, Numerical Optimization, sec. 8.1,
+    from memory)."""
+    theta = np.asarray(theta, dtype=float)
+    steps = _EPS ** (1.0 / 3.0) * np.maximum(np.abs(theta), 0.1) / 2.0
+    grad = np.zeros(theta.size)
+    for k, h in enumerate(steps):
+        e = np.zeros(theta.size)
+        e[k] = h
+        grad[k] = (f(theta + e) - f(theta - e)) / (2 * h)
+    return grad
+
+
+def central_hessian(f: LogLik, theta: FloatArray) -> FloatArray:
+    r"""Hessian of ``f`` by central differences of values,
+
+    .. math:: H_{jk} = \frac{f(\theta + h_j e_j + h_k e_k) - f(\theta + h_j e_j - h_k e_k)
+              - f(\theta - h_j e_j + h_k e_k) + f(\theta - h_j e_j - h_k e_k)}{4 h_j h_k}
+
+    with :math:`h_j = \epsilon^{1/4} \max(|\theta_j|, 0.1)` (Ridout 2009,
+    Am Stat 63:66, eq. 9; from memory), symmetric by construction."""
+    theta = np.asarray(theta, dtype=float)
+    h = _EPS ** (1.0 / 4.0) * np.maximum(np.abs(theta), 0.1)
+    ee = np.diag(h)
+    n = theta.size
+    hess = np.outer(h, h)
+    for i in range(n):
+        for j in range(i, n):
+            hess[i, j] = ((f(theta + ee[i] + ee[j]) - f(theta + ee[i] - ee[j]))
+                          - (f(theta - ee[i] + ee[j]) - f(theta - ee[i] - ee[j]))) / (4.0 * hess[i, j])
+            hess[j, i] = hess[i, j]
+    return cast(FloatArray, hess)
+
+
+def _stationary(neg: LogLik, theta: FloatArray) -> bool:
     value = neg(theta)
     if not np.isfinite(value):
         return False
-    grad = approx_fprime(theta, neg, centered=True)
+    grad = central_gradient(neg, theta)
     return bool(np.all(np.isfinite(grad)) and np.max(np.abs(grad)) < 1e-4 * max(1.0, abs(value)))
 
 
@@ -84,9 +123,7 @@ NOT_POSITIVE = ("the observed information is not positive definite: the fit has 
 def information(loglik: LogLik, theta: FloatArray) -> FloatArray | None:
     """Observed information (minus the Hessian of ``loglik``) at ``theta``,
     symmetrised; ``None`` when it is not finite and positive definite."""
-    from statsmodels.tools.numdiff import approx_hess3
-
-    info = approx_hess3(np.asarray(theta, dtype=float), _negative(loglik))
+    info = central_hessian(_negative(loglik), np.asarray(theta, dtype=float))
     info = 0.5 * (info + info.T)
     if np.all(np.isfinite(info)) and np.all(np.linalg.eigvalsh(info) > 0):
         return cast(FloatArray, info)
