@@ -21,9 +21,9 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from doseattr.core.curves.base import FloatArray
+from doseattr.core.curves.covariance import LogRRCovariance, independent_covariance
 from doseattr.core.curves.logistic import expit
 from doseattr.core.curves.roots import bisect_root
-from doseattr.core.curves.covariance import LogRRCovariance, independent_covariance
 from doseattr.errors import ModelError
 
 Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]

@@ -140,12 +140,12 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
     def value_grad(theta: FloatArray) -> tuple[float, FloatArray]:
         return value_and_gradient(family, theta, pooled)
 
-    def info(theta: FloatArray) -> FloatArray:
+    def information(theta: FloatArray) -> FloatArray:
         return observed_information(family, theta, pooled)
 
     start = family.to_internal(family.start(data.x, data.w))
     theta = search_with_gradient(value_grad, start, scale=pooled.total, what=f"{family.name} fit",
-                                 info0=info(start), info=info)
+                                 info0=information(start), info=information)
     cov, warns = invert_information(observed_information(family, theta, pooled))
     return Maximum(theta, measurement_loglik(family, family.from_internal(theta), data), cov, warns)
 
