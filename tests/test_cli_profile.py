@@ -22,7 +22,7 @@ STAGES = ("start-up (imports)", "reading and checks", "fitting and other computi
 def test_cli_import_loads_no_heavy_library():
     # a fresh interpreter: what `doseattr --help` pays before parsing
     code = ("import doseattr.cli, sys; print(sorted(m for m in "
-            "('matplotlib','statsmodels','pandas','dask') if m in sys.modules))")
+            "('numpy','scipy','matplotlib','statsmodels','pandas','dask') if m in sys.modules))")
     done = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,
                           text=True, check=True)
     assert done.stdout.strip() == "[]"

@@ -16,9 +16,10 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import expit
 
 from doseattr.core.curves.base import FloatArray
+from doseattr.core.curves.logistic import expit
+from doseattr.core.curves.roots import bisect_root
 from doseattr.errors import ModelError
 
 Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]
@@ -70,7 +71,7 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
     (common practice; the interval is assumed symmetric on the log scale).
     Raises :class:`ModelError` unless ``0 < lo < hi`` and ``lo <= rr <= hi``.
     """
-    from scipy.stats import norm
+    from scipy.special import ndtri  # scipy.stats.norm.ppf without scipy.stats
 
     rr, lo, hi = (np.asarray(v, dtype=float) for v in (rr, lo, hi))
     ok = np.isfinite(lo) & np.isfinite(hi) & (lo > 0) & (lo < hi) & (lo <= rr) & (rr <= hi)
@@ -80,7 +81,7 @@ def var_log_rr_from_ci(rr: ArrayLike, lo: ArrayLike, hi: ArrayLike,
             f"confidence interval number {bad + 1} ({np.ravel(lo)[bad]:g} to "
             f"{np.ravel(hi)[bad]:g}, RR {np.ravel(rr)[bad]:g}) must satisfy 0 < lower < upper "
             f"with the RR inside it")
-    z = norm.ppf(0.5 + level / 2.0)
+    z = ndtri(0.5 + level / 2.0)
     return cast(FloatArray, ((np.log(hi) - np.log(lo)) / (2.0 * z)) ** 2)
 
 
@@ -176,8 +177,6 @@ def _case_control_counts(rr: FloatArray, cases: FloatArray, controls: FloatArray
     :math:`u \ge \log(M_1 / \sum N_i RR_i)`; :math:`1 - \operatorname{expit}(s) < e^{-s}`
     gives :math:`u \le \log(\sum (N_i/RR_i) / M_0)`.
     """
-    from scipy.optimize import brentq
-
     n = cases + controls
     m1, m0 = cases.sum(), controls.sum()
     if m1 <= 0 or m0 <= 0 or n[ref] <= 0:
@@ -190,7 +189,7 @@ def _case_control_counts(rr: FloatArray, cases: FloatArray, controls: FloatArray
         return float(np.sum(n * expit(lrr + u)) - m1)
 
     lo, hi = np.log(m1 / np.sum(n * rr)), np.log(np.sum(n / rr) / m0)
-    u = brentq(excess_cases, lo, hi, xtol=1e-14, rtol=4 * np.finfo(float).eps, maxiter=500)
+    u = bisect_root(excess_cases, lo, hi, xtol=1e-14, rtol=4 * np.finfo(float).eps)
     return n * expit(lrr + u), n * expit(-(lrr + u))
 
 

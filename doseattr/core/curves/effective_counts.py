@@ -19,10 +19,11 @@ from typing import Literal, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import expit
 
 from doseattr.core.curves.base import FloatArray
 from doseattr.core.curves.covariance import LogRRCovariance, independent_covariance
+from doseattr.core.curves.logistic import expit
+from doseattr.core.curves.roots import bisect_root
 from doseattr.errors import ModelError
 
 Design = Literal["case-control", "incidence-rate", "cumulative-incidence"]
@@ -262,13 +263,11 @@ def _incidence_rate(rr: FloatArray, v: FloatArray, share: float,
 
 def _root(f: Callable[[float], float], what: str,
           bracket: tuple[float, float] | FloatArray = (-BRACKET, BRACKET)) -> float:
-    from scipy.optimize import brentq
-
     lo, hi = (float(b) for b in bracket)
     f_lo, f_hi = f(lo), f(hi)
     if not (np.isfinite(f_lo) and np.isfinite(f_hi)) or f_lo * f_hi > 0:
         raise ModelError(f"no effective counts reproduce the {what}")
-    return cast(float, brentq(f, lo, hi, xtol=1e-13, rtol=4 * np.finfo(float).eps, maxiter=500))
+    return bisect_root(f, lo, hi, xtol=1e-13, rtol=4 * np.finfo(float).eps)
 
 
 def _in_table_order(cells: FloatArray, ref: int) -> FloatArray:

@@ -77,19 +77,16 @@ def _validate(model: CurveModel, doses: ArrayLike, log_rr: ArrayLike,
 
 
 def _cholesky(v: FloatArray) -> FloatArray:
-    from scipy.linalg import cholesky
-
-    try:
-        return cast(FloatArray, cholesky(v, lower=True))
+    try:  # numpy's, not scipy.linalg's: check loads no scipy.linalg (start-up time)
+        return cast(FloatArray, np.linalg.cholesky(v))
     except np.linalg.LinAlgError:
         raise ModelError("covariance of the log RRs is not positive definite") from None
 
 
 def _whiten(chol: FloatArray, a: FloatArray) -> FloatArray:
-    """``L^{-1} a`` for ``V = L L'``."""
-    from scipy.linalg import solve_triangular
-
-    return cast(FloatArray, solve_triangular(chol, a, lower=True))
+    """``L^{-1} a`` for ``V = L L'`` (``L`` a few bands across: a general
+    solve costs nothing and needs no scipy.linalg)."""
+    return cast(FloatArray, np.linalg.solve(chol, a))
 
 
 def _fit_linear(model: CurveModel, x: FloatArray, y: FloatArray,
@@ -159,12 +156,12 @@ def check_curve(model: CurveModel, coef: FloatArray, doses: FloatArray) -> None:
 
 def _diagnostics(model: CurveModel, x: FloatArray, y: FloatArray, v: FloatArray,
                  fitted: FloatArray, chol: FloatArray, method: str) -> CurveFit:
-    from scipy.stats import chi2
+    from scipy.special import chdtrc  # scipy.stats.chi2.sf without scipy.stats
 
     rw = _whiten(chol, y - fitted)
     q = float(rw @ rw)
     df = x.size - len(model.param_names)
-    p_value = float(chi2.sf(q, df)) if df > 0 else None
+    p_value = float(chdtrc(df, q)) if df > 0 else None
     warnings: tuple[str, ...] = ()
     if p_value is not None and p_value < POOR_FIT_P:
         warnings = (f"the {model.name} model fits the category estimates poorly "

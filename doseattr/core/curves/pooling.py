@@ -139,7 +139,7 @@ def pool(coefficients: Sequence[ArrayLike], covariances: Sequence[ArrayLike], *,
     names
         Study labels for messages and notes (default ``"study 1"``, ...).
     """
-    from scipy.stats import chi2
+    from scipy.special import chdtrc  # scipy.stats.chi2.sf without scipy.stats
 
     labels = _labels(names, len(coefficients))
     b, s = _validate(coefficients, covariances, labels)
@@ -157,7 +157,7 @@ def pool(coefficients: Sequence[ArrayLike], covariances: Sequence[ArrayLike], *,
     weights = np.einsum("ij,kji->k", cov, v_inv) / p
     notes += _general_notes(k, p, q, df, method)
     return Pooled(coefficients=mu, covariance=cov, tau2=float(t[0, 0]) if p == 1 else t,
-                  q=q, df=df, p_value=float(chi2.sf(q, df)), i2=i_squared(q, df),
+                  q=q, df=df, p_value=float(chdtrc(df, q)), i2=i_squared(q, df),
                   weights=weights, method=method,
                   tau_method=tau_method if method == "random-effects" else None,
                   converged=converged, restricted_loglik=restricted_log_likelihood(b, s, t),
@@ -175,7 +175,7 @@ def nonlinearity_test(pooled: Pooled, indices: Sequence[int]) -> tuple[float, in
     pooled curve (Wald test; common practice). Returns ``(W, df, p)`` like
     :func:`doseattr.core.curves.spline.nonlinearity_test`.
     """
-    from scipy.stats import chi2
+    from scipy.special import chdtrc  # scipy.stats.chi2.sf without scipy.stats
 
     idx = np.asarray(indices, dtype=int).ravel()
     p = pooled.coefficients.size
@@ -190,7 +190,7 @@ def nonlinearity_test(pooled: Pooled, indices: Sequence[int]) -> tuple[float, in
                          "definite; no Wald test") from None
     z = np.linalg.solve(chol, b)
     w = float(z @ z)
-    return w, int(idx.size), float(chi2.sf(w, idx.size))
+    return w, int(idx.size), float(chdtrc(idx.size, w))
 
 
 def i_squared(q: float, df: int) -> float:
@@ -289,7 +289,7 @@ def _reml_note(converged: bool, message: str = "") -> list[str]:
 
 
 def _general_notes(k: int, p: int, q: float, df: int, method: str) -> list[str]:
-    from scipy.stats import chi2
+    from scipy.special import chdtrc  # scipy.stats.chi2.sf without scipy.stats
 
     notes = []
     if method == "random-effects" and p > 1 and k < p + 2:
@@ -297,7 +297,7 @@ def _general_notes(k: int, p: int, q: float, df: int, method: str) -> list[str]:
                      f"the between-study covariance is poorly determined")
     elif method == "random-effects" and k < 5:
         notes.append(f"only {k} studies: the between-study variance is imprecise")
-    if method == "fixed" and q > df and chi2.sf(q, df) < 0.05:
+    if method == "fixed" and q > df and chdtrc(df, q) < 0.05:
         notes.append(f"the studies differ more than their own uncertainty allows "
                      f"(Q = {q:.3g} on {df} df); the fixed-effect interval is too narrow, "
                      f"consider random effects")

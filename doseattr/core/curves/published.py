@@ -68,9 +68,9 @@ class ShiftedLogCurve(Curve):
                     level: float = 0.95) -> tuple[FloatArray, FloatArray, FloatArray]:
         """RR(x) with the pointwise interval at the slope's quantiles (the RR
         is monotone in the slope), so the published limits come back."""
-        from scipy.stats import norm
+        from scipy.special import ndtri  # scipy.stats.norm.ppf without scipy.stats
 
-        z = norm.ppf(0.5 + level / 2)
+        z = ndtri(0.5 + level / 2)
         ends = self.from_normal([-z, z])
         at = [self.rr(x, coef=e) for e in ends]
         return self.rr(x), np.minimum(*at), np.maximum(*at)
@@ -81,7 +81,7 @@ def symmetrizing_scale(value: float, lo: float, hi: float,
     """``(side, a u / d, sigma)`` of :class:`ShiftedLogCurve` for an estimate
     and its CI, or ``None`` when the CI is symmetric (within
     :data:`SYMMETRIC_TOL` of its width)."""
-    from scipy.stats import norm
+    from scipy.special import ndtri  # scipy.stats.norm.ppf without scipy.stats
 
     below, above = value - lo, hi - value
     if abs(above - below) <= SYMMETRIC_TOL * (hi - lo) or min(below, above) <= 0:
@@ -89,7 +89,7 @@ def symmetrizing_scale(value: float, lo: float, hi: float,
     side = 1.0 if above > below else -1.0
     a, u = (below, above) if side > 0 else (above, below)
     d = u - a
-    z = norm.ppf(0.5 + level / 2.0)
+    z = ndtri(0.5 + level / 2.0)
     return side, a * u / d, float(np.log1p(d / a) / z)
 
 
@@ -214,7 +214,7 @@ def _linear(rr: float | None, err: float | None, ci: tuple[float, float] | None,
 def _on_scale(what: str, value: float | None, ci: tuple[float, float] | None,
               level: float) -> tuple[float, float]:
     r"""Estimate and variance :math:`((hi - lo)/(2 z))^2` from a symmetric CI."""
-    from scipy.stats import norm
+    from scipy.special import ndtri  # scipy.stats.norm.ppf without scipy.stats
 
     if value is None or not np.isfinite(value):
         raise ModelError(f"a finite {what} is required, got {value}")
@@ -224,7 +224,7 @@ def _on_scale(what: str, value: float | None, ci: tuple[float, float] | None,
     if not (np.isfinite(lo) and np.isfinite(hi) and lo < hi and lo <= value <= hi):
         raise ModelError(f"CI ({lo:g}, {hi:g}) of the {what} must have lower < upper "
                          f"and contain the estimate {value:g}")
-    z = norm.ppf(0.5 + level / 2.0)
+    z = ndtri(0.5 + level / 2.0)
     se = (hi - lo) / (2.0 * z)
     if not np.isfinite(se) or se >= np.sqrt(np.finfo(float).max):
         raise ModelError(f"the standard error from the CI ({se:.3g}) has a square beyond the "

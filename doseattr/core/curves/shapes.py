@@ -13,9 +13,9 @@ from typing import ClassVar, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import expit
 
 from doseattr.core.curves.base import CurveModel, FloatArray, Growth, minus, param
+from doseattr.core.curves.logistic import expit
 from doseattr.errors import ModelError
 
 

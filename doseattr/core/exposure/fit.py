@@ -121,7 +121,7 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
     """The maximum of :func:`measurement_loglik`: for fully observed data
     the family's :meth:`~doseattr.core.exposure.base.Family.uncensored_mle`
     when it has one (with its closed-form information when it has that),
-    otherwise a BFGS search on the exact gradient over the pooled data
+    otherwise Newton steps (then, if they fail, BFGS) on the exact gradient over the pooled data
     (:mod:`doseattr.core.exposure.likelihood`); the covariance is the
     inverse observed information, from the exact gradient unless in closed
     form."""
@@ -140,9 +140,12 @@ def _maximum(family: Family, data: Measurements) -> Maximum:
     def value_grad(theta: FloatArray) -> tuple[float, FloatArray]:
         return value_and_gradient(family, theta, pooled)
 
+    def information(theta: FloatArray) -> FloatArray:
+        return observed_information(family, theta, pooled)
+
     start = family.to_internal(family.start(data.x, data.w))
     theta = search_with_gradient(value_grad, start, scale=pooled.total, what=f"{family.name} fit",
-                                 info0=observed_information(family, start, pooled))
+                                 info0=information(start), info=information)
     cov, warns = invert_information(observed_information(family, theta, pooled))
     return Maximum(theta, measurement_loglik(family, family.from_internal(theta), data), cov, warns)
 

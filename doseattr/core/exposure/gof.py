@@ -48,11 +48,11 @@ def goodness_of_fit(exposure: Exposure) -> dict[str, Any]:
     Returns a dict with ``test``, ``statistic``, ``p_value``, ``n`` and
     ``note`` (``test`` is ``None`` when no test applies, with the reason).
     """
-    from scipy import stats
-
     x, d, w = _measured(exposure)
     if w is not None and not np.allclose(w, w[0]):
         return probability_plot_correlation(exposure, "weighted data (positions unweighted)")
+    from scipy import stats  # here: the PPCC above needs no scipy.stats (start-up time)
+
     dist = exposure.family.scipy(exposure.params)
     cdf, note = dist.cdf, _NOTE
     if not d.all():

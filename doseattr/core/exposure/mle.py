@@ -3,12 +3,15 @@
 Shared by measurement fits (:mod:`.fit`) and grouped-data fits
 (:mod:`.summary`). ``scipy.optimize.minimize`` does the search (BFGS, with a
 Nelder-Mead restart if BFGS stops away from a stationary point);
-``statsmodels.tools.numdiff`` gives the observed information, whose inverse
-is the asymptotic covariance of the internal parameters.
+central differences (:func:`central_hessian`) give the observed
+information, whose inverse is the asymptotic covariance of the internal
+parameters.
 
 A log-likelihood that returns its exact gradient (measurement fits,
-:mod:`.likelihood`) goes to :func:`search_with_gradient` instead: BFGS on
-that gradient, no finite differences.
+:mod:`.likelihood`) goes to :func:`search_with_gradient` instead: Newton
+steps on the observed information when the caller gives it
+(:func:`newton_search`, no scipy), else or if they fail BFGS on that
+gradient, no finite differences.
 """
 
 from __future__ import annotations
@@ -43,13 +46,51 @@ def _negative(loglik: LogLik) -> LogLik:
     return neg
 
 
-def _stationary(neg: LogLik, theta: FloatArray) -> bool:
-    from statsmodels.tools.numdiff import approx_fprime
+_EPS = float(np.finfo(float).eps)
 
+
+def central_gradient(f: LogLik, theta: FloatArray) -> FloatArray:
+    r"""Gradient of ``f`` by central differences,
+    :math:`(f(\theta + h_k e_k) - f(\theta - h_k e_k)) / (2 h_k)` with
+    :math:`h_k = \epsilon^{1/3} \max(|\theta_k|, 0.1) / 2` (error
+    :math:`O(h^2)`; Nocedal & Wright 2006, Numerical Optimization, sec. 8.1,
+    from memory)."""
+    theta = np.asarray(theta, dtype=float)
+    steps = _EPS ** (1.0 / 3.0) * np.maximum(np.abs(theta), 0.1) / 2.0
+    grad = np.zeros(theta.size)
+    for k, h in enumerate(steps):
+        e = np.zeros(theta.size)
+        e[k] = h
+        grad[k] = (f(theta + e) - f(theta - e)) / (2 * h)
+    return grad
+
+
+def central_hessian(f: LogLik, theta: FloatArray) -> FloatArray:
+    r"""Hessian of ``f`` by central differences of values,
+
+    .. math:: H_{jk} = \frac{f(\theta + h_j e_j + h_k e_k) - f(\theta + h_j e_j - h_k e_k)
+              - f(\theta - h_j e_j + h_k e_k) + f(\theta - h_j e_j - h_k e_k)}{4 h_j h_k}
+
+    with :math:`h_j = \epsilon^{1/4} \max(|\theta_j|, 0.1)` (Ridout 2009,
+    Am Stat 63:66, eq. 9; from memory), symmetric by construction."""
+    theta = np.asarray(theta, dtype=float)
+    h = _EPS ** (1.0 / 4.0) * np.maximum(np.abs(theta), 0.1)
+    ee = np.diag(h)
+    n = theta.size
+    hess = np.outer(h, h)
+    for i in range(n):
+        for j in range(i, n):
+            hess[i, j] = ((f(theta + ee[i] + ee[j]) - f(theta + ee[i] - ee[j]))
+                          - (f(theta - ee[i] + ee[j]) - f(theta - ee[i] - ee[j]))) / (4.0 * hess[i, j])
+            hess[j, i] = hess[i, j]
+    return cast(FloatArray, hess)
+
+
+def _stationary(neg: LogLik, theta: FloatArray) -> bool:
     value = neg(theta)
     if not np.isfinite(value):
         return False
-    grad = approx_fprime(theta, neg, centered=True)
+    grad = central_gradient(neg, theta)
     return bool(np.all(np.isfinite(grad)) and np.max(np.abs(grad)) < 1e-4 * max(1.0, abs(value)))
 
 
@@ -82,9 +123,7 @@ NOT_POSITIVE = ("the observed information is not positive definite: the fit has 
 def information(loglik: LogLik, theta: FloatArray) -> FloatArray | None:
     """Observed information (minus the Hessian of ``loglik``) at ``theta``,
     symmetrised; ``None`` when it is not finite and positive definite."""
-    from statsmodels.tools.numdiff import approx_hess3
-
-    info = approx_hess3(np.asarray(theta, dtype=float), _negative(loglik))
+    info = central_hessian(_negative(loglik), np.asarray(theta, dtype=float))
     info = 0.5 * (info + info.T)
     if np.all(np.isfinite(info)) and np.all(np.linalg.eigvalsh(info) > 0):
         return cast(FloatArray, info)
@@ -181,8 +220,71 @@ def _inverse_hessian_seed(info: FloatArray | None, scale: float) -> FloatArray |
     return cast(FloatArray, seed)
 
 
+#: Newton steps :func:`newton_search` takes before it gives up.
+NEWTON_STEPS = 50
+
+
+def newton_search(value_grad: ValueGrad, info: Callable[[FloatArray], FloatArray],
+                  theta0: FloatArray, *, scale: float) -> FloatArray | None:
+    r"""Newton's method on the log-likelihood with step halving:
+    :math:`\theta \leftarrow \theta + t\,I(\theta)^{-1}\nabla\ell(\theta)`, ``info``
+    giving the observed information :math:`I`, and :math:`t = 1, 1/2, \ldots`
+    the first that does not lower :math:`\ell` (beyond rounding); Nocedal &
+    Wright 2006, Numerical Optimization, ch. 3 (from memory).
+
+    Returns the first point whose largest gradient component is within
+    :data:`GTOL` ``x scale`` (the stopping rule of :func:`search_with_gradient`),
+    or ``None`` when the information is not positive definite, a step finds
+    no increase, or :data:`NEWTON_STEPS` steps do not get there: the caller
+    then searches by BFGS. Needs no ``scipy.optimize`` (start-up time)."""
+    theta = np.array(theta0, dtype=float)
+    with np.errstate(all="ignore"):
+        value, grad = value_grad(theta)
+        for _ in range(NEWTON_STEPS):
+            if not (np.isfinite(value) and np.all(np.isfinite(grad))):
+                return None
+            if np.max(np.abs(grad)) <= GTOL * scale:
+                return theta
+            step = _newton_step(info(theta), np.asarray(grad, dtype=float))
+            if step is None:
+                return None
+            moved = _halve_until_no_loss(value_grad, theta, step, value)
+            if moved is None:
+                return None
+            theta, value, grad = moved
+    return None
+
+
+def _newton_step(info: FloatArray, grad: FloatArray) -> FloatArray | None:
+    """``info^{-1} grad`` when ``info`` is finite and positive definite."""
+    info = 0.5 * (info + info.T)
+    if not np.all(np.isfinite(info)):
+        return None
+    try:
+        np.linalg.cholesky(info)
+    except np.linalg.LinAlgError:
+        return None
+    return cast(FloatArray, np.linalg.solve(info, grad))
+
+
+def _halve_until_no_loss(value_grad: ValueGrad, theta: FloatArray, step: FloatArray,
+                         value: float) -> tuple[FloatArray, float, FloatArray] | None:
+    """``theta + t step`` for the first ``t = 1, 1/2, ...`` (30 tries) whose
+    log-likelihood is finite and not below ``value`` beyond rounding."""
+    floor = value - 1e-12 * max(1.0, abs(value))
+    t = 1.0
+    for _ in range(30):
+        new = theta + t * step
+        new_value, new_grad = value_grad(new)
+        if np.isfinite(new_value) and new_value >= floor:
+            return new, float(new_value), np.asarray(new_grad, dtype=float)
+        t /= 2.0
+    return None
+
+
 def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: float,
-                         what: str, info0: FloatArray | None = None) -> FloatArray:
+                         what: str, info0: FloatArray | None = None,
+                         info: Callable[[FloatArray], FloatArray] | None = None) -> FloatArray:
     """Where ``value_grad`` peaks, by BFGS on the exact gradient of
     ``loglik / scale`` (``scale`` the total weight, so that the tolerance
     :data:`GTOL` is relative to the per-value log-likelihood; the search
@@ -192,9 +294,15 @@ def search_with_gradient(value_grad: ValueGrad, theta0: FloatArray, *, scale: fl
 
     ``info0``, the observed information at ``theta0`` when known, seeds the
     BFGS inverse Hessian (when positive definite), so the first steps are
-    Newton steps rather than steepest descent."""
-    neg = _negative_scaled(value_grad, scale)
+    Newton steps rather than steepest descent. ``info``, a function giving
+    the observed information, lets :func:`newton_search` try first (BFGS
+    only if it fails)."""
     theta0 = np.asarray(theta0, dtype=float)
+    if info is not None:
+        found = newton_search(value_grad, info, theta0, scale=scale)
+        if found is not None and stationary_with_gradient(value_grad, found):
+            return found
+    neg = _negative_scaled(value_grad, scale)
     options: dict[str, object] = {"gtol": GTOL}
     seed = _inverse_hessian_seed(info0, scale)
     if seed is not None:
