@@ -99,3 +99,39 @@ def test_small_curves_are_kept_whole():
     x = np.linspace(0.0, 1.0, SUMMARY_POINTS)
     c = Contribution(x, x, x, 0.5, 0.1)
     assert summarise(c) is c
+
+
+def test_full_curve_in_a_csv_when_asked(tmp_path):
+    """``[report] contribution_table = true`` writes contribution.csv with
+    every value's burden mass (the closed form of the empirical PAF's
+    decomposition, recomputed with numpy from the values), and results.json
+    keeps its summary; without the key no such file is written."""
+    import csv
+
+    rng = np.random.default_rng(1516)  # simulation, seeded
+    n = 3 * SUMMARY_POINTS
+    values = np.round(rng.lognormal(math.log(5.0), 0.8, n), 4)
+    (tmp_path / "m.csv").write_text("value\n" + "".join(f"{v:.4f}\n" for v in values))
+    d = {"unit": "ug/m3",
+         "curve": {"model": "log-linear", "rr": 1.3, "per": 10.0, "beyond": "extend"},
+         "exposure": {"table": "m.csv", "family": "empirical"},
+         "attribution": {"minimum_risk": M}}
+    plain = run_analysis(analysis_from_dict(d, base_dir=tmp_path))
+    plain.write(tmp_path / "plain")
+    assert not (tmp_path / "plain" / "contribution.csv").exists()
+    asked = run_analysis(analysis_from_dict({**d, "report": {"contribution_table": True}},
+                                            base_dir=tmp_path))
+    asked.write(tmp_path / "asked")
+    with open(tmp_path / "asked" / "contribution.csv", newline="") as fh:
+        rows = list(csv.reader(fh))
+    assert rows[0] == ["exposure (ug/m3)", "burden_mass", "cumulative_share"]
+    got = np.array(rows[1:], dtype=float)
+    x = np.sort(values)
+    ex = np.expm1(B * (np.maximum(x, M) - M))
+    mass = ex / n / (1.0 + ex.mean())
+    np.testing.assert_allclose(got[:, 0], x, rtol=1e-12)
+    np.testing.assert_allclose(got[:, 1], mass, rtol=1e-9, atol=1e-15)
+    np.testing.assert_allclose(got[:, 2], np.cumsum(mass) / mass.sum(), rtol=1e-9, atol=1e-15)
+    data = json.loads((tmp_path / "asked" / "results.json").read_text())
+    assert data["contribution"]["summarised"] is True
+    assert len(data["contribution"]["x"]) <= SUMMARY_POINTS

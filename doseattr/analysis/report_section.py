@@ -6,6 +6,7 @@ resolution.
     [report]
     figures = ["png", "svg"]   # default ["png"]
     dpi = 150                  # PNG resolution, default 150
+    contribution_table = true  # contribution.csv: the burden curve at every point
 
 The report itself always embeds PNG; ``figures`` names the files written
 into ``figures/``. Types are checked by the schema
@@ -31,10 +32,13 @@ DPI_RANGE = (50, 600)
 @dataclass(frozen=True)
 class ReportSettings:
     """``figures``: the formats written for each figure; ``dpi``: the PNG
-    resolution."""
+    resolution; ``contribution_table``: write ``contribution.csv`` (the
+    burden curve at every point it was computed at: each value on the
+    empirical path, where results.json holds a summary of at most 201)."""
 
     figures: tuple[str, ...] = ("png",)
     dpi: int = DEFAULT_DPI
+    contribution_table: bool = False
 
 
 def report_settings(data: Mapping[str, Any] | None, source: str | None = None
@@ -64,7 +68,8 @@ def report_settings(data: Mapping[str, Any] | None, source: str | None = None
     if not low <= dpi <= high:
         raise InputError(f"must be between {low} and {high} (150 suits screens and most "
                          "printing)", source=source, location=key_location("report", "dpi"))
-    return ReportSettings(figures=figures, dpi=int(dpi))
+    return ReportSettings(figures=figures, dpi=int(dpi),
+                          contribution_table=bool(data.get("contribution_table", False)))
 
 
 def report_settings_of(settings: Mapping[str, Any] | None) -> ReportSettings:

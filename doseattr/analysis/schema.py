@@ -194,6 +194,8 @@ SECTIONS: dict[str, dict[str, Key]] = {
         "figures": Key("texts", help='figure files to write: ["png"] (default) or '
                                      '["png", "svg"]'),
         "dpi": Key("integer", help="resolution of the PNG figures (default 150)"),
+        "contribution_table": Key("bool", help="also write contribution.csv: every value's "
+                                               "share of the attributable excess"),
     },
     "tables": {
         "delimiter": Key("text", help="the character between columns of CSV tables "

@@ -153,6 +153,22 @@ def categorical_paf_table(cat: CategoricalComparison) -> Table:
     return ["method", "paf", "difference_from_continuous"], rows
 
 
+def contribution_table(attribution: AttributionSection, unit: str | None,
+                       empirical: bool) -> Table:
+    """The burden curve at every point it was computed at (``[report]
+    contribution_table``): exposure; the burden there, a density per unit
+    of exposure on a family's grid (``burden_density``, integrating to the
+    PAF) or each value's mass on the empirical path (``burden_mass``,
+    adding up to the PAF); and the cumulative share of the attributable
+    excess at or below it."""
+    c = attribution.contribution
+    rows: list[list[Any]] = [[_float(x), _float(d), _float(q)]
+                             for x, d, q in zip(c.x.tolist(), c.density.tolist(),
+                                                c.cumulative.tolist())]
+    return [with_unit("exposure", unit), "burden_mass" if empirical else "burden_density",
+            "cumulative_share"], rows
+
+
 def convergence_table(cat: CategoricalComparison) -> Table:
     """Categorical PAF with ``k`` equal-probability bands, beside the
     continuous PAF it converges to."""

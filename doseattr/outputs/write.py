@@ -36,7 +36,7 @@ from typing import Any
 from doseattr.analysis.report_section import ReportSettings, report_settings_of
 from doseattr.errors import InputError
 from doseattr.outputs.manifest import MANIFEST, first_foreign, manifest_text
-from doseattr.outputs.tables import all_tables, write_csv
+from doseattr.outputs.tables import all_tables, contribution_table, write_csv
 from doseattr.results.run import Results
 
 FIGURE_FOLDER = "figures"
@@ -209,6 +209,9 @@ def _produce(results: Results, folder: Path, *, figures: bool,
     written = [Path("results.json")]
     (folder / "results.json").write_text(results_json(results), encoding="utf-8")
     tables = all_tables(results)
+    if report.contribution_table:
+        tables["contribution.csv"] = contribution_table(
+            results.attribution, results.unit, results.exposure_section.is_empirical)
     for name, table in tables.items():
         write_csv(folder / name, table)
         written.append(Path(name))
