@@ -459,13 +459,12 @@ def warm_imports() -> None:
     from doseattr.analysis.grid_inputs import require_grid_extra
 
     require_grid_extra()
-    # scipy.stats, scipy.optimize and statsmodels are imported inside the
-    # functions that use them (start-up, issue 15), so they are named here
+    # scipy.stats and scipy.optimize are imported inside the functions that
+    # use them (start-up, issue 15), so they are named here
     for name in ("doseattr.analysis.config", "doseattr.analysis.pipeline",
                  "doseattr.analysis.grid_reduce", "doseattr.core.exposure.grid",
                  "doseattr.core.uncertainty.propagate", "doseattr.outputs.write",
-                 "scipy.stats", "scipy.optimize", "scipy.linalg",
-                 "statsmodels.tools.numdiff"):
+                 "scipy.stats", "scipy.optimize", "scipy.linalg"):
         importlib.import_module(name)
     from doseattr.outputs.style import pyplot
 
