@@ -112,8 +112,11 @@ def comparison_fits(values: FloatArray, weights: FloatArray | None,
         distinct, where = np.unique(x, return_inverse=True)
         if 2 * distinct.size <= x.size:
             summed = np.bincount(where, weights=w, minlength=distinct.size).astype(float)
+            # the stable order of the ranks of the values is theirs: one
+            # sort for every family's goodness of fit
+            order = np.argsort(where.ravel(), kind="stable")
             fit_one = lambda name: _on_all_values(  # noqa: E731
-                fit_measurements(name, distinct, weights=summed), x, w)
+                fit_measurements(name, distinct, weights=summed), x, w, order)
     fits, why = [], []
     for name in families:
         try:
@@ -123,9 +126,11 @@ def comparison_fits(values: FloatArray, weights: FloatArray | None,
     return tuple(fits), why
 
 
-def _on_all_values(collapsed: Exposure, x: FloatArray, w: FloatArray | None) -> Exposure:
+def _on_all_values(collapsed: Exposure, x: FloatArray, w: FloatArray | None,
+                   order: NDArray[np.intp] | None = None) -> Exposure:
     """A fit to the distinct values put back on the scale of all ``x``
-    (weights ``w``, ``None``: unweighted); see :func:`comparison_fits`."""
+    (weights ``w``, ``None``: unweighted); see :func:`comparison_fits`.
+    ``order``: a stable ascending order of ``x``, if known."""
     from doseattr.core.exposure.gof import goodness_of_fit
     from doseattr.core.exposure.sandwich import kish_effective_n
 
@@ -143,7 +148,7 @@ def _on_all_values(collapsed: Exposure, x: FloatArray, w: FloatArray | None) -> 
         weights_meaning=None if w is None else "frequency",
         effective_n=None if w is None else kish_effective_n(full_w), gof={})
     record = dataclasses.replace(record, gof=goodness_of_fit(
-        dataclasses.replace(collapsed, fit=record)))
+        dataclasses.replace(collapsed, fit=record), order=order))
     return dataclasses.replace(collapsed, fit=record)
 
 

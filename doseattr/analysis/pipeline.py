@@ -370,10 +370,10 @@ def _quartiles(exposure) -> np.ndarray:
     q = np.array([0.25, 0.5, 0.75])
     if exposure.family.name != "empirical":
         return np.asarray(exposure.family.ppf(q, exposure.params), dtype=float).reshape(-1)
-    keep = exposure.values > 0
-    order = np.argsort(exposure.values[keep], kind="stable")
-    x = exposure.values[keep][order]
-    cum = np.cumsum(exposure.weights[keep][order])
+    values, weights, _ = exposure.points  # sorted once, shared with the other point results
+    keep = values > 0
+    x = values[keep]
+    cum = np.cumsum(weights[keep])
     idx = np.minimum(np.searchsorted(cum / cum[-1], q), x.size - 1)
     return np.unique(x[idx])
 

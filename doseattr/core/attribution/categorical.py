@@ -17,6 +17,7 @@ distribution.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from typing import cast
 
@@ -79,8 +80,17 @@ def multi_category_paf(shares: ArrayLike, rr: ArrayLike) -> float:
 
 def band_shares(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     """Population share in each band, the unexposed in the first."""
-    edges = np.concatenate([[0.0], np.asarray(cutpoints, dtype=float)])
-    below = np.minimum(exposure.cdf(edges[1:]), 1.0)
+    cuts = np.asarray(cutpoints, dtype=float)
+    if isinstance(exposure, EmpiricalExposure):
+        u = exposure.unexposed
+        below = u + (1 - u) * _SortedPoints.of(exposure).mass_at_or_below(cuts)
+        return _diff_shares(below)
+    edges = np.concatenate([[0.0], cuts])
+    return _diff_shares(exposure.cdf(edges[1:]))
+
+
+def _diff_shares(below: FloatArray) -> FloatArray:
+    below = np.minimum(below, 1.0)
     # weights normalised to 1 can sum to 1 + eps: clip rounding below zero
     return np.maximum(np.diff(np.concatenate([[0.0], below, [1.0]])), 0.0)
 
@@ -93,6 +103,11 @@ def band_means(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
     hi = np.concatenate([cuts, [np.inf]])
     pm = (1 - exposure.unexposed) * _partial_mean(exposure, lo, hi)
     p = band_shares(exposure, cuts)
+    return _conditional(pm, p, lo, hi)
+
+
+def _conditional(pm: FloatArray, p: FloatArray, lo: FloatArray, hi: FloatArray) -> FloatArray:
+    """``pm / p``, the band's middle where it holds no one."""
     middle = 0.5 * lo + 0.5 * np.where(np.isfinite(hi), hi, lo)  # halves first: no overflow
     return np.where(p > 0, pm / np.where(p > 0, p, 1.0), middle)
 
@@ -100,19 +115,64 @@ def band_means(exposure: AnyExposure, cutpoints: ArrayLike) -> FloatArray:
 def _partial_mean(exposure: AnyExposure, lo: FloatArray, hi: FloatArray) -> FloatArray:
     """E[X; lo < X <= hi] of the exposed part (a weighted sum for values)."""
     if isinstance(exposure, EmpiricalExposure):
-        x, w = exposure.values, exposure.weights
-        inside = (x[None, :] > lo[:, None]) & (x[None, :] <= hi[:, None])
-        return inside.astype(float) @ (w * x)
+        return _SortedPoints.of(exposure).partial_mean(lo, hi)
     return exposure.family.partial_mean(lo, hi, exposure.params)
+
+
+#: A cumulative weight within this relative distance below a quantile's
+#: level counts as reaching it (sums of the same weights in another order
+#: differ by rounding; the exact quantile is the smaller value).
+_LEVEL_RTOL = 1e-10
+
+
+@dataclass(frozen=True)
+class _SortedPoints:
+    """The distinct values of an empirical exposure, ascending, with their
+    summed weights (:attr:`EmpiricalExposure.points`, one sort cached on
+    the exposure) and the sums every band statistic needs."""
+
+    x: FloatArray
+    w: FloatArray
+    cum: FloatArray
+    wx: FloatArray
+
+    @classmethod
+    def of(cls, exposure: EmpiricalExposure) -> _SortedPoints:
+        x, w, _ = exposure.points
+        return cls(x, w, np.cumsum(w), w * x)
+
+    def mass_at_or_below(self, c: FloatArray) -> FloatArray:
+        r""":math:`\sum_i w_i [x_i \le c]` (each weight summed once, in order)."""
+        idx = np.searchsorted(self.x, c, side="right")
+        return np.where(idx > 0, self.cum[np.maximum(idx - 1, 0)], 0.0)
+
+    def quantiles(self, q: FloatArray) -> FloatArray:
+        """The smallest value whose cumulative weight reaches ``q`` of the
+        total (the inverted weighted CDF)."""
+        level = q * self.cum[-1] * (1 - _LEVEL_RTOL)
+        idx = np.minimum(np.searchsorted(self.cum, level), self.cum.size - 1)
+        return cast(FloatArray, self.x[idx])
+
+    def partial_mean(self, lo: FloatArray, hi: FloatArray) -> FloatArray:
+        r""":math:`\sum_i w_i x_i [lo < x_i \le hi]` per band, each band's
+        sum taken over its own points (no difference of running sums, which
+        would lose the digits of a band small beside the total)."""
+        a = np.searchsorted(self.x, lo, side="right")
+        b = np.searchsorted(self.x, hi, side="right")
+        return _segment_sums(self.wx, a, b)
+
+
+def _segment_sums(v: FloatArray, a: NDArray[np.intp], b: NDArray[np.intp]) -> FloatArray:
+    """``v[a_j:b_j].sum()`` for each ``j`` (0 for an empty segment); a few
+    bands, so a loop over them costs O(len(v)) for disjoint bands."""
+    return np.array([float(v[i:j].sum()) if j > i else 0.0
+                     for i, j in zip(a.tolist(), b.tolist())])
 
 
 def _exposed_quantiles(exposure: AnyExposure, q: FloatArray) -> FloatArray:
     """Quantiles of the exposed part (inverted weighted CDF for values)."""
     if isinstance(exposure, EmpiricalExposure):
-        order = np.argsort(exposure.values)
-        cum = np.cumsum(exposure.weights[order])
-        idx = np.minimum(np.searchsorted(cum, q * cum[-1]), cum.size - 1)
-        return cast(FloatArray, exposure.values[order][idx])
+        return _SortedPoints.of(exposure).quantiles(q)
     return exposure.family.ppf(q, exposure.params)
 
 
@@ -134,13 +194,46 @@ def rr_at(curve: Curve, doses: ArrayLike, minimum_risk: float) -> FloatArray:
 
 def equal_probability_paf(curve: Curve, exposure: AnyExposure, bands: int,
                           minimum_risk: float) -> float:
-    """Categorical PAF with ``bands`` equal-probability bands of the exposed."""
-    q = np.arange(1, bands) / bands
-    cuts = _exposed_quantiles(exposure, q)
-    exposed = replace(exposure, unexposed=0.0)
-    p = (1 - exposure.unexposed) * band_shares(exposed, cuts)
-    rr = rr_at(curve, band_means(exposed, cuts), minimum_risk)
-    return multi_category_paf(np.append(p, exposure.unexposed), np.append(rr, 1.0))
+    """Categorical PAF with ``bands`` equal-probability bands of the exposed:
+    cutpoints at the exposed part's quantiles :math:`j/K`, RR at each band's
+    conditional mean, the unexposed share one more band at RR 1."""
+    return equal_probability_pafs(curve, exposure, (bands,), minimum_risk)[0]
+
+
+def equal_probability_pafs(curve: Curve, exposure: AnyExposure, bands: Sequence[int],
+                           minimum_risk: float) -> tuple[float, ...]:
+    """:func:`equal_probability_paf` for each number of bands, the values
+    of an empirical exposure sorted once for all of them."""
+    if not isinstance(exposure, EmpiricalExposure):
+        exposed = replace(exposure, unexposed=0.0)
+        return tuple(_equal_probability(curve, exposure.unexposed, k, minimum_risk,
+                                        lambda c: band_shares(exposed, c),
+                                        lambda c: band_means(exposed, c),
+                                        lambda q: _exposed_quantiles(exposure, q))
+                     for k in bands)
+    pts = _SortedPoints.of(exposure)
+
+    def means(c: FloatArray) -> FloatArray:
+        lo, hi = np.concatenate([[0.0], c]), np.concatenate([c, [np.inf]])
+        return _conditional(pts.partial_mean(lo, hi), shares(c), lo, hi)
+
+    def shares(c: FloatArray) -> FloatArray:
+        return _diff_shares(pts.mass_at_or_below(c))
+
+    return tuple(_equal_probability(curve, exposure.unexposed, k, minimum_risk,
+                                    shares, means, pts.quantiles) for k in bands)
+
+
+def _equal_probability(curve: Curve, unexposed: float, bands: int, minimum_risk: float,
+                       shares: Callable[[FloatArray], FloatArray],
+                       means: Callable[[FloatArray], FloatArray],
+                       quantiles: Callable[[FloatArray], FloatArray]) -> float:
+    """One equal-probability PAF from the exposed part's band shares, band
+    means and quantiles."""
+    cuts = quantiles(np.arange(1, bands) / bands)
+    p = (1 - unexposed) * shares(cuts)
+    rr = rr_at(curve, means(cuts), minimum_risk)
+    return multi_category_paf(np.append(p, unexposed), np.append(rr, 1.0))
 
 
 def _usable_cuts(cuts: FloatArray) -> FloatArray:
@@ -180,6 +273,7 @@ def categorical_comparison(curve: Curve, exposure: AnyExposure, *, minimum_risk:
         CategoricalMethod(name, rr, multi_category_paf(shares, rr),
                           multi_category_paf(shares, rr) - cont)
         for name, rr in assigned)
-    convergence = tuple((k, equal_probability_paf(curve, exposure, k, minimum_risk))
-                        for k in range(2, max_bands + 1))
+    counts = range(2, max_bands + 1)
+    convergence = tuple(zip(counts, equal_probability_pafs(curve, exposure, counts,
+                                                           minimum_risk)))
     return CategoricalComparison(cuts, shares, mids, means, methods, cont, convergence)
