@@ -319,13 +319,32 @@ class GammaStandard(Standard):
         fk = np.clip((np.log(k) - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
         ik = fk.astype(int)
         tk = fk - ik
-        fz = np.clip((zeta - _ZETA[0]) / 0.25, 0.0, _ZETA.size - 1.000001)
-        iz = fz.astype(int)
-        tz = fz - iz
-        v00, v01 = table[ik, iz], table[ik, iz + 1]
-        v10, v11 = table[ik + 1, iz], table[ik + 1, iz + 1]
-        v = (1 - tk) * ((1 - tz) * v00 + tz * v01) + tk * ((1 - tz) * v10 + tz * v11)
-        return cast(FloatArray, v / _scale(k) + np.log(k))
+        fz = np.subtract(zeta, _ZETA[0])
+        fz *= 4.0
+        # maximum and minimum: faster than np.clip over (d, n)
+        np.maximum(fz, 0.0, out=fz)
+        np.minimum(fz, _ZETA.size - 1.000001, out=fz)
+        iz = fz.astype(np.intp)
+        tz = fz
+        tz -= iz
+        # flat indices: one gather per corner of the grid cell
+        flat = table.ravel()
+        i00 = iz + ik * table.shape[1]
+        v00, v01 = flat.take(i00), flat.take(i00 + 1)
+        i00 += table.shape[1]
+        v10, v11 = flat.take(i00), flat.take(i00 + 1)
+        v01 -= v00
+        v01 *= tz
+        v01 += v00
+        v11 -= v10
+        v11 *= tz
+        v11 += v10
+        v11 -= v01
+        v11 *= tk
+        v11 += v01
+        v11 *= 1.0 / _scale(k)
+        v11 += np.log(k)
+        return cast(FloatArray, v11)
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(divide="ignore"):
