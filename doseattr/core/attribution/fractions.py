@@ -223,7 +223,8 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     d = coef.shape[0]
     k = np.asarray(curve.kinks(coef), dtype=float)
     k = np.broadcast_to(k, (d, k.shape[-1]))
-    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef)], axis=1)
+    flat = _flat_from(curve, scenario if isinstance(scenario, Cap) else None)
+    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef, flat)], axis=1)
     if scenario is None:
         return points
     own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
@@ -247,9 +248,11 @@ def _flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
 _GRADED = np.array([1.0, 2.0, 4.0, 8.0, 16.0, 32.0])
 
 
-def _graded_below_flat(curve: Curve, coef: FloatArray) -> FloatArray:
-    r"""Breakpoints graded towards ``max_dose`` from below for curves that
-    grow exponentially before being held flat.
+def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None) -> FloatArray:
+    r"""Breakpoints graded towards the flat point ``D = flat`` from below
+    for curves that grow exponentially before being held flat (at
+    ``max_dose``, or at a cap below it: a cap's pre-image is the identity
+    below it, so the breaks serve in either dose).
 
     On the log-exposure scale :math:`\ln RR(e^t)` has slope :math:`c\,x`
     for :math:`RR \sim e^{cx}`, so with :math:`c D \gg 1` nearly all of
@@ -257,16 +260,16 @@ def _graded_below_flat(curve: Curve, coef: FloatArray) -> FloatArray:
     Breaks at :math:`\ln D - j/(cD)`, j = 1, 2, 4, ..., 32, resolve it.
     """
     d = coef.shape[0]
-    if curve.max_dose is None or curve.max_dose <= 0:
+    if flat is None or flat <= 0:
         return np.zeros((d, 0))
     g = curve.model.growth(coef)
     if g.kind != "exp":
         return np.zeros((d, 0))
-    cd = np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,)) * curve.max_dose
+    cd = np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,)) * flat
     if np.all(cd <= 1.0):
         return np.zeros((d, 0))
     steps = _GRADED / np.maximum(cd, 1.0)[:, None]
-    return curve.max_dose * np.exp(-steps)
+    return flat * np.exp(-steps)
 
 
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,

@@ -219,7 +219,7 @@ def _ratio_kinks(curve: Curve, coef: FloatArray, m: FloatArray,
     the graded breaks that ``fractions`` places under a steeply rising one."""
     parts = [_kinks(curve, coef, m, None)]
     if curve.model.linear:
-        parts.append(_graded_below_flat(curve, -coef))
+        parts.append(_graded_below_flat(curve, -coef, curve.max_dose))
     if scenario is not None:
         parts.append(_kinks(curve, coef, m, scenario))
     return np.concatenate(parts, axis=1)

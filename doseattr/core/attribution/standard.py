@@ -235,6 +235,44 @@ DOSE_SHAPE = 1000.0
 SMALL_SHAPE = 0.3
 
 
+#: Arguments up to which ``gammaincc`` may take its slow series (Cephes'
+#: ``igamc`` for ``y <= 1.1``, several microseconds for a shape below about
+#: 1.5) while ``gammainc`` takes the fast one (for ``y <= 1`` or below the shape).
+_SLOW_Q = 1.0
+#: Largest ``P`` from which ``Q`` is taken as ``1 - P``: ``Q >= 0.01`` then
+#: carries at most 100 times ``P``'s absolute rounding, a relative error
+#: below about 2e-13 (1.5e-13 seen against ``gammaincc`` over random shapes).
+_ONE_MINUS_P = 0.99
+
+
+def _exp(w: FloatArray) -> FloatArray:
+    with np.errstate(over="ignore"):
+        return cast(FloatArray, np.exp(w))
+
+
+def upper_gamma(k: FloatArray, y: FloatArray) -> FloatArray:
+    r"""The regularised upper incomplete gamma function :math:`Q(k, y)`
+    (``gammaincc``), as :math:`1 - P(k, y)` (``gammainc``) where ``y`` is at
+    most :data:`_SLOW_Q` and ``Q`` at least 0.01 (a relative error below
+    about 2e-13: ``P``'s absolute error is a few units in the last place of
+    1), else directly (full relative precision in the upper tail). This
+    avoids Cephes' slow series for ``Q`` at a small shape near ``y = 1``
+    (several microseconds a call, seen in timings here)."""
+    # subsets by index: scipy's ufuncs corrupt memory with ``where=`` here
+    shape = np.broadcast_shapes(k.shape, y.shape)
+    k, y = (np.broadcast_to(v, shape).ravel() for v in (k, y))
+    near = np.flatnonzero(y <= _SLOW_Q)
+    q = np.empty(y.size)
+    rest = np.ones(y.size, dtype=bool)
+    if near.size:
+        p = gammainc(k[near], y[near])
+        ok = p <= _ONE_MINUS_P
+        q[near[ok]] = 1.0 - p[ok]
+        rest[near[ok]] = False
+    q[rest] = gammaincc(k[rest], y[rest])
+    return q.reshape(shape)
+
+
 class GammaStandard(Standard):
     def __init__(self, family: Family) -> None:
         super().__init__(family)
@@ -266,12 +304,14 @@ class GammaStandard(Standard):
         return cast(FloatArray, 0.5 * np.log(k) - _LOG_SQRT_2PI - stirling_correction(k))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        k = params[:, :1]
-        with np.errstate(over="ignore"):
-            y = np.exp(w)
-        low = ndtri(gammainc(k, y))
-        high = -ndtri(gammaincc(k, y))
-        return cast(FloatArray, np.where(y < k, low, high))
+        """``ndtri(P)`` below the mean, ``-ndtri(Q)`` above (:func:`upper_gamma`),
+        each side computed only where it is taken."""
+        k, y = np.broadcast_arrays(params[:, :1], _exp(w))
+        low = y < k
+        z = np.empty(y.shape)
+        z[low] = ndtri(gammainc(k[low], y[low]))
+        z[~low] = -ndtri(upper_gamma(k[~low], y[~low]))
+        return z
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
         table = _gamma_table()
@@ -279,18 +319,36 @@ class GammaStandard(Standard):
         fk = np.clip((np.log(k) - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
         ik = fk.astype(int)
         tk = fk - ik
-        fz = np.clip((zeta - _ZETA[0]) / 0.25, 0.0, _ZETA.size - 1.000001)
-        iz = fz.astype(int)
-        tz = fz - iz
-        v00, v01 = table[ik, iz], table[ik, iz + 1]
-        v10, v11 = table[ik + 1, iz], table[ik + 1, iz + 1]
-        v = (1 - tk) * ((1 - tz) * v00 + tz * v01) + tk * ((1 - tz) * v10 + tz * v11)
-        return cast(FloatArray, v / _scale(k) + np.log(k))
+        fz = np.subtract(zeta, _ZETA[0])
+        fz *= 4.0
+        # maximum and minimum: faster than np.clip over (d, n)
+        np.maximum(fz, 0.0, out=fz)
+        np.minimum(fz, _ZETA.size - 1.000001, out=fz)
+        iz = fz.astype(np.intp)
+        tz = fz
+        tz -= iz
+        # flat indices: one gather per corner of the grid cell
+        flat = table.ravel()
+        i00 = iz + ik * table.shape[1]
+        v00, v01 = flat.take(i00), flat.take(i00 + 1)
+        i00 += table.shape[1]
+        v10, v11 = flat.take(i00), flat.take(i00 + 1)
+        v01 -= v00
+        v01 *= tz
+        v01 += v00
+        v11 -= v10
+        v11 *= tz
+        v11 += v10
+        v11 -= v01
+        v11 *= tk
+        v11 += v01
+        v11 *= 1.0 / _scale(k)
+        v11 += np.log(k)
+        return cast(FloatArray, v11)
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        k = params[:, :1]
-        with np.errstate(over="ignore", divide="ignore"):
-            return cast(FloatArray, np.log(gammaincc(k, np.exp(w))))
+        with np.errstate(divide="ignore"):
+            return cast(FloatArray, np.log(upper_gamma(params[:, :1], _exp(w))))
 
     def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """From ``P`` alone: one incomplete gamma function per draw (the
@@ -299,9 +357,8 @@ class GammaStandard(Standard):
             return cast(FloatArray, ndtri(gammainc(params[:, :1], np.exp(w))))
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        with np.errstate(over="ignore", divide="ignore"):
-            q = gammaincc(params[:, :1], np.exp(w))
-            return cast(FloatArray, -ndtri(q)), cast(FloatArray, q)
+        q = upper_gamma(params[:, :1], _exp(w))
+        return cast(FloatArray, -ndtri(q)), q
 
     def panel_width(self, params: FloatArray) -> FloatArray:
         """Narrower panels for a small shape, whose density in ``w`` has a
