@@ -116,3 +116,22 @@ def test_weibull_normal_scores():
     ref_u[lower] = np.log(-np.log1p(-stats.norm.cdf(z[lower])))
     ref_u[~lower] = np.log(-stats.norm.logsf(z[~lower]))
     np.testing.assert_allclose(back, ref_u, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("n", [8, 16, 32])
+def test_legendre_rule_is_exact_to_degree_2n_minus_1(n):
+    """The engine's Gauss-Legendre rule: integral of x^k over [-1, 1] is
+    2/(k+1) for even k, 0 for odd (closed form) for every k < 2n, and the
+    rule agrees with scipy.special.roots_legendre (reference library)."""
+    import numpy as np
+    from scipy.special import roots_legendre
+
+    from doseattr.core.attribution.engine import _legendre
+
+    x, w = _legendre(n)
+    for k in range(2 * n):
+        exact = 2.0 / (k + 1) if k % 2 == 0 else 0.0
+        assert abs(float(w @ x**k) - exact) < 4e-16 * (1 + exact)
+    xs, ws = roots_legendre(n)
+    np.testing.assert_allclose(x, xs, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(w, ws, rtol=2e-12)  # scipy float64 weights: ~1e-13 off
