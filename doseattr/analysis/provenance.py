@@ -123,7 +123,8 @@ def hash_large_files(paths: list[str]) -> None:
 
 
 def input_signatures(analysis: Any) -> dict[tuple[str, str], tuple | None]:
-    """``{(key, path): stat signature}`` of the analysis file (key ``""``)
+    """``{(key, path as in provenance): stat signature}`` of the analysis
+    file (key ``""``)
     and of every table it names (``None`` where the file cannot be read),
     and the large tables' hashing started in the background: what the
     command line compares after the run to refuse outputs whose inputs
@@ -131,17 +132,19 @@ def input_signatures(analysis: Any) -> dict[tuple[str, str], tuple | None]:
     quick check; common practice)."""
     source = getattr(analysis, "source", None)
     base = getattr(analysis, "base_dir", None) or "."
-    named = [("", source)] if source else []
-    named += [(key, value if os.path.isabs(value) else os.path.join(base, value))
-              for key, value in _path_keys(getattr(analysis, "settings", None) or {})
-              if not is_in_memory(value)]
-    start_hashing([path for _, path in named])
+    named = [("", source, source)] if source else []
+    for key, value in _path_keys(getattr(analysis, "settings", None) or {}):
+        if not is_in_memory(value):
+            path = value if os.path.isabs(value) else os.path.join(base, value)
+            shown = value if os.path.isabs(value) else os.path.relpath(path, base)
+            named.append((key, shown.replace(os.sep, "/"), path))
+    start_hashing([path for _, _, path in named])
     out: dict[tuple[str, str], tuple | None] = {}
-    for key, path in named:
+    for key, shown, path in named:
         try:
-            out[key, path] = stat_signature(path)
+            out[key, shown] = stat_signature(path)
         except OSError:
-            out[key, path] = None
+            out[key, shown] = None
     return out
 
 
