@@ -102,29 +102,30 @@ def write_districts(folder: Path, strata: int, seed: int = SEED) -> Path:
     return path
 
 
+def write_analysis(folder: Path, title: str, body: str) -> Path:
+    """``analysis.toml`` in ``folder``: the invented-numbers header, ``title``
+    and ``body``."""
+    path = folder / "analysis.toml"
+    path.write_text("# doseattr stage benchmark. EVERY NUMBER IS INVENTED.\n"
+                    f'title = "{title} (invented numbers)"\nunit = "ug/m3"\n\n' + body,
+                    encoding="utf-8")
+    return path
+
+
 def write_empirical(folder: Path, n: int, draws: int) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     write_measurements(folder, n)
-    path = folder / "analysis.toml"
-    path.write_text(
-        "# doseattr stage benchmark. EVERY NUMBER IS INVENTED.\n"
-        'title = "Empirical exposure benchmark (invented numbers)"\nunit = "ug/m3"\n\n'
-        + curve_section()
-        + '\n[exposure]\ntable = "measurements.csv"\nfamily = "empirical"\n\n'
-        + common_sections(draws), encoding="utf-8")
-    return path
+    return write_analysis(folder, "Empirical exposure benchmark", curve_section()
+                          + '\n[exposure]\ntable = "measurements.csv"\nfamily = "empirical"\n\n'
+                          + common_sections(draws))
 
 
 def write_burden(folder: Path, strata: int, draws: int) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     write_districts(folder, strata)
-    path = folder / "analysis.toml"
-    path.write_text(
-        "# doseattr stage benchmark. EVERY NUMBER IS INVENTED.\n"
-        'title = "Burden benchmark (invented numbers)"\nunit = "ug/m3"\n\n'
-        + curve_section() + "\n" + common_sections(draws)
-        + '\n[burden]\ntable = "districts.csv"\nrate_per = 100000\n', encoding="utf-8")
-    return path
+    return write_analysis(folder, "Burden benchmark", curve_section() + "\n"
+                          + common_sections(draws)
+                          + '\n[burden]\ntable = "districts.csv"\nrate_per = 100000\n')
 
 
 @dataclass(frozen=True)

@@ -72,10 +72,9 @@ def test_each_source_alone_uses_the_joint_draws(joint):
     np.testing.assert_allclose(joint["prop"].paf[0], _paf(b, m, x[idx], w[idx]), rtol=1e-12)
 
 
-def test_cases_alone_need_no_integral(joint, monkeypatch):
-    """Cases alone: the point PAF times the joint Poisson draws (definition
-    A = PAF N), computed from one point integral, not one per draw."""
-    sizes = []
+def _count_integrals(monkeypatch) -> list:
+    """The draws of every _fractions call (one per Monte Carlo pass), recorded."""
+    sizes: list = []
     real = propagate_module._fractions
 
     def counted(*a):
@@ -83,6 +82,13 @@ def test_cases_alone_need_no_integral(joint, monkeypatch):
         return real(*a)
 
     monkeypatch.setattr(propagate_module, "_fractions", counted)
+    return sizes
+
+
+def test_cases_alone_need_no_integral(joint, monkeypatch):
+    """Cases alone: the point PAF times the joint Poisson draws (definition
+    A = PAF N), computed from one point integral, not one per draw."""
+    sizes = _count_integrals(monkeypatch)
     p = vary_only(joint["curve"], joint["strata"], [], joint["prop_cases"], ("cases",))
     assert sizes == [1]
     point = _paf(joint["curve"].coef[:1], [0.5 * (LO + HI)], joint["x"], joint["w"])[0]
@@ -104,14 +110,7 @@ def test_a_source_varying_alone_has_the_joint_interval(tmp_path, monkeypatch):
     """Only the curve varies (exposure as numbers, one minimum-risk level):
     its row is the joint interval (the same draws, by definition), and the
     Monte Carlo integrates once (the joint run), not twice."""
-    sizes = []
-    real = propagate_module._fractions
-
-    def counted(*a):
-        sizes.append(a[-1])
-        return real(*a)
-
-    monkeypatch.setattr(propagate_module, "_fractions", counted)
+    sizes = _count_integrals(monkeypatch)
     r = run_analysis(_analysis(tmp_path, {"minimum_risk": 3.0}, {"gm": 8.0, "gsd": 2.0}))
     assert sizes.count(300) == 1
     (row,) = r.width_by_source
