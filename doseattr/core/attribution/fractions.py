@@ -224,7 +224,10 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     k = np.asarray(curve.kinks(coef), dtype=float)
     k = np.broadcast_to(k, (d, k.shape[-1]))
     flat = _flat_from(curve, scenario if isinstance(scenario, Cap) else None)
-    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef, flat)], axis=1)
+    # a falling curve drops steeply from RR_m = 1 just above m (in g's dose)
+    falling = _graded(_exp_rate(curve, -coef), m[:, None], (1,)) if curve.model.linear else None
+    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef, flat),
+                             np.zeros((d, 0)) if falling is None else falling], axis=1)
     if scenario is None:
         return points
     own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
@@ -270,6 +273,32 @@ def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None) -> Fl
         return np.zeros((d, 0))
     steps = _GRADED / np.maximum(cd, 1.0)[:, None]
     return flat * np.exp(-steps)
+
+
+def _exp_rate(curve: Curve, coef: FloatArray) -> FloatArray:
+    """Rate ``(D,)`` of the curve's exponential growth at ``coef``, 0 for
+    the draws that do not grow and for curves of another kind."""
+    d = coef.shape[0]
+    g = curve.model.growth(coef)
+    if g.kind != "exp":
+        return np.zeros(d)
+    return np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,))
+
+
+def _graded(rate: FloatArray, points: FloatArray, sides: tuple[int, ...],
+            grades: FloatArray = _GRADED) -> FloatArray:
+    r"""Breakpoints graded towards each of ``points`` ``(D, K)`` from above
+    (side 1) and/or below (side -1), for a log RR of slope ``rate`` ``(D,)``
+    in the dose there: :math:`k\,e^{\pm j/(r k)}`, j in ``grades``
+    (the log-exposure slope of :math:`r x` is :math:`r k` at :math:`k`;
+    see :func:`_graded_below_flat`). ``(D, 0)`` when no draw has
+    :math:`r k > 1` (the integrand is not steep on the log scale there)."""
+    cd = rate[:, None] * points
+    if not np.any(cd > 1.0):
+        return np.zeros((points.shape[0], 0))
+    steps = grades / np.maximum(cd, 1.0)[..., None]
+    parts = [points[..., None] * np.exp(side * steps) for side in sides]
+    return np.concatenate(parts, axis=2).reshape(points.shape[0], -1)
 
 
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,
