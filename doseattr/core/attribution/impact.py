@@ -236,13 +236,16 @@ def _ratio_kinks(curve: Curve, coef: FloatArray, m: FloatArray,
     rate = _exp_rate(curve, coef)
     if curve.model.linear:
         rate = np.maximum(rate, _exp_rate(curve, -coef))
-    return np.concatenate([points, _graded(rate, points, (-1, 1), _RATIO_GRADES)], axis=1)
+    return np.concatenate([points, _graded(rate, points, (-1, 1), _RATIO_GRADES, _RATIO_REACH)], axis=1)
 
 
 #: Grades of :func:`_ratio_kinks`, further out than those below a flat
 #: point: under a scale the slope of ``h`` on one side of a kink can be a
 #: small share of the curve's (:math:`(1-s)\,|c|` below ``max_dose``).
-_RATIO_GRADES = 2.0 ** np.arange(9)
+_RATIO_GRADES = np.array([1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0, 128.0, 256.0])
+#: Log-exposure distance beyond which a kink's graded breaks are left out
+#: (the body's own panels resolve a slope of h that is not steep there).
+_RATIO_REACH = 2.0
 
 
 def _ratio_flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
