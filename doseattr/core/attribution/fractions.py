@@ -225,10 +225,14 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     k = np.broadcast_to(k, (d, k.shape[-1]))
     flat = _flat_from(curve, scenario if isinstance(scenario, Cap) else None)
     points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef, flat)], axis=1)
-    if scenario is None:
-        return points
-    own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
-    return np.concatenate([scenario.preimage(points), own], axis=1)
+    start = m[:, None] if scenario is None else scenario.preimage(m[:, None])
+    # a falling curve drops steeply from RR_m = 1 just above m's pre-image
+    # (at the curve's rate in x: finer than needed under a scale)
+    falling = _graded(_exp_rate(curve, -coef), start, (1,)) if curve.model.linear else None
+    if scenario is not None:
+        own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
+        points = np.concatenate([scenario.preimage(points), own], axis=1)
+    return points if falling is None else np.concatenate([points, falling], axis=1)
 
 
 def _flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
@@ -270,6 +274,41 @@ def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None) -> Fl
         return np.zeros((d, 0))
     steps = _GRADED / np.maximum(cd, 1.0)[:, None]
     return flat * np.exp(-steps)
+
+
+def _exp_rate(curve: Curve, coef: FloatArray) -> FloatArray:
+    """Rate ``(D,)`` of the curve's exponential growth at ``coef``, 0 for
+    the draws that do not grow and for curves of another kind."""
+    d = coef.shape[0]
+    g = curve.model.growth(coef)
+    if g.kind != "exp":
+        return np.zeros(d)
+    return np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,))
+
+
+def _graded(rate: FloatArray, points: FloatArray, sides: tuple[int, ...],
+            grades: FloatArray = _GRADED, reach: float | None = None) -> FloatArray:
+    r"""Breakpoints graded towards each of ``points`` ``(D, K)`` from above
+    (side 1) and/or below (side -1), for a log RR of slope ``rate`` ``(D,)``
+    in the dose there: :math:`k\,e^{\pm j/(r k)}`, j in ``grades``
+    (the log-exposure slope of :math:`r x` is :math:`r k` at :math:`k`;
+    see :func:`_graded_below_flat`). ``(D, 0)`` when no draw has
+    :math:`r k > 1` (the integrand is not steep on the log scale there).
+    With ``reach``, only the breaks that lie within ``reach`` of their
+    point on the log scale for some draw with :math:`r k > 1`."""
+    cd = rate[:, None] * points
+    if not np.any(cd > 1.0):
+        return np.zeros((points.shape[0], 0))
+    steps = grades / np.maximum(cd, 1.0)[..., None]
+    if reach is not None:
+        # only the (point, grade) columns some steep draw needs
+        keep = np.any((cd[..., None] > 1.0) & (steps <= reach), axis=0)
+        steps = steps[:, keep]
+        points = points[:, np.nonzero(keep)[0]]
+    else:
+        steps, points = steps.reshape(points.shape[0], -1), np.repeat(points, grades.size, axis=1)
+    parts = [points * np.exp(side * steps) for side in sides]
+    return np.concatenate(parts, axis=1)
 
 
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,

@@ -54,9 +54,9 @@ from numpy.typing import ArrayLike, NDArray
 from doseattr.core.attribution.engine import LogRisk, expected_excess
 from doseattr.core.attribution.fractions import (
     _draw_arrays,
+    _exp_rate,
     _flat_from,
-    _graded_below_flat,
-    _kinks,
+    _graded,
     _log_rr_m,
     weighted_rows,
 )
@@ -214,15 +214,38 @@ def _ratio_growth(curve: Curve, coef: ArrayLike, scenario: Scenario | None) -> G
 
 def _ratio_kinks(curve: Curve, coef: FloatArray, m: FloatArray,
                  scenario: Scenario | None) -> FloatArray:
-    """Kinks of ``h``: those of ``L`` and, with a scenario, of ``L_g``; for
-    a curve falling steeply before ``max_dose`` (``1/RR`` steep there) also
-    the graded breaks that ``fractions`` places under a steeply rising one."""
-    parts = [_kinks(curve, coef, m, None)]
-    if curve.model.linear:
-        parts.append(_graded_below_flat(curve, -coef, curve.max_dose))
+    r"""Kinks of ``h``: those of ``L`` and, with a scenario, of ``L_g``,
+    and for a curve steep on the log-exposure scale graded breaks on both
+    sides of each (:func:`doseattr.core.attribution.fractions._graded`, at
+    the curve's rate either way, so rising and falling curves alike).
+
+    Unlike :math:`\mathrm{expm1}(L_g)`, whose steep part lies only below
+    its flat point, :math:`e^h` can turn steeply on either side of a kink:
+    it falls from 1 just above ``m`` or a cap (rising curve), peaks at
+    ``max_dose`` and falls beyond it under a scale or a reduction (falling
+    curve), or rises to a plateau at the pre-image of ``m`` (falling curve,
+    reduction)."""
+    d = coef.shape[0]
+    k = np.asarray(curve.kinks(coef), dtype=float)
+    k = np.broadcast_to(k, (d, k.shape[-1]))
+    top = [] if curve.max_dose is None else [np.full((d, 1), float(curve.max_dose))]
+    points = np.concatenate([k, m[:, None], *top], axis=1)
     if scenario is not None:
-        parts.append(_kinks(curve, coef, m, scenario))
-    return np.concatenate(parts, axis=1)
+        own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
+        points = np.concatenate([points, scenario.preimage(points), own], axis=1)
+    rate = _exp_rate(curve, coef)
+    if curve.model.linear:
+        rate = np.maximum(rate, _exp_rate(curve, -coef))
+    return np.concatenate([points, _graded(rate, points, (-1, 1), _RATIO_GRADES, _RATIO_REACH)], axis=1)
+
+
+#: Grades of :func:`_ratio_kinks`, further out than those below a flat
+#: point: under a scale the slope of ``h`` on one side of a kink can be a
+#: small share of the curve's (:math:`(1-s)\,|c|` below ``max_dose``).
+_RATIO_GRADES = np.array([1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0, 128.0, 256.0])
+#: Log-exposure distance beyond which a kink's graded breaks are left out
+#: (the body's own panels resolve a slope of h that is not steep there).
+_RATIO_REACH = 2.0
 
 
 def _ratio_flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
