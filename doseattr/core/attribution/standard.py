@@ -29,11 +29,16 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.special import gammainc, gammaincc, log_ndtr, ndtr, ndtri
+from scipy.special import gammainc, log_ndtr, ndtr, ndtri
 
 from doseattr.core.exposure.base import Family
 from doseattr.core.exposure.gamma import stirling_correction
-from doseattr.core.exposure.incomplete_gamma import _log_lower_quantile, _log_upper_quantile
+from doseattr.core.exposure.incomplete_gamma import (
+    _log_lower_quantile,
+    _log_upper_quantile,
+    lower_gamma,
+    upper_gamma,
+)
 
 FloatArray = NDArray[np.float64]
 
@@ -220,6 +225,16 @@ def _gamma_table() -> FloatArray:
     return cast(FloatArray, _scale(k) * (w - np.log(k)))
 
 
+@lru_cache(maxsize=1)
+def _gamma_table_steps() -> tuple[FloatArray, FloatArray]:
+    """:func:`_gamma_table` and its steps along the normal score (the last
+    column's step, never taken, is 0)."""
+    table = _gamma_table()
+    steps = np.zeros_like(table)
+    steps[:, :-1] = table[:, 1:] - table[:, :-1]
+    return table, steps
+
+
 def _scale(k: FloatArray) -> FloatArray:
     """``k`` below 1, ``sqrt(k)`` above: the table's rows in ``w - ln k``
     times this vary smoothly with ``ln k`` at both ends (the lower tail grows
@@ -233,16 +248,8 @@ def _scale(k: FloatArray) -> FloatArray:
 DOSE_SHAPE = 1000.0
 #: Shapes below which the gamma panels get breaks near ``w = 0``.
 SMALL_SHAPE = 0.3
-
-
-#: Arguments up to which ``gammaincc`` may take its slow series (Cephes'
-#: ``igamc`` for ``y <= 1.1``, several microseconds for a shape below about
-#: 1.5) while ``gammainc`` takes the fast one (for ``y <= 1`` or below the shape).
-_SLOW_Q = 1.0
-#: Largest ``P`` from which ``Q`` is taken as ``1 - P``: ``Q >= 0.01`` then
-#: carries at most 100 times ``P``'s absolute rounding, a relative error
-#: below about 2e-13 (1.5e-13 seen against ``gammaincc`` over random shapes).
-_ONE_MINUS_P = 0.99
+#: Those breaks in ``w`` (``-inf`` stands for none: never inside a window).
+_SMALL_SHAPE_BREAKS = np.array([-24.0, -12.0, -6.0, -3.0, -1.5, 0.0, 1.5])
 
 
 def _exp(w: FloatArray) -> FloatArray:
@@ -250,32 +257,11 @@ def _exp(w: FloatArray) -> FloatArray:
         return cast(FloatArray, np.exp(w))
 
 
-def upper_gamma(k: FloatArray, y: FloatArray) -> FloatArray:
-    r"""The regularised upper incomplete gamma function :math:`Q(k, y)`
-    (``gammaincc``), as :math:`1 - P(k, y)` (``gammainc``) where ``y`` is at
-    most :data:`_SLOW_Q` and ``Q`` at least 0.01 (a relative error below
-    about 2e-13: ``P``'s absolute error is a few units in the last place of
-    1), else directly (full relative precision in the upper tail). This
-    avoids Cephes' slow series for ``Q`` at a small shape near ``y = 1``
-    (several microseconds a call, seen in timings here)."""
-    # subsets by index: scipy's ufuncs corrupt memory with ``where=`` here
-    shape = np.broadcast_shapes(k.shape, y.shape)
-    k, y = (np.broadcast_to(v, shape).ravel() for v in (k, y))
-    near = np.flatnonzero(y <= _SLOW_Q)
-    q = np.empty(y.size)
-    rest = np.ones(y.size, dtype=bool)
-    if near.size:
-        p = gammainc(k[near], y[near])
-        ok = p <= _ONE_MINUS_P
-        q[near[ok]] = 1.0 - p[ok]
-        rest[near[ok]] = False
-    q[rest] = gammaincc(k[rest], y[rest])
-    return q.reshape(shape)
-
-
 class GammaStandard(Standard):
     def __init__(self, family: Family) -> None:
         super().__init__(family)
+        self._shape_cache: tuple[FloatArray, tuple[NDArray[np.intp], FloatArray, FloatArray,
+                                                   FloatArray]] | None = None
 
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
@@ -301,7 +287,8 @@ class GammaStandard(Standard):
 
     def log_norm(self, params: FloatArray) -> FloatArray:
         k = params[:, :1]
-        return cast(FloatArray, 0.5 * np.log(k) - _LOG_SQRT_2PI - stirling_correction(k))
+        log_k = np.log(k)
+        return cast(FloatArray, 0.5 * log_k - _LOG_SQRT_2PI - stirling_correction(k, log_k))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """``ndtri(P)`` below the mean, ``-ndtri(Q)`` above (:func:`upper_gamma`),
@@ -314,11 +301,9 @@ class GammaStandard(Standard):
         return z
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
-        table = _gamma_table()
-        k = params[:, :1]
-        fk = np.clip((np.log(k) - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
-        ik = fk.astype(int)
-        tk = fk - ik
+        """Bilinear interpolation in the quantile table (:func:`_gamma_table`)
+        in ``ln k`` and ``zeta``, mapped back to ``w``."""
+        base, tk, inv_scale, log_k = self._shape_terms(params)
         fz = np.subtract(zeta, _ZETA[0])
         fz *= 4.0
         # maximum and minimum: faster than np.clip over (d, n)
@@ -327,24 +312,42 @@ class GammaStandard(Standard):
         iz = fz.astype(np.intp)
         tz = fz
         tz -= iz
-        # flat indices: one gather per corner of the grid cell
-        flat = table.ravel()
-        i00 = iz + ik * table.shape[1]
-        v00, v01 = flat.take(i00), flat.take(i00 + 1)
-        i00 += table.shape[1]
-        v10, v11 = flat.take(i00), flat.take(i00 + 1)
-        v01 -= v00
+        # flat indices: one gather per corner of the grid cell, the right
+        # corners as differences from the left (the same roundings as
+        # forming them here)
+        flat, steps = (t.ravel() for t in _gamma_table_steps())
+        i00 = iz + base
+        v00, v01 = flat.take(i00), steps.take(i00)
+        i00 += _ZETA.size
+        v10, v11 = flat.take(i00), steps.take(i00)
         v01 *= tz
         v01 += v00
-        v11 -= v10
         v11 *= tz
         v11 += v10
         v11 -= v01
         v11 *= tk
         v11 += v01
-        v11 *= 1.0 / _scale(k)
-        v11 += np.log(k)
+        v11 *= inv_scale
+        v11 += log_k
         return cast(FloatArray, v11)
+
+    def _shape_terms(self, params: FloatArray) -> tuple[NDArray[np.intp], FloatArray,
+                                                         FloatArray, FloatArray]:
+        """:meth:`from_zeta`'s terms that depend on the shape alone (``(d, 1)``
+        each): the flat offset of the table's row below ``ln k``, the weight of
+        the row above, ``1/s(k)`` (:func:`_scale`) and ``ln k``. Kept for the
+        last ``params`` array, which the engine passes, unchanged, to the
+        several calls for one block of draws."""
+        last = self._shape_cache
+        if last is not None and last[0] is params:
+            return last[1]
+        k = params[:, :1]
+        log_k = np.log(k)
+        fk = np.clip((log_k - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
+        ik = fk.astype(np.intp)
+        terms = (ik * _ZETA.size, fk - ik, 1.0 / _scale(k), log_k)
+        self._shape_cache = (params, terms)
+        return terms
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(divide="ignore"):
@@ -354,7 +357,7 @@ class GammaStandard(Standard):
         """From ``P`` alone: one incomplete gamma function per draw (the
         upper side loses digits of ``zeta``, not of any probability used)."""
         with np.errstate(over="ignore"):
-            return cast(FloatArray, ndtri(gammainc(params[:, :1], np.exp(w))))
+            return cast(FloatArray, ndtri(lower_gamma(params[:, :1], np.exp(w))))
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         q = upper_gamma(params[:, :1], _exp(w))
@@ -369,10 +372,10 @@ class GammaStandard(Standard):
     def extra_breaks(self, params: FloatArray) -> FloatArray:
         """For a shape below SMALL_SHAPE the density of ``w`` turns from ``e^{kw}`` to
         ``e^{-e^w}`` within a few units of ``w = 0``; breaks there."""
-        d = params.shape[0]
         small = params[:, :1] < SMALL_SHAPE
-        grid = np.array([-24.0, -12.0, -6.0, -3.0, -1.5, 0.0, 1.5])
-        return cast(FloatArray, np.where(small, grid, -np.inf) * np.ones((d, 1)))
+        if not small.any():
+            return np.zeros((params.shape[0], 0))
+        return cast(FloatArray, np.where(small, _SMALL_SHAPE_BREAKS, -np.inf))
 
 
 def standard_for(family: Family) -> Standard:
