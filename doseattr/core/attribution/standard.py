@@ -24,8 +24,9 @@ vectorised over draws: parameters ``(d, k)``, results ``(d, 1)`` or
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
+from collections.abc import Callable
 from functools import lru_cache
-from typing import cast
+from typing import Generic, NamedTuple, TypeVar, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -49,6 +50,7 @@ ZB = 7.5
 #: 1e-307), for tilted or far-flat integrands.
 Z_MAX = 37.0
 _LOG_SQRT_2PI = 0.5 * np.log(2 * np.pi)
+_T = TypeVar("_T")
 
 
 def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
@@ -257,11 +259,67 @@ def _exp(w: FloatArray) -> FloatArray:
         return cast(FloatArray, np.exp(w))
 
 
+class _ShapeTerms(NamedTuple):
+    """The gamma standard's terms that depend on the shape ``k`` alone, ``(d, 1)`` each."""
+
+    log_k: FloatArray
+    #: :meth:`GammaStandard.log_norm`
+    log_norm: FloatArray
+    #: flat offset in the quantile table of the row below ``ln k``
+    row: NDArray[np.intp]
+    #: weight of the row above
+    weight: FloatArray
+    #: ``1 / s(k)`` (:func:`_scale`)
+    inv_scale: FloatArray
+
+
+def _compute_shape_terms(k: FloatArray) -> _ShapeTerms:
+    log_k = np.log(k)
+    log_norm = 0.5 * log_k - _LOG_SQRT_2PI - stirling_correction(k, log_k)
+    fk = np.clip((log_k - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
+    ik = fk.astype(np.intp)
+    return _ShapeTerms(log_k, log_norm, ik * _ZETA.size, fk - ik, 1.0 / _scale(k))
+
+
+class _LastValues(Generic[_T]):
+    """A function's value for the last inputs it was given, served again for
+    inputs equal to them (compared by value, about 1.4 ns a draw and input;
+    so a changed array never gets a stale value). The engine is called once
+    per scenario over the same draws (:func:`~doseattr.core.attribution.
+    fractions.excess_draws`), and needs the shape terms several times per
+    block. The values' arrays are made read-only."""
+
+    def __init__(self, compute: Callable[..., _T]) -> None:
+        self._compute = compute
+        self._last: tuple[tuple[FloatArray, ...], _T] | None = None
+
+    def __call__(self, *inputs: FloatArray) -> _T:
+        last = self._last
+        if last is not None and all(a.shape == b.shape and np.array_equal(a, b)
+                                    for a, b in zip(last[0], inputs, strict=True)):
+            return last[1]
+        value = self._compute(*inputs)
+        parts = cast(tuple[FloatArray, ...], value if isinstance(value, tuple) else (value,))
+        for part in parts:
+            part.flags.writeable = False
+        self._last = (tuple(np.array(v, dtype=float) for v in inputs), value)
+        return value
+
+
+_shape_terms = _LastValues(_compute_shape_terms)
+
+
+def _lower_score(k: FloatArray, w: FloatArray) -> FloatArray:
+    with np.errstate(over="ignore"):
+        return cast(FloatArray, ndtri(lower_gamma(k, np.exp(w))))
+
+
+_lower_scores = _LastValues(_lower_score)
+
+
 class GammaStandard(Standard):
     def __init__(self, family: Family) -> None:
         super().__init__(family)
-        self._shape_cache: tuple[FloatArray, tuple[NDArray[np.intp], FloatArray, FloatArray,
-                                                   FloatArray]] | None = None
 
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
@@ -272,23 +330,24 @@ class GammaStandard(Standard):
         gamma log density written about its mode (see
         :meth:`doseattr.core.exposure.gamma.Gamma.log_density_log`)."""
         k = params[:, :1]
-        w -= np.log(k)
         with np.errstate(over="ignore", invalid="ignore"):
             if k.max(initial=0.0) <= DOSE_SHAPE:
                 # e^v = x / (theta k): the doses' exponential serves; its
-                # rounding (a few units in the last place of 1) counts k-fold
+                # rounding (a few units in the last place of 1) counts k-fold;
+                # the 1 of expm1 goes with v: (x / (theta k)) - (v + 1)
+                w -= np.log(k) - 1.0
                 e = np.multiply(x, 1.0 / (params[:, 1:2] * k))
-                e -= 1.0
             else:
+                w -= np.log(k)
                 e = np.expm1(w)
         e -= w
         e *= -k
         return cast(FloatArray, e)
 
     def log_norm(self, params: FloatArray) -> FloatArray:
-        k = params[:, :1]
-        log_k = np.log(k)
-        return cast(FloatArray, 0.5 * log_k - _LOG_SQRT_2PI - stirling_correction(k, log_k))
+        r""":math:`\tfrac12 \ln k - \tfrac12 \ln 2\pi - c(k)`, ``c`` Stirling's
+        correction (read-only)."""
+        return _shape_terms(params[:, :1]).log_norm
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """``ndtri(P)`` below the mean, ``-ndtri(Q)`` above (:func:`upper_gamma`),
@@ -303,7 +362,7 @@ class GammaStandard(Standard):
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
         """Bilinear interpolation in the quantile table (:func:`_gamma_table`)
         in ``ln k`` and ``zeta``, mapped back to ``w``."""
-        base, tk, inv_scale, log_k = self._shape_terms(params)
+        terms = _shape_terms(params[:, :1])
         fz = np.subtract(zeta, _ZETA[0])
         fz *= 4.0
         # maximum and minimum: faster than np.clip over (d, n)
@@ -316,7 +375,7 @@ class GammaStandard(Standard):
         # corners as differences from the left (the same roundings as
         # forming them here)
         flat, steps = (t.ravel() for t in _gamma_table_steps())
-        i00 = iz + base
+        i00 = iz + terms.row
         v00, v01 = flat.take(i00), steps.take(i00)
         i00 += _ZETA.size
         v10, v11 = flat.take(i00), steps.take(i00)
@@ -325,29 +384,11 @@ class GammaStandard(Standard):
         v11 *= tz
         v11 += v10
         v11 -= v01
-        v11 *= tk
+        v11 *= terms.weight
         v11 += v01
-        v11 *= inv_scale
-        v11 += log_k
+        v11 *= terms.inv_scale
+        v11 += terms.log_k
         return cast(FloatArray, v11)
-
-    def _shape_terms(self, params: FloatArray) -> tuple[NDArray[np.intp], FloatArray,
-                                                         FloatArray, FloatArray]:
-        """:meth:`from_zeta`'s terms that depend on the shape alone (``(d, 1)``
-        each): the flat offset of the table's row below ``ln k``, the weight of
-        the row above, ``1/s(k)`` (:func:`_scale`) and ``ln k``. Kept for the
-        last ``params`` array, which the engine passes, unchanged, to the
-        several calls for one block of draws."""
-        last = self._shape_cache
-        if last is not None and last[0] is params:
-            return last[1]
-        k = params[:, :1]
-        log_k = np.log(k)
-        fk = np.clip((log_k - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
-        ik = fk.astype(np.intp)
-        terms = (ik * _ZETA.size, fk - ik, 1.0 / _scale(k), log_k)
-        self._shape_cache = (params, terms)
-        return terms
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(divide="ignore"):
@@ -355,9 +396,9 @@ class GammaStandard(Standard):
 
     def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """From ``P`` alone: one incomplete gamma function per draw (the
-        upper side loses digits of ``zeta``, not of any probability used)."""
-        with np.errstate(over="ignore"):
-            return cast(FloatArray, ndtri(lower_gamma(params[:, :1], np.exp(w))))
+        upper side loses digits of ``zeta``, not of any probability used;
+        read-only)."""
+        return _lower_scores(params[:, :1], w)
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         q = upper_gamma(params[:, :1], _exp(w))
