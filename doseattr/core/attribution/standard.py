@@ -60,6 +60,31 @@ def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
     return cast(FloatArray, sign * (ndtr(sign * hi) - ndtr(sign * lo)))
 
 
+class _LastValues(Generic[_T]):
+    """A function's value for the last inputs it was given, served again for
+    inputs equal to them (compared by value, about 1.4 ns a draw and input;
+    so a changed array never gets a stale value). The engine is called once
+    per scenario over the same draws (:func:`~doseattr.core.attribution.
+    fractions.excess_draws`), and needs the shape terms several times per
+    block. The values' arrays are made read-only."""
+
+    def __init__(self, compute: Callable[..., _T]) -> None:
+        self._compute = compute
+        self._last: tuple[tuple[FloatArray, ...], _T] | None = None
+
+    def __call__(self, *inputs: FloatArray) -> _T:
+        last = self._last
+        if last is not None and all(a.shape == b.shape and np.array_equal(a, b)
+                                    for a, b in zip(last[0], inputs, strict=True)):
+            return last[1]
+        value = self._compute(*inputs)
+        parts = cast(tuple[FloatArray, ...], value if isinstance(value, tuple) else (value,))
+        for part in parts:
+            part.flags.writeable = False
+        self._last = (tuple(np.array(v, dtype=float) for v in inputs), value)
+        return value
+
+
 class Standard(ABC):
     """How one family is integrated: its standardised variable and panels."""
 
@@ -174,34 +199,65 @@ class WeibullStandard(Standard):
         return np.zeros((params.shape[0], 1))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
-        ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
-        where it is taken."""
-        with np.errstate(over="ignore"):
-            e = np.exp(w)
-            low = e < np.log(2.0)
-            p = np.expm1(-e, where=low, out=np.empty_like(e))
-            np.negative(p, out=p, where=low)
-            np.exp(-e, out=p, where=~low)
-        z = ndtri(p)
-        return cast(FloatArray, np.negative(z, out=z, where=~low))
+        return _weibull_zeta(w)
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
         """``ln(-log1p(-Phi(zeta)))`` below the median, ``ln(-ln Phi(-zeta))``
         above (``zeta`` at most :data:`Z_MAX`, where ``Phi(-zeta)`` is a normal
-        float), each side computed only where it is taken."""
+        float); where ``zeta`` lies on both sides, both are formed and each
+        taken where it holds (the same values, fewer masked operations)."""
         low = zeta <= 0
-        p = ndtr(-np.abs(zeta))
+        p = np.abs(zeta)
+        np.negative(p, out=p)
+        p = ndtr(p, out=p)
         with np.errstate(divide="ignore"):
-            e = np.negative(p, where=low, out=np.empty_like(p))
-            np.log1p(e, out=e, where=low)
-            np.log(p, out=e, where=~low)
-            np.negative(e, out=e)
-            return cast(FloatArray, np.log(e, out=e))
+            if low.all():
+                np.negative(p, out=p)
+                np.log1p(p, out=p)
+            elif not low.any():
+                np.log(p, out=p)
+            else:
+                high = np.log(p)
+                np.negative(p, out=p)
+                np.log1p(p, out=p)
+                np.copyto(p, high, where=~low)
+            np.negative(p, out=p)
+            return cast(FloatArray, np.log(p, out=p))
+
+    def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
+        """:meth:`zeta`, kept for the last ``w`` (read-only; the current
+        exposure and a cap above the minimum-risk level share it)."""
+        return _weibull_scores(w)
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(over="ignore"):
             return cast(FloatArray, -np.exp(w))
+
+
+def _weibull_zeta(w: FloatArray) -> FloatArray:
+    """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
+    ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
+    where it is taken (without masks where all of ``w`` is on one side)."""
+    with np.errstate(over="ignore"):
+        e = np.exp(w)
+    low = e < np.log(2.0)
+    np.negative(e, out=e)
+    if low.all():
+        np.expm1(e, out=e)
+        np.negative(e, out=e)
+        return cast(FloatArray, ndtri(e))
+    if not low.any():
+        z = ndtri(np.exp(e, out=e))
+        return cast(FloatArray, np.negative(z, out=z))
+    p = np.expm1(e, where=low, out=np.empty_like(e))
+    np.negative(p, out=p, where=low)
+    high = ~low
+    np.exp(e, out=p, where=high)
+    z = ndtri(p)
+    return cast(FloatArray, np.negative(z, out=z, where=high))
+
+
+_weibull_scores = _LastValues(_weibull_zeta)
 
 
 #: Grid of the gamma quantile table: log shape and normal score.
@@ -279,31 +335,6 @@ def _compute_shape_terms(k: FloatArray) -> _ShapeTerms:
     fk = np.clip((log_k - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
     ik = fk.astype(np.intp)
     return _ShapeTerms(log_k, log_norm, ik * _ZETA.size, fk - ik, 1.0 / _scale(k))
-
-
-class _LastValues(Generic[_T]):
-    """A function's value for the last inputs it was given, served again for
-    inputs equal to them (compared by value, about 1.4 ns a draw and input;
-    so a changed array never gets a stale value). The engine is called once
-    per scenario over the same draws (:func:`~doseattr.core.attribution.
-    fractions.excess_draws`), and needs the shape terms several times per
-    block. The values' arrays are made read-only."""
-
-    def __init__(self, compute: Callable[..., _T]) -> None:
-        self._compute = compute
-        self._last: tuple[tuple[FloatArray, ...], _T] | None = None
-
-    def __call__(self, *inputs: FloatArray) -> _T:
-        last = self._last
-        if last is not None and all(a.shape == b.shape and np.array_equal(a, b)
-                                    for a, b in zip(last[0], inputs, strict=True)):
-            return last[1]
-        value = self._compute(*inputs)
-        parts = cast(tuple[FloatArray, ...], value if isinstance(value, tuple) else (value,))
-        for part in parts:
-            part.flags.writeable = False
-        self._last = (tuple(np.array(v, dtype=float) for v in inputs), value)
-        return value
 
 
 _shape_terms = _LastValues(_compute_shape_terms)
