@@ -18,7 +18,10 @@ edges, not the nodes, depend on it). Equal widths in :math:`\zeta` give
 panels of comparable probability on both tails, which a fixed Gauss-Legendre
 rule resolves (checked against quad in the tests). Everything here is
 vectorised over draws: parameters ``(d, k)``, results ``(d, 1)`` or
-``(d, n)``.
+``(d, n)``. The engine is called once per scenario over the same draws, so
+the terms that depend on the draws alone (the gamma normaliser and table
+rows) and the lower normal scores are kept for the last inputs, compared by
+value (:class:`_LastValues`), and returned read-only.
 """
 
 from __future__ import annotations
