@@ -90,6 +90,9 @@ def test_weibull_maps_on_one_side_and_both(side):
     np.testing.assert_allclose(z, ref, rtol=1e-10, atol=1e-12)
     one_by_one = np.array([[std.zeta(np.array([[v]]), None)[0, 0] for v in row] for row in u])
     np.testing.assert_array_equal(z, one_by_one)
+    z_top, sf = std.zeta_top(u.copy(), None)
+    np.testing.assert_array_equal(z_top, z)
+    np.testing.assert_allclose(sf, stats.gumbel_l.sf(u), rtol=1e-13)  # W = ln E, minimum Gumbel
     zeta = np.clip(ref, -7.5, 30.0)
     back = std.from_zeta(zeta.copy(), None)
     lower = zeta <= 0

@@ -236,13 +236,25 @@ class WeibullStandard(Standard):
         with np.errstate(over="ignore"):
             return cast(FloatArray, -np.exp(w))
 
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """:meth:`zeta` and ``S = exp(-e^w)``, from one ``e^w``."""
+        with np.errstate(over="ignore"):
+            e = np.exp(w)
+        sf = np.exp(-e)
+        return _weibull_zeta_e(e, sf), sf
+
 
 def _weibull_zeta(w: FloatArray) -> FloatArray:
     """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
     ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
     where it is taken (without masks where all of ``w`` is on one side)."""
     with np.errstate(over="ignore"):
-        e = np.exp(w)
+        return _weibull_zeta_e(np.exp(w))
+
+
+def _weibull_zeta_e(e: FloatArray, sf: FloatArray | None = None) -> FloatArray:
+    """:func:`_weibull_zeta` from ``e = e^w`` (overwritten) and, if known,
+    ``sf = exp(-e)``."""
     low = e < np.log(2.0)
     np.negative(e, out=e)
     if low.all():
@@ -250,7 +262,7 @@ def _weibull_zeta(w: FloatArray) -> FloatArray:
         np.negative(e, out=e)
         return cast(FloatArray, ndtri(e))
     if not low.any():
-        z = ndtri(np.exp(e, out=e))
+        z = ndtri(np.exp(e, out=e) if sf is None else sf)
         return cast(FloatArray, np.negative(z, out=z))
     p = np.expm1(e, where=low, out=np.empty_like(e))
     np.negative(p, out=p, where=low)
