@@ -18,22 +18,31 @@ edges, not the nodes, depend on it). Equal widths in :math:`\zeta` give
 panels of comparable probability on both tails, which a fixed Gauss-Legendre
 rule resolves (checked against quad in the tests). Everything here is
 vectorised over draws: parameters ``(d, k)``, results ``(d, 1)`` or
-``(d, n)``.
+``(d, n)``. The engine is called once per scenario over the same draws, so
+the terms that depend on the draws alone (the gamma normaliser and table
+rows) and the lower normal scores are kept for the last inputs, compared by
+value (:class:`_LastValues`), and returned read-only.
 """
 
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
+from collections.abc import Callable
 from functools import lru_cache
-from typing import cast
+from typing import Generic, NamedTuple, TypeVar, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.special import gammainc, gammaincc, log_ndtr, ndtr, ndtri
+from scipy.special import gammainc, log_ndtr, ndtr, ndtri
 
 from doseattr.core.exposure.base import Family
 from doseattr.core.exposure.gamma import stirling_correction
-from doseattr.core.exposure.incomplete_gamma import _log_lower_quantile, _log_upper_quantile
+from doseattr.core.exposure.incomplete_gamma import (
+    _log_lower_quantile,
+    _log_upper_quantile,
+    lower_gamma,
+    upper_gamma,
+)
 
 FloatArray = NDArray[np.float64]
 
@@ -44,6 +53,7 @@ ZB = 7.5
 #: 1e-307), for tilted or far-flat integrands.
 Z_MAX = 37.0
 _LOG_SQRT_2PI = 0.5 * np.log(2 * np.pi)
+_T = TypeVar("_T")
 
 
 def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
@@ -51,6 +61,31 @@ def between(lo: FloatArray, hi: FloatArray) -> FloatArray:
     ``lo > 0`` as ``Phi(-lo) - Phi(-hi)``)."""
     sign = np.where(lo > 0, -1.0, 1.0)
     return cast(FloatArray, sign * (ndtr(sign * hi) - ndtr(sign * lo)))
+
+
+class _LastValues(Generic[_T]):
+    """A function's value for the last inputs it was given, served again for
+    inputs equal to them (compared by value, about 1.4 ns a draw and input;
+    so a changed array never gets a stale value). The engine is called once
+    per scenario over the same draws (:func:`~doseattr.core.attribution.
+    fractions.excess_draws`), and needs the shape terms several times per
+    block. The values' arrays are made read-only."""
+
+    def __init__(self, compute: Callable[..., _T]) -> None:
+        self._compute = compute
+        self._last: tuple[tuple[FloatArray, ...], _T] | None = None
+
+    def __call__(self, *inputs: FloatArray) -> _T:
+        last = self._last
+        if last is not None and all(a.shape == b.shape and np.array_equal(a, b)
+                                    for a, b in zip(last[0], inputs, strict=True)):
+            return last[1]
+        value = self._compute(*inputs)
+        parts = cast(tuple[FloatArray, ...], value if isinstance(value, tuple) else (value,))
+        for part in parts:
+            part.flags.writeable = False
+        self._last = (tuple(np.array(v, dtype=float) for v in inputs), value)
+        return value
 
 
 class Standard(ABC):
@@ -167,34 +202,77 @@ class WeibullStandard(Standard):
         return np.zeros((params.shape[0], 1))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
-        """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
-        ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
-        where it is taken."""
-        with np.errstate(over="ignore"):
-            e = np.exp(w)
-            low = e < np.log(2.0)
-            p = np.expm1(-e, where=low, out=np.empty_like(e))
-            np.negative(p, out=p, where=low)
-            np.exp(-e, out=p, where=~low)
-        z = ndtri(p)
-        return cast(FloatArray, np.negative(z, out=z, where=~low))
+        return _weibull_zeta(w)
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
         """``ln(-log1p(-Phi(zeta)))`` below the median, ``ln(-ln Phi(-zeta))``
         above (``zeta`` at most :data:`Z_MAX`, where ``Phi(-zeta)`` is a normal
-        float), each side computed only where it is taken."""
+        float); where ``zeta`` lies on both sides, both are formed and each
+        taken where it holds (the same values, fewer masked operations)."""
         low = zeta <= 0
-        p = ndtr(-np.abs(zeta))
+        p = np.abs(zeta)
+        np.negative(p, out=p)
+        p = ndtr(p, out=p)
         with np.errstate(divide="ignore"):
-            e = np.negative(p, where=low, out=np.empty_like(p))
-            np.log1p(e, out=e, where=low)
-            np.log(p, out=e, where=~low)
-            np.negative(e, out=e)
-            return cast(FloatArray, np.log(e, out=e))
+            if low.all():
+                np.negative(p, out=p)
+                np.log1p(p, out=p)
+            elif not low.any():
+                np.log(p, out=p)
+            else:
+                high = np.log(p)
+                np.negative(p, out=p)
+                np.log1p(p, out=p)
+                np.copyto(p, high, where=~low)
+            np.negative(p, out=p)
+            return cast(FloatArray, np.log(p, out=p))
+
+    def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
+        """:meth:`zeta`, kept for the last ``w`` (read-only; the current
+        exposure and a cap above the minimum-risk level share it)."""
+        return _weibull_scores(w)
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
         with np.errstate(over="ignore"):
             return cast(FloatArray, -np.exp(w))
+
+    def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """:meth:`zeta` and ``S = exp(-e^w)``, from one ``e^w``."""
+        with np.errstate(over="ignore"):
+            e = np.exp(w)
+        sf = np.exp(-e)
+        return _weibull_zeta_e(e, sf), sf
+
+
+def _weibull_zeta(w: FloatArray) -> FloatArray:
+    """``ndtri(F)`` below the median (``F = -expm1(-e^w)``),
+    ``-ndtri(S)`` above (``S = exp(-e^w)``), each side computed only
+    where it is taken (without masks where all of ``w`` is on one side)."""
+    with np.errstate(over="ignore"):
+        return _weibull_zeta_e(np.exp(w))
+
+
+def _weibull_zeta_e(e: FloatArray, sf: FloatArray | None = None) -> FloatArray:
+    """:func:`_weibull_zeta` from ``e = e^w`` (overwritten) and, if known,
+    ``sf = exp(-e)``."""
+    low = e < np.log(2.0)
+    np.negative(e, out=e)
+    if low.all():
+        np.expm1(e, out=e)
+        np.negative(e, out=e)
+        return cast(FloatArray, ndtri(e))
+    if not low.any():
+        z = ndtri(np.exp(e, out=e) if sf is None else sf)
+        return cast(FloatArray, np.negative(z, out=z))
+    p = np.expm1(e, where=low, out=np.empty_like(e))
+    np.negative(p, out=p, where=low)
+    high = ~low
+    np.exp(e, out=p, where=high)
+    z = ndtri(p)
+    return cast(FloatArray, np.negative(z, out=z, where=high))
+
+
+_weibull_scores = _LastValues(_weibull_zeta)
 
 
 #: Grid of the gamma quantile table: log shape and normal score.
@@ -220,6 +298,16 @@ def _gamma_table() -> FloatArray:
     return cast(FloatArray, _scale(k) * (w - np.log(k)))
 
 
+@lru_cache(maxsize=1)
+def _gamma_table_steps() -> tuple[FloatArray, FloatArray]:
+    """:func:`_gamma_table` and its steps along the normal score (the last
+    column's step, never taken, is 0)."""
+    table = _gamma_table()
+    steps = np.zeros_like(table)
+    steps[:, :-1] = table[:, 1:] - table[:, :-1]
+    return table, steps
+
+
 def _scale(k: FloatArray) -> FloatArray:
     """``k`` below 1, ``sqrt(k)`` above: the table's rows in ``w - ln k``
     times this vary smoothly with ``ln k`` at both ends (the lower tail grows
@@ -233,16 +321,8 @@ def _scale(k: FloatArray) -> FloatArray:
 DOSE_SHAPE = 1000.0
 #: Shapes below which the gamma panels get breaks near ``w = 0``.
 SMALL_SHAPE = 0.3
-
-
-#: Arguments up to which ``gammaincc`` may take its slow series (Cephes'
-#: ``igamc`` for ``y <= 1.1``, several microseconds for a shape below about
-#: 1.5) while ``gammainc`` takes the fast one (for ``y <= 1`` or below the shape).
-_SLOW_Q = 1.0
-#: Largest ``P`` from which ``Q`` is taken as ``1 - P``: ``Q >= 0.01`` then
-#: carries at most 100 times ``P``'s absolute rounding, a relative error
-#: below about 2e-13 (1.5e-13 seen against ``gammaincc`` over random shapes).
-_ONE_MINUS_P = 0.99
+#: Those breaks in ``w`` (``-inf`` stands for none: never inside a window).
+_SMALL_SHAPE_BREAKS = np.array([-24.0, -12.0, -6.0, -3.0, -1.5, 0.0, 1.5])
 
 
 def _exp(w: FloatArray) -> FloatArray:
@@ -250,27 +330,37 @@ def _exp(w: FloatArray) -> FloatArray:
         return cast(FloatArray, np.exp(w))
 
 
-def upper_gamma(k: FloatArray, y: FloatArray) -> FloatArray:
-    r"""The regularised upper incomplete gamma function :math:`Q(k, y)`
-    (``gammaincc``), as :math:`1 - P(k, y)` (``gammainc``) where ``y`` is at
-    most :data:`_SLOW_Q` and ``Q`` at least 0.01 (a relative error below
-    about 2e-13: ``P``'s absolute error is a few units in the last place of
-    1), else directly (full relative precision in the upper tail). This
-    avoids Cephes' slow series for ``Q`` at a small shape near ``y = 1``
-    (several microseconds a call, seen in timings here)."""
-    # subsets by index: scipy's ufuncs corrupt memory with ``where=`` here
-    shape = np.broadcast_shapes(k.shape, y.shape)
-    k, y = (np.broadcast_to(v, shape).ravel() for v in (k, y))
-    near = np.flatnonzero(y <= _SLOW_Q)
-    q = np.empty(y.size)
-    rest = np.ones(y.size, dtype=bool)
-    if near.size:
-        p = gammainc(k[near], y[near])
-        ok = p <= _ONE_MINUS_P
-        q[near[ok]] = 1.0 - p[ok]
-        rest[near[ok]] = False
-    q[rest] = gammaincc(k[rest], y[rest])
-    return q.reshape(shape)
+class _ShapeTerms(NamedTuple):
+    """The gamma standard's terms that depend on the shape ``k`` alone, ``(d, 1)`` each."""
+
+    log_k: FloatArray
+    #: :meth:`GammaStandard.log_norm`
+    log_norm: FloatArray
+    #: flat offset in the quantile table of the row below ``ln k``
+    row: NDArray[np.intp]
+    #: weight of the row above
+    weight: FloatArray
+    #: ``1 / s(k)`` (:func:`_scale`)
+    inv_scale: FloatArray
+
+
+def _compute_shape_terms(k: FloatArray) -> _ShapeTerms:
+    log_k = np.log(k)
+    log_norm = 0.5 * log_k - _LOG_SQRT_2PI - stirling_correction(k, log_k)
+    fk = np.clip((log_k - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
+    ik = fk.astype(np.intp)
+    return _ShapeTerms(log_k, log_norm, ik * _ZETA.size, fk - ik, 1.0 / _scale(k))
+
+
+_shape_terms = _LastValues(_compute_shape_terms)
+
+
+def _lower_score(k: FloatArray, w: FloatArray) -> FloatArray:
+    with np.errstate(over="ignore"):
+        return cast(FloatArray, ndtri(lower_gamma(k, np.exp(w))))
+
+
+_lower_scores = _LastValues(_lower_score)
 
 
 class GammaStandard(Standard):
@@ -286,22 +376,24 @@ class GammaStandard(Standard):
         gamma log density written about its mode (see
         :meth:`doseattr.core.exposure.gamma.Gamma.log_density_log`)."""
         k = params[:, :1]
-        w -= np.log(k)
         with np.errstate(over="ignore", invalid="ignore"):
             if k.max(initial=0.0) <= DOSE_SHAPE:
                 # e^v = x / (theta k): the doses' exponential serves; its
-                # rounding (a few units in the last place of 1) counts k-fold
+                # rounding (a few units in the last place of 1) counts k-fold;
+                # the 1 of expm1 goes with v: (x / (theta k)) - (v + 1)
+                w -= np.log(k) - 1.0
                 e = np.multiply(x, 1.0 / (params[:, 1:2] * k))
-                e -= 1.0
             else:
+                w -= np.log(k)
                 e = np.expm1(w)
         e -= w
         e *= -k
         return cast(FloatArray, e)
 
     def log_norm(self, params: FloatArray) -> FloatArray:
-        k = params[:, :1]
-        return cast(FloatArray, 0.5 * np.log(k) - _LOG_SQRT_2PI - stirling_correction(k))
+        r""":math:`\tfrac12 \ln k - \tfrac12 \ln 2\pi - c(k)`, ``c`` Stirling's
+        correction (read-only)."""
+        return _shape_terms(params[:, :1]).log_norm
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """``ndtri(P)`` below the mean, ``-ndtri(Q)`` above (:func:`upper_gamma`),
@@ -314,11 +406,9 @@ class GammaStandard(Standard):
         return z
 
     def from_zeta(self, zeta: FloatArray, params: FloatArray) -> FloatArray:
-        table = _gamma_table()
-        k = params[:, :1]
-        fk = np.clip((np.log(k) - _LOG_K[0]) / 0.25, 0.0, _LOG_K.size - 1.000001)
-        ik = fk.astype(int)
-        tk = fk - ik
+        """Bilinear interpolation in the quantile table (:func:`_gamma_table`)
+        in ``ln k`` and ``zeta``, mapped back to ``w``."""
+        terms = _shape_terms(params[:, :1])
         fz = np.subtract(zeta, _ZETA[0])
         fz *= 4.0
         # maximum and minimum: faster than np.clip over (d, n)
@@ -327,23 +417,23 @@ class GammaStandard(Standard):
         iz = fz.astype(np.intp)
         tz = fz
         tz -= iz
-        # flat indices: one gather per corner of the grid cell
-        flat = table.ravel()
-        i00 = iz + ik * table.shape[1]
-        v00, v01 = flat.take(i00), flat.take(i00 + 1)
-        i00 += table.shape[1]
-        v10, v11 = flat.take(i00), flat.take(i00 + 1)
-        v01 -= v00
+        # flat indices: one gather per corner of the grid cell, the right
+        # corners as differences from the left (the same roundings as
+        # forming them here)
+        flat, steps = (t.ravel() for t in _gamma_table_steps())
+        i00 = iz + terms.row
+        v00, v01 = flat.take(i00), steps.take(i00)
+        i00 += _ZETA.size
+        v10, v11 = flat.take(i00), steps.take(i00)
         v01 *= tz
         v01 += v00
-        v11 -= v10
         v11 *= tz
         v11 += v10
         v11 -= v01
-        v11 *= tk
+        v11 *= terms.weight
         v11 += v01
-        v11 *= 1.0 / _scale(k)
-        v11 += np.log(k)
+        v11 *= terms.inv_scale
+        v11 += terms.log_k
         return cast(FloatArray, v11)
 
     def log_sf(self, w: FloatArray, params: FloatArray) -> FloatArray:
@@ -352,9 +442,9 @@ class GammaStandard(Standard):
 
     def zeta_low(self, w: FloatArray, params: FloatArray) -> FloatArray:
         """From ``P`` alone: one incomplete gamma function per draw (the
-        upper side loses digits of ``zeta``, not of any probability used)."""
-        with np.errstate(over="ignore"):
-            return cast(FloatArray, ndtri(gammainc(params[:, :1], np.exp(w))))
+        upper side loses digits of ``zeta``, not of any probability used;
+        read-only)."""
+        return _lower_scores(params[:, :1], w)
 
     def zeta_top(self, w: FloatArray, params: FloatArray) -> tuple[FloatArray, FloatArray]:
         q = upper_gamma(params[:, :1], _exp(w))
@@ -369,10 +459,10 @@ class GammaStandard(Standard):
     def extra_breaks(self, params: FloatArray) -> FloatArray:
         """For a shape below SMALL_SHAPE the density of ``w`` turns from ``e^{kw}`` to
         ``e^{-e^w}`` within a few units of ``w = 0``; breaks there."""
-        d = params.shape[0]
         small = params[:, :1] < SMALL_SHAPE
-        grid = np.array([-24.0, -12.0, -6.0, -3.0, -1.5, 0.0, 1.5])
-        return cast(FloatArray, np.where(small, grid, -np.inf) * np.ones((d, 1)))
+        if not small.any():
+            return np.zeros((params.shape[0], 0))
+        return cast(FloatArray, np.where(small, _SMALL_SHAPE_BREAKS, -np.inf))
 
 
 def standard_for(family: Family) -> Standard:

@@ -103,6 +103,86 @@ def log_gammaincc(a: ArrayLike, y: ArrayLike) -> FloatArray:
     return out
 
 
+#: Arguments up to which :func:`lower_gamma` and :func:`upper_gamma` take
+#: power series (scipy's, for a shape raised by 2 where the argument is above
+#: 1 and above the shape).
+SERIES_Y = 2.0
+#: Largest ``P`` from which :func:`upper_gamma` takes ``Q`` as ``1 - P``:
+#: ``Q >= 0.01`` then carries at most 100 times ``P``'s absolute rounding, a
+#: relative error below about 2e-13 (checked against ``gammaincc`` in the tests).
+ONE_MINUS_P = 0.99
+
+
+def _flat(k: ArrayLike, y: ArrayLike) -> tuple[FloatArray, FloatArray, tuple[int, ...]]:
+    shape = np.broadcast_shapes(np.shape(k), np.shape(y))
+    a, b = (np.broadcast_to(np.asarray(v, dtype=float), shape).ravel() for v in (k, y))
+    return a, b, shape
+
+
+def lower_gamma(k: ArrayLike, y: ArrayLike) -> FloatArray:
+    r"""The regularised lower incomplete gamma function :math:`P(k, y)`
+    (``scipy.special.gammainc``), by a faster route where Cephes' ``igam``
+    is slow: for :math:`1 < y \le 2` above the shape it takes
+    :math:`1 - Q` from ``igamc``'s continued fraction (about 250 ns a value)
+    or, for ``y <= 1.1``, from its series (several microseconds; timings
+    here). There two steps of the recurrence :math:`P(a, y) = P(a + 1, y) +
+    y^a e^{-y} / \Gamma(a + 1)` (Abramowitz & Stegun 1964, 6.5.21, from
+    memory) give
+
+    .. math:: P(k, y) = P(k + 2, y) + t\,\bigl(1 + y/(k + 1)\bigr), \qquad
+              t = e^{k \ln y - y - \ln\Gamma(k + 1)},
+
+    with :math:`P(k + 2, y)` from ``igam``'s power series (``y <= k + 2``).
+    The terms are positive, so the relative error is at most that of
+    ``gammainc`` plus :math:`t`'s: its exponent is below 3 in size here
+    (``k < y <= 2``), a few units in the last place."""
+    a, b, shape = _flat(k, y)
+    band = (b > 1.0) & (b <= SERIES_Y) & (b > a)
+    if not band.any():
+        return cast(FloatArray, gammainc(a, b).reshape(shape))
+    # subsets by index: scipy's ufuncs corrupt memory with ``where=`` here
+    p = np.empty(b.size)
+    rest = ~band
+    p[rest] = gammainc(a[rest], b[rest])
+    kb, yb = a[band], b[band]
+    t = np.exp(kb * np.log(yb) - yb - gammaln(kb + 1.0))
+    p[band] = gammainc(kb + 2.0, yb) + t * (1.0 + yb / (kb + 1.0))
+    return p.reshape(shape)
+
+
+def upper_gamma(k: ArrayLike, y: ArrayLike) -> FloatArray:
+    r"""The regularised upper incomplete gamma function :math:`Q(k, y)`
+    (``scipy.special.gammaincc``), as :math:`1 - P(k, y)` (:func:`lower_gamma`)
+    where ``y`` is at most :data:`SERIES_Y` and ``P`` at most
+    :data:`ONE_MINUS_P` (a relative error below about 2e-13: ``P``'s
+    absolute error is a few units in the last place of 1, and ``Q >=
+    0.01``), else directly (full relative precision in the upper tail).
+    This avoids Cephes' slow series for ``Q`` near ``y = 1`` (several
+    microseconds a value, seen in timings here) and its continued fraction
+    up to ``y = 2`` (about 250 ns), for about 60 ns."""
+    a, b, shape = _flat(k, y)
+    near = np.flatnonzero(b <= SERIES_Y)
+    q = np.empty(b.size)
+    if near.size == b.size:
+        p = lower_gamma(a, b)
+        ok = p <= ONE_MINUS_P
+        if ok.all():
+            return cast(FloatArray, np.subtract(1.0, p, out=p).reshape(shape))
+        q[ok] = 1.0 - p[ok]
+        rest = np.flatnonzero(~ok)
+    elif near.size:
+        p = lower_gamma(a[near], b[near])
+        ok = p <= ONE_MINUS_P
+        q[near[ok]] = 1.0 - p[ok]
+        far = np.ones(b.size, dtype=bool)
+        far[near[ok]] = False
+        rest = np.flatnonzero(far)
+    else:
+        return cast(FloatArray, gammaincc(a, b).reshape(shape))
+    q[rest] = gammaincc(a[rest], b[rest])
+    return q.reshape(shape)
+
+
 def _log_lower_quantile(a: FloatArray, p: FloatArray) -> FloatArray:
     """log of the ``p`` quantile of Gamma(a, 1), finite even when it
     underflows: there ``y^a / Gamma(a+1) = p`` is used, which bounds the
