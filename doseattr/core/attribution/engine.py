@@ -386,16 +386,22 @@ class _Block:
         the window: its ends' normal scores and whether they are exact."""
         z_lo, z_hi, lo_exact, hi_exact = self._zwindow(cap)
         width = self.std.panel_width(self.params)
-        t_lo, t_hi = (np.clip(self.a + self.b * self._w_of(z), *_LOG_DOSE_RANGE)
-                      for z in (z_lo, z_hi))
+        # the window's exact ends are known in w: no map from the normal score
+        w_lo = self.w_low if lo_exact.all() else np.where(lo_exact, self.w_low, self._w_of(z_lo))
+        w_hi = self.w_top if hi_exact.all() else np.where(hi_exact, self.w_top, self._w_of(z_hi))
+        t_lo, t_hi = (np.clip(self.a + self.b * w, *_LOG_DOSE_RANGE) for w in (w_lo, w_hi))
         count = np.maximum(np.ceil((z_hi - z_lo) / width - 1e-9),
                            np.ceil((t_hi - t_lo) / LOG_DOSE_WIDTH - 1e-9))
         count = np.clip(count, 1, MAX_PANELS).astype(int)
         j = np.arange(int(count.max()) + 1)
         if j.size == 2:
             # one panel per draw: from the window's start to its end
-            ends = self._w_of(np.concatenate([z_lo, z_lo + (z_hi - z_lo)], axis=1))
-            first, last = self._first_last(ends[:, :1], ends[:, 1:], lo_exact, hi_exact)
+            if lo_exact.all() and hi_exact.all():
+                # both ends exact: known in w
+                first, last = self._first_last(w_lo, w_hi, lo_exact, hi_exact)
+            else:
+                ends = self._w_of(np.concatenate([z_lo, z_lo + (z_hi - z_lo)], axis=1))
+                first, last = self._first_last(ends[:, :1], ends[:, 1:], lo_exact, hi_exact)
             body = np.concatenate([first, last], axis=1)
         else:
             frac = np.minimum(j / count, 1.0)
