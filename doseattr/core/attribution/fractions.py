@@ -276,15 +276,19 @@ def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None, m: Fl
     .. math:: \varphi(u) = -s_c (1 - e^{-u}) - \lambda u - \kappa u^2/2,
 
     with :math:`s_c = cD / (1 - e^{-c(D - m)})` the log-slope of
-    :math:`\mathrm{expm1}(c(y - m))` at :math:`D` (exact in :math:`u` for
-    :math:`m = 0`, where :math:`\ln RR = c D e^{-u}`), and :math:`\lambda`,
-    :math:`\kappa` the slope and negated curvature of the exposure's log
-    density at :math:`\ln D` (:func:`_density_slopes`). Where the density
-    falls steeply at ``D`` the net decay :math:`s_c + \lambda` is much
-    slower than :math:`s_c`, but the curvature is still about :math:`s_c`,
-    so the panels are sized by :math:`s_c + |\lambda|` and weighted by
-    :math:`e^{\varphi}`. Only breaks within the window
-    :math:`[\ln m, \ln D]` are placed.
+    :math:`\mathrm{expm1}(c(y - m))` at :math:`D` (for a log-linear curve,
+    whose :math:`\ln RR = c D e^{-u}` makes the first term exact once
+    :math:`RR \gg 1`), and :math:`\lambda`, :math:`\kappa` the slope and
+    negated curvature of the exposure's log density at :math:`\ln D`
+    (:func:`_density_slopes`). Where the density falls steeply at ``D``
+    the net decay :math:`s_c + \lambda` is much slower than :math:`s_c`
+    (most fixed breaks at :math:`j/(cD)` were wasted there), but the
+    curvature is still about :math:`s_c`: the panels are sized by the
+    larger of the two and weighted by :math:`e^{\varphi}`. Only breaks
+    within the window :math:`[\ln m, \ln D]` are placed, and a panel is
+    sized for 16 nodes only where it is wide enough that the engine surely
+    gives it 16 (``wide``: above a quarter of the widest possible body
+    panel, :data:`LOG_DOSE_WIDTH` or the window).
     """
     d = coef.shape[0]
     none = np.zeros((d, 0))
@@ -292,13 +296,16 @@ def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None, m: Fl
         return none
     rate = _exp_rate(curve, coef)
     cd = rate * flat
-    low = np.minimum(m, flat)
+    # m is often one level for all draws: its window once
+    low = np.minimum(m[:1] if m.strides == (0,) else m, flat)
     steep = (cd > 1.0) & (low < flat)
     if not np.any(steep):
         return none
     with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-        width = np.log(flat) - np.log(low)
-        slope = np.where(steep, cd / -np.expm1(-rate * (flat - low)), 0.0)
+        width = np.broadcast_to(np.log(flat) - np.log(low), (d,))
+        slope = cd / -np.expm1(rate * (low - flat))
+    if not np.all(steep):
+        slope = np.where(steep, slope, 0.0)
     lam, kap = _density_slopes(exposure, flat, scenario, d)
     # a panel this wide on the log-dose scale surely gets the full rule
     wide = np.minimum(width, LOG_DOSE_WIDTH) * (_WIDE_SHARE * 1.02)
@@ -369,12 +376,15 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
     :func:`_graded_below_flat`, with ``cd`` :math:`= s_c`).
 
     A panel starting at :math:`p` is sized for the rate
-    :math:`r = s_c e^{-p} + |\lambda + \kappa p| + \sqrt{|\kappa|}` (the
-    curve's log-slope there plus the density's slope and curvature scale,
-    each of which the rule resolves like the curve's factor at that rate):
-    it spans :math:`X_n(r, \tau)/r` (:func:`_capacity_tables`), with the
+    :math:`r = \max(s_c e^{-p}, |s_c e^{-p} + \lambda + \kappa p|) +
+    \sqrt{|\kappa|}`: the larger of the curve's log-slope there (its
+    factor's curvature is as large, whatever the density does) and the net
+    log-slope of the integrand, plus the density's curvature scale; an
+    exponential or Gaussian factor of that rate is resolved like the
+    curve's factor. It spans :math:`X_n(r, \tau)/r` (:func:`_capacity_tables`), with the
     16-node capacity where that span is at least ``wide`` (the engine then
-    uses 16 nodes) and the 8-node one otherwise. Its tolerance is
+    uses 16 nodes) and the 8-node one where it is not or where the rest of
+    the window is narrower than ``wide``. Its tolerance is
     :math:`\tau = \mathrm{GRADE\_TOL} / \omega` with :math:`\omega`
     the panel's share of the boundary layer,
 
@@ -387,10 +397,14 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
     the density's fall cancels the curve's rise). So the panels widen
     geometrically as the integrand decays (:math:`\omega` falls like
     :math:`e^{\varphi}`) and as the curve's rate :math:`s_c e^{-p}` falls;
-    the breaks stop at the window's end ``end`` and once :math:`\tau \ge 1`
-    (the rest is negligible), at most :data:`GRADE_MAX`. The per-panel
-    error is at most :math:`\mathrm{GRADE\_TOL}` of the layer, so about
-    1e-12 relative over the few panels.
+    the breaks stop at the window's end ``end``, once :math:`\tau \ge 1`
+    (the rest is negligible) or once the curve's rate :math:`s_c e^{-p}`
+    has fallen below 1 (its factor is then smooth on the log scale and the
+    body's panels resolve the rest), at most :data:`GRADE_MAX`. The model
+    error of each panel is at most :math:`\mathrm{GRADE\_TOL}` of the
+    layer; the rules' actual errors are checked against quadrature in
+    ``tests/test_attribution_steep_grading.py`` (about 1e-12 relative at
+    worst, as with the fixed grading this replaced).
     """
     d = cd.shape[0]
     t16, t8 = _capacity_tables()
@@ -437,7 +451,8 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
         # floors: the grid's rate and tolerance at or below the draw's
         k = i.astype(np.intp) * nt + j.astype(np.intp)
         span = t16[k]
-        narrow = span < wide * r
+        # the 8-node rule where the panel, or the rest of the window, is narrow
+        narrow = (span < wide * r) | (end - p < wide)
         if narrow.any():
             span = np.where(narrow, t8[k], span)
         span /= r
