@@ -94,7 +94,7 @@ def test_measurements_with_non_detects(tmp_path, monkeypatch):
     np.testing.assert_array_equal(got.detected, [not c[2].startswith("<") for _, c in rows])
     np.testing.assert_array_equal(got.weights, [float(c[4]) for _, c in rows])
     np.testing.assert_array_equal(got.worker, [c[1] for _, c in rows])
-    assert got.lines == tuple(i for i, _ in rows)
+    assert tuple(got.lines) == tuple(i for i, _ in rows)
     _same_measurements(got, _read(monkeypatch, path, columnar=False)[0])
 
 
@@ -289,3 +289,19 @@ def test_text_after_many_numbers(tmp_path, late):
         read_measurements(path)
     column = "value" if late == "x" else "detected"
     assert info.value.location == f"row {n - 1}, column '{column}'"
+
+
+@pytest.mark.parametrize("wide,window", [(0, 1 << 20), (4096, 64), (4096, 1 << 20)])
+def test_non_detect_columns_whatever_the_window(tmp_path, monkeypatch, wide, window):
+    """Where each ``<`` sits is found from a window of bytes before it, in
+    parts, or from the delimiters' offsets when its rows are too wide; all
+    three read as the line-by-line reading does (csv module, float())."""
+    text = MEASURED.replace(",W2,", ",<W2,")
+    text += "".join(f"S{i},{'<' if i % 3 else ''}W{i},<{i + 0.5},false,{i}\n"
+                    for i in range(40))
+    monkeypatch.setattr(tablefile, "_WINDOW_WIDE", wide)
+    monkeypatch.setattr(tablefile, "_WINDOW_BYTES", window)
+    path = _write(tmp_path, text)
+    columns, lines, by_columns = _both(monkeypatch, path)
+    assert by_columns
+    _same_measurements(columns, lines)

@@ -135,3 +135,34 @@ def test_legendre_rule_is_exact_to_degree_2n_minus_1(n):
     xs, ws = roots_legendre(n)
     np.testing.assert_allclose(x, xs, rtol=0, atol=1e-15)
     np.testing.assert_allclose(w, ws, rtol=2e-12)  # scipy float64 weights: ~1e-13 off
+
+
+def test_draws_with_different_panel_counts_match_each_draw_alone(monkeypatch):
+    """Contract: where the draws of a block need different numbers of panels
+    (a panel per row then, no padding), each draw's result is the one it
+    gets alone (one draw: one panel layout), and matches quad."""
+    rng = np.random.default_rng(11)
+    curve = Curve(LogLinear(), np.array([0.4]), np.eye(1), max_dose=30.0)
+    coef = rng.normal(0.4, 0.1, size=(30, 1))
+    # gamma shapes 1.6 to 55 and scales 1.2 to 6: means either side of the
+    # flat point, one to several body panels, graded panels for some draws
+    params = np.column_stack([np.exp(rng.uniform(0.5, 4.0, 30)), rng.uniform(1.2, 6.0, 30)])
+    family = FAMILIES["gamma"]
+    layouts = []
+    groups = engine._groups
+
+    def spy(*args):
+        out = groups(*args)
+        layouts.append([g.draw is not None for g in out])
+        return out
+
+    monkeypatch.setattr(engine, "_groups", spy)
+    together = excess_draws(curve, coef, family, params, 0.0, 2.0, ReduceBy(3.0))
+    assert any(any(kinds) for kinds in layouts)  # the per-row layout was used
+    alone = np.array([excess_draws(curve, coef[i:i + 1], family, params[i], 0.0, 2.0,
+                                   ReduceBy(3.0))[0] for i in range(30)])
+    np.testing.assert_allclose(together, alone, rtol=1e-13)
+    for i in range(0, 30, 6):
+        c = Curve(LogLinear(), coef[i], np.eye(1), max_dose=30.0)
+        ref = _quad_excess(c, family, params[i], 2.0, ReduceBy(3.0))  # scipy.integrate.quad
+        assert together[i] == pytest.approx(ref, rel=1e-8)

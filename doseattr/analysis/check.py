@@ -192,14 +192,20 @@ def _check_strata(table: BurdenTable, m: float, curve: Curve, shared: object,
                   strata: list) -> None:
     """A stratum with its own exposure must give a finite expected RR at
     the minimum-risk level ``m``; the error names its row of the burden
-    table."""
+    table. The strata of one exposure family are integrated together
+    (:func:`_suspects`); only those in a run that fails are then taken one
+    by one, in the table's order, for the first row that fails and its own
+    message."""
     from doseattr.core.attribution.fractions import paf
 
-    for stratum, line in zip(strata, table.lines):
-        if stratum.exposure is shared:
+    rows = [(s.exposure, line) for s, line in zip(strata, table.lines)
+            if s.exposure is not shared]
+    suspects = _suspects(curve, m, [e for e, _ in rows])
+    for i, (exposure, line) in enumerate(rows):
+        if i not in suspects:
             continue
         try:
-            paf(curve, stratum.exposure, minimum_risk=m)
+            paf(curve, exposure, minimum_risk=m)
         except ConvergenceError as exc:
             raise InputError(f"this stratum's PAF cannot be computed: {exc} (check its "
                              "exposure columns)", source=table.source,
@@ -209,6 +215,42 @@ def _check_strata(table: BurdenTable, m: float, curve: Curve, shared: object,
                              f"is no PAF: {str(exc).rstrip('.')} (set [curve] beyond = "
                              "\"flat\", or give this stratum a narrower exposure)",
                              source=table.source, location=f"row {line}") from None
+
+
+#: Strata whose exposures :func:`_suspects` integrates in one call.
+CHECK_BATCH = 4096
+
+
+def _suspects(curve: Curve, m: float, exposures: list[Any]) -> set[int]:
+    """The positions of ``exposures`` to check one by one: the empirical
+    ones, and every one in a run of up to :data:`CHECK_BATCH` exposures of
+    one family whose stacked parameters the engine refuses in one call, or
+    whose expected RR is not a positive finite number there."""
+    from doseattr.core.attribution.fractions import excess_draws
+    from doseattr.core.exposure.base import Exposure
+
+    out: set[int] = set()
+    by_family: dict[str, list[int]] = {}
+    for i, e in enumerate(exposures):
+        if isinstance(e, Exposure):
+            by_family.setdefault(e.family.name, []).append(i)
+        else:
+            out.add(i)
+    for same in by_family.values():
+        for start in range(0, len(same), CHECK_BATCH):
+            run = same[start:start + CHECK_BATCH]
+            params = np.array([exposures[i].params for i in run], dtype=float)
+            unexposed = np.array([exposures[i].unexposed for i in run], dtype=float)
+            try:
+                excess = excess_draws(curve, curve.coef, exposures[run[0]].family, params,
+                                      unexposed, m)
+            except (ConvergenceError, DivergenceError):
+                out.update(run)
+                continue
+            # an expected RR near 0 is refused by the PAF: those rows again
+            bad = ~(np.isfinite(excess) & (excess > -0.5))
+            out.update(run[j] for j in np.flatnonzero(bad).tolist())
+    return out
 
 
 class divergence:

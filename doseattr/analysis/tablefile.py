@@ -37,7 +37,7 @@ import re
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -374,10 +374,9 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     if options.decimal == "." and b"<" in body:
         codes = np.frombuffer(body, dtype=np.uint8)
         breaks = np.flatnonzero(codes == ord("\n"))
-        delimiters = np.flatnonzero(codes == ord(delimiter))
-        n, count = len(breaks) + 1, len(delimiters)
+        n, count = len(breaks) + 1, int(np.count_nonzero(codes == ord(delimiter)))
         if count == n * (width - 1):
-            marks = _below_marks(codes, breaks, delimiters, delimiter, n)
+            marks = _below_marks(codes, breaks, delimiter, n)
     else:
         n, count = body.count(b"\n") + 1, body.count(delimiter.encode())
     if count != n * (width - 1):
@@ -405,26 +404,53 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
     return Grid(source, header_line, header, [], "text", options.decimal, columns)
 
 
-def _below_marks(codes: NDArray[np.uint8], breaks: NDArray[np.intp],
-                 delimiters: NDArray[np.intp], delimiter: str,
+def _below_marks(codes: NDArray[np.uint8], breaks: NDArray[np.intp], delimiter: str,
                  n: int) -> dict[int, NDArray[np.bool_]] | None:
     """For each column with cells starting with ``<``, the rows of those
-    cells (from the data rows' bytes and the offsets of their line breaks
-    and delimiters); ``None`` when some ``<`` does not start a cell (then
-    the data rows are read as they are)."""
+    cells (from the data rows' bytes and the offsets of their line
+    breaks); ``None`` when some ``<`` does not start a cell (then the data
+    rows are read as they are)."""
     where = np.flatnonzero(codes == ord("<"))
     before = codes[np.maximum(where - 1, 0)]
     if not np.all((where == 0) | (before == ord(delimiter)) | (before == ord("\n"))):
         return None
     row = np.searchsorted(breaks, where)
     starts = np.where(row > 0, breaks[np.maximum(row - 1, 0)] + 1, 0)
-    column = np.searchsorted(delimiters, where) - np.searchsorted(delimiters, starts)
+    column = _delimiters_between(codes, starts, where, ord(delimiter))
     marks: dict[int, NDArray[np.bool_]] = {}
     for j in np.unique(column).tolist():
         mask = np.zeros(n, dtype=bool)
         mask[row[column == j]] = True
         marks[int(j)] = mask
     return marks
+
+
+#: Bytes of ``(marks x offset)`` looked at in one pass by :func:`_delimiters_between`.
+_WINDOW_BYTES = 1 << 20
+#: Longest stretch before a ``<`` taken from a window.
+_WINDOW_WIDE = 4096
+
+
+def _delimiters_between(codes: NDArray[np.uint8], starts: NDArray[np.intp],
+                        stops: NDArray[np.intp], delimiter: int) -> NDArray[np.intp]:
+    """How many ``delimiter`` bytes lie in ``codes[starts[i]:stops[i]]``,
+    for each ``i``: from a window of the bytes before each stop, in parts
+    of about :data:`_WINDOW_BYTES`; from the delimiters' offsets where the
+    stretches are long (``<`` far into wide rows)."""
+    length = stops - starts
+    wide = int(length.max(initial=0))
+    if wide > _WINDOW_WIDE:
+        delimiters = np.flatnonzero(codes == delimiter)
+        return cast(NDArray[np.intp], np.searchsorted(delimiters, stops)
+                    - np.searchsorted(delimiters, starts))
+    back = np.arange(1, wide + 1)
+    out = np.empty(len(stops), dtype=np.intp)
+    step = max(1, _WINDOW_BYTES // max(wide, 1))
+    for lo in range(0, len(stops), step):
+        at = stops[lo:lo + step, None] - back
+        inside = back <= length[lo:lo + step, None]
+        out[lo:lo + step] = ((codes[np.maximum(at, 0)] == delimiter) & inside).sum(axis=1)
+    return out
 
 
 def _ascii_codec(encoding: str) -> bool:

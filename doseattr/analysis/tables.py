@@ -11,6 +11,7 @@ The other tables have their own modules and are re-exported here:
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -106,7 +107,8 @@ class Measurements:
     values: FloatArray
     detected: NDArray[np.bool_]
     weights: FloatArray | None
-    lines: tuple[int, ...] = ()
+    #: Each value's line in the file (a ``range`` when they follow one another).
+    lines: Sequence[int] = ()
     notes: tuple[str, ...] = ()
     #: The ``worker`` column (an id per sample), or ``None`` without one.
     worker: NDArray[np.str_] | None = None
@@ -304,9 +306,9 @@ def read_measurements(path: str | Path, source: str | None = None, *,
     return Measurements(raw.source, vals, det, w_arr, _line_tuple(lines), tuple(notes), worker)
 
 
-def _line_tuple(lines: NDArray[np.int64]) -> tuple[int, ...]:
+def _line_tuple(lines: NDArray[np.int64]) -> Sequence[int]:
     if len(lines) and lines[-1] - lines[0] == len(lines) - 1:  # one line after another
-        return tuple(range(int(lines[0]), int(lines[-1]) + 1))
+        return range(int(lines[0]), int(lines[-1]) + 1)
     return tuple(lines.tolist())
 
 

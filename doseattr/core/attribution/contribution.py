@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from doseattr.core.attribution.engine import expected_excess
+from doseattr.core.attribution.engine import Rows, expected_excess
 from doseattr.core.attribution.fractions import expected_rr
 from doseattr.core.curves.base import Curve, Growth
 from doseattr.core.exposure.base import Exposure
@@ -68,7 +68,7 @@ def _cumulative(curve: Curve, exposure: Exposure, m: float, cuts: FloatArray) ->
     params = np.broadcast_to(exposure.params, (d, exposure.params.size))
     base = curve.log_rr(np.array([m]))
 
-    def log_rr(x: FloatArray, rows: slice) -> FloatArray:
+    def log_rr(x: FloatArray, rows: Rows) -> FloatArray:
         lr = curve.log_rr(np.maximum(x, m)) - base
         return np.where(x <= cuts[rows, None], lr, 0.0)
 

@@ -31,8 +31,9 @@ from the tail probability. The window :math:`[w_0, w^*]` is cut
 and each panel gets a Gauss-Legendre rule (:func:`_legendre`):
 16 nodes, or 8 on a panel much narrower than the body's. No node falls where
 the integrand is zero or constant. Every draw's panels depend on that draw
-alone (draws with fewer panels are padded with empty ones), so a draw gives
-the same result in any chunk. Windows and panels are placed for blocks of
+alone, so a draw gives the same result in any chunk; where draws have
+different numbers of panels in a group, each panel is a row of its own
+(no empty panels are evaluated), and the rows' sums go to their draws. Windows and panels are placed for blocks of
 :data:`BLOCK_DRAWS` draws at once; the nodes are evaluated in chunks of about
 :data:`CHUNK_VALUES` values, held node-major so that per-draw coefficients
 broadcast along contiguous rows. The doses at a symmetric pair of nodes,
@@ -67,9 +68,11 @@ FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
 #: A window's ends in the normal score and whether each is exact.
 Window = tuple[FloatArray, FloatArray, BoolArray, BoolArray]
-LogRisk = Callable[[FloatArray, slice], FloatArray]
+#: The draws of a callback's rows: a run of them, or one per row.
+Rows = slice | NDArray[np.intp]
+LogRisk = Callable[[FloatArray, Rows], FloatArray]
 #: ``excess(x, rows, out)``: expm1(L(x)) into ``out``, or ``None``.
-Excess = Callable[[FloatArray, slice, FloatArray], FloatArray | None]
+Excess = Callable[[FloatArray, Rows, FloatArray], FloatArray | None]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 16
@@ -137,8 +140,9 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     ----------
     log_rr
         ``log_rr(x, rows)`` returns :math:`L(x) = \ln RR(x)` for doses ``x`` of
-        shape ``(d, N)`` belonging to draws ``rows`` (a slice into the draw
-        axis), so per-draw coefficients can be sliced alongside.
+        shape ``(r, N)`` belonging to draws ``rows`` (a slice into the draw
+        axis, or an index array with a draw per row of ``x``), so per-draw
+        coefficients can be indexed alongside.
     family, params
         Exposure family and its public parameters, ``(D, k)``.
     growth
@@ -200,12 +204,15 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
 
 class _Group(NamedTuple):
     """Panels sharing a Gauss-Legendre rule: midpoints and half-widths in
-    ``w`` ``(d, P)`` (empty panels have half-width 0), nodes and weights."""
+    ``w`` ``(r, P)`` (empty panels have half-width 0), nodes and weights.
+    Row ``i`` belongs to draw ``i`` (``r = d``), or, with ``draw``, to draw
+    ``draw[i]``: one panel per row, each draw's in order (``P = 1``)."""
 
     mid: FloatArray
     half: FloatArray
     xi: FloatArray
     wi: FloatArray
+    draw: NDArray[np.intp] | None = None
 
 
 def _groups(edges: FloatArray, narrowest: FloatArray | None,
@@ -226,20 +233,12 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
                 groups.append(_Group(mid[:, cols], half[:, cols], xi, wi))
         return groups or [_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1])]
     for group, (xi, wi) in enumerate(rules):
-        mask = kind == group
-        counts = mask.sum(axis=1)
-        n = int(counts.max())
-        if n == 0:
-            continue
-        # each draw's panels of this group, in order, to the left
-        src = np.flatnonzero(mask)
-        row = src // mask.shape[1]
-        dst = row * n + (np.arange(src.size) - (np.cumsum(counts) - counts)[row])
-        h = np.zeros((mask.shape[0], n))
-        m = np.repeat(mid[:, :1], n, axis=1)
-        h.ravel()[dst] = half.ravel()[src]
-        m.ravel()[dst] = mid.ravel()[src]
-        groups.append(_Group(m, h, xi, wi))
+        # each draw's panels of this group, one per row: no empty panels
+        # where draws have different numbers of them
+        src = np.flatnonzero(kind == group)
+        if src.size:
+            groups.append(_Group(mid.ravel()[src, None], half.ravel()[src, None], xi, wi,
+                                 src // kind.shape[1]))
     if not groups:
         groups.append(_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1]))
     return groups
@@ -276,7 +275,7 @@ class _Integrand:
     def __init__(self, log_rr: LogRisk, excess: Excess | None, rows: slice) -> None:
         self.log_rr, self.excess, self.rows = log_rr, excess, rows
 
-    def direct(self, x: FloatArray, rows: slice) -> FloatArray | None:
+    def direct(self, x: FloatArray, rows: Rows) -> FloatArray | None:
         """expm1(L(x)) from ``excess``, if given and small enough."""
         if self.excess is None:
             return None
@@ -284,7 +283,7 @@ class _Integrand:
             e = self.excess(x, rows, np.empty_like(x))
         return e if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT else None
 
-    def weighted(self, x: FloatArray, rows: slice, log_f: FloatArray, dens: FloatArray,
+    def weighted(self, x: FloatArray, rows: Rows, log_f: FloatArray, dens: FloatArray,
                  sums: _PanelSums) -> FloatArray:
         """Weighted row sums of expm1(L(x)) exp(log_f), with dens = exp(log_f)."""
         e = self.direct(x, rows)
@@ -490,45 +489,66 @@ class _Block:
         body, mass = np.zeros(d), np.zeros(d)
         tilted = None if self.kind == "bounded" else np.zeros(d)
         scale = np.exp(self.std.log_norm(self.params))
-        zeros, ones = np.zeros((d, 1)), np.ones((d, 1))
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             for g in groups:
-                g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi)
-                # a panel's weights are its half-width (times the density's
-                # normaliser) times the rule's: node sums go panel by panel
-                factors = g.half * scale
-                shape = (g.half.shape[1], g.xi.size)
-                n = shape[0] * shape[1]
-                step = max(1, min(d, CHUNK_VALUES // n))
-                # node-major: each node's values over the draws are contiguous,
-                # so per-draw coefficients broadcast along whole rows
-                buffers = [np.empty((n, step)).T for _ in range(4 if self.std.uses_exp_w else 3)]
-                for lo in range(0, d, step):
-                    hi = min(d, lo + step)
-                    sub = slice(lo, hi)
-                    w, x, dens = (b[:hi - lo] for b in buffers[:3])
-                    wv = w.reshape(hi - lo, *shape)
-                    np.multiply(g.half[sub, :, None], g.xi, out=wv)
-                    wv += g.mid[sub, :, None]
-                    _doses(x.reshape(hi - lo, *shape), g, sub, self.a[sub], self.b[sub], w)
-                    if tilted is not None:
-                        w_nodes = w.copy()
-                    exp_w = None
-                    if self.std.uses_exp_w:
-                        exp_w = buffers[3][:hi - lo]
-                        _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[sub], ones[sub], w)
-                    log_f = self.std.kernel(w, x, self.params[sub], exp_w)
-                    np.exp(log_f, out=dens)
-                    sums = _PanelSums(g, factors[sub])
-                    mass[sub] += sums(dens)
-                    rows = slice(f.rows.start + lo, f.rows.start + hi)
-                    if tilted is not None:
-                        tilted[sub] += self._tilt_sum(w_nodes, log_f, sums, sub)
-                    body[sub] += f.weighted(x, rows, log_f, dens, sums)
+                part = self._group_sums(f, g, scale)
+                for total, p in zip((body, mass, tilted), part):
+                    if total is None or p is None:
+                        continue
+                    if g.draw is None:
+                        total += p
+                    else:
+                        # a draw's panels are adjacent rows, in order
+                        total += np.bincount(g.draw, weights=p, minlength=d)
+        return body, mass, tilted
+
+    def _group_sums(self, f: _Integrand, g: _Group, scale: FloatArray
+                    ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
+        """A group's node sums per row: integrand, mass and tilt."""
+        g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi, g.draw)
+        r = g.mid.shape[0]
+        body, mass = np.empty(r), np.empty(r)
+        tilted = None if self.kind == "bounded" else np.empty(r)
+        # a panel's weights are its half-width (times the density's
+        # normaliser) times the rule's: node sums go panel by panel
+        factors = g.half * (scale if g.draw is None else scale[g.draw])
+        shape = (g.half.shape[1], g.xi.size)
+        n = shape[0] * shape[1]
+        step = max(1, min(r, CHUNK_VALUES // n))
+        # node-major: each node's values over the rows are contiguous,
+        # so per-draw coefficients broadcast along whole rows
+        buffers = [np.empty((n, step)).T for _ in range(4 if self.std.uses_exp_w else 3)]
+        zeros, ones = np.zeros((step, 1)), np.ones((step, 1))
+        for lo in range(0, r, step):
+            hi = min(r, lo + step)
+            sub = slice(lo, hi)
+            at: slice | NDArray[np.intp] = sub if g.draw is None else g.draw[sub]
+            w, x, dens = (b[:hi - lo] for b in buffers[:3])
+            wv = w.reshape(hi - lo, *shape)
+            np.multiply(g.half[sub, :, None], g.xi, out=wv)
+            wv += g.mid[sub, :, None]
+            _doses(x.reshape(hi - lo, *shape), g, sub, self.a[at], self.b[at], w)
+            if tilted is not None:
+                w_nodes = w.copy()
+            exp_w = None
+            if self.std.uses_exp_w:
+                exp_w = buffers[3][:hi - lo]
+                _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[:hi - lo],
+                       ones[:hi - lo], w)
+            params = self.params[at]
+            log_f = self.std.kernel(w, x, params, exp_w)
+            np.exp(log_f, out=dens)
+            sums = _PanelSums(g, factors[sub])
+            mass[sub] = sums(dens)
+            rows = (slice(f.rows.start + lo, f.rows.start + hi) if g.draw is None
+                    else f.rows.start + at)
+            if tilted is not None:
+                tilted[sub] = self._tilt_sum(w_nodes, log_f, sums, at)
+            body[sub] = f.weighted(x, rows, log_f, dens, sums)
         return body, mass, tilted
 
     def _tilt_sum(self, w: FloatArray, log_f: FloatArray, sums: _PanelSums,
-                  sub: slice) -> FloatArray:
+                  sub: slice | NDArray[np.intp]) -> FloatArray:
         log_g = _tilt_exponent(self.std.family.name, self.kind, self.rate[sub, None],
                                self.params[sub], self.b[sub])
         if log_g is None:

@@ -27,7 +27,13 @@ from typing import cast
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.attribution.engine import LOG_DOSE_WIDTH, Excess, LogRisk, expected_excess
+from doseattr.core.attribution.engine import (
+    LOG_DOSE_WIDTH,
+    Excess,
+    LogRisk,
+    Rows,
+    expected_excess,
+)
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale, Scenario
 from doseattr.core.curves.base import Curve, Growth, as_coef_draws
 from doseattr.core.curves.linear import RR_FLOOR, LinearExcess
@@ -145,7 +151,7 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
 
     top = np.inf if curve.max_dose is None else curve.max_dose
 
-    def log_rr(x: FloatArray, rows: slice) -> FloatArray:
+    def log_rr(x: FloatArray, rows: Rows) -> FloatArray:
         c, mm = coef[rows], np.minimum(m[rows, None], top)
         y = x if scenario is None else scenario.apply(x, mm)
         # one pass for both the minimum-risk floor and the flat extension
@@ -191,7 +197,7 @@ def _excess_m(curve: Curve, coef: FloatArray, m: FloatArray,
     high = min(top, scenario.value) if type(scenario) is Cap else top
     scaled = isinstance(scenario, Scale) and type(scenario).apply is Scale.apply
 
-    def excess(x: FloatArray, rows: slice, out: FloatArray) -> FloatArray:
+    def excess(x: FloatArray, rows: Rows, out: FloatArray) -> FloatArray:
         # y - m, y = min(max(g(x), m), x*), as max(g(x) - m, 0) capped at x* - m
         low = mm[rows, None]
         if scenario is None or type(scenario) is Cap:

@@ -51,7 +51,7 @@ from typing import cast
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.attribution.engine import LogRisk, expected_excess
+from doseattr.core.attribution.engine import LogRisk, Rows, expected_excess
 from doseattr.core.attribution.fractions import (
     _draw_arrays,
     _exp_rate,
@@ -152,7 +152,7 @@ def _log_ratio(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario
     current = _log_rr_m(curve, coef, m, None)
     target = None if scenario is None else _log_rr_m(curve, coef, m, scenario)
 
-    def h(x: FloatArray, rows: slice) -> FloatArray:
+    def h(x: FloatArray, rows: Rows) -> FloatArray:
         if target is None:
             return -current(x, rows)
         return target(x, rows) - current(x, rows)
