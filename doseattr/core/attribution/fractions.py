@@ -21,12 +21,19 @@ point mass at zero exposure, where :math:`RR_m = 1` for any :math:`m \ge 0`.
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from doseattr.core.attribution.engine import Excess, LogRisk, Rows, expected_excess
+from doseattr.core.attribution.engine import (
+    LOG_DOSE_WIDTH,
+    Excess,
+    LogRisk,
+    Rows,
+    expected_excess,
+)
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale, Scenario
 from doseattr.core.curves.base import Curve, Growth, as_coef_draws
 from doseattr.core.curves.linear import RR_FLOOR, LinearExcess
@@ -60,7 +67,7 @@ def excess_draws(curve: Curve, coef: ArrayLike, family: Family, params: ArrayLik
     params = np.broadcast_to(np.atleast_2d(np.asarray(params, dtype=float)), (d, np.shape(params)[-1]))
     body = expected_excess(_log_rr_m(curve, coef, m, scenario), family, params,
                            growth=_growth(curve, coef, scenario),
-                           kinks=_kinks(curve, coef, m, scenario),
+                           kinks=_kinks(curve, coef, m, scenario, (family, params)),
                            flat_from=_flat_from(curve, scenario),
                            zero_below=m if scenario is None else scenario.preimage(m),
                            excess=_excess_m(curve, coef, m, scenario))
@@ -218,13 +225,17 @@ def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None) -> Growth
     return g if scenario is None else scenario.growth(g)
 
 
-def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None) -> FloatArray:
-    """Doses in the original exposure where RR_m(g(x)) has a kink."""
+def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | None,
+           exposure: tuple[Family, FloatArray]) -> FloatArray:
+    """Doses in the original exposure where RR_m(g(x)) has a kink, and the
+    graded breaks below a steep curve's flat point, placed for the draws'
+    ``exposure`` (family and parameters ``(D, k)``)."""
     d = coef.shape[0]
     k = np.asarray(curve.kinks(coef), dtype=float)
     k = np.broadcast_to(k, (d, k.shape[-1]))
     flat = _flat_from(curve, scenario if isinstance(scenario, Cap) else None)
-    points = np.concatenate([k, m[:, None], _graded_below_flat(curve, coef, flat)], axis=1)
+    graded = _graded_below_flat(curve, coef, flat, m, scenario, exposure)
+    points = np.concatenate([k, m[:, None], graded], axis=1)
     start = m[:, None] if scenario is None else scenario.preimage(m[:, None])
     # a falling curve drops steeply from RR_m = 1 just above m's pre-image
     # (at the curve's rate in x: finer than needed under a scale)
@@ -247,33 +258,280 @@ def _flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
     return min(points) if points else None
 
 
-#: Distances below ln(max_dose), in units of 1/(c max_dose), of the graded
-#: breakpoints placed under a steep exponential curve held flat there.
+#: Distances from a kink ``k`` on the log scale, in units of 1/(r k), of the
+#: fixed graded breakpoints of :func:`_graded` (a falling curve's, above the
+#: pre-image of the minimum-risk level).
 _GRADED = np.array([1.0, 2.0, 4.0, 8.0, 16.0, 32.0])
 
 
-def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None) -> FloatArray:
-    r"""Breakpoints graded towards the flat point ``D = flat`` from below
-    for curves that grow exponentially before being held flat (at
-    ``max_dose``, or at a cap below it: a cap's pre-image is the identity
-    below it, so the breaks serve in either dose).
+def _graded_below_flat(curve: Curve, coef: FloatArray, flat: float | None, m: FloatArray,
+                       scenario: Scenario | None,
+                       exposure: tuple[Family, FloatArray]) -> FloatArray:
+    r"""Breakpoints graded towards the flat point ``D = flat`` from below,
+    per draw, for curves that grow exponentially (rate :math:`c`) before
+    being held flat, in the scenario's dose :math:`y = g(x)` (``max_dose``,
+    or a cap below it, whose pre-image is the identity below it); the
+    caller maps them to the exposure. ``(D, 0)`` when no draw is steep
+    (:math:`cD \le 1`). Placed by :func:`_breaks` from the local shape of
+    the integrand at ``D`` (derived here):
 
-    On the log-exposure scale :math:`\ln RR(e^t)` has slope :math:`c\,x`
-    for :math:`RR \sim e^{cx}`, so with :math:`c D \gg 1` nearly all of
-    the integrand sits within a few :math:`1/(cD)` below :math:`\ln D`.
-    Breaks at :math:`\ln D - j/(cD)`, j = 1, 2, 4, ..., 32, resolve it.
+    with :math:`u = \ln D - \ln y \ge 0`, the log of the integrand
+    :math:`\mathrm{expm1}(L)\, f_T` on the log-dose scale is, up to a
+    constant and to second order in the density,
+
+    .. math:: \varphi(u) = -s_c (1 - e^{-u}) - \lambda u - \kappa u^2/2,
+
+    with :math:`s_c = cD / (1 - e^{-c(D - m)})` the log-slope of
+    :math:`\mathrm{expm1}(c(y - m))` at :math:`D` (for a log-linear curve,
+    whose :math:`\ln RR = c D e^{-u}` makes the first term exact once
+    :math:`RR \gg 1`), and :math:`\lambda`, :math:`\kappa` the slope and
+    negated curvature of the exposure's log density at :math:`\ln D`
+    (:func:`_density_slopes`). Where the density falls steeply at ``D``
+    the net decay :math:`s_c + \lambda` is much slower than :math:`s_c`
+    (most fixed breaks at :math:`j/(cD)` were wasted there), but the
+    curvature is still about :math:`s_c`: the panels are sized by the
+    larger of the two and weighted by :math:`e^{\varphi}`. Only breaks
+    within the window :math:`[\ln m, \ln D]` are placed, and a panel is
+    sized for 16 nodes only where it is wide enough that the engine surely
+    gives it 16 (``wide``: above a quarter of the widest possible body
+    panel, :data:`LOG_DOSE_WIDTH` or the window).
     """
     d = coef.shape[0]
+    none = np.zeros((d, 0))
     if flat is None or flat <= 0:
-        return np.zeros((d, 0))
-    g = curve.model.growth(coef)
-    if g.kind != "exp":
-        return np.zeros((d, 0))
-    cd = np.broadcast_to(np.maximum(np.asarray(g.rate, dtype=float), 0.0), (d,)) * flat
-    if np.all(cd <= 1.0):
-        return np.zeros((d, 0))
-    steps = _GRADED / np.maximum(cd, 1.0)[:, None]
-    return flat * np.exp(-steps)
+        return none
+    rate = _exp_rate(curve, coef)
+    cd = rate * flat
+    # m is often one level for all draws: its window once
+    low = np.minimum(m[:1] if m.strides == (0,) else m, flat)
+    steep = (cd > 1.0) & (low < flat)
+    if not np.any(steep):
+        return none
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        width = np.broadcast_to(np.log(flat) - np.log(low), (d,))
+        slope = cd / -np.expm1(rate * (low - flat))
+    if not np.all(steep):
+        slope = np.where(steep, slope, 0.0)
+    lam, kap = _density_slopes(exposure, flat, scenario, d)
+    # a panel this wide on the log-dose scale surely gets the full rule
+    wide = np.minimum(width, LOG_DOSE_WIDTH) * (_WIDE_SHARE * 1.02)
+    u = _breaks(slope, lam, kap, wide, width)
+    if u.shape[1] == 0:
+        return none
+    return cast(FloatArray, flat * np.exp(-u))
+
+
+#: Design tolerance of each graded panel, relative to the integral of the
+#: boundary layer below the flat point (:func:`_breaks`).
+GRADE_TOL = 1e-12
+#: Most graded breaks below a flat point (enough for :math:`cD` near 700,
+#: where :math:`RR` overflows).
+GRADE_MAX = 10
+#: The engine gives the full rule to panels wider than this share of its
+#: narrowest body panel (``expected_excess``: 16 nodes, else 8).
+_WIDE_SHARE = 0.25
+#: Grids of the capacity tables: the curve's local rate and the tolerance.
+_R_GRID = np.geomspace(0.05, 1e4, 49)
+_TOL_GRID = np.geomspace(1e-16, 1.0, 33)
+_LOG_R0, _LOG_R_STEP = float(np.log(_R_GRID[0])), float(np.log(_R_GRID[1] / _R_GRID[0]))
+_LOG_T0, _LOG_T_STEP = float(np.log(_TOL_GRID[0])), float(np.log(_TOL_GRID[1] / _TOL_GRID[0]))
+#: Step on the log-dose scale of the finite differences of :func:`_density_slopes`.
+_DELTA = 1e-3
+
+
+def _rule_sum(n: int, r: FloatArray, x: FloatArray, sub: int = 1) -> FloatArray:
+    r""":math:`\int_0^{x/r} e^{r (e^{-s} - 1)} ds` by the ``n``-point
+    Gauss-Legendre rule on ``sub`` equal pieces, for rates ``r`` ``(R,)``
+    and spans ``x`` ``(X,)`` in units of ``1/r``: ``(R, X)``."""
+    xi, wi = np.polynomial.legendre.leggauss(n)
+    span = x[None, :] / r[:, None]
+    total = np.zeros_like(span)
+    for j in range(sub):
+        s = span[..., None] * ((j + (xi + 1) / 2) / sub)
+        total += (wi * np.exp(r[:, None, None] * np.expm1(-s))).sum(axis=-1) * (span / (2 * sub))
+    return total
+
+
+@lru_cache(maxsize=1)
+def _capacity_tables() -> tuple[FloatArray, FloatArray]:
+    r"""Capacities :math:`X_n(r, \tau)` of the 16- and 8-node rules, each
+    flattened from ``(len(_R_GRID), len(_TOL_GRID))``: the largest
+    :math:`r\Delta` for which the rule's relative error on
+    :math:`\int_0^\Delta e^{r(e^{-s} - 1)} ds` (the curve's factor of the
+    integrand over a panel starting where its log-slope is ``r``) stays
+    within :math:`\tau`, for every shorter span too. The errors are the
+    rule's own against a 24-node rule on 8 pieces (derived here, computed
+    once); the last column (:math:`\tau = 1`) is unbounded."""
+    x = np.geomspace(0.02, 400.0, 240)
+    ref = _rule_sum(24, _R_GRID, x, sub=8)
+    tables = []
+    for n in (16, 8):
+        err = np.maximum.accumulate(np.abs(_rule_sum(n, _R_GRID, x) / ref - 1.0), axis=1)
+        idx = (err[:, None, :] <= _TOL_GRID[None, :, None]).sum(axis=2) - 1
+        cap = np.where(idx >= 0, x[np.maximum(idx, 0)], 0.0)
+        cap[:, -1] = np.inf
+        tables.append(cap.ravel())
+    return tables[0], tables[1]
+
+
+def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
+            end: FloatArray) -> FloatArray:
+    r"""Distances :math:`u` below :math:`\ln D` ``(D, k)`` of the graded
+    breaks (0 for a draw with fewer), placed panel by panel from
+    :math:`u = 0` (derived here, in the notation of
+    :func:`_graded_below_flat`, with ``cd`` :math:`= s_c`).
+
+    A panel starting at :math:`p` is sized for the rate
+    :math:`r = \max(s_c e^{-p}, |s_c e^{-p} + \lambda + \kappa p|) +
+    \sqrt{|\kappa|}`: the larger of the curve's log-slope there (its
+    factor's curvature is as large, whatever the density does) and the net
+    log-slope of the integrand, plus the density's curvature scale; an
+    exponential or Gaussian factor of that rate is resolved like the
+    curve's factor. It spans :math:`X_n(r, \tau)/r` (:func:`_capacity_tables`), with the
+    16-node capacity where that span is at least ``wide`` (the engine then
+    uses 16 nodes) and the 8-node one where it is not or where the rest of
+    the window is narrower than ``wide``. Its tolerance is
+    :math:`\tau = \mathrm{GRADE\_TOL} / \omega` with :math:`\omega`
+    the panel's share of the boundary layer,
+
+    .. math:: \omega = \min\left(1, \frac{e^{\min(\varphi(p), 0)}\, a}
+              {\max(s_c e^{-p} + \lambda + \kappa p,\ 1)}\right), \qquad
+              a = \max(s_c + \lambda,\ \sqrt{s_c + |\kappa|},\ 1),
+
+    the panel's integral (its start's value over the net decay rate) over
+    the layer's (width :math:`1/a`; at least :math:`1/\sqrt{s_c}` where
+    the density's fall cancels the curve's rise). So the panels widen
+    geometrically as the integrand decays (:math:`\omega` falls like
+    :math:`e^{\varphi}`) and as the curve's rate :math:`s_c e^{-p}` falls;
+    the breaks stop at the window's end ``end``, once :math:`\tau \ge 1`
+    (the rest is negligible) or once the curve's rate :math:`s_c e^{-p}`
+    has fallen below 1 (its factor is then smooth on the log scale and the
+    body's panels resolve the rest), at most :data:`GRADE_MAX`. The model
+    error of each panel is at most :math:`\mathrm{GRADE\_TOL}` of the
+    layer; the rules' actual errors are checked against quadrature in
+    ``tests/test_attribution_steep_grading.py`` (about 1e-12 relative at
+    worst, as with the fixed grading this replaced).
+    """
+    d = cd.shape[0]
+    t16, t8 = _capacity_tables()
+    root = np.sqrt(np.abs(kap))
+    half_kap = 0.5 * kap
+    log_layer = np.log(np.maximum(np.maximum(cd + lam, np.sqrt(cd + np.abs(kap))), 1.0))
+    top_j = (np.log(GRADE_TOL) - _LOG_T0) / _LOG_T_STEP
+    nt = _TOL_GRID.size
+    p = np.zeros(d)
+    alive = cd > 1.0
+    cols = []
+    for n in range(GRADE_MAX):
+        if n == 0:
+            ce, lin, phi = cd, lam, np.zeros(d)
+        else:
+            ce = np.exp(-p)
+            ce *= cd
+            lin = kap * p
+            lin += lam
+            phi = half_kap * p
+            phi += lam
+            phi *= p
+            np.subtract(ce - cd, phi, out=phi)
+            np.minimum(phi, 0.0, out=phi)
+            # the curve's factor has flattened out: the body's panels take over
+            alive &= ce >= 1.0
+        net = ce + lin
+        r = np.abs(net)
+        np.maximum(r, ce, out=r)
+        r += root
+        np.maximum(r, _R_GRID[0], out=r)
+        np.maximum(net, 1.0, out=net)
+        # ln(omega) = phi + ln a - ln max(net, 1), at most 0
+        log_share = np.log(net)
+        np.subtract(phi, log_share, out=log_share)
+        log_share += log_layer
+        np.minimum(log_share, 0.0, out=log_share)
+        j = top_j - log_share * (1 / _LOG_T_STEP)
+        np.minimum(j, nt - 1, out=j)
+        i = np.log(r)
+        i -= _LOG_R0
+        i *= 1 / _LOG_R_STEP
+        np.minimum(i, _R_GRID.size - 1, out=i)
+        # floors: the grid's rate and tolerance at or below the draw's
+        k = i.astype(np.intp) * nt + j.astype(np.intp)
+        span = t16[k]
+        # the 8-node rule where the panel, or the rest of the window, is narrow
+        narrow = (span < wide * r) | (end - p < wide)
+        if narrow.any():
+            span = np.where(narrow, t8[k], span)
+        span /= r
+        span += p
+        alive &= span < end
+        if not alive.any():
+            break
+        p = np.where(alive, span, p)
+        cols.append(np.where(alive, p, 0.0))
+    return np.stack(cols, axis=1) if cols else np.zeros((d, 0))
+
+
+def _density_slopes(exposure: tuple[Family, FloatArray], flat: float,
+                    scenario: Scenario | None, d: int) -> tuple[FloatArray, FloatArray]:
+    r"""Slope :math:`\lambda` and negated curvature :math:`\kappa` ``(D,)``
+    of the exposure's log density on the scale :math:`t_y = \ln y` of the
+    scenario's dose at :math:`y = D` (``flat``).
+
+    With :math:`t_x = \ln g^{-1}(e^{t_y})`, :math:`J = dt_x/dt_y` and
+    :math:`J' = d^2 t_x/dt_y^2` (1 and 0 for a cap or a scale; for
+    reduce_by :math:`J = D/(D + v)`), by the chain rule
+    :math:`\lambda = \lambda_x J` and
+    :math:`\kappa = \kappa_x J^2 - \lambda_x J'`, where :math:`\lambda_x,
+    \kappa_x` are those of :math:`\ln f_T(t_x)` in closed form
+    (:func:`_log_density_slopes`), or for another family by finite
+    differences of ``log_density_log`` (step :data:`_DELTA`); :math:`J`,
+    :math:`J'` by finite differences of the pre-image (one dose, shared by
+    all draws). Non-finite values (no density there) count as 0."""
+    family, params = exposure
+    y = flat * np.exp(np.array([-2 * _DELTA, -_DELTA, 0.0]))
+    x = y if scenario is None else np.asarray(scenario.preimage(y), dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tx = np.log(x)
+        jac = (3 * tx[2] - 4 * tx[1] + tx[0]) * (0.5 / _DELTA)
+        jac2 = (tx[2] - 2 * tx[1] + tx[0]) * (1 / _DELTA**2)
+    slopes = _log_density_slopes(family, params, float(tx[2]))
+    if slopes is None or not (np.isfinite(jac) and np.isfinite(jac2)):
+        f = family.log_density_log(np.broadcast_to(tx, (d, 3)), params)
+        lam = (3 * f[:, 2] - 4 * f[:, 1] + f[:, 0]) * (0.5 / _DELTA)
+        kap = (2 * f[:, 1] - f[:, 2] - f[:, 0]) * (1 / _DELTA**2)
+    else:
+        lam_x, kap_x = slopes
+        lam, kap = lam_x * jac, kap_x * (jac * jac) - lam_x * jac2
+    lam, kap = np.broadcast_to(lam, (d,)), np.broadcast_to(kap, (d,))
+    ok = np.isfinite(lam) & np.isfinite(kap)
+    if ok.all():
+        return lam, kap
+    return np.where(ok, lam, 0.0), np.where(ok, kap, 0.0)
+
+
+def _log_density_slopes(family: Family, params: FloatArray,
+                        t: float) -> tuple[FloatArray, FloatArray] | None:
+    r"""First derivative and negated second derivative of :math:`\ln f_T(t)`,
+    the log density of :math:`T = \ln X`, per draw, in closed form (derived
+    here from each density): lognormal :math:`-(t - \mu)/s^2` and
+    :math:`1/s^2`; gamma (shape :math:`k`, scale :math:`\theta`,
+    :math:`\ln f_T = k t - e^t/\theta + C`) :math:`k - e^t/\theta` and
+    :math:`e^t/\theta`; Weibull (shape :math:`k`, scale :math:`\lambda`,
+    :math:`E = (e^t/\lambda)^k`, :math:`\ln f_T = \ln E - E + C`)
+    :math:`k(1 - E)` and :math:`k^2 E`. ``None`` for other families."""
+    p0, p1 = params[:, 0], params[:, 1]
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        if family.name == "lognormal":
+            s = np.log(p1)
+            kap = 1.0 / (s * s)
+            return (np.log(p0) - t) * kap, kap
+        if family.name == "gamma":
+            e = np.exp(t) / p1
+            return p0 - e, e
+        if family.name == "weibull":
+            e = np.exp(p0 * (t - np.log(p1)))
+            return p0 - p0 * e, p0 * p0 * e
+    return None
 
 
 def _exp_rate(curve: Curve, coef: FloatArray) -> FloatArray:
@@ -291,8 +549,9 @@ def _graded(rate: FloatArray, points: FloatArray, sides: tuple[int, ...],
     r"""Breakpoints graded towards each of ``points`` ``(D, K)`` from above
     (side 1) and/or below (side -1), for a log RR of slope ``rate`` ``(D,)``
     in the dose there: :math:`k\,e^{\pm j/(r k)}`, j in ``grades``
-    (the log-exposure slope of :math:`r x` is :math:`r k` at :math:`k`;
-    see :func:`_graded_below_flat`). ``(D, 0)`` when no draw has
+    (the log-exposure slope of :math:`r x` is :math:`r k` at :math:`k`,
+    so the integrand changes by a factor e within :math:`1/(r k)` of the
+    kink on the log scale). ``(D, 0)`` when no draw has
     :math:`r k > 1` (the integrand is not steep on the log scale there).
     With ``reach``, only the breaks that lie within ``reach`` of their
     point on the log scale for some draw with :math:`r k > 1`."""
