@@ -76,8 +76,11 @@ Excess = Callable[[FloatArray, Rows, FloatArray], FloatArray | None]
 
 #: Gauss-Legendre nodes per panel.
 NODES = 16
-#: Nodes on a panel narrower than a quarter of the body's panels.
+#: Nodes on a panel narrower than :data:`NARROW_SHARE` of the body's panels.
 NARROW_NODES = 8
+#: A panel at most this share of the body's narrowest panel wide gets the
+#: narrow rule (:func:`_groups`).
+NARROW_SHARE = 0.25
 #: Widest panel on the log-dose scale: curves change shape over about a
 #: unit of ln x (saturation, logistic weights), which a panel must resolve.
 LOG_DOSE_WIDTH = 4.0
@@ -224,7 +227,7 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
     if narrowest is None:
         return [_Group(mid, half, *rules[0])]
     groups = []
-    kind = np.where(half <= 0, 2, np.where(2 * half <= 0.25 * narrowest, 1, 0))
+    kind = np.where(half <= 0, 2, np.where(2 * half <= NARROW_SHARE * narrowest, 1, 0))
     if bool(np.all(kind == kind[:1])):
         # the same rules in the same columns for every draw
         for group, (xi, wi) in enumerate(rules):

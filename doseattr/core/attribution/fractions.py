@@ -29,6 +29,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from doseattr.core.attribution.engine import (
     LOG_DOSE_WIDTH,
+    NARROW_SHARE,
     Excess,
     LogRisk,
     Rows,
@@ -329,7 +330,7 @@ GRADE_TOL = 1e-12
 GRADE_MAX = 10
 #: The engine gives the full rule to panels wider than this share of its
 #: narrowest body panel (``expected_excess``: 16 nodes, else 8).
-_WIDE_SHARE = 0.25
+_WIDE_SHARE = NARROW_SHARE
 #: Grids of the capacity tables: the curve's local rate and the tolerance.
 _R_GRID = np.geomspace(0.05, 1e4, 49)
 _TOL_GRID = np.geomspace(1e-16, 1.0, 33)
