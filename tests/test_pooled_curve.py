@@ -299,12 +299,19 @@ BAD = [
      "[curve] key 'design': 'design' belongs to each study"),
     (f'unit = "ug/m3"\n[curve]\npooling = "fixed"\n{BLOCK["A"]}{EXPOSURE}',
      "[curve] key 'pooling': 'pooling' goes with [[curve.study]] blocks"),
+    # a pooled curve inside the second of two outcomes: the outcome is named
+    ('unit = "ug/m3"\n' + EXPOSURE
+     + '[[outcome]]\nname = "first"\n[outcome.curve]\nmodel = "linear"\nerr = 0.05\n'
+     + '[[outcome]]\nname = "second"\n[outcome.curve]\nmodel = "log-linear"\n'
+     + "".join(f'[[outcome.curve.study]]\nname = "{n}"\n{BLOCK[n]}' for n in "AB")
+     .replace('table = "b.csv"', 'table = "nothere.csv"'),
+     "[[outcome]] 2 ('second') [[outcome.curve.study]] 2 ('B') key 'table': file not found"),
 ]
 
 
 @pytest.mark.parametrize("toml, fragment", BAD, ids=[
     "one-study", "same-name", "unit", "spline-doses", "refused-table", "missing-table",
-    "table-and-studies", "shared-design", "pooling-one-table"])
+    "table-and-studies", "shared-design", "pooling-one-table", "in-an-outcome"])
 def test_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, toml, fragment):
     case = tmp_path / "case"
     _write(case, toml)

@@ -589,14 +589,17 @@ def _check_cover(name: str, idx: list[int], outcomes: list[OutcomeSpec], table,
 
 @contextmanager
 def outcome_location(index: int, name: str) -> Iterator[None]:
-    """Errors about ``[curve]`` or ``[burden]`` keys inside an outcome name
-    ``[outcome.curve]`` / ``[outcome.burden]`` of that outcome instead."""
+    """Errors about ``[curve]``, ``[[curve.study]]`` or ``[burden]`` keys
+    inside an outcome name ``[outcome.curve]``, ``[[outcome.curve.study]]``
+    or ``[outcome.burden]`` of that outcome instead."""
     try:
         yield
     except InputError as exc:
         loc = exc.location or ""
+        where = f"[[outcome]] {index + 1} ('{name}')"
+        if loc.startswith("[[curve.study]]"):
+            loc = f"{where} [[outcome.curve.study]]{loc[len('[[curve.study]]'):]}"
         for section in ("curve", "burden"):
             if loc.startswith(f"[{section}]"):
-                loc = (f"[[outcome]] {index + 1} ('{name}') [outcome.{section}]"
-                       + loc[len(section) + 2:])
+                loc = f"{where} [outcome.{section}]{loc[len(section) + 2:]}"
         raise InputError(exc.message, source=exc.source, location=loc or None) from None
