@@ -332,3 +332,30 @@ def test_precision_gives_every_block_the_same_draws(tmp_path):
     counts = {r.uncertainty.draws for _, o in res.outcomes for _, r in o.group_runs}
     assert len(counts) == 1 and counts.pop() >= 200
     assert res.grand_total is not None and res.grand_total.attributable.lower is not None
+
+
+def test_scenario_table_gives_averted_rates_and_yll(tmp_path):
+    """burden_scenarios.csv with rates and life expectancy: per row of the
+    burden table, the averted rate is averted / population x 100000 and
+    the averted YLL averted x life expectancy (hand products), and the
+    averted cases are PIF x cases."""
+    from doseattr.outputs import tables
+
+    res = run_analysis(_analysis(tmp_path))
+    header, rows = tables.burden_scenarios_blocks_table(res.burden_blocks)
+    col = {h: i for i, h in enumerate(header)}
+    assert {"group", "averted_rate_estimate", "averted_yll_upper"} <= set(col)
+    given = {(s, g): (pop, rate, le) for s, g, pop, rate, le, _, _ in _rows()}
+    checked = 0
+    for r in rows:
+        key = (r[col["stratum"]], r[col["group"]])
+        if key not in given:
+            continue  # the sums: checked in the results' own tests
+        pop, rate, le = given[key]
+        averted = r[col["averted_estimate"]]
+        np.testing.assert_allclose(averted, r[col["pif_estimate"]] * pop * rate / 1e5, rtol=1e-12)
+        np.testing.assert_allclose(r[col["averted_rate_estimate"]], averted / pop * 1e5,
+                                   rtol=1e-12)
+        np.testing.assert_allclose(r[col["averted_yll_estimate"]], averted * le, rtol=1e-12)
+        checked += 1
+    assert checked == 2 * len(given)  # each row in both outcomes

@@ -295,16 +295,27 @@ def burden_scenarios_table(burden: BurdenResult) -> Table | None:
 def burden_scenarios_blocks_table(blocks: Sequence[BurdenBlock]) -> Table | None:
     """One row per outcome, stratum (and total) and scenario: the PIF and the
     cases averted, each with its interval; no ``outcome`` column without
-    outcomes."""
+    outcomes. When any block has groups, rates or years of life lost
+    (:func:`health_impact`), the row's ``group``, the averted rate (per
+    ``rate_per`` people) and the averted years of life lost follow, each
+    with its interval (empty where a row has none)."""
     header = ["outcome", "stratum", "scenario", *[f"pif_{c}" for c in ESTIMATE_COLUMNS],
               *[f"averted_{c}" for c in ESTIMATE_COLUMNS]]
+    extended = health_impact(blocks)
+    if extended:
+        header += ["group", *[f"averted_rate_{c}" for c in ESTIMATE_COLUMNS],
+                   *[f"averted_yll_{c}" for c in ESTIMATE_COLUMNS]]
     rows: list[list[Any]] = []
     for name, burden in blocks:
         for s in (*burden.strata, burden.total):
             stratum = "total" if s is burden.total else s.stratum
             for e in s.scenarios:
-                rows.append([name or None, stratum, e.name, *estimate_cells(e.pif),
-                             *estimate_cells(e.averted)])
+                row = [name or None, stratum, e.name, *estimate_cells(e.pif),
+                       *estimate_cells(e.averted)]
+                if extended:
+                    row += [s.group, *estimate_cells(e.averted_rate),
+                            *estimate_cells(e.averted_yll)]
+                rows.append(row)
     if not any(r[0] for r in rows):
         header, rows = header[1:], [r[1:] for r in rows]
     return (header, rows) if rows else None
