@@ -5,7 +5,9 @@ independently of it, by adaptive quadrature (scipy.integrate.quad, QUADPACK)
 of ``func(x) * dist.pdf(x)``. The integrand a test passes in is its own
 expected relative risk RR_m(x), excess RR_m(x) - 1, dose x, ...; how that
 becomes a PAF or PIF (the unexposed share, 1 - 1/E or e/(1 + e)) stays in the
-test beside its check.
+test beside its check. The built-in scenarios' transforms and their
+pre-images are written out here too, from their definitions, for the
+integrands of the steep-curve batteries.
 """
 from __future__ import annotations
 
@@ -14,6 +16,8 @@ from collections.abc import Callable, Iterable
 from itertools import pairwise
 
 from scipy import integrate
+
+from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
 
 
 def split_edges(kinks: Iterable[float] = (), lower: float = 0.0,
@@ -124,3 +128,25 @@ def expect_over_log_dose(func: Callable[[float], float], dist, kinks: Iterable[f
     return sum(integrate.quad(lambda t: func(math.exp(t)) * dist.pdf(math.exp(t)) * math.exp(t),
                               a, b, epsabs=0, epsrel=epsrel, limit=limit)[0]
                for a, b in pairwise(edges))
+
+
+def scenario_dose(scenario, x: float, m: float) -> float:
+    """A built-in scenario's transform g(x), written out from its definition
+    (None: x; Cap: min(x, L); Scale: s x; ReduceBy: max(x - d, m))."""
+    if scenario is None:
+        return x
+    if isinstance(scenario, Cap):
+        return min(x, scenario.value)
+    if isinstance(scenario, Scale):
+        return scenario.value * x
+    return max(x - scenario.value, m)
+
+
+def scenario_preimage(scenario, y: float) -> float:
+    """The dose x with g(x) = y of :func:`scenario_dose`, for y above m (and
+    below a cap)."""
+    if isinstance(scenario, Scale):
+        return y / scenario.value
+    if isinstance(scenario, ReduceBy):
+        return y + scenario.value
+    return y

@@ -26,7 +26,7 @@ import math
 
 import numpy as np
 import pytest
-from reference_integrals import expect_over_log_dose
+from reference_integrals import expect_over_log_dose, scenario_dose, scenario_preimage
 
 from doseattr.core.attribution.fractions import excess_draws
 from doseattr.core.attribution.impact import averted_fraction, impact_fraction
@@ -56,31 +56,11 @@ def _setup(slope, exp_key):
     return curve, Exposure(FAMILIES[fam], np.array(p))
 
 
-def _g(scenario, x, m):
-    """The scenario's transform, written out (Cap: min(x, L); Scale: s x;
-    ReduceBy: max(x - d, m))."""
-    if scenario is None:
-        return x
-    if isinstance(scenario, Cap):
-        return min(x, scenario.value)
-    if isinstance(scenario, Scale):
-        return scenario.value * x
-    return max(x - scenario.value, m)
-
-
-def _preimage(scenario, k):
-    if isinstance(scenario, Scale):
-        return k / scenario.value
-    if isinstance(scenario, ReduceBy):
-        return k + scenario.value
-    return k
-
-
 def _reference(func, dist, slope, m, scenario, flat):
     """E[func(X)] by quad on ln x up to ``flat`` plus func(flat) sf(flat)."""
     kinks = {m, TOP}
     if scenario is not None:
-        kinks |= {_preimage(scenario, m), _preimage(scenario, TOP)}
+        kinks |= {scenario_preimage(scenario, m), scenario_preimage(scenario, TOP)}
         if isinstance(scenario, Cap):
             kinks.add(scenario.value)
     pts = set(kinks)
@@ -105,7 +85,7 @@ def _flat(scenario):
     """Dose beyond which both L and L_g are constant."""
     if scenario is None or isinstance(scenario, Cap):
         return TOP
-    return _preimage(scenario, TOP)
+    return scenario_preimage(scenario, TOP)
 
 
 @pytest.mark.parametrize("m", [0.0, 1.3, 10.0])
@@ -131,7 +111,7 @@ def test_averted_fraction_steep(slope, exp_key, scn, m):
     curve, ex = _setup(slope, exp_key)
     scenario = SCENARIOS[scn]
     L = _log_rr(slope, m)
-    ref = _reference(lambda x: -math.expm1(L(_g(scenario, x, m)) - L(x)),
+    ref = _reference(lambda x: -math.expm1(L(scenario_dose(scenario, x, m)) - L(x)),
                      ex.family.scipy(ex.params), slope, m, scenario, _flat(scenario))
     got = averted_fraction(curve, ex, scenario, minimum_risk=m)
     if scn == "cap-45":
@@ -150,7 +130,7 @@ def test_expected_excess_steep(slope, exp_key, scn, m):
     curve, ex = _setup(slope, exp_key)
     scenario = SCENARIOS.get(scn)
     L = _log_rr(slope, m)
-    ref = _reference(lambda x: math.expm1(L(_g(scenario, x, m))), ex.family.scipy(ex.params),
+    ref = _reference(lambda x: math.expm1(L(scenario_dose(scenario, x, m))), ex.family.scipy(ex.params),
                      slope, m, scenario, _flat(scenario))
     got = excess_draws(curve, curve.coef, ex.family, ex.params, 0.0, m, scenario)[0]
     assert got == pytest.approx(ref, rel=RTOL)

@@ -28,7 +28,7 @@ import zlib
 
 import numpy as np
 import pytest
-from reference_integrals import expect_over_log_dose
+from reference_integrals import expect_over_log_dose, scenario_dose, scenario_preimage
 from scipy import integrate, stats
 
 from doseattr.core.attribution import fractions
@@ -66,36 +66,15 @@ def _scenario(kind, top, rng):
     return None
 
 
-def _g(scenario, x, m):
-    """The scenario's transform, written out (Cap: min(x, L); Scale: s x;
-    ReduceBy: max(x - d, m))."""
-    if scenario is None:
-        return x
-    if isinstance(scenario, Cap):
-        return min(x, scenario.value)
-    if isinstance(scenario, Scale):
-        return scenario.value * x
-    return max(x - scenario.value, m)
-
-
-def _pre(scenario, y):
-    """The dose x with g(x) = y, for y above m (and below a cap)."""
-    if isinstance(scenario, Scale):
-        return y / scenario.value
-    if isinstance(scenario, ReduceBy):
-        return y + scenario.value
-    return y
-
-
 def _reference(dist, c, top, m, scenario):
     """E[expm1(L(g(X)))] by scipy.integrate.quad on ln x (see the module)."""
     def h(x):
-        return math.expm1(c * (min(max(_g(scenario, x, m), m), top) - m))
+        return math.expm1(c * (min(max(scenario_dose(scenario, x, m), m), top) - m))
 
-    flat = _pre(scenario, top)
+    flat = scenario_preimage(scenario, top)
     if isinstance(scenario, Cap):
         flat = min(flat, scenario.value)
-    lower = _pre(scenario, m) if m > 0 else float(dist.ppf(1e-30))
+    lower = scenario_preimage(scenario, m) if m > 0 else float(dist.ppf(1e-30))
     # dg/dx at the flat point: s for a scale, 1 otherwise
     slope = c * flat * (scenario.value if isinstance(scenario, Scale) else 1.0)
     pts = [flat * math.exp(-j / slope) for j in STEPS]
