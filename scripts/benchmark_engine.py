@@ -159,9 +159,9 @@ def values_per_integral(case: Case, strata: int = 3) -> float:
         if inner is None:
             return None
 
-        def excess(x, rows, out):
+        def excess(x, rows, out, inside=False):
             count[0] += np.size(x)
-            return inner(x, rows, out)
+            return inner(x, rows, out, inside)
         return excess
 
     fractions._log_rr_m, fractions._excess_m = counting_log_rr, counting_excess

@@ -52,7 +52,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from functools import lru_cache
-from typing import NamedTuple, cast
+from typing import NamedTuple, Protocol, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -71,8 +71,17 @@ Window = tuple[FloatArray, FloatArray, BoolArray, BoolArray]
 #: The draws of a callback's rows: a run of them, or one per row.
 Rows = slice | NDArray[np.intp]
 LogRisk = Callable[[FloatArray, Rows], FloatArray]
-#: ``excess(x, rows, out)``: expm1(L(x)) into ``out``, or ``None``.
-Excess = Callable[[FloatArray, Rows, FloatArray], FloatArray | None]
+
+
+class Excess(Protocol):
+    """``excess(x, rows, out, inside)``: expm1(L(x)) into ``out``, or ``None``.
+    With ``inside`` every dose lies between the zero-below dose and the flat
+    point (the engine's nodes), so a function may skip holding its doses
+    within them."""
+
+    def __call__(self, x: FloatArray, rows: Rows, out: FloatArray,
+                 inside: bool = False) -> FloatArray | None: ...
+
 
 #: Gauss-Legendre nodes per panel.
 NODES = 16
@@ -89,7 +98,7 @@ _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
 MAX_PANELS = 48
 #: About this many (draw x node) values are evaluated at once.
-CHUNK_VALUES = 16_384
+CHUNK_VALUES = 65_536
 #: Draws whose windows and panels are placed at once.
 BLOCK_DRAWS = 16_384
 #: Runs of draws integrated again up to a far flat point when one needs it.
@@ -229,11 +238,12 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
     groups = []
     kind = np.where(half <= 0, 2, np.where(2 * half <= NARROW_SHARE * narrowest, 1, 0))
     if bool(np.all(kind == kind[:1])):
-        # the same rules in the same columns for every draw
-        for group, (xi, wi) in enumerate(rules):
-            cols = np.flatnonzero(kind[0] == group)
-            if cols.size:
-                groups.append(_Group(mid[:, cols], half[:, cols], xi, wi))
+        # the same rules in the same columns for every draw: a group per
+        # column (the integrand's range per group is narrower, see
+        # fractions._excess_m)
+        for col, group in enumerate(kind[0]):
+            if group < len(rules):
+                groups.append(_Group(mid[:, col:col + 1], half[:, col:col + 1], *rules[group]))
         return groups or [_Group(mid[:, :1], np.zeros_like(half[:, :1]), *rules[1])]
     for group, (xi, wi) in enumerate(rules):
         # each draw's panels of this group, one per row: no empty panels
@@ -278,18 +288,21 @@ class _Integrand:
     def __init__(self, log_rr: LogRisk, excess: Excess | None, rows: slice) -> None:
         self.log_rr, self.excess, self.rows = log_rr, excess, rows
 
-    def direct(self, x: FloatArray, rows: Rows) -> FloatArray | None:
-        """expm1(L(x)) from ``excess``, if given and small enough."""
+    def direct(self, x: FloatArray, rows: Rows, inside: bool = False,
+               out: FloatArray | None = None) -> FloatArray | None:
+        """expm1(L(x)) from ``excess``, if given and small enough, into ``out``
+        (or a new array; ``inside``: the doses are nodes, see :class:`Excess`)."""
         if self.excess is None:
             return None
         with np.errstate(over="ignore", invalid="ignore"):
-            e = self.excess(x, rows, np.empty_like(x))
+            e = self.excess(x, rows, np.empty_like(x) if out is None else out, inside)
         return e if e is not None and e.max(initial=0.0) < _DIRECT_LIMIT else None
 
     def weighted(self, x: FloatArray, rows: Rows, log_f: FloatArray, dens: FloatArray,
-                 sums: _PanelSums) -> FloatArray:
-        """Weighted row sums of expm1(L(x)) exp(log_f), with dens = exp(log_f)."""
-        e = self.direct(x, rows)
+                 sums: _PanelSums, out: FloatArray) -> FloatArray:
+        """Weighted row sums of expm1(L(x)) exp(log_f), with dens = exp(log_f)
+        (``out``: a buffer shaped like ``x``)."""
+        e = self.direct(x, rows, inside=True, out=out)
         if e is not None:
             e *= dens
             return sums(e)
@@ -439,14 +452,18 @@ class _Block:
             return body, None, window
         gaps = np.diff(body, axis=1)
         narrowest = np.where(gaps > 0, gaps, np.inf).min(axis=1, keepdims=True)
-        return np.sort(np.concatenate([body, cuts], axis=1), axis=1), narrowest, window
+        return _merged(body, cuts), narrowest, window
 
     def _first_last(self, start: FloatArray, end: FloatArray, lo_exact: BoolArray,
                     hi_exact: BoolArray) -> tuple[FloatArray, FloatArray]:
-        """The first and last edges: the window's exact ends where they are."""
+        """The first and last edges: the window's exact ends where they are,
+        elsewhere the body's ends held within ``[w_low, w_top]`` (a normal
+        score's map to ``w`` may be interpolated), so that every node lies
+        between the zero-below dose and the flat point (``excess``'s
+        ``inside``)."""
         first = np.where(lo_exact, np.minimum(self.w_low, np.where(hi_exact, self.w_top, np.inf)),
-                         start)
-        return first, np.maximum(np.where(hi_exact, self.w_top, end), first)
+                         np.maximum(start, self.w_low))
+        return first, np.maximum(np.where(hi_exact, self.w_top, np.minimum(end, self.w_top)), first)
 
     def _window(self, f: _Integrand, rules: tuple[tuple[FloatArray, FloatArray], ...],
                 cap: FloatArray) -> tuple[FloatArray, FloatArray]:
@@ -526,7 +543,7 @@ class _Block:
         step = max(1, min(r, CHUNK_VALUES // n))
         # node-major: each node's values over the rows are contiguous,
         # so per-draw coefficients broadcast along whole rows
-        buffers = [np.empty((n, step)).T for _ in range(4 if self.std.uses_exp_w else 3)]
+        buffers = [np.empty((n, step)).T for _ in range(5 if self.std.uses_exp_w else 4)]
         zeros, ones = np.zeros((step, 1)), np.ones((step, 1))
         for lo in range(0, r, step):
             hi = min(r, lo + step)
@@ -541,7 +558,7 @@ class _Block:
                 w_nodes = w.copy()
             exp_w = None
             if self.std.uses_exp_w:
-                exp_w = buffers[3][:hi - lo]
+                exp_w = buffers[4][:hi - lo]
                 _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[:hi - lo],
                        ones[:hi - lo], w)
             params = self.params[at]
@@ -553,7 +570,7 @@ class _Block:
                     else f.rows.start + at)
             if tilted is not None:
                 tilted[sub] = self._tilt_sum(w_nodes, log_f, sums, at)
-            body[sub] = f.weighted(x, rows, log_f, dens, sums)
+            body[sub] = f.weighted(x, rows, log_f, dens, sums, buffers[3][:hi - lo])
         return body, mass, tilted
 
     def _tilt_sum(self, w: FloatArray, log_f: FloatArray, sums: _PanelSums,
@@ -616,6 +633,28 @@ def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
     np.exp(c, out=c)
     np.divide(c[:, :, None], q[:, :, ::-1], out=x[:, :, :half])
     q *= c[:, :, None]
+
+
+#: Most compare-exchanges of columns :func:`_merged` makes (more: a sort).
+_INSERT_STEPS = 8
+
+
+def _merged(body: FloatArray, cuts: FloatArray) -> FloatArray:
+    """The rows of ``body`` ``(d, B)`` (each sorted) and ``cuts`` ``(d, C)``
+    together, each row sorted: for a few cuts by inserting each into its
+    row with compare-exchanges over whole columns (minimum and maximum of
+    two columns; a few of them take less time than sorting row by row
+    here), else by ``np.sort``. The same values either way."""
+    b, c = body.shape[1], cuts.shape[1]
+    if c * (2 * b + c - 1) // 2 > _INSERT_STEPS:
+        return np.sort(np.concatenate([body, cuts], axis=1), axis=1)
+    cols = np.concatenate([body, cuts], axis=1).T.copy()
+    for c in range(body.shape[1], cols.shape[0]):
+        for j in range(c, 0, -1):
+            low = np.minimum(cols[j - 1], cols[j])
+            np.maximum(cols[j - 1], cols[j], out=cols[j])
+            cols[j - 1] = low
+    return np.ascontiguousarray(cols.T)
 
 
 def _log_dose(x: FloatArray) -> FloatArray:

@@ -156,11 +156,19 @@ class Standard(ABC):
         return np.zeros((params.shape[0], 0))
 
 
+def _log_columns(params: FloatArray) -> tuple[FloatArray, FloatArray]:
+    return np.log(params[:, :1]), np.log(params[:, 1:2])
+
+
+_lognormal_affine = _LastValues(_log_columns)
+
+
 class LogNormalStandard(Standard):
     width = 7.5
 
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        return np.log(params[:, :1]), np.log(params[:, 1:2])
+        """``(ln GM, ln GSD)``, kept for the last parameters (read-only)."""
+        return _lognormal_affine(params)
 
     def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
                exp_w: FloatArray | None = None) -> FloatArray:
@@ -184,9 +192,17 @@ class LogNormalStandard(Standard):
         return w, cast(FloatArray, ndtr(-w))
 
 
+def _weibull_columns(params: FloatArray) -> tuple[FloatArray, FloatArray]:
+    return np.log(params[:, 1:2]), 1.0 / params[:, :1]
+
+
+_weibull_affine = _LastValues(_weibull_columns)
+
+
 class WeibullStandard(Standard):
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        return np.log(params[:, 1:2]), 1.0 / params[:, :1]
+        """``(ln scale, 1 / shape)``, kept for the last parameters (read-only)."""
+        return _weibull_affine(params)
 
     uses_exp_w = True
 
@@ -363,12 +379,20 @@ def _lower_score(k: FloatArray, w: FloatArray) -> FloatArray:
 _lower_scores = _LastValues(_lower_score)
 
 
+def _gamma_columns(params: FloatArray) -> tuple[FloatArray, FloatArray]:
+    return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
+
+
+_gamma_affine = _LastValues(_gamma_columns)
+
+
 class GammaStandard(Standard):
     def __init__(self, family: Family) -> None:
         super().__init__(family)
 
     def affine(self, params: FloatArray) -> tuple[FloatArray, FloatArray]:
-        return np.log(params[:, 1:2]), np.ones((params.shape[0], 1))
+        """``(ln scale, 1)``, kept for the last parameters (read-only)."""
+        return _gamma_affine(params)
 
     def kernel(self, w: FloatArray, x: FloatArray, params: FloatArray,
                exp_w: FloatArray | None = None) -> FloatArray:
@@ -380,12 +404,16 @@ class GammaStandard(Standard):
             if k.max(initial=0.0) <= DOSE_SHAPE:
                 # e^v = x / (theta k): the doses' exponential serves; its
                 # rounding (a few units in the last place of 1) counts k-fold;
-                # the 1 of expm1 goes with v: (x / (theta k)) - (v + 1)
+                # the 1 of expm1 goes with v, in place in w:
+                # -k (x / (theta k) - (v + 1)) = (theta k (v + 1) - x) / theta
+                theta = params[:, 1:2]
                 w -= np.log(k) - 1.0
-                e = np.multiply(x, 1.0 / (params[:, 1:2] * k))
-            else:
-                w -= np.log(k)
-                e = np.expm1(w)
+                w *= theta * k
+                w -= x
+                w *= 1.0 / theta
+                return w
+            w -= np.log(k)
+            e = np.expm1(w)
         e -= w
         e *= -k
         return cast(FloatArray, e)
