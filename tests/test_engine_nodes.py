@@ -1,0 +1,120 @@
+"""Where the engine places its nodes, and the shortcuts that rely on it.
+
+* Every node lies between the zero-below dose and the flat point, so the
+  direct excess forms skip holding doses within them (``inside``). Checked
+  by recording the doses the engine asks for, over windows whose ends are
+  exact and windows cut at the body, where the gamma family's map from the
+  normal score to ``w`` is interpolated.
+* The log-linear excess takes ``exp(t) - 1`` where every ``t`` is at least
+  ln 2: checked against ``numpy.expm1`` (at most 3 units in the last place,
+  the bound derived in ``fractions``), and ``expm1`` itself elsewhere.
+* ``engine._merged`` against ``numpy.sort`` (reference library).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from doseattr.core.attribution import engine, fractions
+from doseattr.core.attribution.fractions import excess_draws
+from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
+from doseattr.core.curves.base import Curve
+from doseattr.core.curves.linear import LinearExcess
+from doseattr.core.curves.loglinear import LogLinear
+from doseattr.core.exposure.registry import FAMILIES
+
+EXPOSURES = [
+    ("lognormal", [6.0, 2.5]),
+    ("lognormal", [0.5, 1.2]),      # the flat point far beyond the body
+    ("gamma", [1.5, 4.0]),
+    ("gamma", [0.15, 30.0]),        # a small shape: extra breaks near w = 0
+    ("gamma", [40.0, 0.05]),        # the minimum-risk level below the body
+    ("weibull", [1.4, 8.0]),
+]
+SCENARIOS = [None, Cap(12.0), Scale(0.6), ReduceBy(1.5)]
+
+
+def _recorded_doses(monkeypatch, curve, fam, params, m, scenario=None) -> np.ndarray:
+    seen: list[np.ndarray] = []
+    original = fractions._excess_m
+
+    def recording(*args):
+        inner = original(*args)
+
+        def excess(x, rows, out, inside=False):
+            if inside:
+                seen.append(np.array(x))
+            return inner(x, rows, out, inside)
+        return excess
+
+    monkeypatch.setattr(fractions, "_excess_m", recording)
+    excess_draws(curve, curve.coef, FAMILIES[fam], params, 0.0, m, scenario)
+    return np.concatenate([s.ravel() for s in seen])
+
+
+@pytest.mark.parametrize("fam,p", EXPOSURES)
+@pytest.mark.parametrize("scenario", SCENARIOS, ids=["current", "cap", "scale", "reduce"])
+@pytest.mark.parametrize("model", ["linear", "loglinear"])
+def test_nodes_lie_between_zero_below_and_flat_point(monkeypatch, fam, p, scenario, model):
+    """Each dose given with ``inside`` lies within [zero_below, flat_from]
+    (to a relative 1e-12: the doses are exp(a + b w) in floats)."""
+    curve = (Curve(LinearExcess(), np.array([0.03]), np.eye(1), max_dose=25.0)
+             if model == "linear" else
+             Curve(LogLinear(), np.array([0.2]), np.eye(1), max_dose=25.0))
+    m = 2.0
+    low = m if scenario is None else float(scenario.preimage(np.array([m]))[0])
+    top = fractions._flat_from(curve, scenario)
+    params = np.array(p) * np.exp(np.random.default_rng(3).normal(0, 0.02, (64, 2)))
+    doses = _recorded_doses(monkeypatch, curve, fam, params, m, scenario)
+    assert doses.size, "the engine evaluated no nodes"
+    assert doses.min() >= low * (1 - 1e-12)
+    assert doses.max() <= top * (1 + 1e-12)
+
+
+@pytest.mark.parametrize("k", [0.2, 0.5, 1.5])
+@pytest.mark.parametrize("z", [7.501, 7.52, 7.56])
+def test_gamma_window_cut_at_the_body_stays_below_the_flat_point(monkeypatch, k, z):
+    """A flat point just beyond the body's normal score 7.5 (placed by
+    scipy.stats): the body's end comes from the interpolated quantile
+    table, which can lie beyond it (by up to 2% of the dose, seen here
+    without the engine's holding); the nodes must not."""
+    top = float(stats.gamma(k).isf(stats.norm.sf(z)))
+    m = float(stats.gamma(k).ppf(0.5))
+    curve = Curve(LinearExcess(), np.array([0.03]), np.eye(1), max_dose=top)
+    doses = _recorded_doses(monkeypatch, curve, "gamma", np.array([[k, 1.0]]), m)
+    assert doses.min() >= m * (1 - 1e-12)
+    assert doses.max() <= top * (1 + 1e-12)
+
+
+def test_exp_minus_one_within_three_ulps_of_expm1():
+    """The log-linear excess at t >= ln 2 everywhere against numpy.expm1."""
+    curve = Curve(LogLinear(), np.array([0.3]), np.eye(1), max_dose=400.0)
+    coef = np.full((4, 1), 0.3)
+    excess = fractions._excess_m(curve, coef, np.full(4, 1.0), None)
+    assert excess is not None
+    rng = np.random.default_rng(5)
+    # t = 0.3 (x - 1) from ln 2 to 100
+    x = 1.0 + rng.uniform(np.log(2.0), 100.0, (4, 500)) / 0.3
+    got = excess(x, slice(0, 4), np.empty_like(x), True)
+    want = np.expm1(0.3 * (x - 1.0))
+    ulps = np.abs(got - want) / np.spacing(want)
+    assert ulps.max() <= 3.0
+    # any t below ln 2 in the array: expm1 itself
+    x[0, 0] = 1.001
+    got = excess(x, slice(0, 4), np.empty_like(x), True)
+    assert np.array_equal(got, np.expm1(0.3 * (x - 1.0)))
+
+
+@pytest.mark.parametrize("body_cols", [1, 2, 3, 5, 12])
+@pytest.mark.parametrize("cuts", [0, 1, 2, 3, 6])
+def test_merged_matches_numpy_sort(body_cols, cuts):
+    rng = np.random.default_rng(body_cols * 10 + cuts)
+    body = np.sort(rng.normal(size=(40, body_cols)), axis=1)
+    extra = rng.normal(size=(40, cuts))
+    if cuts:
+        extra[::5, 0] = body[::5, 0]        # ties with an edge
+        extra[1::7, -1] = -np.inf
+    want = np.sort(np.concatenate([body, extra], axis=1), axis=1)
+    assert np.array_equal(engine._merged(body, extra), want)
