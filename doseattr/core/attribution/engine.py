@@ -197,6 +197,7 @@ def expected_excess(log_rr: LogRisk, family: Family, params: FloatArray, *,
     rate = np.broadcast_to(np.asarray(growth.rate, dtype=float), (d,))
     top = np.broadcast_to(np.inf if flat_from is None else np.asarray(flat_from, float), (d,))
     low = np.broadcast_to(0.0 if zero_below is None else np.asarray(zero_below, float), (d,))
+    kinks = _within(kinks, low, top)
     tilt = None
     if growth.kind != "bounded" and np.any(rate > 0):
         # refuses a divergent expectation; its last breakpoint bounds the window
@@ -545,24 +546,31 @@ class _Block:
         # so per-draw coefficients broadcast along whole rows
         buffers = [np.empty((n, step)).T for _ in range(5 if self.std.uses_exp_w else 4)]
         zeros, ones = np.zeros((step, 1)), np.ones((step, 1))
+        fold = self.std.fold(self.params) if tilted is None else None
         for lo in range(0, r, step):
             hi = min(r, lo + step)
             sub = slice(lo, hi)
             at: slice | NDArray[np.intp] = sub if g.draw is None else g.draw[sub]
             w, x, dens = (b[:hi - lo] for b in buffers[:3])
             wv = w.reshape(hi - lo, *shape)
-            np.multiply(g.half[sub, :, None], g.xi, out=wv)
-            wv += g.mid[sub, :, None]
-            _doses(x.reshape(hi - lo, *shape), g, sub, self.a[at], self.b[at], w)
-            if tilted is not None:
-                w_nodes = w.copy()
-            exp_w = None
-            if self.std.uses_exp_w:
-                exp_w = buffers[4][:hi - lo]
-                _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[:hi - lo],
-                       ones[:hi - lo], w)
-            params = self.params[at]
-            log_f = self.std.kernel(w, x, params, exp_w)
+            _doses(x.reshape(hi - lo, *shape), g, sub, self.a[at], self.b[at])
+            if fold is not None:
+                # the kernel's affine map of w taken with the nodes' own
+                shift, times, post = (t[at] for t in fold)
+                np.multiply((g.half[sub] * times)[:, :, None], g.xi, out=wv)
+                wv += ((g.mid[sub] + shift) * times)[:, :, None]
+                log_f = self.std.folded_kernel(w, x, post)
+            else:
+                np.multiply(g.half[sub, :, None], g.xi, out=wv)
+                wv += g.mid[sub, :, None]
+                if tilted is not None:
+                    w_nodes = w.copy()
+                exp_w = None
+                if self.std.uses_exp_w:
+                    exp_w = buffers[4][:hi - lo]
+                    _doses(exp_w.reshape(hi - lo, *shape), g, sub, zeros[:hi - lo],
+                           ones[:hi - lo])
+                log_f = self.std.kernel(w, x, self.params[at], exp_w)
             np.exp(log_f, out=dens)
             sums = _PanelSums(g, factors[sub])
             mass[sub] = sums(dens)
@@ -612,8 +620,7 @@ class _Block:
 _PRODUCT_LOG_DOSE = 700.0
 
 
-def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
-           w: FloatArray) -> None:
+def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray) -> None:
     r"""The doses :math:`x = e^{a + b w}` at a group's nodes into ``x``
     ``(d, P, n)``. The rule's nodes are symmetric, :math:`\xi_{n-1-i} =
     -\xi_i`, so with :math:`c = a + b\,m_p` and :math:`q_i = e^{b h_p \xi_i}`
@@ -623,8 +630,8 @@ def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
     c = g.mid[sub] * b
     c += a
     if n % 2 or np.abs(c).max(initial=0.0) > _PRODUCT_LOG_DOSE:
-        np.multiply(w, b, out=x.reshape(w.shape))
-        x += a[:, :, None]
+        np.multiply((g.half[sub] * b)[:, :, None], g.xi, out=x)
+        x += c[:, :, None]
         np.exp(x, out=x)
         return
     half = n // 2
@@ -633,6 +640,17 @@ def _doses(x: FloatArray, g: _Group, sub: slice, a: FloatArray, b: FloatArray,
     np.exp(c, out=c)
     np.divide(c[:, :, None], q[:, :, ::-1], out=x[:, :, :half])
     q *= c[:, :, None]
+
+
+def _within(kinks: FloatArray, low: FloatArray, top: FloatArray) -> FloatArray:
+    """The columns of ``kinks`` ``(d, K)`` with a dose strictly between some
+    draw's zero-below dose and flat point: no other kink can cut a panel (the
+    window lies between them), such as the minimum-risk level's pre-image or
+    ``max_dose``, the window's own ends."""
+    if kinks.shape[1] == 0:
+        return kinks
+    keep = ((kinks > low[:, None]) & (kinks < top[:, None])).any(axis=0)
+    return kinks if keep.all() else kinks[:, keep]
 
 
 #: Most compare-exchanges of columns :func:`_merged` makes (more: a sort).

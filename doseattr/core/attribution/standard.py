@@ -113,6 +113,16 @@ class Standard(ABC):
         given the doses ``x = exp(a + b w)`` too and, for :attr:`uses_exp_w`,
         ``exp(w)`` (may overwrite ``w``, not ``x``)."""
 
+    def fold(self, params: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray] | None:
+        """``(shift, times, post)`` ``(d, 1)`` each, if :meth:`folded_kernel`
+        applies: the engine then forms ``u = (w + shift) times`` at the nodes
+        (with the nodes' own affine map, two operations fewer a value)."""
+        return None
+
+    def folded_kernel(self, u: FloatArray, x: FloatArray, post: FloatArray) -> FloatArray:
+        """:meth:`kernel` from ``u`` of :meth:`fold` (may overwrite ``u``)."""
+        raise NotImplementedError
+
     @abstractmethod
     def log_norm(self, params: FloatArray) -> FloatArray:
         """The log density's part that depends on the draw alone ``(d, 1)``."""
@@ -417,6 +427,21 @@ class GammaStandard(Standard):
         e -= w
         e *= -k
         return cast(FloatArray, e)
+
+    def fold(self, params: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray] | None:
+        r"""The kernel below :data:`DOSE_SHAPE` as :math:`(\theta k (v + 1) - x)
+        / \theta` with :math:`\theta k (v + 1) = (w + 1 - \ln k)\,\theta k`:
+        ``(1 - ln k, theta k, 1 / theta)``; ``None`` for larger shapes."""
+        k = params[:, :1]
+        if k.max(initial=0.0) > DOSE_SHAPE:
+            return None
+        theta = params[:, 1:2]
+        return 1.0 - _shape_terms(k).log_k, theta * k, 1.0 / theta
+
+    def folded_kernel(self, u: FloatArray, x: FloatArray, post: FloatArray) -> FloatArray:
+        u -= x
+        u *= post
+        return u
 
     def log_norm(self, params: FloatArray) -> FloatArray:
         r""":math:`\tfrac12 \ln k - \tfrac12 \ln 2\pi - c(k)`, ``c`` Stirling's
