@@ -5,9 +5,10 @@
   by recording the doses the engine asks for, over windows whose ends are
   exact and windows cut at the body, where the gamma family's map from the
   normal score to ``w`` is interpolated.
-* The log-linear excess takes ``exp(t) - 1`` where every ``t`` is at least
-  ln 2: checked against ``numpy.expm1`` (at most 3 units in the last place,
-  the bound derived in ``fractions``), and ``expm1`` itself elsewhere.
+* The log-linear excess takes ``exp(t) - 1`` in the trailing columns where
+  every ``t`` is at least ln 2: checked against ``numpy.expm1`` (at most 3
+  units in the last place, the bound derived in ``fractions``), and
+  ``expm1`` itself elsewhere.
 * ``engine._merged`` against ``numpy.sort`` (reference library).
 """
 
@@ -101,8 +102,14 @@ def test_exp_minus_one_within_three_ulps_of_expm1():
     want = np.expm1(0.3 * (x - 1.0))
     ulps = np.abs(got - want) / np.spacing(want)
     assert ulps.max() <= 3.0
-    # any t below ln 2 in the array: expm1 itself
-    x[0, 0] = 1.001
+    # a column with a t below ln 2: expm1 itself there and in the columns
+    # before it, exp(t) - 1 only in the columns after it
+    x[0, 7] = 1.001
+    got = excess(x, slice(0, 4), np.empty_like(x), True)
+    want = np.expm1(0.3 * (x - 1.0))
+    assert np.array_equal(got[:, :8], want[:, :8])
+    assert (np.abs(got - want) / np.spacing(want)).max() <= 3.0
+    x[:, -1] = 1.001
     got = excess(x, slice(0, 4), np.empty_like(x), True)
     assert np.array_equal(got, np.expm1(0.3 * (x - 1.0)))
 

@@ -237,7 +237,8 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
     if narrowest is None:
         return [_Group(mid, half, *rules[0])]
     groups = []
-    kind = np.where(half <= 0, 2, np.where(2 * half <= NARROW_SHARE * narrowest, 1, 0))
+    # 2: empty, 1: narrow, 0: the full rule (an empty panel is narrow too)
+    kind = (half <= (0.5 * NARROW_SHARE) * narrowest).view(np.int8) + (half <= 0).view(np.int8)
     if bool(np.all(kind == kind[:1])):
         # the same rules in the same columns for every draw: a group per
         # column (the integrand's range per group is narrower, see
@@ -515,7 +516,11 @@ class _Block:
         d = self.params.shape[0]
         body, mass = np.zeros(d), np.zeros(d)
         tilted = None if self.kind == "bounded" else np.zeros(d)
-        scale = np.exp(self.std.log_norm(self.params))
+        log_norm = self.std.log_norm(self.params)
+        # one normaliser for all draws (the lognormal's): one exponential
+        shared = log_norm.shape[0] > 1 and log_norm.strides[0] == 0
+        scale = (np.broadcast_to(np.exp(log_norm[:1]), log_norm.shape) if shared
+                 else np.exp(log_norm))
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             for g in groups:
                 part = self._group_sums(f, g, scale)

@@ -36,6 +36,7 @@ from doseattr.core.attribution.engine import (
     expected_excess,
 )
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale, Scenario
+from doseattr.core.attribution.standard import standard_for
 from doseattr.core.curves.base import Curve, Growth, as_coef_draws
 from doseattr.core.curves.linear import RR_FLOOR, LinearExcess
 from doseattr.core.curves.loglinear import LogLinear
@@ -225,16 +226,29 @@ def _excess_m(curve: Curve, coef: FloatArray, m: FloatArray,
                 np.minimum(out, np.maximum(high - low, 0.0), out=out)
         out *= factor[rows, None]
         if exponential:
-            if out.min(initial=np.inf) >= _EXP_MINUS_ONE:
-                # exp(t) - 1 is within 3 units in the last place of expm1(t)
-                # here, and takes about two thirds of its time
-                np.exp(out, out=out)
-                out -= 1.0
-            else:
-                np.expm1(out, out=out)
+            _expm1_by_columns(out)
         return out
 
     return excess
+
+
+def _expm1_by_columns(t: FloatArray) -> None:
+    """``expm1(t)`` in place, as ``exp(t) - 1`` in the trailing columns of
+    ``t`` ``(r, N)`` where every value is at least ``ln 2`` (within 3 units
+    in the last place there, :data:`_EXP_MINUS_ONE`, for about two thirds
+    of expm1's time). The engine's columns are a panel's nodes in order, so
+    for a rising curve those columns are the panel's upper ones."""
+    ok = t.min(axis=0, initial=np.inf) >= _EXP_MINUS_ONE if t.shape[0] else np.zeros(0, bool)
+    first = t.shape[1] - int(np.argmin(ok[::-1])) if not ok.all() else 0
+    if first == t.shape[1] or not ok[first:].all():
+        np.expm1(t, out=t)
+        return
+    upper = t[:, first:]
+    np.exp(upper, out=upper)
+    upper -= 1.0
+    if first:
+        lower = t[:, :first]
+        np.expm1(lower, out=lower)
 
 
 def _growth(curve: Curve, coef: FloatArray, scenario: Scenario | None) -> Growth:
@@ -539,9 +553,10 @@ def _log_density_slopes(family: Family, params: FloatArray,
     p0, p1 = params[:, 0], params[:, 1]
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         if family.name == "lognormal":
-            s = np.log(p1)
+            # (ln GM, ln GSD), kept by the engine's standard for these draws
+            mu, s = (v[:, 0] for v in standard_for(family).affine(params))
             kap = 1.0 / (s * s)
-            return (np.log(p0) - t) * kap, kap
+            return (mu - t) * kap, kap
         if family.name == "gamma":
             e = np.exp(t) / p1
             return p0 - e, e

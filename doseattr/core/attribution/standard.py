@@ -187,7 +187,7 @@ class LogNormalStandard(Standard):
         return w
 
     def log_norm(self, params: FloatArray) -> FloatArray:
-        return np.full((params.shape[0], 1), -_LOG_SQRT_2PI)
+        return np.broadcast_to(-_LOG_SQRT_2PI, (params.shape[0], 1))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return w
@@ -225,7 +225,7 @@ class WeibullStandard(Standard):
         return w
 
     def log_norm(self, params: FloatArray) -> FloatArray:
-        return np.zeros((params.shape[0], 1))
+        return np.broadcast_to(0.0, (params.shape[0], 1))
 
     def zeta(self, w: FloatArray, params: FloatArray) -> FloatArray:
         return _weibull_zeta(w)
