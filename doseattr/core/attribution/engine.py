@@ -232,7 +232,8 @@ def _groups(edges: FloatArray, narrowest: FloatArray | None,
             rules: tuple[tuple[FloatArray, FloatArray], ...]) -> list[_Group]:
     """The panels between ``edges``, each given the full rule, or the narrow
     one where it is much narrower than the body's narrowest panel."""
-    half = 0.5 * np.diff(edges, axis=1)
+    half = np.subtract(edges[:, 1:], edges[:, :-1])
+    half *= 0.5
     mid = edges[:, :-1] + half
     if narrowest is None:
         return [_Group(mid, half, *rules[0])]
@@ -521,9 +522,10 @@ class _Block:
         shared = log_norm.shape[0] > 1 and log_norm.strides[0] == 0
         scale = (np.broadcast_to(np.exp(log_norm[:1]), log_norm.shape) if shared
                  else np.exp(log_norm))
+        fold = self.std.fold(self.params) if tilted is None else None
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             for g in groups:
-                part = self._group_sums(f, g, scale)
+                part = self._group_sums(f, g, scale, fold)
                 for total, p in zip((body, mass, tilted), part):
                     if total is None or p is None:
                         continue
@@ -534,9 +536,11 @@ class _Block:
                         total += np.bincount(g.draw, weights=p, minlength=d)
         return body, mass, tilted
 
-    def _group_sums(self, f: _Integrand, g: _Group, scale: FloatArray
+    def _group_sums(self, f: _Integrand, g: _Group, scale: FloatArray,
+                    fold: tuple[FloatArray, FloatArray, FloatArray] | None
                     ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
-        """A group's node sums per row: integrand, mass and tilt."""
+        """A group's node sums per row: integrand, mass and tilt (``fold``:
+        the standard's :meth:`~.Standard.fold` for the block, if any)."""
         g = _Group(np.asfortranarray(g.mid), np.asfortranarray(g.half), g.xi, g.wi, g.draw)
         r = g.mid.shape[0]
         body, mass = np.empty(r), np.empty(r)
@@ -551,7 +555,6 @@ class _Block:
         # so per-draw coefficients broadcast along whole rows
         buffers = [np.empty((n, step)).T for _ in range(5 if self.std.uses_exp_w else 4)]
         zeros, ones = np.zeros((step, 1)), np.ones((step, 1))
-        fold = self.std.fold(self.params) if tilted is None else None
         for lo in range(0, r, step):
             hi = min(r, lo + step)
             sub = slice(lo, hi)
