@@ -29,7 +29,7 @@ density from scipy.stats, the way a quick script is usually written); its
 time per integral is scaled from the sample.
 
 Usage:  python scripts/benchmark_engine.py [--draws 10000] [--strata 100]
-        [--other-strata 25] [--repeats 3] [--sample 40] [--stats-sample 3]
+        [--other-strata 25] [--repeats 5] [--sample 40] [--stats-sample 3]
         [--seed 1] [--cases general,steep-flat,gamma,weibull]
 """
 
@@ -241,7 +241,7 @@ def main() -> None:
     ap.add_argument("--draws", type=int, default=10_000)
     ap.add_argument("--strata", type=int, default=100, help="strata of the general case")
     ap.add_argument("--other-strata", type=int, default=25, help="strata of the other cases")
-    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--sample", type=int, default=40, help="integrals for the lean quad loop")
     ap.add_argument("--stats-sample", type=int, default=3, help="integrals for the scipy.stats loop")
     ap.add_argument("--seed", type=int, default=1)
