@@ -15,7 +15,8 @@ import math
 from collections.abc import Callable, Iterable
 from itertools import pairwise
 
-from scipy import integrate
+import numpy as np
+from scipy import integrate, stats
 
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale
 
@@ -150,3 +151,14 @@ def scenario_preimage(scenario, y: float) -> float:
     if isinstance(scenario, ReduceBy):
         return y + scenario.value
     return y
+
+
+def weibull_w_of_score(z: np.ndarray) -> np.ndarray:
+    """``w = ln E`` of a standard exponential ``E`` whose normal score is
+    ``z``, from scipy.stats: ``ln(-log1p(-Phi(z)))`` below the median,
+    ``ln(-ln Phi(-z))`` above (the tail that keeps precision)."""
+    lower = z <= 0
+    out = np.empty_like(z)
+    out[lower] = np.log(-np.log1p(-stats.norm.cdf(z[lower])))
+    out[~lower] = np.log(-stats.norm.logsf(z[~lower]))
+    return out
