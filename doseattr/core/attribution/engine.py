@@ -675,8 +675,8 @@ def _merged(body: FloatArray, cuts: FloatArray) -> FloatArray:
     if c * (2 * b + c - 1) // 2 > _INSERT_STEPS:
         return np.sort(np.concatenate([body, cuts], axis=1), axis=1)
     cols = np.concatenate([body, cuts], axis=1).T.copy()
-    for c in range(body.shape[1], cols.shape[0]):
-        for j in range(c, 0, -1):
+    for start in range(b, b + c):
+        for j in range(start, 0, -1):
             low = np.minimum(cols[j - 1], cols[j])
             np.maximum(cols[j - 1], cols[j], out=cols[j])
             cols[j - 1] = low

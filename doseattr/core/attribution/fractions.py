@@ -238,9 +238,10 @@ def _expm1_by_columns(t: FloatArray) -> None:
     in the last place there, :data:`_EXP_MINUS_ONE`, for about two thirds
     of expm1's time). The engine's columns are a panel's nodes in order, so
     for a rising curve those columns are the panel's upper ones."""
-    ok = t.min(axis=0, initial=np.inf) >= _EXP_MINUS_ONE if t.shape[0] else np.zeros(0, bool)
-    first = t.shape[1] - int(np.argmin(ok[::-1])) if not ok.all() else 0
-    if first == t.shape[1] or not ok[first:].all():
+    ok = t.min(axis=0, initial=np.inf) >= _EXP_MINUS_ONE
+    # the column after the last one holding a t below ln 2
+    first = 0 if ok.all() else t.shape[1] - int(np.argmin(ok[::-1]))
+    if first == t.shape[1]:
         np.expm1(t, out=t)
         return
     upper = t[:, first:]

@@ -411,17 +411,14 @@ class GammaStandard(Standard):
         :meth:`doseattr.core.exposure.gamma.Gamma.log_density_log`)."""
         k = params[:, :1]
         with np.errstate(over="ignore", invalid="ignore"):
-            if k.max(initial=0.0) <= DOSE_SHAPE:
+            fold = self.fold(params)
+            if fold is not None:
                 # e^v = x / (theta k): the doses' exponential serves; its
-                # rounding (a few units in the last place of 1) counts k-fold;
-                # the 1 of expm1 goes with v, in place in w:
-                # -k (x / (theta k) - (v + 1)) = (theta k (v + 1) - x) / theta
-                theta = params[:, 1:2]
-                w -= np.log(k) - 1.0
-                w *= theta * k
-                w -= x
-                w *= 1.0 / theta
-                return w
+                # rounding (a few units in the last place of 1) counts k-fold
+                shift, times, post = fold
+                w += shift
+                w *= times
+                return self.folded_kernel(w, x, post)
             w -= np.log(k)
             e = np.expm1(w)
         e -= w
