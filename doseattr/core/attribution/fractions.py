@@ -33,6 +33,7 @@ from doseattr.core.attribution.engine import (
     Excess,
     LogRisk,
     Rows,
+    columns,
     expected_excess,
 )
 from doseattr.core.attribution.scenarios import Cap, ReduceBy, Scale, Scenario
@@ -267,15 +268,15 @@ def _kinks(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario | N
     k = np.broadcast_to(k, (d, k.shape[-1]))
     flat = _flat_from(curve, scenario if isinstance(scenario, Cap) else None)
     graded = _graded_below_flat(curve, coef, flat, m, scenario, exposure)
-    points = np.concatenate([k, m[:, None], graded], axis=1)
+    points = columns(k, m[:, None], graded)
     start = m[:, None] if scenario is None else scenario.preimage(m[:, None])
     # a falling curve drops steeply from RR_m = 1 just above m's pre-image
     # (at the curve's rate in x: finer than needed under a scale)
     falling = _graded(_exp_rate(curve, -coef), start, (1,)) if curve.model.linear else None
     if scenario is not None:
         own = np.broadcast_to(scenario.own_kinks(), (d, scenario.own_kinks().size))
-        points = np.concatenate([scenario.preimage(points), own], axis=1)
-    return points if falling is None else np.concatenate([points, falling], axis=1)
+        points = columns(scenario.preimage(points), own)
+    return points if falling is None else columns(points, falling)
 
 
 def _flat_from(curve: Curve, scenario: Scenario | None) -> float | None:
@@ -500,7 +501,8 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
             break
         p = np.where(alive, span, p)
         cols.append(np.where(alive, p, 0.0))
-    return np.stack(cols, axis=1) if cols else np.zeros((d, 0))
+    # column-major, as the engine's kinks (engine.columns)
+    return np.stack(cols).T if cols else np.zeros((d, 0))
 
 
 def _density_slopes(exposure: tuple[Family, FloatArray], flat: float,
@@ -599,8 +601,7 @@ def _graded(rate: FloatArray, points: FloatArray, sides: tuple[int, ...],
         points = points[:, np.nonzero(keep)[0]]
     else:
         steps, points = steps.reshape(points.shape[0], -1), np.repeat(points, grades.size, axis=1)
-    parts = [points * np.exp(side * steps) for side in sides]
-    return np.concatenate(parts, axis=1)
+    return columns(*(points * np.exp(side * steps) for side in sides))
 
 
 def expected_rr(curve: Curve, exposure: Exposure | EmpiricalExposure, minimum_risk: float = 0.0,
