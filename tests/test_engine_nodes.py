@@ -9,7 +9,8 @@
   every ``t`` is at least ln 2: checked against ``numpy.expm1`` (at most 3
   units in the last place, the bound derived in ``fractions``), and
   ``expm1`` itself elsewhere.
-* ``engine._merged`` against ``numpy.sort`` (reference library).
+* ``engine._merged`` against ``numpy.sort`` and ``engine.columns`` against
+  ``numpy.concatenate`` (reference library).
 """
 
 from __future__ import annotations
@@ -125,3 +126,31 @@ def test_merged_matches_numpy_sort(body_cols, cuts):
         extra[1::7, -1] = -np.inf
     want = np.sort(np.concatenate([body, extra], axis=1), axis=1)
     assert np.array_equal(engine._merged(body, extra), want)
+
+
+@pytest.mark.parametrize("widths", [(1,), (2, 1), (1, 3, 0, 2)])
+def test_columns_are_numpy_concatenate_held_column_major(widths):
+    # reference: numpy.concatenate along the columns; the layout is what the
+    # engine relies on for speed (engine.columns)
+    rng = np.random.default_rng(sum(widths))
+    parts = [rng.normal(size=(30, k)) for k in widths]
+    parts[0] = np.asfortranarray(parts[0])
+    got = engine.columns(*parts)
+    assert np.array_equal(got, np.concatenate(parts, axis=1))
+    assert got.flags.f_contiguous
+
+
+def test_engine_values_do_not_depend_on_the_columns_layout():
+    # the same kinks given row-major and column-major: the same integrals
+    # (elementwise operations, and reductions whose order the layout keeps)
+    fam = FAMILIES["lognormal"]
+    rng = np.random.default_rng(3)
+    params = np.column_stack([rng.uniform(2, 20, 64), rng.uniform(1.5, 3, 64)])
+    curve = Curve(LogLinear(), np.array([0.4]), np.array([[0.0004]]), max_dose=30.0)
+    kinks = np.ascontiguousarray(np.column_stack([np.full(64, 8.0), rng.uniform(3, 25, 64)]))
+    args = dict(growth=curve.growth(curve.coef), flat_from=30.0, zero_below=2.0)
+    log_rr = fractions._log_rr_m(curve, np.broadcast_to(curve.coef, (64, 1)),
+                                 np.full(64, 2.0), None)
+    rows = engine.expected_excess(log_rr, fam, params, kinks=kinks, **args)
+    cols = engine.expected_excess(log_rr, fam, params, kinks=np.asfortranarray(kinks), **args)
+    assert np.array_equal(rows, cols)

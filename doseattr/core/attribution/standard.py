@@ -504,7 +504,7 @@ class GammaStandard(Standard):
         """Narrower panels for a small shape, whose density in ``w`` has a
         long exponential lower tail (rate ``k``) ending at ``w`` near 0."""
         k = params[:, :1]
-        return cast(FloatArray, self.width * np.sqrt(np.minimum(1.0, k / 0.35)).clip(0.05))
+        return cast(FloatArray, self.width * np.maximum(np.sqrt(np.minimum(1.0, k / 0.35)), 0.05))
 
     def extra_breaks(self, params: FloatArray) -> FloatArray:
         """For a shape below SMALL_SHAPE the density of ``w`` turns from ``e^{kw}`` to
@@ -512,7 +512,8 @@ class GammaStandard(Standard):
         small = params[:, :1] < SMALL_SHAPE
         if not small.any():
             return np.zeros((params.shape[0], 0))
-        return cast(FloatArray, np.where(small, _SMALL_SHAPE_BREAKS, -np.inf))
+        # column-major, as the engine's per-draw columns
+        return cast(FloatArray, np.where(small.T, _SMALL_SHAPE_BREAKS[:, None], -np.inf).T)
 
 
 def standard_for(family: Family) -> Standard:
