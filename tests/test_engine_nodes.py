@@ -6,9 +6,9 @@
   exact and windows cut at the body, where the gamma family's map from the
   normal score to ``w`` is interpolated.
 * The log-linear excess takes ``exp(t) - 1`` in the trailing columns where
-  every ``t`` is at least ln 2: checked against ``numpy.expm1`` (at most 3
-  units in the last place, the bound derived in ``fractions``), and
-  ``expm1`` itself elsewhere.
+  every ``t`` is at least 1/16: checked against ``numpy.expm1`` (at most
+  17 x 2^-52 relative, the bound derived in ``fractions``), and ``expm1``
+  itself elsewhere.
 * ``engine._merged`` against ``numpy.sort`` and ``engine.columns`` against
   ``numpy.concatenate`` (reference library).
 """
@@ -90,26 +90,31 @@ def test_gamma_window_cut_at_the_body_stays_below_the_flat_point(monkeypatch, k,
     assert doses.max() <= top * (1 + 1e-12)
 
 
-def test_exp_minus_one_within_three_ulps_of_expm1():
-    """The log-linear excess at t >= ln 2 everywhere against numpy.expm1."""
+def test_exp_minus_one_within_its_bound_of_expm1():
+    """The log-linear excess at t >= 1/16 everywhere against numpy.expm1,
+    within the bound derived in fractions (17 x 2^-52 relative)."""
+    bound = fractions.EXP_MINUS_ONE_ERROR
+    assert bound == 17 * 2.0**-52
     curve = Curve(LogLinear(), np.array([0.3]), np.eye(1), max_dose=400.0)
     coef = np.full((4, 1), 0.3)
     excess = fractions._excess_m(curve, coef, np.full(4, 1.0), None)
     assert excess is not None
     rng = np.random.default_rng(5)
-    # t = 0.3 (x - 1) from ln 2 to 100
-    x = 1.0 + rng.uniform(np.log(2.0), 100.0, (4, 500)) / 0.3
+    # t = 0.3 (x - 1) from 1/16 to 100, most of them near 1/16 where the
+    # bound is tightest
+    t = np.concatenate([1 / 16 + rng.exponential(0.05, (4, 400)),
+                        rng.uniform(1 / 16, 100.0, (4, 100))], axis=1)
+    x = 1.0 + t / 0.3
     got = excess(x, slice(0, 4), np.empty_like(x), True)
     want = np.expm1(0.3 * (x - 1.0))
-    ulps = np.abs(got - want) / np.spacing(want)
-    assert ulps.max() <= 3.0
-    # a column with a t below ln 2: expm1 itself there and in the columns
+    assert (np.abs(got / want - 1.0)).max() <= bound
+    # a column with a t below 1/16: expm1 itself there and in the columns
     # before it, exp(t) - 1 only in the columns after it
-    x[0, 7] = 1.001
+    x[0, 7] = 1.0 + 0.06 / 0.3
     got = excess(x, slice(0, 4), np.empty_like(x), True)
     want = np.expm1(0.3 * (x - 1.0))
     assert np.array_equal(got[:, :8], want[:, :8])
-    assert (np.abs(got - want) / np.spacing(want)).max() <= 3.0
+    assert (np.abs(got / want - 1.0)).max() <= bound
     x[:, -1] = 1.001
     got = excess(x, slice(0, 4), np.empty_like(x), True)
     assert np.array_equal(got, np.expm1(0.3 * (x - 1.0)))

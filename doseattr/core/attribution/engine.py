@@ -97,10 +97,13 @@ LOG_DOSE_WIDTH = 4.0
 _LOG_DOSE_RANGE = (-745.0, 710.0)
 #: Most equal-score panels in a window.
 MAX_PANELS = 48
-#: About this many (draw x node) values are evaluated at once.
-CHUNK_VALUES = 65_536
 #: Draws whose windows and panels are placed at once.
 BLOCK_DRAWS = 16_384
+#: About this many (draw x node) values are evaluated at once: a block's
+#: panels of the full rule in one chunk (2 MiB a buffer, the few buffers
+#: within the last-level cache; smaller chunks paid more in numpy calls per
+#: value than they gained from the second-level cache, see DEVELOPERS.md).
+CHUNK_VALUES = NODES * BLOCK_DRAWS
 #: Runs of draws integrated again up to a far flat point when one needs it.
 REDO_DRAWS = 512
 #: Largest expm1(L) taken directly at the nodes (its product with a

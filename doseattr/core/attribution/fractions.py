@@ -167,11 +167,18 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
     return log_rr
 
 
-#: Smallest log RR at every node for which :func:`_excess_m` forms the excess
-#: as ``exp(t) - 1``: with ``e^t >= 2`` the exponential's rounding (one unit
-#: in the last place of ``e^t``) and the subtraction's stay within 3 units
-#: of ``e^t - 1`` (derived here).
-_EXP_MINUS_ONE = float(np.log(2.0))
+#: Smallest log RR at every node of a column for which :func:`_excess_m`
+#: forms the excess as ``exp(t) - 1`` (derived here): with the exponential's
+#: result :math:`e^t (1 + \delta)`, :math:`|\delta| \le 2^{-52}` (under one
+#: unit in the last place), and the subtraction's rounding (none while
+#: :math:`e^t \le 2`, by Sterbenz's lemma; at most :math:`2^{-53}` above), the
+#: relative error in :math:`e^t - 1` is at most
+#: :math:`2^{-52} / (1 - e^{-t}) + 2^{-53}`: for :math:`t \ge 1/16`,
+#: 17 x 2^-52 (about 3.8e-15). The values' errors have one sign's bound, so
+#: the panel sums keep it.
+_EXP_MINUS_ONE = 1.0 / 16.0
+#: That bound, relative (:data:`_EXP_MINUS_ONE`).
+EXP_MINUS_ONE_ERROR = 17 * 2.0**-52
 
 
 def _excess_m(curve: Curve, coef: FloatArray, m: FloatArray,
@@ -235,12 +242,13 @@ def _excess_m(curve: Curve, coef: FloatArray, m: FloatArray,
 
 def _expm1_by_columns(t: FloatArray) -> None:
     """``expm1(t)`` in place, as ``exp(t) - 1`` in the trailing columns of
-    ``t`` ``(r, N)`` where every value is at least ``ln 2`` (within 3 units
-    in the last place there, :data:`_EXP_MINUS_ONE`, for about two thirds
-    of expm1's time). The engine's columns are a panel's nodes in order, so
-    for a rising curve those columns are the panel's upper ones."""
+    ``t`` ``(r, N)`` where every value is at least 1/16 (within
+    :data:`EXP_MINUS_ONE_ERROR` relative there, :data:`_EXP_MINUS_ONE`; for
+    about two thirds of expm1's time). The engine's columns are a panel's
+    nodes in order, so for a rising curve those columns are the panel's
+    upper ones."""
     ok = t.min(axis=0, initial=np.inf) >= _EXP_MINUS_ONE
-    # the column after the last one holding a t below ln 2
+    # the column after the last one holding a t below 1/16
     first = 0 if ok.all() else t.shape[1] - int(np.argmin(ok[::-1]))
     if first == t.shape[1]:
         np.expm1(t, out=t)
@@ -470,6 +478,8 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
             np.minimum(phi, 0.0, out=phi)
             # the curve's factor has flattened out: the body's panels take over
             alive &= ce >= 1.0
+            if not alive.any():
+                break
         net = ce + lin
         r = np.abs(net)
         np.maximum(r, ce, out=r)
