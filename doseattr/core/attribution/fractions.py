@@ -460,6 +460,8 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
     log_layer = np.log(np.maximum(np.maximum(cd + lam, np.sqrt(cd + np.abs(kap))), 1.0))
     top_j = (np.log(GRADE_TOL) - _LOG_T0) / _LOG_T_STEP
     nt = _TOL_GRID.size
+    # the first panel's share of the layer is 1 (ln a >= ln max(net, 1) at p = 0)
+    first_j = int(min(top_j, nt - 1))
     p = np.zeros(d)
     alive = cd > 1.0
     cols = []
@@ -485,20 +487,14 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
         np.maximum(r, ce, out=r)
         r += root
         np.maximum(r, _R_GRID[0], out=r)
-        np.maximum(net, 1.0, out=net)
-        # ln(omega) = phi + ln a - ln max(net, 1), at most 0
-        log_share = np.log(net)
-        np.subtract(phi, log_share, out=log_share)
-        log_share += log_layer
-        np.minimum(log_share, 0.0, out=log_share)
-        j = top_j - log_share * (1 / _LOG_T_STEP)
-        np.minimum(j, nt - 1, out=j)
         i = np.log(r)
         i -= _LOG_R0
         i *= 1 / _LOG_R_STEP
         np.minimum(i, _R_GRID.size - 1, out=i)
         # floors: the grid's rate and tolerance at or below the draw's
-        k = i.astype(np.intp) * nt + j.astype(np.intp)
+        k = i.astype(np.intp)
+        k *= nt
+        k += first_j if n == 0 else _tolerance_index(net, phi, log_layer, top_j, nt)
         span = t16[k]
         # the 8-node rule where the panel, or the rest of the window, is narrow
         narrow = (span < wide * r) | (end - p < wide)
@@ -513,6 +509,21 @@ def _breaks(cd: FloatArray, lam: FloatArray, kap: FloatArray, wide: FloatArray,
         cols.append(np.where(alive, p, 0.0))
     # column-major, as the engine's kinks (engine.columns)
     return np.stack(cols).T if cols else np.zeros((d, 0))
+
+
+def _tolerance_index(net: FloatArray, phi: FloatArray, log_layer: FloatArray, top_j: float,
+                     nt: int) -> NDArray[np.intp]:
+    r"""The floor of a panel's index in the tolerance grid of
+    :func:`_capacity_tables`, from :math:`\ln\omega = \min(\varphi + \ln a
+    - \ln\max(net, 1), 0)` (:func:`_breaks`; ``net`` is overwritten)."""
+    np.maximum(net, 1.0, out=net)
+    log_share = np.log(net)
+    np.subtract(phi, log_share, out=log_share)
+    log_share += log_layer
+    np.minimum(log_share, 0.0, out=log_share)
+    j = top_j - log_share * (1 / _LOG_T_STEP)
+    np.minimum(j, nt - 1, out=j)
+    return j.astype(np.intp)
 
 
 def _density_slopes(exposure: tuple[Family, FloatArray], flat: float,
