@@ -31,7 +31,7 @@ from the tail probability. The window :math:`[w_0, w^*]` is cut
 and each panel gets a Gauss-Legendre rule (:func:`_legendre`):
 16 nodes, or 8 on a panel much narrower than the body's. No node falls where
 the integrand is zero or constant. Every draw's panels depend on that draw
-alone, so a draw gives the same result in any chunk; where draws have
+alone, so a draw gives the same result in any chunk (to rounding); where draws have
 different numbers of panels in a group, each panel is a row of its own
 (no empty panels are evaluated), and the rows' sums go to their draws. Windows and panels are placed for blocks of
 :data:`BLOCK_DRAWS` draws at once; the nodes are evaluated in chunks of about
