@@ -209,15 +209,19 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
     from doseattr.analysis.provenance import input_signatures, protected_paths
     from doseattr.outputs.write import check_destination, out_location, write_outputs
 
+    def listen(name: str) -> None:
+        _check_stopped()
+        clock.callback(name)
+
     def stage(name: str) -> None:
         show_stage(name, not quiet)
-        clock.callback(name)
+        listen(name)
 
     clock.enter(PROFILE_READING)
     analysis = _load(path, scheduler)
     check_destination(out, protected_paths(analysis))  # before minutes of computing
     read = provenance_now(analysis, input_signatures(analysis))  # large files hash meanwhile
-    with warnings.catch_warnings(record=True) as caught, stage_listener(clock.callback):
+    with warnings.catch_warnings(record=True) as caught, stage_listener(listen):
         # our own lines rather than Python's: as they arise, and again at the
         # end with --quiet (they may change a decision)
         warnings.simplefilter("always", DoseattrWarning)
@@ -226,6 +230,7 @@ def _run(path: str, out: str, *, quiet: bool, command: list[str],
         stage("fitting")
         results = run_analysis(analysis, progress=not quiet)
     clock.enter(PROFILE_FILES)
+    _check_stopped()
     _same_inputs(read, provenance_now(analysis, input_signatures(analysis)), path)
     _same_inputs(read, (results.provenance.get("analysis_sha256", read[0]), {}), path)
     try:
@@ -310,6 +315,7 @@ def _stop_on_signals() -> Iterator[None]:
         yield
         return
     previous = {}
+    _STOPPED.clear()
     for name in STOP_SIGNALS:
         signum = getattr(signal, name)
         previous[signum] = signal.signal(signum, _raise_stopped)
@@ -320,8 +326,24 @@ def _stop_on_signals() -> Iterator[None]:
             signal.signal(signum, handler)
 
 
+#: The signals whose handler has run inside :func:`_stop_on_signals`. Python
+#: ignores an exception raised where it cannot propagate (a weakref callback
+#: or ``__del__`` running when the signal arrives, which a run with a Dask
+#: scheduler does often), so the stop is raised again at the next stage
+#: (:func:`_check_stopped`).
+_STOPPED: list[int] = []
+
+
 def _raise_stopped(signum: int, frame: object) -> None:
+    _STOPPED.append(signum)
     raise Stopped(signum)
+
+
+def _check_stopped() -> None:
+    """Raise :class:`Stopped` if a signal's handler has run (its own
+    exception may have been ignored)."""
+    if _STOPPED:
+        raise Stopped(_STOPPED[0])
 
 
 def _demo_file():

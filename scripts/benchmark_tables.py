@@ -1,6 +1,6 @@
 """Benchmark: doseattr's measurement-table reader against ``pandas.read_csv``.
 
-Inputs are generated here (not data), seeded, under a temporary folder. Two
+Inputs are generated here (not data), seeded, under a temporary folder. Three
 shapes of CSV file, ``--rows`` data rows each, after two comment lines:
 
 * ``measurements``: what users give for personal or site samples:
@@ -8,7 +8,9 @@ shapes of CSV file, ``--rows`` data rows each, after two comment lines:
   workers, lognormal values written with 4 significant digits, 5 % of
   them non-detects written ``<L`` (``detected`` false), the rest
   ``detected`` true, and integer weights 1 to 50;
-* ``numeric``: the plain numeric table ``value,weight``.
+* ``numeric``: the plain numeric table ``value,weight``;
+* ``quoted``: ``measurements`` with its site and worker cells in quotes, as
+  spreadsheet programs export text cells.
 
 Each reader runs in its own Python process (so that each peak is its own):
 CPU time (``time.process_time``) of one call, the best of ``--repeats``;
@@ -24,7 +26,7 @@ and ``read_raw`` (the table's text cells and row numbers only);
 otherwise its defaults. The ratio is doseattr's CPU time over pandas'.
 
 Usage:  python scripts/benchmark_tables.py [--rows 1000000] [--repeats 3]
-        [--shapes measurements,numeric] [--seed 1] [--keep FOLDER]
+        [--shapes measurements,numeric,quoted] [--seed 1] [--keep FOLDER]
 """
 
 from __future__ import annotations
@@ -40,7 +42,7 @@ from pathlib import Path
 
 import numpy as np
 
-SHAPES = ("measurements", "numeric")
+SHAPES = ("measurements", "numeric", "quoted")
 READERS = ("doseattr", "doseattr-raw", "pandas")
 # this checkout's doseattr, not whichever one the environment has installed
 ROOT = str(Path(__file__).resolve().parents[1])
@@ -65,6 +67,8 @@ def write_table(path: Path, shape: str, rows: int, seed: int) -> None:
         detected = np.where(below, "false", "true")
         site = np.char.add("S", rng.integers(1, 61, rows).astype(str))
         worker = np.char.add("W", rng.integers(1, 2001, rows).astype(str))
+        if shape == "quoted":
+            site, worker = (np.char.add(np.char.add('"', c), '"') for c in (site, worker))
         body = site
         for column in (worker, text, detected, weights.astype(str)):
             body = np.char.add(np.char.add(body, ","), column)

@@ -81,3 +81,38 @@ def test_signal_mid_run(previous_run, signum, code):
     assert "Traceback" not in stderr and stdout == ""
     assert _snapshot(out) == before
     assert sorted(p.name for p in out.parent.iterdir()) == ["out"]  # no hidden folder
+
+
+@pytest.mark.filterwarnings("ignore::pytest.PytestUnraisableExceptionWarning")
+def test_a_stop_whose_exception_python_ignored_still_stops_the_run(tmp_path, capsys):
+    """A signal that arrives while a weakref callback runs: Python prints
+    "Exception ignored" and goes on (seen in CI with the Dask scheduler),
+    so the stop is raised again at the next stage. Simulated by calling the
+    handler from a weakref callback as the draws begin."""
+    import weakref
+
+    from doseattr import cli
+    from doseattr.analysis import progress
+
+    path = _case(tmp_path / "case", 200)
+    out = tmp_path / "work" / "out"
+    out.parent.mkdir()
+
+    class Thing:
+        pass
+
+    fired: list[weakref.ref] = []
+
+    def on_stage(name: str) -> None:
+        if name == "draws" and not fired:
+            thing = Thing()
+            fired.append(weakref.ref(thing, lambda ref: cli._raise_stopped(signal.SIGTERM, None)))
+            del thing  # the callback runs here; its exception is ignored
+
+    with progress.stage_listener(on_stage):
+        code = cli.main(["run", str(path), "--out", str(out), "--quiet"])
+    assert fired, "the draws stage never began"
+    assert code == 143
+    assert capsys.readouterr().err.endswith(
+        "doseattr: stopped by SIGTERM; no partial outputs were left\n")
+    assert not out.exists() and sorted(p.name for p in out.parent.iterdir()) == []

@@ -146,6 +146,59 @@ def test_variants_read_as_line_by_line(tmp_path, monkeypatch, variant):
         assert {"W<2", "<W2"} & set(columns.worker.tolist())  # the text as written
 
 
+QUOTED = {
+    # whole cells in quotes: read column by column
+    "text": ('S1,W1,12.5', '"S1","W 1",12.5'),
+    "numbers": ('S2,W1,9.25,TRUE,2', 'S2,W1,"9.25","TRUE","2"'),
+    "empty and spaced": ('S3,W4,3.75', '"S3",""" W4""",3.75'.replace('"""', '"')),
+    "crlf": ('S1,W2', '"S1","W2"'),
+    "quoted non-detect": ('S1,W2,<0.5', 'S1,"W2","<0.5"'),
+    "non-detect beside quotes": ('S1,W2,<0.5', '"S1","W2",<0.5'),
+    "header": ('site,worker', '"site","worker"'),
+}
+#: Quotes that take the line-by-line reading (csv module rules the cells).
+QUOTED_BY_ROWS = {
+    "delimiter inside": ('S3,W4,3.75', '"S3,x",W4,3.75'),
+    "doubled quote": ('S3,W4', '"S""3",W4'),
+    "text after quote": ('S3,W4', '"S3"x,W4'),
+    "quote inside cell": ('S3,W4', 'S"3",W4'),
+    "space before quote": ('S3,W4', ' "S3",W4'),
+    "lone quote": ('S3,W4', '"S3,W4'),
+}
+
+
+@pytest.mark.parametrize("case", sorted(QUOTED))
+def test_quoted_cells_read_by_columns(tmp_path, monkeypatch, case):
+    """Quotes around whole cells: the values of Python's csv module reading
+    the same file (reference library), by columns."""
+    old, new = QUOTED[case]
+    text = MEASURED.replace(old, new)
+    if case == "crlf":
+        text = text.replace("\n", "\r\n")
+    assert text != MEASURED
+    path = _write(tmp_path, text)
+    columns, lines, by_columns = _both(monkeypatch, path)
+    assert by_columns
+    assert not isinstance(lines, str), lines
+    _same_measurements(columns, lines)
+    rows = [(i, c) for i, c in _expected(path) if float(c[4]) > 0]  # csv module, float()
+    np.testing.assert_array_equal(columns.worker, [c[1] for _, c in rows])
+    np.testing.assert_array_equal(columns.values, [float(c[2].lstrip("<")) for _, c in rows])
+
+
+@pytest.mark.parametrize("case", sorted(QUOTED_BY_ROWS))
+def test_other_quotes_read_line_by_line(tmp_path, monkeypatch, case):
+    old, new = QUOTED_BY_ROWS[case]
+    text = MEASURED.replace(old, new)
+    assert text != MEASURED
+    path = _write(tmp_path, text)
+    columns, lines, by_columns = _both(monkeypatch, path)
+    assert not by_columns
+    assert columns == lines if isinstance(lines, str) else not isinstance(columns, str)
+    if not isinstance(lines, str):
+        _same_measurements(columns, lines)
+
+
 def test_numbers_round_as_python_float(tmp_path, monkeypatch):
     """Decimal texts of 15 to 20 digits read as Python's float() reads them
     (correctly rounded); simulation, seeded."""

@@ -19,8 +19,9 @@ Cells that hold numbers are written as ``repr`` of the float (which reads
 back exactly), dates as ISO dates, missing values as empty cells.
 
 A large plain text table (at least :data:`COLUMNAR_MIN_BYTES`, with ASCII
-data rows, no quotes, no comment or blank lines between data rows and
-every row as wide as the header) is read column by column with pandas' C
+data rows, quotes only around whole cells with no delimiter or line break
+inside, no comment or blank lines between data rows and every row as wide
+as the header) is read column by column with pandas' C
 tokenizer (:func:`columnar_grid`); any other text table, and any table
 whose columnar reading finds something unusual, is read line by line with
 :mod:`csv`. Both give the same cells, row numbers and messages.
@@ -62,8 +63,9 @@ COLUMNAR_DELIMITERS = (",", ";", "\t", "|")
 #: Lines searched for the header before a table is read line by line.
 HEADER_SEARCH_LINES = 64
 #: The bytes data rows read column by column may hold: printable ASCII
-#: but quotes, tab, line feed and carriage return (other control
-#: characters break lines for :meth:`str.splitlines` or are stripped).
+#: but quotes (allowed around whole cells, :func:`_whole_cell_quotes`), tab,
+#: line feed and carriage return (other control characters break lines for
+#: :meth:`str.splitlines` or are stripped).
 _PLAIN = bytes([9, 10, 13, *range(0x20, 0x7f)]).replace(b'"', b"")
 _COMMENT_LINE = re.compile(rb"(?:^|\n)[ \t]*#")
 
@@ -347,11 +349,12 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
 
     The header and the comment lines above it are read as text in the
     table's encoding; the data rows after it must be ASCII (the same text
-    in every ASCII-compatible encoding) without quotes, control
-    characters, lone carriage returns or comment lines, with as many
-    delimiters on each line as the header has, so that each line is one
-    row and each delimiter ends one cell, as :mod:`csv` splits them. Rows
-    whose every cell is empty are left out as blank lines are.
+    in every ASCII-compatible encoding) without control characters, lone
+    carriage returns or comment lines, with quotes only around whole cells
+    holding no delimiter, line break or quote (:func:`_whole_cell_quotes`),
+    with as many delimiters on each line as the header has, so that each
+    line is one row and each delimiter ends one cell, as :mod:`csv` splits
+    them. Rows whose every cell is empty are left out as blank lines are.
 
     When every ``<`` in the data rows starts a cell, pandas reads them
     without it, so that ``<0.05`` reads as a number, and :class:`Columns`
@@ -368,7 +371,10 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
         stop -= 1
     body = data[end:stop]
     width = len(header)
-    if not body or not _plain(body):
+    quoted = b'"' in body
+    if not body or not _plain(body, quoted):
+        return None
+    if quoted and not _whole_cell_quotes(body, delimiter):
         return None
     marks: dict[int, NDArray[np.bool_]] | None = None
     if options.decimal == "." and b"<" in body:
@@ -381,7 +387,7 @@ def columnar_grid(data: bytes, source: str, options: TableOptions,
         n, count = body.count(b"\n") + 1, body.count(delimiter.encode())
     if count != n * (width - 1):
         return None
-    read = _frame_reader(delimiter, options.decimal)
+    read = _frame_reader(delimiter, options.decimal, quoted)
     try:
         frame = read(body if not marks else body.replace(b"<", b""), None)
     except Exception:  # pandas' parser errors: the line-by-line reading words them
@@ -500,12 +506,35 @@ def _header_line(data: bytes, encoding: str, delimiter: str,
     return None
 
 
-def _plain(body: bytes) -> bool:
-    if body.translate(None, _PLAIN):
+def _plain(body: bytes, quoted: bool = False) -> bool:
+    if body.translate(None, _PLAIN + b'"' if quoted else _PLAIN):
         return False
     if b"\r" in body and body.count(b"\r") != body.count(b"\r\n"):
         return False
     return not (b"#" in body and _COMMENT_LINE.search(body))
+
+
+def _whole_cell_quotes(body: bytes, delimiter: str) -> bool:
+    """Whether every quote in the data rows opens or closes a whole cell
+    (right after a delimiter or line break, or right before one) and the
+    quoted text holds no delimiter, line break, carriage return or quote:
+    then :mod:`csv` and pandas both take the pair off and nothing else
+    (doubled quotes, quoted delimiters or line breaks, text before an
+    opening quote take the line-by-line reading)."""
+    codes = np.frombuffer(body, dtype=np.uint8)
+    is_quote = codes == ord('"')
+    ends = (codes == ord(delimiter)) | (codes == ord("\n"))
+    # quotes, delimiters and line breaks in order: a pair of quotes must be
+    # next to each other among them
+    events = np.flatnonzero(ends | is_quote | (codes == ord("\r")))
+    pairs = np.flatnonzero(is_quote[events])
+    if pairs.size % 2 or not np.array_equal(pairs[1::2], pairs[0::2] + 1):
+        return False
+    opens, closes = events[pairs[0::2]], events[pairs[1::2]]
+    if not np.all((opens == 0) | ends[np.maximum(opens - 1, 0)]):
+        return False
+    after = np.minimum(closes + 1, codes.size - 1)
+    return bool(np.all((closes == codes.size - 1) | ends[after] | (codes[after] == ord("\r"))))
 
 
 def _edge_space(body: bytes, delimiter: str) -> bool:
@@ -514,9 +543,11 @@ def _edge_space(body: bytes, delimiter: str) -> bool:
     return b" " in body or (delimiter != "\t" and b"\t" in body)
 
 
-def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None], Any]:
+def _frame_reader(delimiter: str, decimal: str,
+                  quoted: bool = False) -> Callable[[bytes, int | None], Any]:
     """Read data rows with pandas: every column (numbers where pandas reads
-    every cell of a column as one), or column ``j`` as text."""
+    every cell of a column as one), or column ``j`` as text; with ``quoted``,
+    a quote pair around a cell is taken off (:func:`_whole_cell_quotes`)."""
     import csv
     import io
     import warnings
@@ -533,7 +564,8 @@ def _frame_reader(delimiter: str, decimal: str) -> Callable[[bytes, int | None],
         options = dict(sep=delimiter, header=None, engine="c",
                        dtype=object if as_text else None,
                        usecols=None if j is None else [j], na_filter=False,
-                       keep_default_na=False, skip_blank_lines=False, quoting=csv.QUOTE_NONE,
+                       keep_default_na=False, skip_blank_lines=False,
+                       quoting=csv.QUOTE_MINIMAL if quoted else csv.QUOTE_NONE,
                        encoding="ascii", **({} if as_text else exact))
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", pd.errors.DtypeWarning)
