@@ -174,8 +174,8 @@ def _log_rr_m(curve: Curve, coef: FloatArray, m: FloatArray, scenario: Scenario 
 #: :math:`e^t \le 2`, by Sterbenz's lemma; at most :math:`2^{-53}` above), the
 #: relative error in :math:`e^t - 1` is at most
 #: :math:`2^{-52} / (1 - e^{-t}) + 2^{-53}`: for :math:`t \ge 1/16`,
-#: 17 x 2^-52 (about 3.8e-15). The values' errors have one sign's bound, so
-#: the panel sums keep it.
+#: 17 x 2^-52 (about 3.8e-15). These values are positive and so are the
+#: rule's weights, so a panel's sum keeps that relative bound.
 _EXP_MINUS_ONE = 1.0 / 16.0
 #: That bound, relative (:data:`_EXP_MINUS_ONE`).
 EXP_MINUS_ONE_ERROR = 17 * 2.0**-52
